@@ -1,0 +1,1 @@
+"""Bundled study files (the demo study)."""

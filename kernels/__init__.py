@@ -1,0 +1,7 @@
+"""luxsweep numerical kernels: arrays in, arrays out (no Dask, no result stores).
+
+Modules: climate, sun, sky, geometry, raytrace, glazing, transfer, coefficients,
+timeseries, metrics.
+"""
+
+KERNEL_VERSION = "1"

@@ -1,0 +1,3 @@
+"""luxsweep orchestration: study files, variants, cache, Dask execution, results, ranking."""
+
+__version__ = "0.1.0"

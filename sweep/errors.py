@@ -1,0 +1,33 @@
+"""The error hierarchy of luxsweep's orchestration layer.
+
+Every error a user can fix is a :class:`LuxsweepError` that also inherits the
+matching builtin, so callers may catch either. The command line maps
+:class:`UserInputError` (and the kernels' :class:`kernels.errors.InputError`) to
+exit status 2 with one message, and everything else to exit status 1.
+"""
+
+from __future__ import annotations
+
+
+class LuxsweepError(Exception):
+    """Base class of luxsweep's own errors."""
+
+
+class UserInputError(LuxsweepError, ValueError):
+    """Bad input that the user can fix (study file, arguments, paths)."""
+
+
+class StudyFileError(UserInputError):
+    """The study file is invalid: names the file, key path, line and a fix."""
+
+
+class ResultsStoreError(UserInputError):
+    """A results store cannot be used (belongs to another study, damaged)."""
+
+
+class CacheIntegrityError(LuxsweepError, OSError):
+    """A cache entry is incomplete or fails its checksum (treated as a miss)."""
+
+
+class VariantFailedError(LuxsweepError, RuntimeError):
+    """One or more variants failed; the message names their ids."""
