@@ -1,15 +1,46 @@
-"""Command line: ``luxsweep``.
+"""Command line: ``luxsweep`` (CONTRACT.md §2).
 
-Subcommands are registered by the modules that implement them; each appears only
-once it works end to end.
+Commands: ``demo``, ``check``, ``plan``, ``run`` and, when their modules are
+present, ``rank`` and ``report``. Exit status 0 on success, 2 for bad input
+(:class:`sweep.errors.UserInputError`, :class:`kernels.errors.InputError`,
+argument errors) with one message on stderr and no traceback unless ``--debug``,
+1 for any other failure. Every input is validated before a cluster starts.
 """
 
 from __future__ import annotations
 
 import argparse
+import importlib
+import importlib.util
+import json
+import logging
 import sys
+import warnings
+from collections.abc import Callable
+from typing import Any
 
 from sweep import __version__
+
+
+def _positive_int(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"must be at least 1, got {value}")
+    return value
+
+
+def _optional_command(module: str, function: str) -> Callable[..., int] | None:
+    """``sweep.<module>.<function>`` when that module exists and defines it."""
+    if importlib.util.find_spec(f"sweep.{module}") is None:
+        return None
+    try:
+        mod = importlib.import_module(f"sweep.{module}")
+    except ImportError:
+        return None
+    return getattr(mod, function, None)
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -23,17 +54,180 @@ def build_parser() -> argparse.ArgumentParser:
     )
     parser.add_argument("--version", action="version", version=f"luxsweep {__version__}")
     parser.add_argument("--debug", action="store_true", help="show tracebacks on errors")
-    parser.add_subparsers(dest="command", metavar="COMMAND")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+
+    p = sub.add_parser("demo", help="run the bundled demo study end to end")
+    p.add_argument("--out", default="luxsweep-demo", help="folder for the demo (default "
+                   "./luxsweep-demo)")
+    p.add_argument("--workers", type=_positive_int, default=None,
+                   help="worker processes (default: number of cores)")
+
+    p = sub.add_parser("check", help="validate a study file and every input it names")
+    p.add_argument("study", nargs="?", help="study file (YAML)")
+    p.add_argument("--schema", action="store_true",
+                   help="print the JSON Schema of study files and exit")
+
+    p = sub.add_parser("plan", help="variants, coefficient sets, cache hits, estimated cost")
+    p.add_argument("study", help="study file (YAML)")
+    p.add_argument("--json", action="store_true", help="print the plan as JSON")
+    p.add_argument("--cache", default=None, help="coefficient cache folder")
+
+    p = sub.add_parser("run", help="compute a study (resumes an interrupted run)")
+    p.add_argument("study", help="study file (YAML)")
+    p.add_argument("--out", default=None, help="results store (default <study folder>/"
+                   "<name>.zarr)")
+    p.add_argument("--workers", type=_positive_int, default=None,
+                   help="local worker processes (default: number of cores)")
+    p.add_argument("--scheduler", default=None,
+                   help="join the Dask cluster at this address or scheduler file")
+    p.add_argument("--cache", default=None, help="coefficient cache folder (default "
+                   "$LUXSWEEP_CACHE or <study folder>/.luxsweep-cache)")
+
+    if _optional_command("rank", "rank_command"):
+        p = sub.add_parser("rank", help="criteria, scores and ranking of a results store")
+        p.add_argument("results", help="results store (.zarr folder)")
+        p.add_argument("--top", type=_positive_int, default=None, help="show the best N")
+        p.add_argument("--csv", default=None, help="also write the table to this CSV file")
+    if _optional_command("report", "report_command"):
+        p = sub.add_parser("report", help="self-contained HTML report of a results store")
+        p.add_argument("results", help="results store (.zarr folder)")
+        p.add_argument("--html", default=None, help="output file (default beside the store)")
     return parser
 
 
+# ---------------------------------------------------------------------------
+# commands
+
+
+def cmd_check(args: argparse.Namespace) -> int:
+    from sweep.config import json_schema, load_study
+    from sweep.errors import UserInputError
+    from sweep.plan import make_plan
+
+    if args.schema:
+        print(json.dumps(json_schema(), indent=2))
+        return 0
+    if not args.study:
+        raise UserInputError("luxsweep check: give a study file (or --schema)")
+    loaded = load_study(args.study)
+    plan = make_plan(loaded, None)
+    print(f"{loaded.path}: ok — {len(plan.variants)} variants, {len(plan.jobs)} distinct "
+          f"geometries, {len({v.climate for v in plan.variants})} climates, axes: "
+          f"{', '.join(plan.axes) or '(none)'}")
+    return 0
+
+
+def cmd_plan(args: argparse.Namespace) -> int:
+    from sweep.cache import CoefficientCache
+    from sweep.config import load_study
+    from sweep.plan import make_plan
+    from sweep.run import default_cache
+
+    loaded = load_study(args.study)
+    cache = CoefficientCache(args.cache or default_cache(loaded))
+    plan = make_plan(loaded, cache)
+    if args.json:
+        print(json.dumps(plan.to_dict(), indent=1, default=str))
+        return 0
+    est = plan.estimate()
+    print(f"study {loaded.study.name} ({loaded.path})")
+    print(f"  variants: {est['variants']} over axes {', '.join(plan.axes) or '(none)'}")
+    print(f"  coefficient sets: {est['coefficient_sets']} ({est['cache_hits']} in the cache "
+          f"{cache.root}, {est['cache_misses']} to compute)")
+    print(f"  series tasks: {est['series_tasks']} (one per coefficient set and climate)")
+    for job in plan.jobs.values():
+        state = "cached" if job.cached else f"to compute, ~{job.rays / 1e6:.1f} M rays"
+        print(f"    {job.key[:16]}  {job.n_sensors} sensors, {len(job.variants)} variants, "
+              f"{state}")
+    print(f"  estimated work: {est['rays'] / 1e6:.1f} M rays, "
+          f"{est['gemm_flops'] / 1e9:.1f} GFLOP of matrix products, "
+          f"{est['bytes_written'] / 2**20:.1f} MiB written")
+    return 0
+
+
+def cmd_run(args: argparse.Namespace) -> int:
+    from sweep.run import format_summary, run_study, terminate_as_interrupt
+
+    with terminate_as_interrupt():
+        summary = run_study(args.study, args.out, workers=args.workers,
+                            scheduler=args.scheduler, cache_dir=args.cache)
+    print(format_summary(summary))
+    return 0 if summary.ok else 1
+
+
+def cmd_demo(args: argparse.Namespace) -> int:
+    from sweep.demo import run_demo
+
+    return run_demo(args.out, workers=args.workers)
+
+
+def cmd_rank(args: argparse.Namespace) -> int:
+    command = _optional_command("rank", "rank_command")
+    assert command is not None
+    return int(command(args.results, args.top, args.csv))
+
+
+def cmd_report(args: argparse.Namespace) -> int:
+    command = _optional_command("report", "report_command")
+    assert command is not None
+    return int(command(args.results, args.html))
+
+
+COMMANDS: dict[str, Callable[[argparse.Namespace], int]] = {
+    "demo": cmd_demo, "check": cmd_check, "plan": cmd_plan, "run": cmd_run,
+    "rank": cmd_rank, "report": cmd_report,
+}
+
+
+def _setup_output(debug: bool) -> None:
+    log = logging.getLogger("luxsweep")
+    if not log.handlers:
+        handler = logging.StreamHandler(sys.stderr)
+        handler.setFormatter(logging.Formatter("%(levelname)s: %(message)s"))
+        log.addHandler(handler)
+    log.setLevel(logging.DEBUG if debug else logging.INFO)
+    log.propagate = False
+    seen: set[str] = set()
+
+    def show(message: Any, category: type, filename: str, lineno: int, file: Any = None,
+             line: str | None = None) -> None:
+        text = str(message)
+        if text not in seen:
+            seen.add(text)
+            print(f"warning: {text}", file=sys.stderr)
+
+    if not debug:
+        warnings.showwarning = show  # type: ignore[assignment]
+
+
 def main(argv: list[str] | None = None) -> int:
+    from kernels.errors import InputError
+    from sweep.errors import UserInputError
+
     parser = build_parser()
     args = parser.parse_args(argv)
     if args.command is None:
         parser.print_help()
         return 0
-    return 0
+    _setup_output(args.debug)
+    try:
+        return COMMANDS[args.command](args)
+    except (UserInputError, InputError) as exc:
+        if args.debug:
+            raise
+        print(f"error: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        if args.debug:
+            raise
+        print("interrupted; run the same command again to resume", file=sys.stderr)
+        return 130
+    except Exception as exc:
+        if args.debug:
+            raise
+        print(f"error: {type(exc).__name__}: {exc} (run with --debug for the traceback)",
+              file=sys.stderr)
+        return 1
 
 
 if __name__ == "__main__":

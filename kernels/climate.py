@@ -1,0 +1,691 @@
+"""Weather files: hourly irradiance and illuminance of a typical year at a site.
+
+Two formats are read, each in two layers (public ``read_*`` opens the file,
+private ``_parse_*(text, source)`` parses the text):
+
+* EPW — the text weather format of the EnergyPlus building energy program
+  (U.S. DOE), one ``LOCATION`` line, seven more header lines and 35 comma
+  separated fields per hourly record;
+* TMY3 CSV — NREL's typical meteorological year 3 files (Wilcox & Marion,
+  2008): one metadata line, one column-name line, then 68 or 71 columns per
+  hourly record.
+
+Conventions (shared by both readers)
+------------------------------------
+* **Time stamps** are hour-ending, in local standard time (no daylight saving),
+  as both formats define them: the record stamped 12:00 holds the average over
+  11:00–12:00. The index is tz-aware with a fixed UTC offset from the header.
+* **Reference year.** Typical-year files stitch months from different years.
+  luxsweep places every file on the non-leap reference year
+  :data:`REFERENCE_YEAR` (2023): the first record is stamped
+  2023-01-01 01:00 and the last 2024-01-01 00:00, so every climate shares the
+  same 8,760 stamps and the same weekdays (2023-01-01 is a Sunday). The years
+  written in the file are ignored.
+* **Leap years.** Files with 8,784 hourly records (a leap year with February 29)
+  are accepted; the 24 records of February 29 are dropped, so a Climate always
+  holds 8,760 records. Daylight metrics over a year change by well under 1 % by
+  dropping one winter day.
+* **Missing values** are marked invalid in :attr:`Climate.valid` and set to NaN,
+  never read as data: EPW uses per-field sentinel values (9999 for irradiance,
+  999999 for illuminance, 99.9 for dew point — EnergyPlus Auxiliary Programs,
+  "Weather Converter Program", EPW data dictionary; from memory), TMY3 uses the
+  value -9900 and the source flag ``?`` (Wilcox & Marion 2008, section 1.3;
+  from memory).
+* **Implausible illuminance columns.** Some files carry illuminance columns
+  filled with zeros or in the wrong unit (pvlib's bundled Greensboro TMY3 file
+  holds them in units of 100 lx). A column whose median luminous efficacy
+  (illuminance / irradiance, over records with irradiance > 50 W/m²) lies
+  outside 50–250 lm/W is marked invalid as a whole, with a warning; downstream
+  the Perez et al. (1990) efficacy model then converts irradiance. Daylight
+  efficacies lie near 90–130 lm/W (common practice; Perez et al. 1990).
+
+References
+----------
+.. [1] Wilcox, S. and Marion, W., "Users Manual for TMY3 Data Sets",
+   NREL/TP-581-43156, 2008. https://doi.org/10.2172/928611
+.. [2] U.S. DOE, "EnergyPlus Auxiliary Programs", chapter "Weather Converter
+   Program" (EPW data dictionary).
+.. [3] Perez, R., Ineichen, P., Seals, R., Michalsky, J. and Stewart, R.,
+   "Modeling daylight availability and irradiance components from direct and
+   global irradiance", Solar Energy 44(5), 271-289, 1990.
+   https://doi.org/10.1016/0038-092X(90)90055-H
+"""
+
+from __future__ import annotations
+
+import csv
+import os
+import warnings
+from dataclasses import dataclass, field
+from datetime import timedelta, timezone
+from pathlib import Path
+from typing import IO
+
+import numpy as np
+import pandas as pd
+import pvlib
+
+from kernels.errors import WeatherFileError
+
+REFERENCE_YEAR = 2023
+"""Non-leap year on which every weather file is placed."""
+
+QUANTITIES = (
+    "ghi",
+    "dni",
+    "dhi",
+    "global_illuminance",
+    "direct_illuminance",
+    "diffuse_illuminance",
+    "dew_point",
+)
+"""Names of the per-record climate quantities held by :class:`Climate`."""
+
+IRRADIANCE = ("ghi", "dni", "dhi")
+ILLUMINANCE = ("global_illuminance", "direct_illuminance", "diffuse_illuminance")
+
+# efficacy bounds [lm/W] for the whole-column plausibility check (see module docstring)
+_EFFICACY_RANGE = (50.0, 250.0)
+_EFFICACY_MIN_IRRADIANCE = 50.0  # [W/m2]
+_ROUNDING = 1.0  # [W/m2] files store whole W/m2; allowance above the extraterrestrial bound
+
+ACCEPTED_FORMATS = (
+    "EPW (.epw: first line starts with 'LOCATION,')",
+    "TMY3 CSV (.csv: a metadata line, then a line starting 'Date (MM/DD/YYYY)')",
+)
+
+
+@dataclass(frozen=True)
+class Site:
+    """A place on Earth.
+
+    Parameters
+    ----------
+    name : str
+        Station or place name as written in the weather file.
+    latitude : float [deg]
+        Positive north.
+    longitude : float [deg]
+        Positive east.
+    elevation : float [m]
+        Above sea level.
+    utc_offset : float [h]
+        Offset of local standard time from UTC (e.g. -5 for US Eastern).
+    """
+
+    name: str
+    latitude: float
+    longitude: float
+    elevation: float
+    utc_offset: float
+
+    @property
+    def tz(self) -> timezone:
+        """Fixed-offset time zone of local standard time."""
+        return timezone(timedelta(hours=self.utc_offset))
+
+
+@dataclass(frozen=True, eq=False)
+class Climate:
+    """A year of climate records at one site.
+
+    Attributes
+    ----------
+    site : Site
+    time : pandas.DatetimeIndex
+        Record-ending stamps, local standard time (fixed offset), on the
+        reference year :data:`REFERENCE_YEAR`.
+    interval : int [min]
+        Minutes per record (60 for the files; smaller after
+        :func:`kernels.sun.resample`).
+    ghi, dni, dhi : ndarray [W/m2]
+        Global horizontal, direct normal and diffuse horizontal irradiance,
+        averages over the record's interval; NaN where missing.
+    global_illuminance, direct_illuminance, diffuse_illuminance : ndarray [lx]
+        Global horizontal, direct normal and diffuse horizontal illuminance;
+        NaN where missing or implausible.
+    dew_point : ndarray [degC]
+    valid : dict of str to ndarray of bool
+        Per quantity (keys :data:`QUANTITIES`), True where the value is data.
+    source : str
+        The file read (or ``"<buffer>"``).
+    """
+
+    site: Site
+    time: pd.DatetimeIndex
+    interval: int
+    ghi: np.ndarray
+    dni: np.ndarray
+    dhi: np.ndarray
+    global_illuminance: np.ndarray
+    direct_illuminance: np.ndarray
+    diffuse_illuminance: np.ndarray
+    dew_point: np.ndarray
+    valid: dict[str, np.ndarray] = field(default_factory=dict)
+    source: str = "<buffer>"
+
+    def __len__(self) -> int:
+        return len(self.time)
+
+
+# --------------------------------------------------------------------------- public readers
+
+
+def read_climate(path: str | os.PathLike) -> Climate:
+    """Read an EPW or TMY3 CSV weather file, choosing the reader by extension or content.
+
+    Parameters
+    ----------
+    path : str or path-like
+        ``.epw`` files are read as EPW, ``.csv`` as TMY3; any other extension is
+        recognised from its first line.
+
+    Returns
+    -------
+    Climate
+
+    Raises
+    ------
+    WeatherFileError
+        The file does not exist, has an unknown format, or is malformed.
+    """
+    path = Path(path)
+    text = _read_text(path)
+    suffix = path.suffix.lower()
+    head = text.split("\n", 2)
+    if suffix == ".epw" or head[0].upper().startswith("LOCATION,"):
+        return _parse_epw(text, str(path))
+    if any(line.startswith("Date (MM/DD/YYYY)") for line in head[:2]):
+        return _parse_tmy3(text, str(path))
+    if not text.strip():
+        raise WeatherFileError(
+            "the file is empty; give an EPW or TMY3 CSV weather file", file=str(path)
+        )
+    raise WeatherFileError(
+        "unknown weather file format; accepted formats are: " + "; ".join(ACCEPTED_FORMATS),
+        file=str(path),
+        line=1,
+    )
+
+
+def read_epw(path_or_buffer: str | os.PathLike | IO[str]) -> Climate:
+    """Read an EPW weather file.
+
+    Parameters
+    ----------
+    path_or_buffer : str, path-like or text buffer
+
+    Returns
+    -------
+    Climate
+        On the reference year, Feb 29 dropped (see module docstring).
+    """
+    text, source = _text_and_source(path_or_buffer)
+    return _parse_epw(text, source)
+
+
+def read_tmy3(path_or_buffer: str | os.PathLike | IO[str]) -> Climate:
+    """Read an NREL TMY3 CSV weather file.
+
+    Parameters
+    ----------
+    path_or_buffer : str, path-like or text buffer
+
+    Returns
+    -------
+    Climate
+        On the reference year, Feb 29 dropped (see module docstring).
+    """
+    text, source = _text_and_source(path_or_buffer)
+    return _parse_tmy3(text, source)
+
+
+# --------------------------------------------------------------------------- EPW
+
+EPW_FIELDS = (
+    "year", "month", "day", "hour", "minute", "data source and uncertainty flags",
+    "dry bulb temperature", "dew point temperature", "relative humidity",
+    "atmospheric station pressure", "extraterrestrial horizontal radiation",
+    "extraterrestrial direct normal radiation", "horizontal infrared radiation intensity",
+    "global horizontal radiation", "direct normal radiation", "diffuse horizontal radiation",
+    "global horizontal illuminance", "direct normal illuminance",
+    "diffuse horizontal illuminance", "zenith luminance", "wind direction", "wind speed",
+    "total sky cover", "opaque sky cover", "visibility", "ceiling height",
+    "present weather observation", "present weather codes", "precipitable water",
+    "aerosol optical depth", "snow depth", "days since last snowfall", "albedo",
+    "liquid precipitation depth", "liquid precipitation quantity",
+)  # fmt: skip
+"""The 35 fields of an EPW data record, in file order (EPW data dictionary)."""
+
+# quantity -> (0-based EPW field index, missing sentinel: values >= it are missing)
+_EPW_COLUMNS = {
+    "ghi": (13, 9999.0),
+    "dni": (14, 9999.0),
+    "dhi": (15, 9999.0),
+    "global_illuminance": (16, 999999.0),
+    "direct_illuminance": (17, 999999.0),
+    "diffuse_illuminance": (18, 999999.0),
+    "dew_point": (7, 99.9),
+}
+_EPW_HEADER_LINES = 8
+_EPW_LABELS = {
+    "ghi": "global horizontal radiation (GHI)",
+    "dni": "direct normal radiation (DNI)",
+    "dhi": "diffuse horizontal radiation (DHI)",
+}
+
+
+def _parse_epw(text: str, source: str) -> Climate:
+    """Parse the text of an EPW file (see :func:`read_epw`)."""
+    lines = text.splitlines()
+    if not lines or not lines[0].upper().startswith("LOCATION,"):
+        raise WeatherFileError(
+            "not an EPW file: the first line must start with 'LOCATION,' "
+            "(LOCATION,city,state,country,source,WMO,latitude,longitude,time zone,elevation)",
+            file=source,
+            line=1,
+        )
+    site = _epw_site(lines[0], source)
+    if len(lines) <= _EPW_HEADER_LINES:
+        raise WeatherFileError(
+            f"the file ends after {len(lines)} lines: an EPW file has 8 header lines "
+            "followed by hourly records; the file is truncated",
+            file=source,
+            line=len(lines),
+        )
+    first_line = _EPW_HEADER_LINES + 1
+    rows = [ln.split(",") for ln in lines[_EPW_HEADER_LINES:]]
+    while rows and rows[-1] == [""]:  # trailing blank lines
+        rows.pop()
+    for i, row in enumerate(rows):
+        if len(row) != len(EPW_FIELDS):
+            raise WeatherFileError(
+                f"{len(row)} comma-separated fields where an EPW record has "
+                f"{len(EPW_FIELDS)}; the line is truncated or damaged",
+                file=source,
+                line=first_line + i,
+            )
+    month = _column(rows, 1, "month", source, first_line)
+    day = _column(rows, 2, "day", source, first_line)
+    hour = _column(rows, 3, "hour", source, first_line)
+    values = {}
+    valid = {}
+    for name, (index, missing) in _EPW_COLUMNS.items():
+        v = _column(rows, index, _EPW_LABELS.get(name, EPW_FIELDS[index]), source, first_line)
+        valid[name] = v < missing
+        values[name] = np.where(valid[name], v, np.nan)
+    field_names = {name: _EPW_LABELS.get(name, EPW_FIELDS[idx])
+                   for name, (idx, _) in _EPW_COLUMNS.items()}  # fmt: skip
+    return _build_climate(
+        site, month, day, hour, values, valid, source, first_line, field_names
+    )
+
+
+def _epw_site(line: str, source: str) -> Site:
+    parts = [p.strip() for p in line.split(",")]
+    names = ("latitude", "longitude", "time zone", "elevation")
+    if len(parts) < 10:
+        raise WeatherFileError(
+            f"the LOCATION line has {len(parts)} fields, needs 10 "
+            "(LOCATION,city,state,country,source,WMO,latitude,longitude,time zone,elevation); "
+            "the site location is missing",
+            file=source,
+            line=1,
+            field="LOCATION",
+        )
+    numbers = []
+    for name, text in zip(names, parts[6:10], strict=True):
+        try:
+            numbers.append(float(text))
+        except ValueError:
+            raise WeatherFileError(
+                f"{name} {text!r} is not a number; write the site's {name} in the LOCATION line",
+                file=source,
+                line=1,
+                field=name,
+            ) from None
+    latitude, longitude, utc_offset, elevation = numbers
+    _check_site(latitude, longitude, utc_offset, elevation, source)
+    name = ", ".join(p for p in parts[1:4] if p and p != "-")
+    return Site(name, latitude, longitude, elevation, utc_offset)
+
+
+# --------------------------------------------------------------------------- TMY3
+
+# quantity -> (value column, source-flag column)
+_TMY3_COLUMNS = {
+    "ghi": ("GHI (W/m^2)", "GHI source"),
+    "dni": ("DNI (W/m^2)", "DNI source"),
+    "dhi": ("DHI (W/m^2)", "DHI source"),
+    "global_illuminance": ("GH illum (lx)", "GH illum source"),
+    "direct_illuminance": ("DN illum (lx)", "DN illum source"),
+    "diffuse_illuminance": ("DH illum (lx)", "DH illum source"),
+    "dew_point": ("Dew-point (C)", "Dew-point source"),
+}
+_TMY3_MISSING = -9900.0
+_TMY3_MISSING_FLAGS = ("?", "")
+
+
+def _parse_tmy3(text: str, source: str) -> Climate:
+    """Parse the text of a TMY3 CSV file (see :func:`read_tmy3`)."""
+    lines = text.splitlines()
+    if not text.strip():
+        raise WeatherFileError(
+            "the file is empty; give an EPW or TMY3 CSV weather file", file=source
+        )
+    if lines[0].startswith("Date (MM/DD/YYYY)"):
+        raise WeatherFileError(
+            "the site metadata line is missing: a TMY3 file starts with "
+            "'station,\"name\",state,time zone,latitude,longitude,elevation' "
+            "before the column names",
+            file=source,
+            line=1,
+        )
+    if len(lines) < 3:
+        raise WeatherFileError(
+            f"the file has {len(lines)} lines: a TMY3 file has a metadata line, a "
+            "column-name line and hourly records; the file is truncated",
+            file=source,
+            line=max(len(lines), 1),
+        )
+    site = _tmy3_site(lines[0], source)
+    header = next(csv.reader([lines[1]]))
+    if not header or header[0] != "Date (MM/DD/YYYY)":
+        raise WeatherFileError(
+            "the second line must be the TMY3 column names starting with 'Date (MM/DD/YYYY)'",
+            file=source,
+            line=2,
+        )
+    needed = ["Date (MM/DD/YYYY)", "Time (HH:MM)"]
+    for pair in _TMY3_COLUMNS.values():
+        needed.extend(pair)
+    position = {}
+    for name in needed:
+        if name not in header:
+            raise WeatherFileError(
+                f"column {name!r} is missing from the TMY3 column names",
+                file=source,
+                line=2,
+                field=name,
+            )
+        position[name] = header.index(name)
+    first_line = 3
+    rows = [ln.split(",") for ln in lines[2:]]
+    while rows and rows[-1] == [""]:
+        rows.pop()
+    for i, row in enumerate(rows):
+        if len(row) != len(header):
+            raise WeatherFileError(
+                f"{len(row)} comma-separated fields where the column names list "
+                f"{len(header)}; the line is truncated or damaged",
+                file=source,
+                line=first_line + i,
+            )
+    dates = [row[position["Date (MM/DD/YYYY)"]] for row in rows]
+    times = [row[position["Time (HH:MM)"]] for row in rows]
+    month = np.empty(len(rows))
+    day = np.empty(len(rows))
+    hour = np.empty(len(rows))
+    for i, (d, t) in enumerate(zip(dates, times, strict=True)):
+        try:
+            mm, dd, _ = d.split("/")
+            hh, _ = t.split(":")
+            month[i], day[i], hour[i] = int(mm), int(dd), int(hh)
+        except ValueError:
+            bad, fmt = ("Date (MM/DD/YYYY)", d) if d.count("/") != 2 else ("Time (HH:MM)", t)
+            raise WeatherFileError(
+                f"cannot read {fmt!r} as a date MM/DD/YYYY and time HH:MM",
+                file=source,
+                line=first_line + i,
+                field=bad,
+            ) from None
+    values = {}
+    valid = {}
+    for name, (column, flag_column) in _TMY3_COLUMNS.items():
+        v = _column(rows, position[column], column, source, first_line)
+        flags = np.array([row[position[flag_column]].strip() for row in rows])
+        valid[name] = (v != _TMY3_MISSING) & ~np.isin(flags, _TMY3_MISSING_FLAGS)
+        values[name] = np.where(valid[name], v, np.nan)
+    field_names = {name: column for name, (column, _) in _TMY3_COLUMNS.items()}
+    return _build_climate(
+        site, month, day, hour, values, valid, source, first_line, field_names
+    )
+
+
+def _tmy3_site(line: str, source: str) -> Site:
+    parts = next(csv.reader([line]), [])
+    names = ("time zone", "latitude", "longitude", "elevation")
+    if len(parts) < 7:
+        raise WeatherFileError(
+            f"the metadata line has {len(parts)} fields, needs 7 "
+            "(station, name, state, time zone, latitude, longitude, elevation); "
+            "the site location is missing",
+            file=source,
+            line=1,
+        )
+    numbers = []
+    for name, text in zip(names, parts[3:7], strict=True):
+        try:
+            numbers.append(float(text))
+        except ValueError:
+            raise WeatherFileError(
+                f"{name} {text!r} is not a number; write the site's {name} in the metadata line",
+                file=source,
+                line=1,
+                field=name,
+            ) from None
+    utc_offset, latitude, longitude, elevation = numbers
+    _check_site(latitude, longitude, utc_offset, elevation, source)
+    name = ", ".join(p.strip() for p in parts[1:3] if p.strip())
+    return Site(name, latitude, longitude, elevation, utc_offset)
+
+
+# --------------------------------------------------------------------------- shared validation
+
+
+def _check_site(lat: float, lon: float, utc_offset: float, elev: float, source: str) -> None:
+    checks = (
+        ("latitude", lat, -90.0, 90.0, "degrees north, -90 to 90"),
+        ("longitude", lon, -180.0, 180.0, "degrees east, -180 to 180"),
+        ("time zone", utc_offset, -12.0, 14.0, "hours from UTC, -12 to +14"),
+        ("elevation", elev, -500.0, 9000.0, "metres above sea level"),
+    )
+    for name, value, low, high, unit in checks:
+        if not low <= value <= high:
+            raise WeatherFileError(
+                f"{name} {value:g} is impossible; write it in {unit}",
+                file=source,
+                line=1,
+                field=name,
+            )
+
+
+def _column(rows: list[list[str]], index: int, name: str, source: str, first_line: int):
+    """Column ``index`` of ``rows`` as float64; non-numeric entries raise with their line."""
+    texts = [row[index] for row in rows]
+    try:
+        v = np.array(texts, dtype=np.float64)
+    except ValueError:
+        v = None
+    if v is not None and np.isfinite(v).all():
+        return v
+    for i, t in enumerate(texts):
+        try:
+            ok = np.isfinite(float(t))
+        except ValueError:
+            ok = False
+        if not ok:
+            raise WeatherFileError(
+                f"{t!r} is not a number", file=source, line=first_line + i, field=name
+            )
+    raise AssertionError("unreachable")  # pragma: no cover
+
+
+def _expected_calendar(n_records: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Month, day and hour-ending (1..24) of each hour of a full year of ``n_records``."""
+    year = REFERENCE_YEAR if n_records == 8760 else REFERENCE_YEAR + 1  # 2024 is leap
+    start = pd.Timestamp(year=year, month=1, day=1)
+    t = pd.date_range(start, periods=n_records, freq="h")
+    return t.month.to_numpy(), t.day.to_numpy(), t.hour.to_numpy() + 1
+
+
+def _build_climate(
+    site: Site,
+    month: np.ndarray,
+    day: np.ndarray,
+    hour: np.ndarray,
+    values: dict[str, np.ndarray],
+    valid: dict[str, np.ndarray],
+    source: str,
+    first_line: int,
+    field_names: dict[str, str],
+) -> Climate:
+    """Check the calendar and values, drop Feb 29, place on the reference year."""
+    n = len(month)
+    if n not in (8760, 8784):
+        raise WeatherFileError(
+            f"{n} hourly records; a year file must hold 8760 (or 8784 in a leap year). "
+            "The file is truncated or not a full hourly year",
+            file=source,
+            line=first_line + n - 1,
+        )
+    exp_month, exp_day, exp_hour = _expected_calendar(n)
+    wrong = (month != exp_month) | (day != exp_day) | (hour != exp_hour)
+    if wrong.any():
+        i = int(np.argmax(wrong))
+        raise WeatherFileError(
+            f"record for month {month[i]:g}, day {day[i]:g}, hour {hour[i]:g} where "
+            f"month {exp_month[i]}, day {exp_day[i]}, hour {exp_hour[i]} was expected; "
+            "records must run hour by hour from January 1 hour 1 to December 31 hour 24",
+            file=source,
+            line=first_line + i,
+        )
+
+    doy = pd.date_range(pd.Timestamp(year=REFERENCE_YEAR + (n == 8784), month=1, day=1),
+                        periods=n, freq="h").day_of_year.to_numpy()  # fmt: skip
+    e0n = pvlib.irradiance.get_extra_radiation(doy)  # [W/m2], Spencer (1971)
+    for name in (*IRRADIANCE, *ILLUMINANCE):
+        v = values[name]
+        bad = np.flatnonzero(v < 0)
+        if bad.size:
+            i = int(bad[0])
+            raise WeatherFileError(
+                f"negative value {v[i]:g}; irradiance and illuminance cannot be negative "
+                "(use the format's missing-value flag for missing data)",
+                file=source,
+                line=first_line + i,
+                field=field_names[name],
+            )
+    for name in IRRADIANCE:
+        v = values[name]
+        bad = np.flatnonzero(v > e0n + _ROUNDING)
+        if bad.size:
+            i = int(bad[0])
+            raise WeatherFileError(
+                f"value {v[i]:g} W/m2 exceeds the extraterrestrial normal irradiance "
+                f"{e0n[i]:.0f} W/m2 of that day; no surface on the ground can receive more. "
+                "Check the column order and units",
+                file=source,
+                line=first_line + i,
+                field=field_names[name],
+            )
+
+    for name in IRRADIANCE:
+        if not valid[name].any():
+            raise WeatherFileError(
+                "every value is missing (the format's missing-value flag); luxsweep needs "
+                "measured or modelled irradiance (GHI, DNI and DHI) for every hour",
+                file=source,
+                field=field_names[name],
+            )
+
+    if n == 8784:
+        keep = ~((month == 2) & (day == 29))
+        values = {k: v[keep] for k, v in values.items()}
+        valid = {k: v[keep] for k, v in valid.items()}
+
+    dropped = []
+    for lux, watt in zip(ILLUMINANCE, IRRADIANCE, strict=True):
+        ok = valid[lux] & valid[watt] & (values[watt] > _EFFICACY_MIN_IRRADIANCE)
+        if not ok.any():
+            continue
+        efficacy = float(np.median(values[lux][ok] / values[watt][ok]))
+        if not _EFFICACY_RANGE[0] <= efficacy <= _EFFICACY_RANGE[1]:
+            dropped.append(f"'{field_names[lux]}' ({efficacy:.3g} lm/W)")
+            valid[lux] = np.zeros_like(valid[lux])
+            values[lux] = np.full_like(values[lux], np.nan)
+    if dropped:
+        warnings.warn(
+            f"{source}: median luminous efficacy of {', '.join(dropped)} is outside "
+            f"{_EFFICACY_RANGE[0]:g}-{_EFFICACY_RANGE[1]:g} lm/W (wrong unit or placeholder "
+            "values); these columns are ignored and illuminance is modelled from irradiance",
+            stacklevel=4,
+        )
+
+    tz = site.tz
+    time = pd.date_range(
+        pd.Timestamp(year=REFERENCE_YEAR, month=1, day=1, hour=1, tz=tz), periods=8760, freq="h"
+    )
+    return Climate(
+        site=site,
+        time=time,
+        interval=60,
+        **{k: np.ascontiguousarray(values[k], dtype=np.float64) for k in QUANTITIES},
+        valid={k: valid[k].copy() for k in QUANTITIES},
+        source=source,
+    )
+
+
+# --------------------------------------------------------------------------- file access
+
+
+def _read_text(path: Path) -> str:
+    try:
+        raw = path.read_bytes()
+    except FileNotFoundError:
+        raise WeatherFileError(
+            "file not found; check the path (relative paths resolve against the study file)",
+            file=str(path),
+        ) from None
+    except IsADirectoryError:
+        raise WeatherFileError("is a folder, not a weather file", file=str(path)) from None
+    if b"\x00" in raw[:65536]:
+        raise WeatherFileError(
+            "is a binary file, not a text weather file; accepted formats are: "
+            + "; ".join(ACCEPTED_FORMATS),
+            file=str(path),
+        )
+    try:
+        return raw.decode("utf-8-sig")
+    except UnicodeDecodeError:
+        pass
+    text = raw.decode("latin-1")  # EPW headers are often Latin-1 (accented city names)
+    printable = sum(ch.isprintable() or ch in "\r\n\t" for ch in text[:65536])
+    if printable < 0.95 * min(len(text), 65536):
+        raise WeatherFileError(
+            "is not a text file; accepted formats are: " + "; ".join(ACCEPTED_FORMATS),
+            file=str(path),
+        )
+    return text
+
+
+def _text_and_source(path_or_buffer: str | os.PathLike | IO[str]) -> tuple[str, str]:
+    if isinstance(path_or_buffer, (str, os.PathLike)):
+        return _read_text(Path(path_or_buffer)), str(path_or_buffer)
+    text = path_or_buffer.read()
+    if isinstance(text, bytes):
+        text = text.decode("utf-8-sig", errors="replace")
+    return text, str(getattr(path_or_buffer, "name", "<buffer>"))
+
+
+__all__ = [
+    "ACCEPTED_FORMATS",
+    "EPW_FIELDS",
+    "QUANTITIES",
+    "REFERENCE_YEAR",
+    "Climate",
+    "Site",
+    "read_climate",
+    "read_epw",
+    "read_tmy3",
+]

@@ -1,0 +1,482 @@
+"""Daylight-coefficient sets of a geometry: direct and reflected, sky and sun.
+
+For every glazing set ``g`` and sensor ``s`` (DEVELOPERS.md "Coefficient
+definition"; DESIGN §2.2, 2.5, 2.6):
+
+* ``sky_direct[g, s, j]`` — mean over sky-basis entry ``j`` (patch, or the
+  ground last) of ``visibility × τ_rel × max(n·d, 0)`` for rays that cross a
+  window of set ``g`` and then meet no opaque surface, from stratified rays
+  inside each patch (:func:`kernels.sky.sample_directions`) and over the lower
+  hemisphere (:func:`kernels.sky.sample_ground`), so that E = Σ_j C_j L_j Ω_j;
+* ``sun_direct[g, s, k]`` — ``τ_rel × max(n·s_k, 0) × visibility`` for sun
+  point ``k`` (one ray), interpolated between sun points at run time;
+* ``sky_reflected``, ``sun_reflected`` — element transfer
+  (:mod:`kernels.transfer`): first-hit irradiance of the room's elements
+  through set ``g`` (exterior elements lit directly, without glazing),
+  radiosity, and a cosine-weighted gather at the sensor.
+
+All four are computed with unit normal transmittance (``τ_rel`` is the
+angular profile relative to normal incidence, :func:`kernels.glazing.relative_transmittance`);
+a variant's transmittance multiplies them (DESIGN §2.6).
+
+Deviation from DEVELOPERS.md, documented here: :class:`Settings` has one
+field more than listed there, ``reflected_sun_spacing`` [deg]. The reflected
+sun coefficients are computed on a coarser set of sun points
+(``SunPoints(reflected_sun_spacing)``) and interpolated barycentrically onto
+the fine sun points (``SunPoints(sun_spacing)``, about 24,000 at 1°): the
+reflected part varies smoothly with the sun direction (it integrates the sun
+patch over the room), while the element source matrix at 24,000 sun points
+would cost tens of millions of rays and hundreds of MB. The stored
+``sun_reflected`` array is on the fine points like the other sun family.
+
+Determinism: every random draw takes a seed derived from ``Settings.seed``
+and the stage, and sparse sums are accumulated in a fixed order, so the same
+inputs give bit-identical arrays.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from dataclasses import asdict, dataclass, fields
+from typing import Any
+
+import numpy as np
+
+import kernels
+from kernels.errors import GeometryError, InputError
+from kernels.sky import patch_scheme, sample_directions, sample_ground
+from kernels.sun import DEFAULT_SPACING, SunPoints
+from kernels.transfer import (
+    gather_matrix,
+    gather_radiosity,
+    mesh_elements,
+    points_in_triangles,
+    relative_transmit,
+    solve_radiosity,
+    transfer_matrix,
+)
+
+__all__ = ["CoefficientSet", "Settings", "coefficient_key", "compute_coefficients"]
+
+_RAYS_PER_BATCH = 1 << 20  # rays per ray-casting batch (bounds temporary memory)
+_SENSOR_DECIMALS = 6  # sensor coordinates rounded to 1 µm in the key
+
+# seed streams of the stages (fixed: changing them changes every result)
+_STREAM_SKY, _STREAM_GROUND, _STREAM_ELEMENT, _STREAM_SUNPOINT, _STREAM_SENSOR = range(5)
+
+
+@dataclass(frozen=True)
+class Settings:
+    """Accuracy settings of a coefficient computation.
+
+    Parameters
+    ----------
+    subdivision : int
+        Sky subdivision (1 = Tregenza 145 patches, 2 = MF2 577, 4 = MF4 2305).
+    sun_spacing : float [deg]
+        Spacing of the sun points of the direct-sun coefficients
+        (:class:`kernels.sun.SunPoints`); sky vectors must use the same.
+    sky_rays_per_patch : int
+        Stratified rays per sky patch for ``sky_direct``.
+    ground_rays : int
+        Stratified rays over the lower hemisphere for the ground entry.
+    element_size : float [m]
+        Target size of the surface elements of the element transfer.
+    element_rays : int
+        Cosine-weighted rays leaving each element (each from a random point of
+        the element).
+    sensor_rays : int
+        Cosine-weighted gather rays per sensor for the reflected part.
+    reflected_sun_spacing : float [deg]
+        Spacing of the coarse sun points on which ``sun_reflected`` is
+        computed before interpolation to the fine points (see module notes).
+    seed : int
+        Seed of every random draw.
+
+    Notes
+    -----
+    Defaults were chosen on the reference classroom (7.2 × 8 × 3 m, one
+    5 × 1.8 m window, 195 sensors): see ``benchmarks/bench_coefficients.py``
+    and ``tests/test_coefficients.py`` for the measured time and accuracy.
+    """
+
+    subdivision: int = 2
+    sun_spacing: float = DEFAULT_SPACING
+    sky_rays_per_patch: int = 16
+    ground_rays: int = 4096
+    element_size: float = 0.5
+    element_rays: int = 256
+    sensor_rays: int = 2048
+    reflected_sun_spacing: float = 3.0
+    seed: int = 0
+
+    def __post_init__(self) -> None:
+        for name in ("subdivision", "sky_rays_per_patch", "ground_rays", "element_rays",
+                     "sensor_rays"):
+            value = getattr(self, name)
+            if not isinstance(value, int | np.integer) or value < 1:
+                raise InputError(f"{name} must be a positive integer, got {value!r}",
+                                 field=f"settings.{name}")
+        for name in ("sun_spacing", "element_size", "reflected_sun_spacing"):
+            value = getattr(self, name)
+            if not np.isfinite(value) or value <= 0:
+                raise InputError(f"{name} must be a positive number, got {value!r}",
+                                 field=f"settings.{name}")
+
+    def canonical(self) -> dict[str, Any]:
+        """JSON-able dict of the settings (for keys and metadata)."""
+        out = asdict(self)
+        for f in fields(self):
+            out[f.name] = float(out[f.name]) if f.type == "float" else int(out[f.name])
+        return out
+
+
+@dataclass(frozen=True, eq=False)
+class CoefficientSet:
+    """Daylight coefficients of one geometry and sensor grid.
+
+    Attributes
+    ----------
+    key : str
+        :func:`coefficient_key` of the inputs.
+    glazing_sets : tuple of str
+        Glazing-set names, in the order of the first array axis.
+    sensors : ndarray (n_sensors, 6)
+        x, y, z [m], nx, ny, nz (building frame).
+    subdivision : int
+        Sky subdivision of the sky basis (n_patches + 1 entries, ground last).
+    sun_directions : ndarray (n_sun, 3)
+        Sun points (building frame) of the sun families.
+    sky_direct, sky_reflected : ndarray (n_sets, n_sensors, n_patches + 1) float32
+        ``E = Σ_j C_j L_j Ω_j`` [lx per lx].
+    sun_direct, sun_reflected : ndarray (n_sets, n_sensors, n_sun) float32
+        ``E = Σ_k C_k w_k E_dn`` [lx per lx].
+    settings : Settings
+    kernel_version : str
+    """
+
+    key: str
+    glazing_sets: tuple[str, ...]
+    sensors: np.ndarray
+    subdivision: int
+    sun_directions: np.ndarray
+    sky_direct: np.ndarray
+    sky_reflected: np.ndarray
+    sun_direct: np.ndarray
+    sun_reflected: np.ndarray
+    settings: Settings
+    kernel_version: str
+
+    _ARRAYS = ("sensors", "sun_directions", "sky_direct", "sky_reflected", "sun_direct",
+               "sun_reflected")
+
+    def to_arrays(self) -> dict[str, np.ndarray]:
+        """The arrays, by name (what a cache stores next to :meth:`metadata`)."""
+        return {name: getattr(self, name) for name in self._ARRAYS}
+
+    def metadata(self) -> dict[str, Any]:
+        """JSON-able description (everything but the arrays)."""
+        return {
+            "key": self.key,
+            "glazing_sets": list(self.glazing_sets),
+            "subdivision": int(self.subdivision),
+            "settings": self.settings.canonical(),
+            "kernel_version": self.kernel_version,
+            "shapes": {name: list(a.shape) for name, a in self.to_arrays().items()},
+        }
+
+    @classmethod
+    def from_parts(cls, arrays: dict[str, np.ndarray], metadata: dict[str, Any]) -> CoefficientSet:
+        """Rebuild from :meth:`to_arrays` and :meth:`metadata` (e.g. read from a cache).
+
+        Raises
+        ------
+        ValueError
+            When an array is missing or its shape disagrees with the metadata.
+        """
+        shapes = metadata.get("shapes", {})
+        for name in cls._ARRAYS:
+            if name not in arrays:
+                raise ValueError(f"coefficient set {metadata.get('key')}: array '{name}' missing")
+            if name in shapes and list(np.shape(arrays[name])) != list(shapes[name]):
+                raise ValueError(
+                    f"coefficient set {metadata.get('key')}: array '{name}' has shape "
+                    f"{np.shape(arrays[name])}, metadata says {shapes[name]}"
+                )
+        return cls(
+            key=str(metadata["key"]),
+            glazing_sets=tuple(metadata["glazing_sets"]),
+            sensors=np.asarray(arrays["sensors"], dtype=np.float64),
+            subdivision=int(metadata["subdivision"]),
+            sun_directions=np.asarray(arrays["sun_directions"], dtype=np.float64),
+            sky_direct=np.asarray(arrays["sky_direct"], dtype=np.float32),
+            sky_reflected=np.asarray(arrays["sky_reflected"], dtype=np.float32),
+            sun_direct=np.asarray(arrays["sun_direct"], dtype=np.float32),
+            sun_reflected=np.asarray(arrays["sun_reflected"], dtype=np.float32),
+            settings=Settings(**metadata["settings"]),
+            kernel_version=str(metadata["kernel_version"]),
+        )
+
+    @property
+    def nbytes(self) -> int:
+        """Total size of the arrays [bytes]."""
+        return int(sum(a.nbytes for a in self.to_arrays().values()))
+
+    @property
+    def n_sensors(self) -> int:
+        return int(self.sensors.shape[0])
+
+
+# ---------------------------------------------------------------------------
+# Key
+# ---------------------------------------------------------------------------
+
+
+def _canonical_sensors(sensors: np.ndarray) -> list[list[float]]:
+    return (np.round(np.asarray(sensors, dtype=np.float64), _SENSOR_DECIMALS) + 0.0).tolist()
+
+
+def coefficient_key(geometry: Any, sensors: np.ndarray, settings: Settings) -> str:
+    """Content hash of everything that changes the coefficient arrays.
+
+    Parameters
+    ----------
+    geometry : kernels.geometry.Geometry
+    sensors : ndarray (n, 6)
+    settings : Settings
+
+    Returns
+    -------
+    str
+        SHA-256 hex digest of the canonical JSON of the geometry
+        (``geometry.canonical()``: triangles, materials with reflectances,
+        glazing-set assignment and panes — no transmittance, which only scales
+        the arrays), the sensors rounded to 1 µm, the settings and
+        ``kernels.KERNEL_VERSION``.
+    """
+    panes = dict(zip(geometry.glazing_sets, geometry.set_panes, strict=True))
+    document = {
+        "geometry": geometry.canonical(),
+        "glazing_panes": panes,
+        "sensors": _canonical_sensors(sensors),
+        "settings": settings.canonical(),
+        "kernel_version": kernels.KERNEL_VERSION,
+    }
+    text = json.dumps(document, sort_keys=True, separators=(",", ":"), allow_nan=False)
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+# ---------------------------------------------------------------------------
+# Ray-casting stages
+# ---------------------------------------------------------------------------
+
+
+def _rng(settings: Settings, stream: int, *more: int) -> np.random.Generator:
+    return np.random.default_rng([int(settings.seed), stream, *more])
+
+
+def _seed(settings: Settings, stream: int, *more: int) -> int:
+    state = np.random.SeedSequence([int(settings.seed), stream, *more]).generate_state(1)
+    return int(state[0])
+
+
+def _through_glazing(scene: Any, origins: np.ndarray, directions: np.ndarray,
+                     panes: tuple[int, ...]) -> tuple[np.ndarray, np.ndarray]:
+    """Glazing set through which each ray from inside reaches the sky, and τ_rel.
+
+    Returns ``(set, tau)``: set -1 where the ray does not reach the sky through
+    glazing. The (cheap) glazing scene is queried first; only the rays that
+    cross a window are tested against the opaque scene.
+    """
+    gset, cos, _ = scene.glazing_crossing(origins, directions)
+    cand = np.flatnonzero(gset >= 0)
+    if cand.size:
+        blocked = scene.occluded(origins[cand], directions[cand])
+        gset[cand[blocked]] = -1
+    tau = relative_transmit(cos, gset, panes)
+    return gset, tau
+
+
+def _open_sky(scene: Any, origins: np.ndarray, directions: np.ndarray) -> np.ndarray:
+    """True where a ray from outside reaches the sky without glazing or opaque hits."""
+    free = ~scene.occluded(origins, directions)
+    cand = np.flatnonzero(free)
+    if cand.size:
+        gset, _, _ = scene.glazing_crossing(origins[cand], directions[cand])
+        free[cand[gset >= 0]] = False
+    return free
+
+
+def _sensor_sky_direct(scene: Any, sensors: np.ndarray, scheme: Any, settings: Settings,
+                       panes: tuple[int, ...]) -> np.ndarray:
+    """``sky_direct`` (n_sets, n_sensors, n_basis) float64."""
+    n_s, n_sets, n_basis = sensors.shape[0], len(panes), scheme.n_patches + 1
+    n_sky = scheme.n_patches * settings.sky_rays_per_patch
+    per_sensor = n_sky + settings.ground_rays
+    basis = np.concatenate([
+        np.repeat(np.arange(scheme.n_patches), settings.sky_rays_per_patch),
+        np.full(settings.ground_rays, scheme.n_patches),
+    ])
+    counts = np.concatenate([
+        np.full(scheme.n_patches, settings.sky_rays_per_patch), [settings.ground_rays]
+    ]).astype(np.float64)
+    out = np.zeros((n_sets, n_s, n_basis))
+    chunk = max(1, _RAYS_PER_BATCH // per_sensor)
+    for start in range(0, n_s, chunk):
+        idx = np.arange(start, min(start + chunk, n_s))
+        dirs = np.concatenate([
+            np.stack([sample_directions(scheme, settings.sky_rays_per_patch,
+                                        _seed(settings, _STREAM_SKY, s)).reshape(-1, 3)
+                      for s in idx]),
+            np.stack([sample_ground(settings.ground_rays, _seed(settings, _STREAM_GROUND, s))
+                      for s in idx]),
+        ], axis=1)  # (c, per_sensor, 3)
+        cos = np.einsum("crk,ck->cr", dirs, sensors[idx, 3:])
+        c_idx, r_idx = np.nonzero(cos > 0.0)
+        o = sensors[idx[c_idx], :3]
+        d = dirs[c_idx, r_idx]
+        gset, tau = _through_glazing(scene, o, d, panes)
+        ok = gset >= 0
+        flat = (gset[ok].astype(np.int64) * n_s + idx[c_idx[ok]]) * n_basis + basis[r_idx[ok]]
+        out += np.bincount(flat, weights=tau[ok] * cos[c_idx[ok], r_idx[ok]],
+                           minlength=out.size).reshape(out.shape)
+    return out / counts
+
+
+def _sun_direct(scene: Any, points: np.ndarray, normals: np.ndarray, exterior: np.ndarray,
+                sun: np.ndarray, panes: tuple[int, ...]) -> np.ndarray:
+    """Direct sun irradiance per unit E_dn on points (sensors or elements).
+
+    Returns ``(n_sets + 1, n_points, n_sun)``: through each glazing set for
+    interior points, and (last) unglazed for exterior points.
+    """
+    n_p, n_sun, n_sets = points.shape[0], sun.shape[0], len(panes)
+    out = np.zeros((n_sets + 1, n_p, n_sun))
+    chunk = max(1, _RAYS_PER_BATCH // max(n_sun, 1))
+    for start in range(0, n_p, chunk):
+        idx = np.arange(start, min(start + chunk, n_p))
+        cos = normals[idx] @ sun.T  # (c, n_sun)
+        c_idx, k_idx = np.nonzero(cos > 0.0)
+        o, d = points[idx[c_idx]], sun[k_idx]
+        ext = exterior[idx[c_idx]]
+        value = np.zeros(c_idx.size)
+        layer = np.full(c_idx.size, n_sets, dtype=np.int64)
+        inner = np.flatnonzero(~ext)
+        if inner.size:
+            gset, tau = _through_glazing(scene, o[inner], d[inner], panes)
+            ok = gset >= 0
+            value[inner[ok]] = tau[ok]
+            layer[inner[ok]] = gset[ok]
+        outer = np.flatnonzero(ext)
+        if outer.size:
+            value[outer[_open_sky(scene, o[outer], d[outer])]] = 1.0
+        out[layer, idx[c_idx], k_idx] = value * cos[c_idx, k_idx]
+    return out
+
+
+def _reflected(scene: Any, geometry: Any, sensors: np.ndarray, settings: Settings,
+               scheme: Any, coarse_sun: np.ndarray, panes: tuple[int, ...]) -> np.ndarray:
+    """Reflected coefficients (n_sets, n_sensors, n_basis + n_coarse_sun) float64."""
+    n_sets, n_basis = len(panes), scheme.n_patches + 1
+    out = np.zeros((n_sets, sensors.shape[0], n_basis + coarse_sun.shape[0]))
+    active = ~geometry.is_glazing & (geometry.reflectance > 0.0)
+    if n_sets == 0 or not np.any(active):
+        return out
+    el = mesh_elements(geometry.triangles, geometry.reflectance, geometry.exterior,
+                       settings.element_size, mask=active)
+    tr = transfer_matrix(scene, el, settings.element_rays, _rng(settings, _STREAM_ELEMENT),
+                         panes, scheme, batch=_RAYS_PER_BATCH)
+    r1, r2 = _rng(settings, _STREAM_SUNPOINT).random((2, el.n, 1))
+    points = scene.lift(points_in_triangles(el.vertices, r1, r2)[:, 0], el.normal)
+    s_sun = _sun_direct(scene, points, el.normal, el.exterior, coarse_sun, panes)
+    g_same, g_through = gather_matrix(scene, el, sensors[:, :3], sensors[:, 3:],
+                                      settings.sensor_rays, _rng(settings, _STREAM_SENSOR),
+                                      panes, batch=_RAYS_PER_BATCH)
+    f_same, f_through, s_sky_int, s_sky_ext = tr.same, tr.through, tr.sky_interior, tr.sky_exterior
+
+    inner, outer = np.flatnonzero(~el.exterior), np.flatnonzero(el.exterior)
+    rho = el.reflectance
+    source_ext = np.concatenate([s_sky_ext, s_sun[n_sets]], axis=1)[outer]
+    b_ext = solve_radiosity(f_same[outer][:, outer], rho[outer], source_ext)
+    response = gather_radiosity(g_same[:, inner].toarray(), f_same[inner][:, inner], rho[inner])
+    for g in range(n_sets):
+        source = np.concatenate([s_sky_int[g], s_sun[g]], axis=1)[inner]
+        source += f_through[g][inner][:, outer] @ b_ext
+        out[g] = response @ source + g_through[g][:, outer] @ b_ext
+    return out
+
+
+# ---------------------------------------------------------------------------
+# Entry point
+# ---------------------------------------------------------------------------
+
+
+def _check_sensors(sensors: np.ndarray) -> np.ndarray:
+    s = np.asarray(sensors, dtype=np.float64)
+    if s.ndim != 2 or s.shape[1] != 6 or s.shape[0] == 0:
+        raise GeometryError(
+            f"sensors must be an (n, 6) array of x, y, z, nx, ny, nz with n ≥ 1, got shape "
+            f"{s.shape}", field="sensors")
+    if not np.all(np.isfinite(s)):
+        row = int(np.flatnonzero(~np.all(np.isfinite(s), axis=1))[0])
+        raise GeometryError(f"sensor {row} has a non-finite coordinate: {s[row].tolist()}",
+                            field=f"sensors.{row}")
+    norm = np.linalg.norm(s[:, 3:], axis=1)
+    if np.any(norm < 1e-9):
+        row = int(np.flatnonzero(norm < 1e-9)[0])
+        raise GeometryError(f"sensor {row} has a zero normal; give nx, ny, nz (e.g. 0, 0, 1)",
+                            field=f"sensors.{row}")
+    s = s.copy()
+    s[:, 3:] /= norm[:, None]
+    return s
+
+
+def compute_coefficients(geometry: Any, sensors: np.ndarray,
+                         settings: Settings | None = None) -> CoefficientSet:
+    """Ray-trace the four coefficient families of a geometry.
+
+    Parameters
+    ----------
+    geometry : kernels.geometry.Geometry
+    sensors : ndarray (n, 6)
+        x, y, z [m], nx, ny, nz (normals need not be unit length).
+    settings : Settings, optional
+
+    Returns
+    -------
+    CoefficientSet
+    """
+    from kernels.raytrace import Scene
+
+    settings = settings or Settings()
+    sensors = _check_sensors(sensors)
+    key = coefficient_key(geometry, sensors, settings)
+    scheme = patch_scheme(settings.subdivision)
+    fine = SunPoints(settings.sun_spacing)
+    coarse = SunPoints(max(settings.reflected_sun_spacing, settings.sun_spacing))
+    scene = Scene(geometry)
+    panes = tuple(int(p) for p in geometry.set_panes)
+    n_sets, n_basis = len(panes), scheme.n_patches + 1
+
+    sky_direct = _sensor_sky_direct(scene, sensors, scheme, settings, panes)
+    inside = np.zeros(sensors.shape[0], dtype=bool)
+    sun_direct = _sun_direct(scene, sensors[:, :3], sensors[:, 3:], inside, fine.directions,
+                             panes)[:n_sets]
+    reflected = _reflected(scene, geometry, sensors, settings, scheme, coarse.directions, panes)
+    index, weight = coarse.weights(fine.directions)
+    sun_coarse = reflected[:, :, n_basis:]
+    sun_reflected = sum(sun_coarse[:, :, index[:, m]] * weight[:, m] for m in range(3))
+    return CoefficientSet(
+        key=key,
+        glazing_sets=tuple(geometry.glazing_sets),
+        sensors=sensors,
+        subdivision=scheme.subdivision,
+        sun_directions=fine.directions.copy(),
+        sky_direct=sky_direct.astype(np.float32),
+        sky_reflected=reflected[:, :, :n_basis].astype(np.float32),
+        sun_direct=sun_direct.astype(np.float32),
+        sun_reflected=sun_reflected.astype(np.float32),
+        settings=settings,
+        kernel_version=kernels.KERNEL_VERSION,
+    )

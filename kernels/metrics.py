@@ -1,0 +1,598 @@
+"""Annual daylight metrics from illuminance series, accumulated chunk by chunk.
+
+The engine computes illuminance in time chunks. Each chunk is folded into a
+dictionary of *additive* numpy arrays (``counts``) by :func:`accumulate`; chunks
+may be folded in any order or merged with :func:`merge_counts` (they add), and
+:func:`finalize` turns the counts into the metrics. A whole year is therefore
+never held in memory at once, and the result does not depend on how the year
+was cut into chunks (integer counts are identical; float sums agree to rounding).
+
+Shapes
+------
+``total``, ``direct_sun`` (and ``total_shaded``): float32 ``(..., n_sensors,
+n_steps)`` [lx]. The leading ``...`` is any batch shape (orientations, glazing
+rows); every count keeps it. Step masks (:class:`StepMasks`) are boolean
+``(n_steps,)`` or ``(..., n_steps)`` broadcastable against the batch shape.
+The sensors of one call are one grid: grid-level metrics (sDA, ASE, the
+LM-83 shading rule, EN 17037) take every sensor of the call as the grid, so pad
+slots (NaN sensors) must not be passed in.
+
+Steps skipped by the engine (night steps with zero illuminance everywhere) must
+still enter the denominators: fold them with :func:`accumulate_dark`, which is
+equivalent to :func:`accumulate` with all-zero illuminance.
+
+Time conventions
+----------------
+Steps carry hour-ending stamps in local standard time (DEVELOPERS.md): a step
+stamped ``t`` of length Δ covers the interval (t − Δ, t]. A step belongs to an
+occupied period when its whole interval lies inside it (:func:`occupancy_mask`).
+All steps have the same length ``step_hours``; hour-based results (direct sun
+hours, ASE hours, light exposure) multiply step counts by it.
+
+Threshold conventions (each stated with its metric below): "at least" is ``≥``,
+"more than"/"above"/"exceeds" is ``>``. Fractions of sensors and of time are
+compared exactly as integer ratios (no floating-point rounding at a threshold).
+
+Metrics (per sensor unless noted; "grid" = per batch element)
+-------------------------------------------------------------
+``daylight_autonomy``
+    Fraction of occupied time with E ≥ ``da_threshold`` (300 lx). Reinhart &
+    Walkenhorst (2001).
+``continuous_daylight_autonomy``
+    Occupied-time mean of min(E / x, 1): partial credit below the threshold.
+    Rogers (2006) (from memory).
+``udi_low``, ``udi_supplementary``, ``udi_autonomous``, ``udi_high``
+    Fractions of occupied time with E < e0, e0 ≤ E < e1, e1 ≤ E ≤ e2, E > e2
+    for band edges (e0, e1, e2) = (100, 300, 3000) lx. Nabil & Mardaljevic
+    (2005), with the later split of the useful band at 300 lx (from memory).
+    The four bands partition the occupied time, so they sum to 1.
+``udi_useful_mean`` (grid)
+    Grid mean of ``udi_supplementary + udi_autonomous`` (e0 ≤ E ≤ e2).
+``daylight_autonomy_mean`` (grid)
+    Grid mean of ``daylight_autonomy``.
+``mean_illuminance``
+    Occupied-time mean illuminance [lx].
+``light_exposure``
+    Annual light exposure Σ E Δt over *all* steps of the year [lx·h].
+``direct_sun_hours``
+    Occupied hours with direct-sun illuminance > ``sun_threshold`` (1000 lx) [h].
+``sda_fraction``, ``sda`` (grid, %)
+    IES LM-83-12 spatial daylight autonomy sDA_300/50%: share of the grid whose
+    illuminance is ≥ 300 lx for ≥ 50 % of the analysis hours (08:00–18:00 local
+    standard time, every day; night steps inside the window count as below
+    the threshold). In every analysis step where *more than* 2 % of the sensors
+    get *more than* 1000 lx of direct sun, the operable shading is closed and
+    ``total_shaded`` is used for that step for every sensor (one shading group
+    per grid). Without operable shading (``total_shaded=None``) ``total`` is
+    used throughout.
+``ase_hours``, ``ase`` (grid, %)
+    IES LM-83-12 annual sunlight exposure ASE_1000,250h: share of the grid whose
+    direct-sun illuminance (shading open) is > 1000 lx for > 250 analysis hours.
+``shading_hours`` (grid)
+    Analysis hours in which the LM-83 rule closed the shading [h].
+``en17037_level`` (grid)
+    EN 17037:2018 daylight provision through vertical openings, illuminance
+    method: level *k* is met when, for ≥ 50 % of the daylight hours, E ≥ target
+    over ≥ 50 % of the grid *and*, for ≥ 50 % of the daylight hours,
+    E ≥ minimum target over ≥ 95 % of the grid; (target, minimum) =
+    (300, 100) minimum, (500, 300) medium, (750, 500) high [lx]. Result 0 (none),
+    1, 2 or 3: the highest level met together with every lower level.
+    *Daylight hours* are the steps whose sun is above the horizon at the step's
+    representative time (``StepMasks.daylight``, supplied by the engine; about
+    4380 h a year at any latitude — half the year, which is how EN 17037 counts
+    them, common practice). Shading is open (EN 17037 assesses the openings).
+
+References
+----------
+- C. F. Reinhart, O. Walkenhorst, "Validation of dynamic RADIANCE-based
+  daylight simulations for a test office with external blinds", Energy and
+  Buildings 33(7):683–697, 2001. DOI 10.1016/S0378-7788(01)00058-5.
+- Z. Rogers, "Daylighting metric development using daylight autonomy
+  calculations in the sensor placement optimization tool", Boulder: Architectural
+  Energy Corporation, 2006 (from memory).
+- A. Nabil, J. Mardaljevic, "Useful daylight illuminance: a new paradigm for
+  assessing daylight in buildings", Lighting Research & Technology 37(1):41–59,
+  2005. DOI 10.1191/1365782805li128oa.
+- IES LM-83-12, "Approved method: IES spatial daylight autonomy (sDA) and
+  annual sunlight exposure (ASE)", Illuminating Engineering Society, 2012.
+- EN 17037:2018, "Daylight in buildings", CEN, 2018 (Table A.1 levels).
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass, field
+from fractions import Fraction
+
+import numpy as np
+import pandas as pd
+
+__all__ = [
+    "MetricParams",
+    "StepMasks",
+    "accumulate",
+    "accumulate_dark",
+    "daylight_factor_stats",
+    "en17037_pass",
+    "en17037_time_fractions",
+    "finalize",
+    "lm83_analysis_mask",
+    "merge_counts",
+    "occupancy_mask",
+]
+
+# EN 17037:2018 Table A.1, vertical and inclined openings: (target, minimum target) [lx].
+EN17037_LEVELS: tuple[tuple[float, float], ...] = ((300.0, 100.0), (500.0, 300.0), (750.0, 500.0))
+
+
+@dataclass(frozen=True, kw_only=True)
+class MetricParams:
+    """Thresholds of the metrics (defaults from the cited definitions).
+
+    Parameters
+    ----------
+    step_hours : float [h]
+        Length of every time step (``timestep`` minutes / 60).
+    da_threshold : float [lx]
+        Daylight autonomy threshold x (Reinhart & Walkenhorst 2001; 300 lx).
+    udi_edges : tuple of 3 floats [lx]
+        UDI band edges (e0, e1, e2) (Nabil & Mardaljevic 2005; 100, 300, 3000).
+    sun_threshold : float [lx]
+        Direct sun level for ``direct_sun_hours`` and ASE (LM-83-12; 1000 lx).
+    sda_threshold : float [lx]
+        sDA illuminance (LM-83-12; 300 lx).
+    sda_time_fraction : float [-]
+        sDA share of analysis hours (LM-83-12; 0.5).
+    ase_hours : float [h]
+        ASE hours limit (LM-83-12; 250 h, exceeded strictly).
+    shading_sensor_fraction : float [-]
+        LM-83 rule: shading closes when more than this share of sensors get
+        more than ``sun_threshold`` direct sun (LM-83-12; 0.02).
+    en17037_levels : tuple of (target, minimum) [lx]
+        EN 17037:2018 Table A.1 levels, lowest first.
+    en17037_target_area, en17037_minimum_area, en17037_time : float [-]
+        Shares of the grid (0.5, 0.95) and of daylight hours (0.5), EN 17037:2018.
+    """
+
+    step_hours: float = 1.0
+    da_threshold: float = 300.0
+    udi_edges: tuple[float, float, float] = (100.0, 300.0, 3000.0)
+    sun_threshold: float = 1000.0
+    sda_threshold: float = 300.0
+    sda_time_fraction: float = 0.5
+    ase_hours: float = 250.0
+    shading_sensor_fraction: float = 0.02
+    en17037_levels: tuple[tuple[float, float], ...] = EN17037_LEVELS
+    en17037_target_area: float = 0.5
+    en17037_minimum_area: float = 0.95
+    en17037_time: float = 0.5
+
+    @classmethod
+    def from_options(cls, options: dict | None, step_minutes: float) -> MetricParams:
+        """Parameters from the study file's ``metric_options`` mapping.
+
+        Keys (all optional): ``daylight_autonomy`` [lx], ``udi_edges`` [lx],
+        ``sda_illuminance`` [lx], ``sda_time_fraction`` [%], ``ase_illuminance``
+        [lx] (also the direct-sun level of ``direct_sun_hours``), ``ase_hours`` [h].
+        """
+        o = dict(options or {})
+        kw: dict = {"step_hours": step_minutes / 60.0}
+        if "daylight_autonomy" in o:
+            kw["da_threshold"] = float(o["daylight_autonomy"])
+        if "udi_edges" in o:
+            kw["udi_edges"] = tuple(float(v) for v in o["udi_edges"])
+        if "sda_illuminance" in o:
+            kw["sda_threshold"] = float(o["sda_illuminance"])
+        if "sda_time_fraction" in o:
+            kw["sda_time_fraction"] = float(o["sda_time_fraction"]) / 100.0
+        if "ase_illuminance" in o:
+            kw["sun_threshold"] = float(o["ase_illuminance"])
+        if "ase_hours" in o:
+            kw["ase_hours"] = float(o["ase_hours"])
+        return cls(**kw)
+
+    def __post_init__(self) -> None:
+        e0, e1, e2 = self.udi_edges
+        if not 0 < e0 < e1 < e2:
+            raise ValueError(f"udi_edges must rise strictly above 0, got {self.udi_edges}")
+        if self.step_hours <= 0:
+            raise ValueError(f"step_hours must be positive, got {self.step_hours}")
+
+
+@dataclass(frozen=True)
+class StepMasks:
+    """Which steps of a chunk belong to which period (boolean, ``(..., n_steps)``).
+
+    Parameters
+    ----------
+    occupied : ndarray of bool
+        Occupied steps (:func:`occupancy_mask` with the study's occupancy).
+    analysis : ndarray of bool
+        IES LM-83-12 analysis steps, 08:00–18:00 every day (:func:`lm83_analysis_mask`).
+    daylight : ndarray of bool
+        Steps with the sun above the horizon at the representative time (EN 17037).
+    """
+
+    occupied: np.ndarray
+    analysis: np.ndarray
+    daylight: np.ndarray
+    n_steps: int = field(init=False)
+
+    def __post_init__(self) -> None:
+        n = {np.shape(m)[-1] for m in (self.occupied, self.analysis, self.daylight)}
+        if len(n) != 1:
+            raise ValueError(f"step masks disagree on the number of steps: {sorted(n)}")
+        object.__setattr__(self, "n_steps", n.pop())
+
+
+# ---------------------------------------------------------------------------
+# time masks
+
+
+def _minutes_of_day(text: str) -> int:
+    match = re.fullmatch(r"(\d{1,2}):(\d{2})", str(text).strip())
+    if not match or int(match[2]) >= 60 or int(match[1]) * 60 + int(match[2]) > 1440:
+        raise ValueError(f"time of day must be 'HH:MM' between 00:00 and 24:00, got {text!r}")
+    return int(match[1]) * 60 + int(match[2])
+
+
+def occupancy_mask(
+    times: pd.DatetimeIndex | np.ndarray,
+    start: str,
+    end: str,
+    days: str = "weekdays",
+    step_minutes: float = 60.0,
+) -> np.ndarray:
+    """Occupied steps of a series of hour-ending time stamps.
+
+    Parameters
+    ----------
+    times : DatetimeIndex or ndarray of datetime64
+        Step stamps in local standard time; each stamp ends its step (a step
+        stamped 09:00 of 60 min covers 08:00–09:00). Time-zone-aware stamps are
+        read on their own wall clock.
+    start, end : str
+        Occupied period of every occupied day, ``"HH:MM"``; ``end`` may be
+        ``"24:00"``. ``start < end`` (periods over midnight are not supported).
+    days : {"weekdays", "all"}
+        Monday to Friday, or every day. The day of a step is the day on which
+        its interval starts (the step stamped 00:00 belongs to the day before).
+    step_minutes : float [min]
+        Step length.
+
+    Returns
+    -------
+    ndarray of bool, shape (n_steps,)
+        True where the step's whole interval (t − Δ, t] lies within
+        [start, end] of an occupied day.
+
+    Notes
+    -----
+    With hourly steps and 08:00–18:00 the occupied steps are those stamped
+    09:00 … 18:00: ten per day.
+    """
+    t0 = _minutes_of_day(start)
+    t1 = _minutes_of_day(end)
+    if t0 >= t1:
+        raise ValueError(f"occupancy start {start!r} must be before end {end!r}")
+    if days not in ("weekdays", "all"):
+        raise ValueError(f"occupancy days must be 'weekdays' or 'all', got {days!r}")
+    stamps = pd.DatetimeIndex(times)
+    if stamps.tz is not None:
+        stamps = stamps.tz_localize(None)  # keep the wall clock of the fixed offset
+    begins = stamps - pd.Timedelta(minutes=step_minutes)
+    minute = (begins - begins.normalize()) / pd.Timedelta(minutes=1)
+    minute = np.asarray(minute, dtype=float)
+    inside = (minute >= t0) & (minute + step_minutes <= t1)
+    if days == "weekdays":
+        inside &= np.asarray(begins.day_of_week) < 5
+    return inside
+
+
+def lm83_analysis_mask(
+    times: pd.DatetimeIndex | np.ndarray, step_minutes: float = 60.0
+) -> np.ndarray:
+    """IES LM-83-12 analysis steps: 08:00–18:00 local standard time, every day.
+
+    See :func:`occupancy_mask` for the stamp convention (3650 hourly steps a year).
+    """
+    return occupancy_mask(times, "08:00", "18:00", "all", step_minutes)
+
+
+# ---------------------------------------------------------------------------
+# accumulation
+
+
+def _ratio(fraction: float) -> tuple[int, int]:
+    """An exact integer ratio (numerator, denominator) for a decimal share."""
+    r = Fraction(str(fraction)).limit_denominator(10**6)
+    return r.numerator, r.denominator
+
+
+def _share_at_least(count: np.ndarray, total: np.ndarray | int, fraction: float) -> np.ndarray:
+    """``count / total ≥ fraction`` in exact integer arithmetic."""
+    num, den = _ratio(fraction)
+    return np.asarray(count, dtype=np.int64) * den >= np.asarray(total, dtype=np.int64) * num
+
+
+def _share_more_than(count: np.ndarray, total: np.ndarray | int, fraction: float) -> np.ndarray:
+    """``count / total > fraction`` in exact integer arithmetic."""
+    num, den = _ratio(fraction)
+    return np.asarray(count, dtype=np.int64) * den > np.asarray(total, dtype=np.int64) * num
+
+
+_PER_SENSOR_COUNTS = (
+    "occ_da", "occ_udi_ge_e0", "occ_udi_ge_e1", "occ_udi_gt_e2", "occ_sun",
+    "occ_cda_lux", "occ_sum_lux", "all_sum_lux", "ana_sda", "ana_ase",
+)
+
+
+def _add(counts: dict[str, np.ndarray], key: str, value: np.ndarray) -> None:
+    counts[key] = counts[key] + value if key in counts else value
+
+
+def _step_counts(counts: dict[str, np.ndarray], masks: StepMasks) -> None:
+    _add(counts, "n_steps", np.asarray(masks.n_steps, dtype=np.int64))
+    _add(counts, "n_occupied", np.count_nonzero(masks.occupied, axis=-1).astype(np.int64))
+    _add(counts, "n_analysis", np.count_nonzero(masks.analysis, axis=-1).astype(np.int64))
+    _add(counts, "n_daylight", np.count_nonzero(masks.daylight, axis=-1).astype(np.int64))
+
+
+def _count(condition: np.ndarray, mask: np.ndarray) -> np.ndarray:
+    """Steps where ``condition`` holds within ``mask`` (summed over the last axis)."""
+    return np.count_nonzero(condition & mask, axis=-1).astype(np.int64)
+
+
+def accumulate(
+    counts: dict[str, np.ndarray] | None,
+    total: np.ndarray,
+    direct_sun: np.ndarray,
+    masks: StepMasks,
+    params: MetricParams,
+    total_shaded: np.ndarray | None = None,
+) -> dict[str, np.ndarray]:
+    """Fold one time chunk of illuminance into the additive counts.
+
+    Parameters
+    ----------
+    counts : dict or None
+        Counts of the chunks folded so far (updated and returned), or None to start.
+    total : ndarray (..., n_sensors, n_steps) [lx]
+        Illuminance with operable shading open (all light).
+    direct_sun : ndarray (..., n_sensors, n_steps) [lx]
+        The part of ``total`` from the sun's direct beam (shading open).
+    masks : StepMasks
+        Period masks of the chunk's steps, ``(n_steps,)`` or ``(..., n_steps)``.
+    params : MetricParams
+        Thresholds.
+    total_shaded : ndarray (..., n_sensors, n_steps) [lx], optional
+        Illuminance with the operable shading closed (LM-83 sDA rule); None when
+        the study has no operable shading.
+
+    Returns
+    -------
+    dict of str to ndarray
+        Additive counts; integer step counts (int64) and lux sums (float64).
+    """
+    counts = {} if counts is None else counts
+    _step_counts(counts, masks)
+    occ = np.asarray(masks.occupied, dtype=bool)[..., None, :]
+    ana = np.asarray(masks.analysis, dtype=bool)[..., None, :]
+    day = np.asarray(masks.daylight, dtype=bool)
+    e0, e1, e2 = params.udi_edges
+
+    # occupied-time metrics, per sensor
+    _add(counts, "occ_da", _count(total >= params.da_threshold, occ))
+    _add(counts, "occ_udi_ge_e0", _count(total >= e0, occ))
+    _add(counts, "occ_udi_ge_e1", _count(total >= e1, occ))
+    _add(counts, "occ_udi_gt_e2", _count(total > e2, occ))
+    _add(counts, "occ_sun", _count(direct_sun > params.sun_threshold, occ))
+    # min(E, x) summed in lux (exact for lux-valued inputs); divided by x at the end
+    capped = np.minimum(total, np.float32(params.da_threshold))
+    _add(counts, "occ_cda_lux", np.sum(np.where(occ, capped, 0), axis=-1, dtype=np.float64))
+    _add(counts, "occ_sum_lux", np.sum(np.where(occ, total, 0), axis=-1, dtype=np.float64))
+    _add(counts, "all_sum_lux", np.sum(total, axis=-1, dtype=np.float64))
+
+    # IES LM-83-12: shading rule, sDA and ASE over the analysis steps
+    n_sensors = total.shape[-2]
+    sunlit = direct_sun > params.sun_threshold
+    n_sunlit = np.count_nonzero(sunlit, axis=-2)  # (..., n_steps)
+    closed = _share_more_than(n_sunlit, n_sensors, params.shading_sensor_fraction)
+    closed &= np.asarray(masks.analysis, dtype=bool)
+    if total_shaded is None:
+        closed[...] = False
+        effective = total
+    else:
+        effective = np.where(closed[..., None, :], total_shaded, total)
+    _add(counts, "ana_shaded", np.count_nonzero(closed, axis=-1).astype(np.int64))
+    _add(counts, "ana_sda", _count(effective >= params.sda_threshold, ana))
+    _add(counts, "ana_ase", _count(sunlit, ana))
+
+    # EN 17037:2018 daylight provision, per daylight step and level
+    target_ok, minimum_ok = [], []
+    for target, minimum in params.en17037_levels:
+        n_target = np.count_nonzero(total >= target, axis=-2)
+        n_minimum = np.count_nonzero(total >= minimum, axis=-2)
+        ok_t = _share_at_least(n_target, n_sensors, params.en17037_target_area)
+        ok_m = _share_at_least(n_minimum, n_sensors, params.en17037_minimum_area)
+        target_ok.append(_count(ok_t, day))
+        minimum_ok.append(_count(ok_m, day))
+    _add(counts, "day_target_ok", np.stack(target_ok, axis=-1))
+    _add(counts, "day_minimum_ok", np.stack(minimum_ok, axis=-1))
+    return counts
+
+
+def accumulate_dark(
+    counts: dict[str, np.ndarray] | None,
+    masks: StepMasks,
+    params: MetricParams,
+    batch_shape: tuple[int, ...],
+    n_sensors: int,
+) -> dict[str, np.ndarray]:
+    """Fold steps that the engine skipped because no light reaches the room.
+
+    Equivalent to :func:`accumulate` with all-zero illuminance for these steps
+    (tested), without allocating the arrays: the steps enter the denominators
+    (occupied, analysis, daylight, all steps) and no numerator.
+
+    Parameters
+    ----------
+    counts : dict or None
+        Counts so far, or None.
+    masks : StepMasks
+        Period masks of the skipped steps.
+    params : MetricParams
+        Thresholds (all must be positive, so zero illuminance passes none).
+    batch_shape : tuple of int
+        Leading batch shape of the other chunks.
+    n_sensors : int
+        Sensors of the grid.
+    """
+    n_levels = len(params.en17037_levels)
+    counts = {} if counts is None else counts
+    _step_counts(counts, masks)
+    for key in _PER_SENSOR_COUNTS:
+        dtype = np.float64 if key.endswith("_lux") else np.int64
+        _add(counts, key, np.zeros((*batch_shape, n_sensors), dtype))
+    _add(counts, "ana_shaded", np.zeros(batch_shape, np.int64))
+    _add(counts, "day_target_ok", np.zeros((*batch_shape, n_levels), np.int64))
+    _add(counts, "day_minimum_ok", np.zeros((*batch_shape, n_levels), np.int64))
+    return counts
+
+
+def merge_counts(*parts: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+    """Add the counts of chunks folded separately (e.g. on different workers)."""
+    merged: dict[str, np.ndarray] = {}
+    for part in parts:
+        for k, v in part.items():
+            _add(merged, k, v)
+    return merged
+
+
+# ---------------------------------------------------------------------------
+# results
+
+
+def _per_step(count: np.ndarray, steps: np.ndarray) -> np.ndarray:
+    """Share of steps; 0 where there are no steps in the period."""
+    steps = np.asarray(steps, dtype=np.float64)[..., None]
+    shape = np.broadcast_shapes(np.shape(count), steps.shape)
+    return np.divide(count, steps, out=np.zeros(shape), where=steps > 0)
+
+
+def finalize(counts: dict[str, np.ndarray], params: MetricParams) -> dict[str, np.ndarray]:
+    """Metrics from accumulated counts (definitions in the module docstring).
+
+    Parameters
+    ----------
+    counts : dict of str to ndarray
+        From :func:`accumulate` / :func:`accumulate_dark` / :func:`merge_counts`.
+    params : MetricParams
+        The same thresholds used to accumulate.
+
+    Returns
+    -------
+    dict of str to ndarray
+        Per sensor ``(..., n_sensors)``: ``daylight_autonomy``,
+        ``continuous_daylight_autonomy``, ``udi_low``, ``udi_supplementary``,
+        ``udi_autonomous``, ``udi_high`` [fraction 0–1], ``mean_illuminance``
+        [lx], ``light_exposure`` [lx·h], ``direct_sun_hours`` [h],
+        ``sda_fraction`` [0–1], ``ase_hours`` [h]. Per grid ``(...)``:
+        ``sda``, ``ase`` [%], ``udi_useful_mean``, ``daylight_autonomy_mean``
+        [0–1], ``shading_hours`` [h],
+        ``en17037_level`` (int8, 0–3).
+    """
+    occ = counts["n_occupied"]
+    h = params.step_hours
+    ge_e0 = counts["occ_udi_ge_e0"]
+    ge_e1 = counts["occ_udi_ge_e1"]
+    gt_e2 = counts["occ_udi_gt_e2"]
+    out: dict[str, np.ndarray] = {
+        "daylight_autonomy": _per_step(counts["occ_da"], occ),
+        "continuous_daylight_autonomy": _per_step(counts["occ_cda_lux"], occ)
+        / params.da_threshold,
+        "udi_low": _per_step(np.asarray(occ)[..., None] - ge_e0, occ),
+        "udi_supplementary": _per_step(ge_e0 - ge_e1, occ),
+        "udi_autonomous": _per_step(ge_e1 - gt_e2, occ),
+        "udi_high": _per_step(gt_e2, occ),
+        "mean_illuminance": _per_step(counts["occ_sum_lux"], occ),
+        "light_exposure": counts["all_sum_lux"] * h,
+        "direct_sun_hours": counts["occ_sun"] * h,
+        "sda_fraction": _per_step(counts["ana_sda"], counts["n_analysis"]),
+        "ase_hours": counts["ana_ase"] * h,
+    }
+    out["udi_useful_mean"] = np.mean(out["udi_supplementary"] + out["udi_autonomous"], axis=-1)
+    out["daylight_autonomy_mean"] = np.mean(out["daylight_autonomy"], axis=-1)
+
+    n_ana = np.asarray(counts["n_analysis"])[..., None]
+    sda_ok = _share_at_least(counts["ana_sda"], n_ana, params.sda_time_fraction)
+    sda_ok &= n_ana > 0
+    out["sda"] = 100.0 * np.mean(sda_ok, axis=-1)
+    # "more than 250 hours", compared exactly: count · step_hours > ase_hours
+    step = Fraction(str(h)).limit_denominator(10**6)
+    limit = Fraction(str(params.ase_hours)).limit_denominator(10**6)
+    over = counts["ana_ase"] * (step.numerator * limit.denominator) > (
+        limit.numerator * step.denominator
+    )
+    out["ase"] = 100.0 * np.mean(over, axis=-1)
+    out["shading_hours"] = counts["ana_shaded"] * h
+
+    target_ok, minimum_ok = en17037_pass(counts, params)
+    met = np.cumprod(target_ok & minimum_ok, axis=-1)  # a level counts only with all below it
+    out["en17037_level"] = met.sum(axis=-1).astype(np.int8)
+    return out
+
+
+def en17037_pass(
+    counts: dict[str, np.ndarray], params: MetricParams
+) -> tuple[np.ndarray, np.ndarray]:
+    """EN 17037 target and minimum-target tests per level, ``(..., n_levels)`` bool."""
+    n_day = np.asarray(counts["n_daylight"])[..., None]
+    ok_t = _share_at_least(counts["day_target_ok"], n_day, params.en17037_time) & (n_day > 0)
+    ok_m = _share_at_least(counts["day_minimum_ok"], n_day, params.en17037_time) & (n_day > 0)
+    return ok_t, ok_m
+
+
+def en17037_time_fractions(
+    counts: dict[str, np.ndarray], params: MetricParams
+) -> tuple[np.ndarray, np.ndarray]:
+    """Shares of daylight hours meeting each level's target and minimum target.
+
+    Returns
+    -------
+    target, minimum : ndarray (..., n_levels) [0–1]
+        Share of daylight steps with E ≥ target over ≥ 50 % of the grid, and
+        with E ≥ minimum target over ≥ 95 % of it (EN 17037:2018).
+    """
+    return (
+        _per_step(counts["day_target_ok"], counts["n_daylight"]),
+        _per_step(counts["day_minimum_ok"], counts["n_daylight"]),
+    )
+
+
+def daylight_factor_stats(daylight_factor: np.ndarray) -> dict[str, np.ndarray]:
+    """Grid statistics of per-sensor daylight factors.
+
+    Parameters
+    ----------
+    daylight_factor : ndarray (..., n_sensors) [%]
+        Daylight factor of each sensor under the CIE overcast sky (from the engine).
+
+    Returns
+    -------
+    dict
+        ``daylight_factor_mean``, ``daylight_factor_median``,
+        ``daylight_factor_min`` [%] and ``daylight_factor_uniformity``
+        (minimum / mean, [-]; common practice), each of shape ``(...)``.
+    """
+    df = np.asarray(daylight_factor, dtype=np.float64)
+    mean = df.mean(axis=-1)
+    low = df.min(axis=-1)
+    return {
+        "daylight_factor_mean": mean,
+        "daylight_factor_median": np.median(df, axis=-1),
+        "daylight_factor_min": low,
+        "daylight_factor_uniformity": np.divide(
+            low, mean, out=np.zeros_like(mean), where=mean > 0
+        ),
+    }

@@ -1,0 +1,938 @@
+"""The study file (CONTRACT.md §1) as frozen pydantic models, with errors that name places.
+
+A study file is YAML read with :func:`yaml.safe_load` (so a Python object tag is
+refused). Its node tree is also composed to map every key path to its line, so
+that every problem is reported as ``file, line N, key 'room.windows.0.sill': what
+is wrong. What to do.`` through :class:`sweep.errors.StudyFileError`.
+
+Every model is frozen, keyword-only and forbids unknown keys; ``model_dump(mode=
+"json")`` followed by ``model_validate`` gives back an equal model (canonical dict
+round trip). Relative paths are resolved against the study file's folder at
+load time and stored as absolute paths.
+
+Extensions to CONTRACT.md §1 (all optional; documented on the models below):
+
+- ``orientation:`` and ``climate:`` at the top level give the value used when the
+  axis is not varied (defaults 180 and the first climate label), so the built-in
+  axes are ordinary paths for ``vary``.
+- ``glazings.<set>.shaded_transmittance``: normal transmittance of the set with
+  its operable shading closed; used for the IES LM-83 sDA shading rule.
+- ``vary_together:`` a list of groups ``{path: [values], path2: [values]}``
+  whose lists have equal length and are varied in step (zipped), not crossed.
+- ``exclude:`` a list of partial assignments ``{path: value, ...}``; a variant
+  that matches every entry of one of them is dropped.
+- ``metric_options:`` thresholds of the metrics (daylight autonomy threshold, UDI
+  band edges, direct-sun threshold and hours, sDA time fraction).
+- ``compute:`` ray-tracing settings passed to :class:`kernels.coefficients.Settings`
+  (sky subdivision, sun-point spacing, ray counts, element size, seed); they
+  enter the coefficient key.
+- mesh rooms: ``mesh:`` (OBJ), ``materials:`` (group -> reflectance or glazing
+  set), ``grid.floors:`` (floor groups for the grid) or ``sensors:`` (CSV).
+"""
+
+from __future__ import annotations
+
+import difflib
+import hashlib
+import json
+import re
+import typing
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Annotated, Any, Literal
+
+import yaml
+from pydantic import (
+    AfterValidator,
+    BaseModel,
+    ConfigDict,
+    Field,
+    ValidationError,
+    ValidationInfo,
+    field_validator,
+)
+
+from sweep.errors import StudyFileError
+
+# ---------------------------------------------------------------------------
+# helpers shared by the models
+
+METRIC_FAMILIES = ("daylight_factor", "daylight_autonomy", "udi", "sda_ase", "en17037")
+BUILT_IN_AXES = ("orientation", "climate")
+# Top-level keys that describe the sweep or the store layout rather than a
+# variant: they cannot be varied.
+NOT_VARIABLE = ("name", "vary", "vary_together", "exclude", "rank", "metrics", "store_series",
+                "climates")
+
+_NAME = re.compile(r"^[A-Za-z0-9_-]+$")
+_CLOCK = re.compile(r"^(([01]\d|2[0-3]):[0-5]\d|24:00)$")
+
+
+class _Model(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+def _resolve_file(value: str, info: ValidationInfo, what: str) -> str:
+    """Resolve ``value`` against the study folder (validation context) and check it exists."""
+    base = (info.context or {}).get("base")
+    path = Path(value).expanduser()
+    if not path.is_absolute() and base is not None:
+        path = Path(base) / path
+    path = path.resolve()
+    if not path.is_file():
+        raise ValueError(
+            f"{what} '{value}' does not exist (looked for {path}); give a path relative to "
+            "the study file's folder or an absolute path"
+        )
+    return str(path)
+
+
+def _unit_interval(value: float, what: str, *, closed_top: bool = False) -> float:
+    ok = 0.0 <= value <= 1.0 if closed_top else 0.0 <= value < 1.0
+    if not ok:
+        top = "1]" if closed_top else "1)"
+        raise ValueError(f"{what} must lie in [0, {top}, got {value}")
+    return value
+
+
+Positive = Annotated[float, Field(gt=0)]
+
+
+def _weather_file(value: str, info: ValidationInfo) -> str:
+    return _resolve_file(str(value), info, "weather file")
+
+
+WeatherFile = Annotated[str, AfterValidator(_weather_file)]
+
+# ---------------------------------------------------------------------------
+# room
+
+
+class Reflectance(_Model):
+    """Diffuse reflectances of the interior surfaces of a parametric room (0 to < 1)."""
+
+    floor: float = 0.2
+    walls: float = 0.5
+    ceiling: float = 0.7
+
+    @field_validator("floor")
+    @classmethod
+    def _floor(cls, v: float) -> float:
+        return _unit_interval(v, "floor reflectance")
+
+    @field_validator("walls")
+    @classmethod
+    def _walls(cls, v: float) -> float:
+        return _unit_interval(v, "wall reflectance")
+
+    @field_validator("ceiling")
+    @classmethod
+    def _ceiling(cls, v: float) -> float:
+        return _unit_interval(v, "ceiling reflectance")
+
+
+class Window(_Model):
+    """A window of a parametric room [m], building frame (CONTRACT.md §1).
+
+    Wall windows (front, back, left, right) use ``width``, ``sill``, ``head`` and
+    ``offset``; roof windows use ``width`` (along x), ``length`` (along y) and the
+    centre ``x``, ``y``. Whether the window fits its wall is checked by the
+    geometry kernel when the room is built.
+    """
+
+    wall: Literal["front", "back", "left", "right", "roof"]
+    width: Positive
+    sill: float | None = None
+    head: float | None = None
+    offset: float = 0.0
+    length: Positive | None = None
+    x: float | None = None
+    y: float | None = None
+    glazing: str
+
+    @field_validator("sill")
+    @classmethod
+    def _sill(cls, v: float | None) -> float | None:
+        if v is not None and v < 0:
+            raise ValueError(f"sill height must be >= 0 m, got {v}")
+        return v
+
+    @field_validator("head")
+    @classmethod
+    def _head(cls, v: float | None, info: ValidationInfo) -> float | None:
+        sill = info.data.get("sill")
+        if v is not None and sill is not None and v <= sill:
+            raise ValueError(f"head ({v} m) must be above the sill ({sill} m)")
+        return v
+
+    @field_validator("glazing")
+    @classmethod
+    def _glazing(cls, v: str) -> str:
+        if not _NAME.match(v):
+            raise ValueError(f"glazing set name '{v}' may hold only letters, digits, '-' and '_'")
+        return v
+
+
+class Overhang(_Model):
+    """A slab above the front windows: projection ``depth``, ``gap`` above the head [m]."""
+
+    depth: Positive
+    gap: float = 0.0
+
+    @field_validator("gap")
+    @classmethod
+    def _gap(cls, v: float) -> float:
+        if v < 0:
+            raise ValueError(f"overhang gap must be >= 0 m, got {v}")
+        return v
+
+
+class Obstruction(_Model):
+    """An exterior box on the ground: footprint centre ``x``, ``y``; size [m]."""
+
+    x: float
+    y: float
+    width: Positive
+    depth: Positive
+    height: Positive
+
+
+class Room(_Model):
+    """A parametric box room [m] (CONTRACT.md §1): front façade at y = 0, normal −y."""
+
+    width: Positive
+    depth: Positive
+    height: Positive
+    thickness: float = 0.0
+    reflectance: Reflectance = Reflectance()
+    windows: list[Window] = Field(min_length=1)
+    overhang: Overhang | None = None
+    obstructions: list[Obstruction] = []
+
+    @field_validator("thickness")
+    @classmethod
+    def _thickness(cls, v: float) -> float:
+        if v < 0:
+            raise ValueError(f"wall thickness must be >= 0 m, got {v}")
+        return v
+
+
+class MeshMaterial(_Model):
+    """An OBJ group: an opaque surface with ``reflectance`` or a window of a ``glazing`` set."""
+
+    reflectance: float | None = None
+    glazing: str | None = None
+
+    @field_validator("reflectance")
+    @classmethod
+    def _reflectance(cls, v: float | None) -> float | None:
+        return None if v is None else _unit_interval(v, "reflectance")
+
+    @field_validator("glazing")
+    @classmethod
+    def _glazing(cls, v: str | None, info: ValidationInfo) -> str | None:
+        if v is not None and info.data.get("reflectance") is not None:
+            raise ValueError("give either 'reflectance' or 'glazing' for a group, not both")
+        return v
+
+
+class Glazing(_Model):
+    """A glazing set: normal ``transmittance`` (0–1], ``panes`` (0 = unglazed opening).
+
+    Extension: ``shaded_transmittance`` is the set's normal transmittance with its
+    operable shading closed; when given, sDA follows the IES LM-83-12 rule
+    (shading closed in any hour where more than 2 % of sensors get more than
+    1000 lx of direct sun).
+    """
+
+    transmittance: float
+    panes: int = 2
+    shaded_transmittance: float | None = None
+
+    @field_validator("transmittance")
+    @classmethod
+    def _transmittance(cls, v: float) -> float:
+        if not 0.0 < v <= 1.0:
+            raise ValueError(f"transmittance must lie in (0, 1], got {v}")
+        return v
+
+    @field_validator("panes")
+    @classmethod
+    def _panes(cls, v: int) -> int:
+        if not 0 <= v <= 4:
+            raise ValueError(f"panes must be 0 (an opening) to 4, got {v}")
+        return v
+
+    @field_validator("shaded_transmittance")
+    @classmethod
+    def _shaded(cls, v: float | None, info: ValidationInfo) -> float | None:
+        if v is None:
+            return v
+        tau = info.data.get("transmittance")
+        if not 0.0 <= v <= (tau if tau is not None else 1.0):
+            raise ValueError(
+                f"shaded_transmittance must lie in [0, transmittance = {tau}], got {v}"
+            )
+        return v
+
+
+class Grid(_Model):
+    """Sensor grid on the working plane [m]; ``floors`` names the floor groups of a mesh room."""
+
+    height: float = 0.8
+    spacing: Positive = 0.5
+    margin: float = 0.5
+    floors: list[str] | None = None
+
+    @field_validator("height")
+    @classmethod
+    def _height(cls, v: float) -> float:
+        if v < 0:
+            raise ValueError(f"grid height must be >= 0 m, got {v}")
+        return v
+
+    @field_validator("margin")
+    @classmethod
+    def _margin(cls, v: float) -> float:
+        if v < 0:
+            raise ValueError(f"grid margin must be >= 0 m, got {v}")
+        return v
+
+    @field_validator("floors")
+    @classmethod
+    def _floors(cls, v: list[str] | None) -> list[str] | None:
+        if v is not None and not v:
+            raise ValueError("list at least one floor group, or leave 'floors' out")
+        return v
+
+
+class Occupancy(_Model):
+    """Occupied period in local standard time: ``start``, ``end`` ("HH:MM"), ``days``."""
+
+    start: str = "08:00"
+    end: str = "18:00"
+    days: Literal["weekdays", "all"] = "weekdays"
+
+    @field_validator("start")
+    @classmethod
+    def _start(cls, v: str) -> str:
+        if not _CLOCK.match(str(v)):
+            raise ValueError(f"start must be a time \"HH:MM\" (quoted), got {v!r}")
+        return v
+
+    @field_validator("end")
+    @classmethod
+    def _end(cls, v: str, info: ValidationInfo) -> str:
+        if not _CLOCK.match(str(v)):
+            raise ValueError(f"end must be a time \"HH:MM\" (quoted), got {v!r}")
+        start = info.data.get("start")
+        if start is not None and v <= start:
+            raise ValueError(f"end ({v}) must be later than start ({start})")
+        return v
+
+
+class MetricOptions(_Model):
+    """Extension ``metric_options:``: thresholds of the metrics [lx, h, %].
+
+    Defaults: daylight autonomy at 300 lx; UDI band edges 100, 300, 3000 lx
+    (Nabil & Mardaljevic 2005); sDA 300 lx for 50 % of the analysis hours and ASE
+    above 1000 lx of direct sun for more than 250 h (IES LM-83-12).
+    """
+
+    daylight_autonomy: Positive = 300.0
+    udi_edges: tuple[float, float, float] = (100.0, 300.0, 3000.0)
+    sda_illuminance: Positive = 300.0
+    sda_time_fraction: float = 50.0
+    ase_illuminance: Positive = 1000.0
+    ase_hours: Positive = 250.0
+
+    @field_validator("udi_edges")
+    @classmethod
+    def _udi(cls, v: tuple[float, float, float]) -> tuple[float, float, float]:
+        if not 0 < v[0] < v[1] < v[2]:
+            raise ValueError(f"UDI band edges must be positive and increasing, got {list(v)}")
+        return v
+
+    @field_validator("sda_time_fraction")
+    @classmethod
+    def _fraction(cls, v: float) -> float:
+        if not 0 < v <= 100:
+            raise ValueError(f"sda_time_fraction is a percentage in (0, 100], got {v}")
+        return v
+
+
+class Compute(_Model):
+    """Extension ``compute:``: ray-tracing settings for :class:`kernels.coefficients.Settings`.
+
+    Every key left out takes the kernel's default. All of them change the
+    coefficient matrices and so enter the coefficient key.
+    ``subdivision`` 1 = Tregenza 145 patches, n = Reinhart MF:n (144 n² + 1);
+    ``sun_spacing`` [deg] between sun points; ray counts per patch / element /
+    sensor; ``element_size`` [m] of the reflected-light mesh;
+    ``reflected_sun_spacing`` [deg] of the coarse sun points of the reflected
+    sun family; ``seed``.
+    """
+
+    subdivision: int | None = None
+    sun_spacing: Positive | None = None
+    sky_rays_per_patch: int | None = None
+    ground_rays: int | None = None
+    element_size: Positive | None = None
+    element_rays: int | None = None
+    sensor_rays: int | None = None
+    reflected_sun_spacing: Positive | None = None
+    seed: int | None = None
+
+    @field_validator("subdivision")
+    @classmethod
+    def _subdivision(cls, v: int | None) -> int | None:
+        if v is not None and not 1 <= v <= 8:
+            raise ValueError(f"subdivision must be 1 (Tregenza 145) to 8, got {v}")
+        return v
+
+    @field_validator("sky_rays_per_patch")
+    @classmethod
+    def _sky_rays(cls, v: int | None) -> int | None:
+        return _positive_count(v, "sky_rays_per_patch")
+
+    @field_validator("ground_rays")
+    @classmethod
+    def _ground_rays(cls, v: int | None) -> int | None:
+        return _positive_count(v, "ground_rays")
+
+    @field_validator("element_rays")
+    @classmethod
+    def _element_rays(cls, v: int | None) -> int | None:
+        return _positive_count(v, "element_rays")
+
+    @field_validator("sensor_rays")
+    @classmethod
+    def _sensor_rays(cls, v: int | None) -> int | None:
+        return _positive_count(v, "sensor_rays")
+
+    @field_validator("seed")
+    @classmethod
+    def _seed(cls, v: int | None) -> int | None:
+        if v is not None and v < 0:
+            raise ValueError(f"seed must be >= 0, got {v}")
+        return v
+
+    def settings_kwargs(self) -> dict[str, Any]:
+        """Keyword arguments for :class:`kernels.coefficients.Settings` (only the keys given)."""
+        return {k: v for k, v in self.model_dump().items() if v is not None}
+
+
+def _positive_count(v: int | None, what: str) -> int | None:
+    if v is not None and v < 1:
+        raise ValueError(f"{what} must be at least 1, got {v}")
+    return v
+
+
+RANK_METRICS = ("sda", "ase", "udi_useful_mean", "daylight_autonomy_mean",
+                "daylight_factor_mean", "en17037_level", "shading_hours")
+"""Per-variant results that ranking criteria and objectives may name."""
+RANK_FAMILY = {"sda": "sda_ase", "ase": "sda_ase", "shading_hours": "sda_ase",
+               "udi_useful_mean": "udi", "daylight_autonomy_mean": "daylight_autonomy",
+               "daylight_factor_mean": "daylight_factor", "en17037_level": "en17037"}
+
+
+def _rank_metric(v: str) -> str:
+    if v not in RANK_METRICS:
+        close = difflib.get_close_matches(v, RANK_METRICS, n=1)
+        hint = f"did you mean '{close[0]}'? " if close else ""
+        raise ValueError(f"unknown metric '{v}'; {hint}valid metrics: {', '.join(RANK_METRICS)}")
+    return v
+
+
+class Requirement(_Model):
+    """A ranking criterion: ``{metric, at_least}`` or ``{metric, at_most}``."""
+
+    metric: str
+    at_least: float | None = None
+    at_most: float | None = None
+
+    @field_validator("metric")
+    @classmethod
+    def _metric(cls, v: str) -> str:
+        return _rank_metric(v)
+
+    @field_validator("at_most")
+    @classmethod
+    def _bound(cls, v: float | None, info: ValidationInfo) -> float | None:
+        if (v is None) == (info.data.get("at_least") is None):
+            raise ValueError("give exactly one of 'at_least' or 'at_most'")
+        return v
+
+
+class Preference(_Model):
+    """A ranking objective: ``{metric, goal: max|min, weight}``."""
+
+    metric: str
+    goal: Literal["max", "min"] = "max"
+    weight: float = 1.0
+
+    @field_validator("metric")
+    @classmethod
+    def _metric(cls, v: str) -> str:
+        return _rank_metric(v)
+
+    @field_validator("weight")
+    @classmethod
+    def _weight(cls, v: float) -> float:
+        if v < 0:
+            raise ValueError(f"weight must be >= 0, got {v}")
+        return v
+
+
+class Rank(_Model):
+    """Criteria (``require``) and objectives (``prefer``) read by ``luxsweep rank``."""
+
+    require: list[Requirement] = []
+    prefer: list[Preference] = []
+
+
+# ---------------------------------------------------------------------------
+# the study
+
+
+class Study(_Model):
+    """A study file (CONTRACT.md §1) with the extensions listed in the module docstring.
+
+    A room is either ``room:`` (parametric) or ``mesh:`` + ``materials:`` (OBJ).
+    ``orientation`` [deg] and ``climate`` are the values used when the built-in
+    axes are not varied (180 and the first climate label by default).
+    """
+
+    name: str
+    climates: dict[str, WeatherFile] = Field(min_length=1)
+    room: Room | None = None
+    mesh: str | None = None
+    materials: dict[str, MeshMaterial] | None = None
+    sensors: str | None = None
+    glazings: dict[str, Glazing] = Field(min_length=1)
+    ground_reflectance: float = 0.2
+    grid: Grid = Grid()
+    occupancy: Occupancy = Occupancy()
+    timestep: int = 60
+    orientation: float = 180.0
+    climate: str | None = None
+    vary: dict[str, list[Any]] = {}
+    vary_together: list[dict[str, list[Any]]] = []
+    exclude: list[dict[str, Any]] = []
+    metrics: list[Literal[METRIC_FAMILIES]] = list(METRIC_FAMILIES)  # type: ignore[valid-type]
+    metric_options: MetricOptions = MetricOptions()
+    compute: Compute = Compute()
+    store_series: bool = False
+    rank: Rank | None = None
+
+    @field_validator("name")
+    @classmethod
+    def _name(cls, v: str) -> str:
+        if not _NAME.match(v):
+            raise ValueError(f"name '{v}' may hold only letters, digits, '-' and '_'")
+        return v
+
+    @field_validator("climates")
+    @classmethod
+    def _climates(cls, v: dict[str, str]) -> dict[str, str]:
+        for label in v:
+            if not _NAME.match(str(label)):
+                raise ValueError(f"climate label '{label}' may hold only letters, digits, '-', '_'")
+        return v
+
+    @field_validator("mesh")
+    @classmethod
+    def _mesh(cls, v: str | None, info: ValidationInfo) -> str | None:
+        return None if v is None else _resolve_file(v, info, "mesh file")
+
+    @field_validator("materials")
+    @classmethod
+    def _materials(cls, v: dict[str, MeshMaterial] | None) -> dict[str, MeshMaterial] | None:
+        if v is not None and not v:
+            raise ValueError("map each OBJ group to {reflectance: r} or {glazing: set}")
+        return v
+
+    @field_validator("sensors")
+    @classmethod
+    def _sensors(cls, v: str | None, info: ValidationInfo) -> str | None:
+        return None if v is None else _resolve_file(v, info, "sensor file")
+
+    @field_validator("glazings")
+    @classmethod
+    def _glazings(cls, v: dict[str, Glazing]) -> dict[str, Glazing]:
+        for name in v:
+            if not _NAME.match(str(name)):
+                raise ValueError(
+                    f"glazing set name '{name}' may hold only letters, digits, '-', '_'"
+                )
+        return v
+
+    @field_validator("ground_reflectance")
+    @classmethod
+    def _ground(cls, v: float) -> float:
+        return _unit_interval(v, "ground_reflectance")
+
+    @field_validator("timestep")
+    @classmethod
+    def _timestep(cls, v: int) -> int:
+        if v <= 0 or 60 % v:
+            raise ValueError(f"timestep must divide 60 minutes (60, 30, 20, 15, 10, 5...), got {v}")
+        return v
+
+    @field_validator("orientation")
+    @classmethod
+    def _orientation(cls, v: float) -> float:
+        if not 0.0 <= v < 360.0:
+            raise ValueError(f"orientation is a site azimuth in [0, 360) degrees, got {v}")
+        return v
+
+    @field_validator("climate")
+    @classmethod
+    def _climate(cls, v: str | None, info: ValidationInfo) -> str | None:
+        labels = info.data.get("climates")
+        if v is not None and labels is not None and v not in labels:
+            raise ValueError(f"climate '{v}' is not a label of 'climates' ({', '.join(labels)})")
+        return v
+
+    @field_validator("vary")
+    @classmethod
+    def _vary(cls, v: dict[str, list[Any]]) -> dict[str, list[Any]]:
+        for path in v:
+            if not isinstance(path, str) or not path:
+                raise ValueError(f"vary keys are dotted paths, got {path!r}")
+        return v
+
+    @field_validator("vary_together")
+    @classmethod
+    def _together(cls, v: list[dict[str, list[Any]]]) -> list[dict[str, list[Any]]]:
+        for i, group in enumerate(v):
+            lengths = {len(values) for values in group.values()}
+            if len(lengths) > 1:
+                raise ValueError(
+                    f"group {i}: the lists varied together must have equal lengths, "
+                    f"got {[len(x) for x in group.values()]}"
+                )
+        return v
+
+    @field_validator("exclude")
+    @classmethod
+    def _exclude(cls, v: list[dict[str, Any]]) -> list[dict[str, Any]]:
+        for i, entry in enumerate(v):
+            if not entry:
+                raise ValueError(f"exclusion {i} is empty; give {{path: value, ...}}")
+        return v
+
+    @field_validator("metrics")
+    @classmethod
+    def _metrics(cls, v: list[str]) -> list[str]:
+        if not v:
+            raise ValueError(f"list at least one metric of {', '.join(METRIC_FAMILIES)}")
+        return v
+
+    @field_validator("store_series")
+    @classmethod
+    def _store_series(cls, v: bool) -> bool:
+        return v
+
+    @field_validator("rank")
+    @classmethod
+    def _rank(cls, v: Rank | None) -> Rank | None:
+        return v
+
+    # -- derived ------------------------------------------------------------
+    @property
+    def default_climate(self) -> str:
+        """Climate label used when ``climate`` is not varied."""
+        return self.climate if self.climate is not None else next(iter(self.climates))
+
+    def canonical(self) -> dict[str, Any]:
+        """The canonical JSON-able dict (round-trips through :meth:`model_validate`)."""
+        return self.model_dump(mode="json")
+
+
+# ---------------------------------------------------------------------------
+# cross-field checks (the place of each problem is a key path)
+
+
+def cross_check(study: Study) -> list[tuple[tuple, str]]:
+    """Problems that involve several fields, as ``(key path, message)`` pairs."""
+    problems: list[tuple[tuple, str]] = []
+    if (study.room is None) == (study.mesh is None):
+        problems.append(((), "give either 'room:' (a parametric room) or 'mesh:' (an OBJ file)"))
+    if study.room is not None:
+        for key in ("materials", "sensors"):
+            if getattr(study, key) is not None:
+                problems.append(
+                    ((key,), f"'{key}' belongs to a mesh room; remove it or use 'mesh:'")
+                )
+        if study.grid.floors is not None:
+            problems.append((("grid", "floors"), "'floors' names OBJ groups of a mesh room; "
+                             "remove it for a parametric room"))
+        for i, w in enumerate(study.room.windows):
+            if w.glazing not in study.glazings:
+                problems.append(
+                    (("room", "windows", i, "glazing"),
+                     f"glazing set '{w.glazing}' is not defined under 'glazings' "
+                     f"({', '.join(study.glazings)})")
+                )
+            if w.wall == "roof":
+                for key in ("length", "x", "y"):
+                    if getattr(w, key) is None:
+                        problems.append((("room", "windows", i), f"a roof window needs '{key}'"))
+            else:
+                for key in ("sill", "head"):
+                    if getattr(w, key) is None:
+                        problems.append(
+                            (("room", "windows", i), f"a {w.wall} window needs '{key}'")
+                        )
+    if study.mesh is not None:
+        if not study.materials:
+            problems.append((("mesh",), "a mesh room needs 'materials:' mapping its OBJ groups"))
+        for group, m in (study.materials or {}).items():
+            if m.glazing is None and m.reflectance is None:
+                problems.append((("materials", group),
+                                 "give {reflectance: r} or {glazing: set} for this group"))
+            if m.glazing is not None and m.glazing not in study.glazings:
+                problems.append(
+                    (("materials", group, "glazing"),
+                     f"glazing set '{m.glazing}' is not defined under 'glazings'")
+                )
+        if study.sensors is None and study.grid.floors is None:
+            problems.append((("grid",), "a mesh room needs 'grid: {floors: [group, ...]}' "
+                             "or 'sensors: points.csv'"))
+    for i, req in enumerate(study.rank.require if study.rank else []):
+        if req.at_least is None and req.at_most is None:
+            problems.append((("rank", "require", i), "give 'at_least' or 'at_most'"))
+    for part in ("require", "prefer"):
+        for i, item in enumerate(getattr(study.rank, part) if study.rank else []):
+            family = RANK_FAMILY[item.metric]
+            if family not in study.metrics:
+                problems.append(((("rank", part, i, "metric")),
+                                 f"'{item.metric}' is computed by the metric family "
+                                 f"'{family}', which is not listed under 'metrics'; add it"))
+    return problems
+
+
+# ---------------------------------------------------------------------------
+# loading with line numbers
+
+
+@dataclass(frozen=True)
+class StudyFile:
+    """A loaded study: the model, its source text and where each key path sits."""
+
+    path: Path
+    text: str
+    study: Study
+    lines: dict[tuple, int] = field(repr=False)
+
+    @property
+    def folder(self) -> Path:
+        return self.path.parent
+
+    def line_of(self, loc: tuple) -> int | None:
+        """Line of ``loc`` (or of its nearest ancestor present in the file)."""
+        return _line_of(self.lines, loc)
+
+    def error(self, loc: tuple, message: str) -> StudyFileError:
+        """A :class:`StudyFileError` naming this file, the key path and its line."""
+        return _error(self.path, self.lines, [(loc, message)])
+
+    def sha256(self) -> str:
+        return hashlib.sha256(self.text.encode()).hexdigest()
+
+
+def _line_map(node: yaml.Node, prefix: tuple = ()) -> dict[tuple, int]:
+    """Key path -> 1-based line; raises ``_Duplicate`` for a key given twice."""
+    lines: dict[tuple, int] = {prefix: node.start_mark.line + 1}
+    if isinstance(node, yaml.MappingNode):
+        for key, value in node.value:
+            k: Any = key.value
+            path = (*prefix, k)
+            if path in lines:
+                raise _Duplicate(path, lines[path], key.start_mark.line + 1)
+            sub = _line_map(value, path)
+            sub[path] = key.start_mark.line + 1
+            lines.update(sub)
+    elif isinstance(node, yaml.SequenceNode):
+        for i, item in enumerate(node.value):
+            lines.update(_line_map(item, (*prefix, i)))
+    return lines
+
+
+class _Duplicate(Exception):
+    def __init__(self, path: tuple, first: int, second: int) -> None:
+        self.path, self.first, self.second = path, first, second
+
+
+def _norm(loc: tuple) -> tuple:
+    return tuple(str(p) for p in loc)
+
+
+def _line_of(lines: dict[tuple, int], loc: tuple) -> int | None:
+    norm = {_norm(k): v for k, v in lines.items()}
+    loc = _norm(loc)
+    while True:
+        if loc in norm:
+            return norm[loc]
+        if not loc:
+            return None
+        loc = loc[:-1]
+
+
+def dotted(loc: tuple) -> str:
+    """Key path as shown to users: ``room.windows.0.sill``."""
+    return ".".join(str(p) for p in loc) if loc else "(top level)"
+
+
+def _error(
+    path: Path, lines: dict[tuple, int], problems: list[tuple[tuple, str]]
+) -> StudyFileError:
+    parts = []
+    for loc, message in problems[:6]:
+        line = _line_of(lines, loc)
+        where = f"line {line}, " if line is not None else ""
+        parts.append(f"{path}: {where}key '{dotted(loc)}': {message}")
+    if len(problems) > 6:
+        parts.append(f"... and {len(problems) - 6} more problems")
+    err = StudyFileError("\n".join(parts))
+    first = problems[0][0] if problems else ()
+    err.file = str(path)  # type: ignore[attr-defined]
+    err.key = dotted(first)  # type: ignore[attr-defined]
+    err.line = _line_of(lines, first)  # type: ignore[attr-defined]
+    return err
+
+
+def _strip_optional(tp: Any) -> Any:
+    if typing.get_origin(tp) in (typing.Union, __import__("types").UnionType):
+        args = [a for a in typing.get_args(tp) if a is not type(None)]
+        if len(args) == 1:
+            return _strip_optional(args[0])
+    if typing.get_origin(tp) is Annotated:
+        return _strip_optional(typing.get_args(tp)[0])
+    return tp
+
+
+def _keys_at(loc: tuple) -> list[str]:
+    """Valid keys of the model found at ``loc`` inside :class:`Study` (for hints)."""
+    tp: Any = Study
+    for part in loc:
+        tp = _strip_optional(tp)
+        if isinstance(tp, type) and issubclass(tp, BaseModel):
+            if part not in tp.model_fields:
+                return []
+            tp = tp.model_fields[part].annotation
+        elif typing.get_origin(tp) is dict:
+            tp = typing.get_args(tp)[1]
+        elif typing.get_origin(tp) in (list, tuple):
+            tp = typing.get_args(tp)[0]
+        else:
+            return []
+    tp = _strip_optional(tp)
+    if isinstance(tp, type) and issubclass(tp, BaseModel):
+        return list(tp.model_fields)
+    return []
+
+
+def _describe(err: dict[str, Any]) -> tuple[tuple, str]:
+    loc = tuple(err["loc"])
+    kind = err["type"]
+    if kind == "extra_forbidden":
+        key = str(loc[-1])
+        valid = _keys_at(loc[:-1])
+        close = difflib.get_close_matches(key, valid, n=1, cutoff=0.6)
+        hint = f" — did you mean '{close[0]}'?" if close else ""
+        listing = f" Valid keys here: {', '.join(valid)}." if valid else ""
+        return loc, f"unknown key '{key}'{hint} Remove it or fix its spelling.{listing}"
+    if kind == "missing":
+        return loc, f"required key '{loc[-1]}' is missing; add it."
+    msg = err["msg"].removeprefix("Value error, ")
+    value = err.get("input")
+    shown = "" if isinstance(value, dict | list) else f" (got {value!r})"
+    if kind.startswith(("float", "int", "bool", "string", "literal", "dict", "list")):
+        return loc, f"{msg}{shown}; correct the value."
+    return loc, f"{msg}."
+
+
+def validation_problems(exc: ValidationError) -> list[tuple[tuple, str]]:
+    """Turn a pydantic error into ``(key path, message)`` pairs, unknown keys first."""
+    errors = sorted(exc.errors(), key=lambda e: e["type"] != "extra_forbidden")
+    return [_describe(e) for e in errors]
+
+
+def parse_study(text: str, path: str | Path) -> StudyFile:
+    """Parse study ``text`` that came from file ``path`` (relative paths resolve beside it).
+
+    Raises
+    ------
+    StudyFileError
+        For YAML syntax errors, Python object tags, unknown keys (with a "did you
+        mean" hint), wrong types or values, and bad ``vary`` entries; the message
+        names the file, the line and the dotted key path.
+    """
+    path = Path(path).resolve()
+    try:
+        node = yaml.compose(text, Loader=yaml.SafeLoader)
+        lines = _line_map(node) if node is not None else {}
+        data = yaml.safe_load(text)
+    except _Duplicate as dup:
+        raise StudyFileError(
+            f"{path}: line {dup.second}, key '{dotted(dup.path)}': given twice (first on line "
+            f"{dup.first}); YAML would silently keep only the last one. Keep one of them."
+        ) from None
+    except yaml.constructor.ConstructorError as exc:
+        line = exc.problem_mark.line + 1 if exc.problem_mark else None
+        raise StudyFileError(
+            f"{path}: line {line}: YAML tag not allowed ({exc.problem}). Study files hold "
+            "plain data only; remove the '!!' tag."
+        ) from None
+    except yaml.YAMLError as exc:
+        mark = getattr(exc, "problem_mark", None)
+        line = f"line {mark.line + 1}: " if mark else ""
+        problem = getattr(exc, "problem", None) or str(exc)
+        raise StudyFileError(
+            f"{path}: {line}not valid YAML ({problem}). Check indentation and quoting there."
+        ) from None
+    if not isinstance(data, dict):
+        raise StudyFileError(f"{path}: line 1: a study file is a YAML mapping of keys "
+                             "(name, climates, room, ...); see CONTRACT.md §1.")
+    context = {"base": str(path.parent)}
+    try:
+        study = Study.model_validate(data, context=context)
+    except ValidationError as exc:
+        raise _error(path, lines, validation_problems(exc)) from None
+    problems = cross_check(study)
+    if problems:
+        raise _error(path, lines, problems)
+    loaded = StudyFile(path=path, text=text, study=study, lines=lines)
+    # vary entries are checked here so that `luxsweep check` catches them
+    from sweep.expand import check_vary
+
+    check_vary(loaded)
+    return loaded
+
+
+def load_study(path: str | Path) -> StudyFile:
+    """Read and validate a study file (see :func:`parse_study`)."""
+    p = Path(path)
+    try:
+        text = p.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise StudyFileError(f"{p}: study file not found; check the path.") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise StudyFileError(f"{p}: cannot read the study file ({exc}).") from None
+    return parse_study(text, p)
+
+
+def json_schema() -> dict[str, Any]:
+    """JSON Schema of the study file (``luxsweep check --schema``)."""
+    schema = Study.model_json_schema()
+    schema["title"] = "luxsweep study file"
+    schema["$schema"] = "https://json-schema.org/draft/2020-12/schema"
+    return schema
+
+
+def canonical_json(obj: Any) -> str:
+    """Canonical JSON text: sorted keys, no spaces, ASCII (the basis of every hash)."""
+    return json.dumps(obj, sort_keys=True, separators=(",", ":"), ensure_ascii=True,
+                      allow_nan=False)

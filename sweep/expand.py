@@ -1,0 +1,329 @@
+"""Expand a study's ``vary`` section into variants with stable ids.
+
+Axes:
+
+- every ``vary`` key is one axis (a dotted path into the study, or ``orientation``
+  / ``climate``); the variants are the full factorial of the axes;
+- every ``vary_together`` group is one axis whose paths move in step (zipped);
+- ``exclude`` entries drop the variants that match all of their assignments.
+
+Each :class:`Variant` carries its resolved :class:`~sweep.config.Study` (values
+substituted, nothing left to vary), its axis values, a readable label and
+``variant_id``: the first 16 hex digits of the sha256 of the canonical JSON of its
+resolved parameters. File paths enter the hash as the sha256 of the file
+contents, so moving a study folder keeps every id.
+"""
+
+from __future__ import annotations
+
+import copy
+import hashlib
+import itertools
+import math
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from pydantic import ValidationError
+
+from sweep.config import (
+    NOT_VARIABLE,
+    Study,
+    StudyFile,
+    canonical_json,
+    cross_check,
+    dotted,
+    validation_problems,
+)
+
+# Study keys that do not change a variant's results (left out of its hash).
+_PRESENTATION = ("name", "vary", "vary_together", "exclude", "rank", "metrics", "store_series",
+                 "climates")
+
+
+@dataclass(frozen=True)
+class Variant:
+    """One point of the sweep.
+
+    Attributes
+    ----------
+    index : int
+        Position along the ``variant`` dimension of the results store.
+    variant_id : str
+        16 hex digits, stable hash of ``params``.
+    label : str
+        ``orientation=90 climate=coastal ...`` (axis order of the study file).
+    axes : dict
+        Vary key -> resolved value.
+    study : Study
+        The resolved study (values substituted, no ``vary``).
+    params : dict
+        The JSON-able parameters that were hashed.
+    """
+
+    index: int
+    variant_id: str
+    label: str
+    axes: dict[str, Any]
+    study: Study
+    params: dict[str, Any]
+
+    @property
+    def climate(self) -> str:
+        return self.study.default_climate
+
+    @property
+    def orientation(self) -> float:
+        return self.study.orientation
+
+
+# ---------------------------------------------------------------------------
+# dotted paths
+
+
+def split_path(path: str) -> tuple:
+    """``'room.windows.0.width'`` -> ``('room', 'windows', 0, 'width')``."""
+    return tuple(int(p) if p.isdigit() else p for p in path.split("."))
+
+
+def has_path(data: Any, parts: tuple) -> bool:
+    for p in parts:
+        if isinstance(data, dict) and isinstance(p, str) and p in data:
+            data = data[p]
+        elif isinstance(data, list) and isinstance(p, int) and 0 <= p < len(data):
+            data = data[p]
+        else:
+            return False
+    return True
+
+
+def get_path(data: Any, parts: tuple) -> Any:
+    for p in parts:
+        data = data[p]
+    return data
+
+
+def set_path(data: dict[str, Any], parts: tuple, value: Any) -> dict[str, Any]:
+    """A deep copy of ``data`` with the value at ``parts`` replaced."""
+    out = copy.deepcopy(data)
+    target: Any = out
+    for p in parts[:-1]:
+        target = target[p]
+    target[parts[-1]] = value
+    return out
+
+
+# ---------------------------------------------------------------------------
+# validation of the vary section
+
+
+def _axes(study: Study) -> list[tuple[tuple, list[str], list[tuple]]]:
+    """``(place in file, paths, rows of values)`` for each axis."""
+    axes: list[tuple[tuple, list[str], list[tuple]]] = []
+    for path, values in study.vary.items():
+        axes.append((("vary", path), [path], [(v,) for v in values]))
+    for i, group in enumerate(study.vary_together):
+        paths = list(group)
+        axes.append((("vary_together", i), paths, list(zip(*group.values(), strict=True))))
+    return axes
+
+
+def _place(loc: tuple, path: str, paths: list[str]) -> tuple:
+    return (*loc, path) if len(paths) > 1 else loc
+
+
+def _substitute(base: dict[str, Any], assignment: dict[str, Any], folder: Path) -> Study:
+    data = base
+    for path, value in assignment.items():
+        data = set_path(data, split_path(path), value)
+    data = {**data, "vary": {}, "vary_together": [], "exclude": []}
+    return Study.model_validate(data, context={"base": str(folder)})
+
+
+def check_vary(loaded: StudyFile) -> None:
+    """Check ``vary``, ``vary_together`` and ``exclude``: paths exist, values are valid.
+
+    Raises
+    ------
+    StudyFileError
+        Naming the vary path (and the value) that is wrong, with its line.
+    """
+    study = loaded.study
+    base = study.canonical()
+    seen: dict[str, tuple] = {}
+    for i, group in enumerate(study.vary_together):
+        if not group:
+            raise loaded.error(("vary_together", i), "an empty group; give {path: [values], ...}")
+    for loc, paths, rows in _axes(study):
+        for path in paths:
+            place = _place(loc, path, paths)
+            if not rows:
+                raise loaded.error(place, f"'{path}' has an empty list of values; give at "
+                                   "least one value or remove the entry")
+            parts = split_path(path)
+            if parts[0] in NOT_VARIABLE:
+                raise loaded.error(place, f"'{parts[0]}' cannot be varied; vary a room, "
+                                   "glazing, grid, occupancy or compute key, 'orientation' or "
+                                   "'climate'")
+            if not has_path(base, parts):
+                raise loaded.error(place, f"vary path '{path}' does not exist in this study; "
+                                   f"{_path_hint(base, parts)}")
+            if path in seen:
+                raise loaded.error(place, f"'{path}' is varied twice (also at "
+                                   f"'{dotted(seen[path])}'); keep one")
+            seen[path] = place
+        for j, row in enumerate(rows):
+            assignment = dict(zip(paths, row, strict=True))
+            try:
+                resolved = _substitute(base, assignment, loaded.folder)
+            except ValidationError as exc:
+                inner_loc, message = validation_problems(exc)[0]
+                raise loaded.error(
+                    (*loc, j) if len(paths) == 1 else (*loc, paths[0], j),
+                    f"value {row if len(row) > 1 else row[0]!r} (item {j}) is not valid at "
+                    f"'{dotted(inner_loc)}': {message}",
+                ) from None
+            problems = cross_check(resolved)
+            if problems:
+                raise loaded.error((*loc, j), f"value {row!r} (item {j}): {problems[0][1]}")
+    for i, entry in enumerate(study.exclude):
+        for path, value in entry.items():
+            if path not in seen:
+                raise loaded.error(("exclude", i, path), f"'{path}' is not varied, so this "
+                                   "exclusion can never match; use a path from 'vary' or "
+                                   "'vary_together'")
+            values = _values_of(study, path)
+            if not any(_same(value, v) for v in values):
+                raise loaded.error(("exclude", i, path), f"{value!r} is not one of the values "
+                                   f"varied for '{path}' ({values}); this exclusion would never "
+                                   "match")
+
+
+def _path_hint(base: dict[str, Any], parts: tuple) -> str:
+    known: Any = base
+    for k, p in enumerate(parts):
+        if isinstance(known, dict) and p in known:
+            known = known[p]
+            continue
+        if isinstance(known, list) and isinstance(p, int) and p < len(known):
+            known = known[p]
+            continue
+        prefix = ".".join(str(x) for x in parts[:k]) or "(top level)"
+        if isinstance(known, dict):
+            return f"under '{prefix}' the keys are: {', '.join(map(str, known))}"
+        if isinstance(known, list):
+            return f"'{prefix}' is a list of {len(known)} items (indices 0 to {len(known) - 1})"
+        return f"'{prefix}' holds a value, not keys (it is {known!r} in this study)"
+    return "check the spelling"
+
+
+def _values_of(study: Study, path: str) -> list[Any]:
+    if path in study.vary:
+        return list(study.vary[path])
+    for group in study.vary_together:
+        if path in group:
+            return list(group[path])
+    return []
+
+
+def _same(a: Any, b: Any) -> bool:
+    if isinstance(a, int | float) and isinstance(b, int | float) and not isinstance(a, bool):
+        return math.isclose(float(a), float(b), rel_tol=1e-12, abs_tol=1e-12)
+    return a == b
+
+
+# ---------------------------------------------------------------------------
+# expansion
+
+
+def file_sha256(path: str | Path) -> str:
+    """sha256 hex of a file's bytes."""
+    digest = hashlib.sha256()
+    with open(path, "rb") as f:
+        for block in iter(lambda: f.read(1 << 20), b""):
+            digest.update(block)
+    return digest.hexdigest()
+
+
+def variant_params(study: Study, hashes: dict[str, str]) -> dict[str, Any]:
+    """The hashed parameters of a resolved study: physics only, files as content hashes."""
+    data = study.canonical()
+    params = {k: v for k, v in data.items() if k not in _PRESENTATION}
+    label = study.default_climate
+    params["climate"] = label
+    params["climate_file"] = hashes[study.climates[label]]
+    for key in ("mesh", "sensors"):
+        if params.get(key) is not None:
+            params[key] = hashes[params[key]]
+    return params
+
+
+def _format(value: Any) -> str:
+    if isinstance(value, float):
+        return f"{value:g}"
+    return str(value)
+
+
+def expand(loaded: StudyFile) -> list[Variant]:
+    """All variants of a study, in factorial order (first axis slowest).
+
+    Raises
+    ------
+    StudyFileError
+        When exclusions drop every variant, or two variants are identical.
+    """
+    study = loaded.study
+    base = study.canonical()
+    axes = _axes(study)
+    hashes: dict[str, str] = {}
+    for path in [*study.climates.values(), study.mesh, study.sensors]:
+        if path is not None and path not in hashes:
+            hashes[path] = file_sha256(path)
+
+    variants: list[Variant] = []
+    ids: dict[str, str] = {}
+    for combo in itertools.product(*[range(len(rows)) for _, _, rows in axes]):
+        assignment: dict[str, Any] = {}
+        for (_, paths, rows), j in zip(axes, combo, strict=True):
+            assignment.update(zip(paths, rows[j], strict=True))
+        if any(all(_same(assignment[p], v) for p, v in entry.items()) for entry in study.exclude):
+            continue
+        resolved = _substitute(base, assignment, loaded.folder)
+        if resolved.climate is None:
+            resolved = resolved.model_copy(update={"climate": resolved.default_climate})
+        canon = resolved.canonical()
+        axis_values = {p: get_path(canon, split_path(p)) for p in assignment}
+        params = variant_params(resolved, hashes)
+        variant_id = hashlib.sha256(canonical_json(params).encode()).hexdigest()[:16]
+        label = " ".join(f"{p}={_format(v)}" for p, v in axis_values.items()) or "base"
+        if variant_id in ids:
+            raise loaded.error(("vary",), f"variants '{ids[variant_id]}' and '{label}' are "
+                               "identical; remove the repeated value")
+        ids[variant_id] = label
+        variants.append(Variant(index=len(variants), variant_id=variant_id, label=label,
+                                axes=axis_values, study=resolved, params=params))
+    if not variants:
+        raise loaded.error(("exclude",), "every variant is excluded; loosen 'exclude'")
+    return variants
+
+
+def axis_names(study: Study) -> list[str]:
+    """Varied paths in study-file order (the coordinates of the results store)."""
+    return [p for _, paths, _ in _axes(study) for p in paths]
+
+
+def study_hash(loaded: StudyFile, variants: list[Variant]) -> str:
+    """Hash of what fixes a results store's layout and contents.
+
+    The variant ids, the axes, the metric families and ``store_series``; not the
+    study name or the ``rank`` section, so editing ranking criteria keeps a store
+    usable.
+    """
+    study = loaded.study
+    payload = {
+        "variants": [v.variant_id for v in variants],
+        "axes": axis_names(study),
+        "metrics": list(study.metrics),
+        "store_series": study.store_series,
+    }
+    return hashlib.sha256(canonical_json(payload).encode()).hexdigest()

@@ -1,0 +1,387 @@
+"""Plan a sweep: geometry and coefficient key per variant, groups, tasks, cost; nothing computed.
+
+Variants that share a coefficient key (same geometry, sensors and compute
+settings) share one coefficient set. Within a key, the variants that also share
+their climate and their time-series settings (time step, ground reflectance,
+occupancy, metric thresholds) form one *series task*: one set of sky vectors for
+all their orientations, one batched illuminance product for all their glazing
+rows (open and, with operable shading, closed), the metrics accumulated chunk
+by chunk, and each variant's results written to its own chunks of the store.
+
+Building the plan also validates every input that ``luxsweep run`` will read
+(geometry of every variant, sensor grids, every weather file), so ``check``,
+``plan`` and ``run`` refuse bad input before any cluster starts.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from collections.abc import Iterable
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from kernels.errors import InputError
+from sweep.cache import CoefficientCache
+from sweep.config import Study, StudyFile, canonical_json
+from sweep.errors import StudyFileError
+from sweep.expand import Variant, axis_names, expand, study_hash
+
+BYTES_PER_VALUE = 4  # float32 results
+
+
+@dataclass(frozen=True)
+class CoefficientJob:
+    """One distinct coefficient set: inputs of :func:`kernels.coefficients.compute_coefficients`."""
+
+    key: str
+    geometry: Any
+    sensors: np.ndarray
+    settings: Any
+    variants: tuple[int, ...]
+    cached: bool
+    rays: int
+
+    @property
+    def n_sensors(self) -> int:
+        return int(self.sensors.shape[0])
+
+
+@dataclass(frozen=True)
+class SeriesTask:
+    """One (coefficient key, climate, series settings) group of variants.
+
+    Attributes
+    ----------
+    task_id : str
+        ``series-<key[:12]>-<hash>``: explicit Dask key, names the group.
+    key : str
+        Coefficient key.
+    climate, climate_file : str
+        Climate label and weather file.
+    orientations : tuple of float
+        Distinct orientations [deg] of the variants (sky-vector batch).
+    rows : tuple of tuple of float
+        Distinct glazing rows ``(τ_open per set..., τ_closed per set...)``.
+    glazing_sets : tuple of str
+        Order of the sets within a row.
+    members : tuple of (variant index, orientation index, row index)
+    study : Study
+        The resolved study of the first member (time step, occupancy, ...).
+    """
+
+    task_id: str
+    key: str
+    climate: str
+    climate_file: str
+    orientations: tuple[float, ...]
+    rows: tuple[tuple[float, ...], ...]
+    glazing_sets: tuple[str, ...]
+    members: tuple[tuple[int, int, int], ...]
+    study: Study
+    variant_ids: tuple[str, ...]
+
+    @property
+    def shading(self) -> bool:
+        n = len(self.glazing_sets)
+        return any(r[:n] != r[n:] for r in self.rows)
+
+    def open_rows(self) -> np.ndarray:
+        n = len(self.glazing_sets)
+        return np.asarray([r[:n] for r in self.rows], dtype=np.float32).reshape(-1, n)
+
+    def closed_rows(self) -> np.ndarray:
+        n = len(self.glazing_sets)
+        return np.asarray([r[n:] for r in self.rows], dtype=np.float32).reshape(-1, n)
+
+
+@dataclass
+class Plan:
+    """What a run will do."""
+
+    loaded: StudyFile
+    variants: list[Variant]
+    study_hash: str
+    sensors: list[np.ndarray]
+    keys: list[str]
+    jobs: dict[str, CoefficientJob]
+    tasks: list[SeriesTask]
+    n_steps: dict[str, int] = field(default_factory=dict)
+    times: Any = None  # occupied step stamps (only with store_series)
+
+    @property
+    def axes(self) -> list[str]:
+        return axis_names(self.loaded.study)
+
+    # -- cost -----------------------------------------------------------------
+    def estimate(self) -> dict[str, Any]:
+        """Rays for the missing coefficient sets, GEMM flops, bytes written."""
+        missing = [j for j in self.jobs.values() if not j.cached]
+        flops = 0
+        for t in self.tasks:
+            job = self.jobs[t.key]
+            n_basis = _n_basis(job.settings.subdivision)
+            n_steps = self.n_steps.get(t.climate, 8760) // 2  # about half the steps are lit
+            n_sets = len(t.glazing_sets)
+            per_set = 2 * job.n_sensors * n_basis * len(t.orientations) * n_steps
+            flops += per_set * n_sets * (2 if t.shading else 1)
+        n_sensor_vars, n_variant_vars = 12, 10
+        written = sum(len(s) for s in self.sensors) * n_sensor_vars * BYTES_PER_VALUE
+        written += len(self.variants) * n_variant_vars * BYTES_PER_VALUE
+        if self.times is not None:
+            written += 2 * sum(len(s) for s in self.sensors) * len(self.times) * BYTES_PER_VALUE
+        return {
+            "variants": len(self.variants),
+            "coefficient_sets": len(self.jobs),
+            "cache_hits": len(self.jobs) - len(missing),
+            "cache_misses": len(missing),
+            "series_tasks": len(self.tasks),
+            "rays": int(sum(j.rays for j in missing)),
+            "gemm_flops": int(flops),
+            "bytes_written": int(written),
+        }
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-able summary (``luxsweep plan --json``)."""
+        return {
+            "study": str(self.loaded.path),
+            "name": self.loaded.study.name,
+            "study_hash": self.study_hash,
+            "axes": self.axes,
+            "estimate": self.estimate(),
+            "coefficient_sets": [
+                {"key": j.key, "cached": j.cached, "sensors": j.n_sensors,
+                 "variants": len(j.variants), "rays": j.rays,
+                 "glazing_sets": list(j.geometry.glazing_sets)}
+                for j in self.jobs.values()
+            ],
+            "series_tasks": [
+                {"task": t.task_id, "key": t.key, "climate": t.climate,
+                 "orientations": list(t.orientations), "glazing_rows": len(t.rows),
+                 "variants": len(t.members)}
+                for t in self.tasks
+            ],
+            "variants": [
+                {"index": v.index, "variant_id": v.variant_id, "label": v.label,
+                 "key": self.keys[v.index], "axes": v.axes}
+                for v in self.variants
+            ],
+        }
+
+
+def _n_basis(subdivision: int) -> int:
+    return 144 * subdivision * subdivision + 1 + 1
+
+
+def _estimate_rays(geometry: Any, sensors: np.ndarray, settings: Any) -> int:
+    """Rough ray count of one coefficient set (for the plan's cost line only)."""
+    from kernels.sun import SunPoints
+
+    n_s = sensors.shape[0]
+    n_basis = _n_basis(settings.subdivision)
+    n_sun = SunPoints(settings.sun_spacing).n
+    area = float(np.sum(geometry.areas[~geometry.is_glazing]))
+    n_elements = max(1, int(area / settings.element_size**2))
+    rays = n_s * ((n_basis - 1) * settings.sky_rays_per_patch + settings.ground_rays + n_sun)
+    rays += n_s * settings.sensor_rays + n_elements * settings.element_rays
+    rays += n_elements * (n_basis + SunPoints(settings.reflected_sun_spacing).n)
+    return int(rays)
+
+
+# ---------------------------------------------------------------------------
+# building
+
+
+def _geometry_inputs(study: Study) -> dict[str, Any]:
+    data = study.canonical()
+    keys = ("room", "mesh", "materials", "sensors", "grid", "compute")
+    doc = {k: data[k] for k in keys}
+    doc["panes"] = {name: g["panes"] for name, g in data["glazings"].items()}
+    return doc
+
+
+def _wrap_geometry_error(loaded: StudyFile, variant: Variant | None, exc: InputError) -> Exception:
+    """A kernel error about the room as a study-file error naming the key path."""
+    if exc.file and Path(exc.file).resolve() != loaded.path:
+        return exc  # an OBJ or sensor file: the kernel's message names it and its line
+    loc = tuple(int(p) if p.isdigit() else p for p in (exc.field or "").split(".") if p)
+    where = ""
+    if variant is not None and variant.axes:
+        where = f" (in variant '{variant.label}', from 'vary')"
+    line = loaded.line_of(loc)
+    line_text = f"line {line}, " if line is not None else ""
+    key = ".".join(str(p) for p in loc) or "room"
+    err = StudyFileError(f"{loaded.path}: {line_text}key '{key}'{where}: {exc.message}")
+    return err
+
+
+def build_geometry(study: Study) -> tuple[Any, np.ndarray]:
+    """The :class:`kernels.geometry.Geometry` and sensors (n, 6) of a resolved study."""
+    from kernels import geometry as kg
+
+    panes = {name: g.panes for name, g in study.glazings.items()}
+    if study.room is not None:
+        room = study.room
+        used = {w.glazing for w in room.windows}
+        geometry = kg.parametric_room(
+            width=room.width, depth=room.depth, height=room.height,
+            windows=[w.model_dump() for w in room.windows],
+            reflectance=room.reflectance.model_dump(),
+            glazing_panes={k: v for k, v in panes.items() if k in used},
+            thickness=room.thickness,
+            overhang=room.overhang.model_dump() if room.overhang else None,
+            obstructions=[o.model_dump() for o in room.obstructions],
+        )
+        sensors = kg.sensor_grid(room.width, room.depth, study.grid.height, study.grid.spacing,
+                                 study.grid.margin)
+    else:
+        materials = {
+            name: ({"reflectance": m.reflectance} if m.glazing is None
+                   else {"glazing": m.glazing, "panes": panes[m.glazing]})
+            for name, m in (study.materials or {}).items()
+        }
+        geometry = kg.read_obj(study.mesh, materials, panes)
+        if study.sensors is not None:
+            sensors = kg.read_sensors(study.sensors)
+        else:
+            sensors = kg.sensor_grid_on(geometry, study.grid.floors or [], study.grid.height,
+                                        study.grid.spacing, study.grid.margin)
+    return geometry, np.asarray(sensors, dtype=np.float64)
+
+
+def settings_of(study: Study) -> Any:
+    from kernels.coefficients import Settings
+
+    return Settings(**study.compute.settings_kwargs())
+
+
+def _series_params(study: Study) -> dict[str, Any]:
+    data = study.canonical()
+    return {k: data[k] for k in ("timestep", "ground_reflectance", "occupancy",
+                                 "metric_options")}
+
+
+def check_climates(loaded: StudyFile, labels: Iterable[str]) -> dict[str, Any]:
+    """Read every weather file used; kernel errors (naming file and line) pass through."""
+    from kernels.climate import read_climate
+
+    out = {}
+    for label in labels:
+        out[label] = read_climate(loaded.study.climates[label])
+    return out
+
+
+def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
+              *, read_climates: bool = True) -> Plan:
+    """Expand, build every geometry, group by coefficient key, split into series tasks.
+
+    Raises
+    ------
+    StudyFileError, kernels.errors.InputError
+        For any bad input (study file, geometry, OBJ, sensors, weather files).
+    """
+    from kernels.coefficients import coefficient_key
+
+    variants = expand(loaded)
+    built: dict[str, tuple[Any, np.ndarray, str, Any]] = {}
+    sensors: list[np.ndarray] = []
+    keys: list[str] = []
+    for v in variants:
+        doc = canonical_json(_geometry_inputs(v.study))
+        if doc not in built:
+            try:
+                settings = settings_of(v.study)
+                geometry, pts = build_geometry(v.study)
+            except InputError as exc:
+                raise _wrap_geometry_error(loaded, v, exc) from None
+            built[doc] = (geometry, pts, coefficient_key(geometry, pts, settings), settings)
+        geometry, pts, key, settings = built[doc]
+        sensors.append(pts)
+        keys.append(key)
+
+    jobs: dict[str, CoefficientJob] = {}
+    for geometry, pts, key, settings in built.values():
+        if key in jobs:
+            continue
+        members = tuple(i for i, k in enumerate(keys) if k == key)
+        jobs[key] = CoefficientJob(
+            key=key, geometry=geometry, sensors=pts, settings=settings, variants=members,
+            cached=bool(cache is not None and cache.contains(key)),
+            rays=_estimate_rays(geometry, pts, settings),
+        )
+
+    climates: dict[str, Any] = {}
+    if read_climates:
+        climates = check_climates(loaded, sorted({v.climate for v in variants}))
+
+    groups: dict[tuple[str, str, str], list[Variant]] = {}
+    for v in variants:
+        series = canonical_json(_series_params(v.study))
+        groups.setdefault((keys[v.index], v.climate, series), []).append(v)
+    tasks = []
+    for (key, climate, series), members in groups.items():
+        sets = tuple(jobs[key].geometry.glazing_sets)
+        orientations = tuple(sorted({m.orientation for m in members}))
+        rows: list[tuple[float, ...]] = []
+        placed = []
+        for m in members:
+            g = m.study.glazings
+            row = tuple(g[s].transmittance for s in sets) + tuple(
+                g[s].shaded_transmittance if g[s].shaded_transmittance is not None
+                else g[s].transmittance for s in sets)
+            if row not in rows:
+                rows.append(row)
+            placed.append((m.index, orientations.index(m.orientation), rows.index(row)))
+        digest = hashlib.sha256(json.dumps([climate, series]).encode()).hexdigest()[:8]
+        tasks.append(SeriesTask(
+            task_id=f"series-{key[:12]}-{digest}", key=key, climate=climate,
+            climate_file=loaded.study.climates[climate], orientations=orientations,
+            rows=tuple(rows), glazing_sets=sets, members=tuple(placed),
+            study=members[0].study, variant_ids=tuple(m.variant_id for m in members),
+        ))
+
+    n_steps = {label: len(c) * c.interval // loaded.study.timestep
+               for label, c in climates.items()}
+    times = None
+    if loaded.study.store_series and climates:
+        times = occupied_times(loaded, climates)
+    return Plan(loaded=loaded, variants=variants, study_hash=study_hash(loaded, variants),
+                sensors=sensors, keys=keys, jobs=jobs, tasks=tasks, n_steps=n_steps,
+                times=times)
+
+
+def occupied_times(loaded: StudyFile, climates: dict[str, Any]) -> Any:
+    """Occupied step stamps (local standard time, naive) shared by all climates.
+
+    Raises
+    ------
+    StudyFileError
+        When ``store_series`` is on and the climates' occupied steps differ
+        (a common time axis is needed for the stored series).
+    """
+    import pandas as pd
+
+    from kernels.metrics import occupancy_mask
+    from kernels.sun import step_times
+
+    study = loaded.study
+    found = None
+    for label, climate in climates.items():
+        stamps, _ = step_times(climate, study.timestep)
+        stamps = stamps.tz_localize(None) if stamps.tz is not None else stamps
+        mask = occupancy_mask(stamps, study.occupancy.start, study.occupancy.end,
+                              study.occupancy.days, study.timestep)
+        times = pd.DatetimeIndex(stamps[mask])
+        if found is None:
+            found = (label, times)
+        elif not times.equals(found[1]):
+            raise loaded.error(
+                ("store_series",),
+                f"climates '{found[0]}' and '{label}' have different occupied time steps, so "
+                "their series cannot share one time axis; set store_series: false or use "
+                "weather files on the same reference year",
+            )
+    return found[1] if found else None

@@ -1,0 +1,524 @@
+"""Criteria, scores, Pareto set and main effects over a results store (``luxsweep rank``).
+
+Reads a results store (CONTRACT.md §3) opened with :func:`xarray.open_zarr` and
+the ``rank:`` section of the study file text kept in its attributes:
+
+- ``require``: ``{metric, at_least | at_most}``. Each completed variant passes or
+  fails each criterion; the *margin* is ``value − at_least`` or
+  ``at_most − value`` (≥ 0 passes, same unit as the metric).
+- ``prefer``: ``{metric, goal: max | min, weight}``. Each objective is min-max
+  normalised over the completed variants (1 = best, 0 = worst; 1 for every
+  variant when all values are equal) and the score is the weighted mean of the
+  normalised objectives, 0–1. Without ``prefer`` the score is undefined (NaN)
+  and variants keep their store order within the pass/fail groups.
+- Order: variants that meet every criterion first (by score, best first), then
+  those that fail (fewest failed criteria first, then by score). Variants whose
+  ``done`` flag is False are listed as ``incomplete`` and never ranked.
+- Pareto set: the variants that meet every criterion and are not dominated on
+  the preferred objectives by another such variant (a variant dominates another
+  when it is at least as good on every objective and better on one).
+- Main effects: for a metric and each varied axis, the mean of the metric over
+  the completed variants at each axis value minus their grand mean (exact for a
+  complete full-factorial sweep; an approximation otherwise).
+
+Metrics available for ranking are the per-variant numeric variables of the store
+(``dims == ("variant",)``), e.g. ``sda``, ``ase``, ``udi_useful_mean``,
+``daylight_factor_mean``, ``en17037_level``. :data:`METRICS` gives labels and
+units for display; a store variable without an entry is shown by its name.
+"""
+
+from __future__ import annotations
+
+import json
+import sys
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+import yaml
+
+from sweep.errors import ResultsStoreError, StudyFileError
+
+__all__ = [
+    "METRICS",
+    "RankSpec",
+    "axes_of",
+    "completed_mask",
+    "main_effects",
+    "metric_names",
+    "pareto_front",
+    "rank_command",
+    "rank_spec_from_store",
+    "rank_table",
+    "study_from_store",
+]
+
+#: Display label and unit of the metrics luxsweep writes (name -> (label, unit)).
+METRICS: dict[str, tuple[str, str]] = {
+    "sda": ("spatial daylight autonomy sDA 300 lx / 50 %", "%"),
+    "ase": ("annual sunlight exposure ASE 1000 lx / 250 h", "%"),
+    "udi_useful_mean": ("useful daylight (100–3000 lx), grid mean", "fraction"),
+    "daylight_factor_mean": ("daylight factor, grid mean", "%"),
+    "en17037_level": ("EN 17037 daylight provision level", "0–3"),
+    "daylight_autonomy": ("daylight autonomy 300 lx", "fraction"),
+    "udi_low": ("daylight below 100 lx", "fraction"),
+    "udi_supplementary": ("daylight 100–300 lx", "fraction"),
+    "udi_autonomous": ("daylight 300–3000 lx", "fraction"),
+    "udi_high": ("daylight above 3000 lx", "fraction"),
+    "udi_useful": ("useful daylight 100–3000 lx", "fraction"),
+    "daylight_factor": ("daylight factor", "%"),
+    "direct_sun_hours": ("occupied hours of direct sun above 1000 lx", "h"),
+    "shaded_hours": ("hours with shading closed (LM-83 rule)", "h"),
+}
+
+# attribute names under which the store may keep the study file's text
+_STUDY_TEXT_ATTRS = ("study_text", "study", "study_yaml", "study_file_text", "study_file")
+_NOT_AXES = {"variant", "variant_id", "label", "n_sensors", "x", "y", "z", "sensor", "time"}
+
+
+# ---------------------------------------------------------------------------
+# reading the store
+
+
+def study_text(ds: xr.Dataset) -> str:
+    """The study file's text kept in the store's attributes ('' if absent)."""
+    for key in _STUDY_TEXT_ATTRS:
+        value = ds.attrs.get(key)
+        if isinstance(value, str) and value.strip():
+            return value
+    return ""
+
+
+def study_from_store(ds: xr.Dataset) -> dict[str, Any]:
+    """The study file of the store, parsed with :func:`yaml.safe_load` ({} if absent)."""
+    text = study_text(ds)
+    if not text:
+        return {}
+    try:
+        study = yaml.safe_load(text)
+    except yaml.YAMLError as exc:
+        raise ResultsStoreError(
+            f"the study text in the results store is not valid YAML ({exc}); "
+            "re-run `luxsweep run` to rewrite the store"
+        ) from exc
+    return study if isinstance(study, dict) else {}
+
+
+def axes_of(ds: xr.Dataset) -> list[str]:
+    """Names of the varied axes, in the study's order.
+
+    The store's ``axes`` attribute when present (a list, or a JSON list), else
+    every coordinate along ``variant`` except ``variant_id``, ``label`` and
+    ``n_sensors``.
+    """
+    listed = ds.attrs.get("axes")
+    if isinstance(listed, str):
+        try:
+            listed = json.loads(listed)
+        except ValueError:
+            listed = [a.strip() for a in listed.split(",")]
+    if isinstance(listed, list | tuple):
+        names = [str(a) for a in listed if str(a) in ds.coords]
+        if names:
+            return names
+    return [
+        str(name)
+        for name, coord in ds.coords.items()
+        if coord.dims == ("variant",) and name not in _NOT_AXES
+    ]
+
+
+def metric_names(ds: xr.Dataset) -> list[str]:
+    """Per-variant numeric variables of the store (the metrics available for ranking)."""
+    return sorted(
+        str(name)
+        for name, var in ds.data_vars.items()
+        if var.dims == ("variant",) and name != "done" and np.issubdtype(var.dtype, np.number)
+        and var.dtype != bool
+    )
+
+
+def completed_mask(ds: xr.Dataset) -> np.ndarray:
+    """Boolean per variant: True where the variant's ``done`` flag is set."""
+    if "done" not in ds:
+        return np.ones(ds.sizes["variant"], bool)
+    return np.asarray(ds["done"].values, dtype=bool)
+
+
+def coord_values(ds: xr.Dataset, name: str) -> np.ndarray:
+    """Values of a coordinate; strings (numpy StringDType from Zarr v3) as Python str."""
+    values = np.asarray(ds[name].values)
+    if values.dtype.kind in "USOT":
+        return np.array([str(v) for v in values], dtype=object)
+    return values
+
+
+def _variant_ids(ds: xr.Dataset) -> np.ndarray:
+    if "variant_id" in ds.coords or "variant_id" in ds:
+        return coord_values(ds, "variant_id")
+    return np.array([f"v{i}" for i in range(ds.sizes["variant"])], dtype=object)
+
+
+# ---------------------------------------------------------------------------
+# the rank section
+
+
+@dataclass(frozen=True)
+class Requirement:
+    """A criterion: ``metric`` must be ``≥ bound`` (``at_least``) or ``≤ bound``."""
+
+    metric: str
+    bound: float
+    at_least: bool
+
+    @property
+    def label(self) -> str:
+        return f"{self.metric} {'≥' if self.at_least else '≤'} {self.bound:g}"
+
+    def margin(self, values: np.ndarray) -> np.ndarray:
+        """Distance to the bound on the passing side (≥ 0 passes) [metric unit]."""
+        return values - self.bound if self.at_least else self.bound - values
+
+
+@dataclass(frozen=True)
+class Objective:
+    """A preference: ``goal`` is "max" or "min", ``weight`` ≥ 0."""
+
+    metric: str
+    goal: str
+    weight: float
+
+
+@dataclass(frozen=True)
+class RankSpec:
+    """The parsed ``rank:`` section."""
+
+    require: tuple[Requirement, ...] = ()
+    prefer: tuple[Objective, ...] = ()
+
+    @property
+    def metrics(self) -> list[str]:
+        """Metrics named by the section, in order, without repeats."""
+        names = [r.metric for r in self.require] + [o.metric for o in self.prefer]
+        return list(dict.fromkeys(names))
+
+
+def _spec_error(place: str, message: str) -> StudyFileError:
+    return StudyFileError(f"study file (kept in the results store), key '{place}': {message}")
+
+
+def parse_rank_spec(section: Any, valid: list[str]) -> RankSpec:
+    """Check a ``rank:`` mapping against the store's metrics.
+
+    Parameters
+    ----------
+    section : mapping or None
+        ``{"require": [...], "prefer": [...]}`` as in CONTRACT.md §1.
+    valid : list of str
+        Metric names the store holds (:func:`metric_names`).
+
+    Raises
+    ------
+    StudyFileError
+        Naming the key (``rank.require.0.metric``) and listing the valid names.
+    """
+    if section is None:
+        return RankSpec()
+    if not isinstance(section, dict):
+        raise _spec_error("rank", "must be a mapping with 'require' and/or 'prefer' lists")
+    unknown = set(section) - {"require", "prefer"}
+    if unknown:
+        raise _spec_error(f"rank.{sorted(unknown)[0]}", "unknown key; use 'require' or 'prefer'")
+
+    def metric(item: Any, place: str) -> str:
+        if not isinstance(item, dict) or "metric" not in item:
+            raise _spec_error(place, "each entry needs 'metric: NAME'")
+        name = item["metric"]
+        if name not in valid:
+            raise _spec_error(
+                f"{place}.metric",
+                f"unknown metric {name!r}; the results store has: {', '.join(valid)}",
+            )
+        return str(name)
+
+    require = []
+    for i, item in enumerate(section.get("require") or []):
+        place = f"rank.require.{i}"
+        name = metric(item, place)
+        has_low, has_high = "at_least" in item, "at_most" in item
+        if has_low == has_high:
+            raise _spec_error(place, "give exactly one of 'at_least' or 'at_most'")
+        bound = item["at_least"] if has_low else item["at_most"]
+        if not isinstance(bound, int | float) or isinstance(bound, bool):
+            raise _spec_error(place, f"the bound must be a number, got {bound!r}")
+        require.append(Requirement(name, float(bound), has_low))
+    prefer = []
+    for i, item in enumerate(section.get("prefer") or []):
+        place = f"rank.prefer.{i}"
+        name = metric(item, place)
+        goal = item.get("goal", "max")
+        if goal not in ("max", "min"):
+            raise _spec_error(f"{place}.goal", f"goal must be 'max' or 'min', got {goal!r}")
+        weight = item.get("weight", 1.0)
+        if not isinstance(weight, int | float) or isinstance(weight, bool) or weight < 0:
+            raise _spec_error(f"{place}.weight", f"weight must be a number ≥ 0, got {weight!r}")
+        prefer.append(Objective(name, goal, float(weight)))
+    return RankSpec(tuple(require), tuple(prefer))
+
+
+def rank_spec_from_store(ds: xr.Dataset) -> RankSpec:
+    """The checked ``rank:`` section of the study kept in the store."""
+    return parse_rank_spec(study_from_store(ds).get("rank"), metric_names(ds))
+
+
+# ---------------------------------------------------------------------------
+# ranking
+
+
+def pareto_front(values: np.ndarray, goals: list[str] | tuple[str, ...]) -> np.ndarray:
+    """Non-dominated rows of an objective table.
+
+    Parameters
+    ----------
+    values : ndarray (n, k)
+        Objective values of n candidates; rows with a NaN are never in the front.
+    goals : sequence of k {"max", "min"}
+        Direction of each objective.
+
+    Returns
+    -------
+    ndarray of bool (n,)
+        True for rows that no other row dominates (at least as good on every
+        objective and strictly better on one). Equal rows are all kept.
+    """
+    v = np.asarray(values, dtype=float).reshape(len(values), -1)
+    sign = np.array([1.0 if g == "max" else -1.0 for g in goals])
+    if v.shape[1] != sign.size:
+        raise ValueError(f"{v.shape[1]} objective columns but {sign.size} goals")
+    v = v * sign  # all objectives maximised
+    valid = ~np.isnan(v).any(axis=1)
+    a, b = v[:, None, :], v[None, :, :]  # a[i] dominated by b[j]?
+    dominated = (b >= a).all(axis=2) & (b > a).any(axis=2) & valid[None, :]
+    return valid & ~dominated.any(axis=1)
+
+
+def _normalised(values: np.ndarray, goal: str) -> np.ndarray:
+    lo, hi = np.nanmin(values), np.nanmax(values)
+    if not np.isfinite(hi - lo):
+        return np.full(values.shape, np.nan)
+    if hi == lo:
+        return np.where(np.isnan(values), np.nan, 1.0)
+    n = (values - lo) / (hi - lo)
+    return n if goal == "max" else 1.0 - n
+
+
+def rank_table(ds: xr.Dataset, rank_spec: RankSpec | dict | None = None) -> pd.DataFrame:
+    """Criteria, score, Pareto flag and rank of every variant.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        A results store (CONTRACT.md §3).
+    rank_spec : RankSpec, dict or None
+        The ``rank:`` section; None reads it from the study text in ``ds.attrs``.
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per variant, ranked variants first (best first), then incomplete
+        ones. Columns: ``rank`` (1… for completed variants, NA for incomplete),
+        ``variant_id``, one column per varied axis, ``status`` (``pass`` /
+        ``fail`` / ``incomplete``), ``failed`` (the criteria missed), one column
+        per metric named in the rank section, ``margin: <criterion>`` per
+        criterion, ``score`` (0–1), ``pareto`` (bool), ``variant`` (store index).
+    """
+    if rank_spec is None:
+        spec = rank_spec_from_store(ds)
+    elif isinstance(rank_spec, dict):
+        spec = parse_rank_spec(rank_spec, metric_names(ds))
+    else:
+        spec = rank_spec
+    done = completed_mask(ds)
+    n = done.size
+    table = pd.DataFrame({"variant": np.arange(n), "variant_id": _variant_ids(ds)})
+    for axis in axes_of(ds):
+        table[axis] = coord_values(ds, axis)
+    values = {m: np.asarray(ds[m].values, dtype=float) for m in spec.metrics}
+    for m, v in values.items():
+        table[m] = np.where(done, v, np.nan)
+
+    passes = done.copy()
+    n_failed = np.zeros(n, int)
+    failed_text = [[] for _ in range(n)]
+    for req in spec.require:
+        margin = np.where(done, req.margin(values[req.metric]), np.nan)
+        ok = margin >= 0  # NaN fails
+        table[f"margin: {req.label}"] = margin
+        passes &= ok
+        n_failed += done & ~ok
+        for i in np.flatnonzero(done & ~ok):
+            failed_text[i].append(req.label)
+    table["failed"] = ["; ".join(t) for t in failed_text]
+
+    score = np.full(n, np.nan)
+    weights = np.array([o.weight for o in spec.prefer])
+    if spec.prefer and weights.sum() > 0:
+        norm = np.stack([_normalised(np.where(done, values[o.metric], np.nan), o.goal)
+                         for o in spec.prefer], axis=1)
+        score = norm @ weights / weights.sum()
+    table["score"] = score
+
+    pareto = np.zeros(n, bool)
+    if spec.prefer and passes.any():
+        objectives = np.stack([values[o.metric] for o in spec.prefer], axis=1)
+        idx = np.flatnonzero(passes)
+        pareto[idx] = pareto_front(objectives[idx], [o.goal for o in spec.prefer])
+    table["pareto"] = pareto
+    table["status"] = np.where(~done, "incomplete", np.where(passes, "pass", "fail"))
+
+    group = np.where(~done, 2, np.where(passes, 0, 1))
+    order = np.lexsort((np.arange(n), -np.nan_to_num(score, nan=-np.inf), n_failed, group))
+    table = table.iloc[order].reset_index(drop=True)
+    ranked = (table["status"] != "incomplete").to_numpy()
+    table.insert(0, "rank", pd.array(np.where(ranked, np.cumsum(ranked), 0), dtype="Int64"))
+    table.loc[~ranked, "rank"] = pd.NA
+    first = ["rank", "variant_id", *axes_of(ds), "status", "failed", *spec.metrics]
+    return table[first + [c for c in table.columns if c not in first]]
+
+
+def main_effects(ds: xr.Dataset, metric: str) -> pd.DataFrame:
+    """Main effect of every varied axis on a metric.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        A results store; only completed variants are used.
+    metric : str
+        A per-variant variable, or a per-sensor one (its grid mean is used).
+
+    Returns
+    -------
+    pandas.DataFrame
+        Columns ``axis``, ``value``, ``mean`` (metric mean over the variants at
+        this value), ``effect`` (``mean`` − grand mean) and ``n`` (variants).
+    """
+    if metric not in ds:
+        raise StudyFileError(
+            f"unknown metric {metric!r}; the results store has: "
+            f"{', '.join(metric_names(ds))}"
+        )
+    var = ds[metric]
+    if "sensor" in var.dims:
+        var = var.mean("sensor", skipna=True)
+    done = completed_mask(ds)
+    v = np.asarray(var.values, dtype=float)[done]
+    grand = float(np.nanmean(v)) if v.size else np.nan
+    rows = []
+    for axis in axes_of(ds):
+        a = pd.Series(coord_values(ds, axis)[done])
+        frame = pd.DataFrame({"value": a, "metric": v})
+        for value, grp in frame.groupby("value", sort=True):
+            mean = float(np.nanmean(grp["metric"]))
+            rows.append({"axis": axis, "value": value, "mean": mean,
+                         "effect": mean - grand, "n": len(grp)})
+    return pd.DataFrame(rows, columns=["axis", "value", "mean", "effect", "n"])
+
+
+# ---------------------------------------------------------------------------
+# command line
+
+
+def open_store(results: str | Path) -> xr.Dataset:
+    """Open a results store, with a clear error when it is missing or unreadable."""
+    path = Path(results)
+    if not path.exists():
+        raise ResultsStoreError(
+            f"results store '{results}' not found; give the folder written by "
+            "`luxsweep run` (by default <study folder>/<name>.zarr)"
+        )
+    try:
+        try:
+            ds = xr.open_zarr(path, consolidated=True)
+        except (KeyError, FileNotFoundError, ValueError):
+            ds = xr.open_zarr(path, consolidated=False)  # an unfinished run: not consolidated
+    except Exception as exc:  # zarr raises several types for a damaged store
+        raise ResultsStoreError(
+            f"'{results}' cannot be read as a results store ({type(exc).__name__}: {exc}); "
+            "check the path or re-run `luxsweep run`"
+        ) from exc
+    if "variant" not in ds.dims:
+        raise ResultsStoreError(
+            f"'{results}' has no 'variant' dimension; it is not a luxsweep results store"
+        )
+    return ds
+
+
+def _fmt(value: Any) -> str:
+    if isinstance(value, bool | np.bool_):
+        return "yes" if value else ""
+    if isinstance(value, float | np.floating):
+        if np.isnan(value):
+            return "–"
+        return f"{value:.3g}" if abs(value) < 1 else f"{value:.1f}"
+    if value is pd.NA:
+        return "–"
+    return str(value)
+
+
+def print_table(table: pd.DataFrame, ds: xr.Dataset, spec: RankSpec, top: int | None,
+                file: Any = None) -> None:
+    """Print the ranking as a terminal table (rich)."""
+    from rich.console import Console
+    from rich.table import Table
+
+    out = file or sys.stdout
+    console = Console(file=out, width=None if out.isatty() else 200)
+    ranked = table[table["status"] != "incomplete"]
+    incomplete = table[table["status"] == "incomplete"]
+    shown = ranked if top is None else ranked.head(top)
+    name = study_from_store(ds).get("name", "")
+    title = f"Ranking of {name}" if name else "Ranking"
+    grid = Table(title=title, title_justify="left", header_style="bold")
+    columns = ["rank", "variant_id", *axes_of(ds), *spec.metrics, "score", "pareto",
+               "status", "failed"]
+    for col in columns:
+        unit = METRICS.get(col, ("", ""))[1]
+        header = f"{col} [{unit}]" if unit and unit not in ("0–3",) else col
+        grid.add_column(header, overflow="fold", justify="right" if col in spec.metrics or col in (
+            "rank", "score") else "left")
+    for _, row in pd.concat([shown, incomplete]).iterrows():
+        style = "dim" if row["status"] == "incomplete" else (
+            None if row["status"] == "pass" else "yellow")
+        cells = [_fmt(row[c]) for c in columns]
+        cells[1] = str(row["variant_id"])[:10]
+        grid.add_row(*cells, style=style)
+    console.print(grid)
+    n_pass = int((table["status"] == "pass").sum())
+    console.print(
+        f"{len(ranked)} of {len(table)} variants complete; {n_pass} meet every criterion"
+        + (f"; {len(incomplete)} incomplete (not ranked)" if len(incomplete) else "")
+        + (f"; showing the top {len(shown)}" if top is not None else "")
+    )
+    if not spec.prefer:
+        console.print("No 'prefer' objectives in the study's rank section: no scores.")
+
+
+def rank_command(results: str, top: int | None = None, csv: str | None = None) -> int:
+    """``luxsweep rank RESULTS [--top N] [--csv FILE]``: print the ranking, optionally save it.
+
+    Returns the exit status (0). Bad input raises :class:`~sweep.errors.ResultsStoreError`
+    or :class:`~sweep.errors.StudyFileError` (exit status 2 in the CLI).
+    """
+    if top is not None and top < 1:
+        raise ResultsStoreError(f"--top must be at least 1, got {top}")
+    ds = open_store(results)
+    spec = rank_spec_from_store(ds)
+    table = rank_table(ds, spec)
+    print_table(table, ds, spec, top)
+    if csv is not None:
+        table.drop(columns=["variant"]).to_csv(csv, index=False, float_format="%.6g")
+        print(f"ranking written to {csv}")
+    return 0

@@ -1,0 +1,529 @@
+"""Execute a plan on Dask: coefficient sets first, then one series task per group.
+
+Order of work (DESIGN.md §3):
+
+1. Missing coefficient sets, largest first, at high priority: each task computes
+   :func:`kernels.coefficients.compute_coefficients` and publishes it in the
+   shared :class:`~sweep.cache.CoefficientCache` (a task whose key is already in
+   the cache returns at once).
+2. One task per (coefficient key, climate, series settings) — see
+   :class:`sweep.plan.SeriesTask`: sky vectors of all its orientations in time
+   blocks (:func:`kernels.sky.sky_vectors`), illuminance of all its glazing rows
+   (:func:`kernels.timeseries.illuminance`), metrics accumulated block by block
+   (:mod:`kernels.metrics`), then each variant's results written to its own
+   chunks of the results store and its ``done`` flag last.
+
+Task keys are explicit (``coefficients-<key>``, ``series-<key>-<hash>``), so a
+failure names its coefficient key and its variant ids; the other tasks finish
+and the run ends with exit status 1. A rerun of the same study skips every
+variant whose ``done`` flag is set (resume).
+
+The default cluster is a ``distributed.LocalCluster`` of single-threaded worker
+processes bound to 127.0.0.1; ``--scheduler`` joins an existing cluster instead
+(an address or a scheduler file).
+"""
+
+from __future__ import annotations
+
+import contextlib
+import importlib.util
+import ipaddress
+import itertools
+import logging
+import os
+import signal
+import time
+import warnings
+from collections.abc import Iterator
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+from urllib.parse import urlparse
+
+import numpy as np
+
+from sweep import store as results_store
+from sweep.cache import CoefficientCache
+from sweep.config import StudyFile, load_study
+from sweep.errors import ResultsStoreError, UserInputError, VariantFailedError
+from sweep.plan import CoefficientJob, Plan, SeriesTask, make_plan
+
+log = logging.getLogger("luxsweep")
+
+SERIES_CHUNK = 512
+"""Occupied time steps per chunk of the stored series (and per engine block then)."""
+
+BLOCK_BYTES = 192 * 2**20
+"""Memory budget of one time block of a series task [bytes]."""
+
+# metric family -> (per-sensor variables, per-variant variables)
+FAMILIES: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
+    "daylight_factor": (("daylight_factor",), ("daylight_factor_mean",)),
+    "daylight_autonomy": (("daylight_autonomy", "continuous_daylight_autonomy",
+                           "mean_illuminance", "light_exposure"), ("daylight_autonomy_mean",)),
+    "udi": (("udi_low", "udi_supplementary", "udi_autonomous", "udi_high"),
+            ("udi_useful_mean",)),
+    "sda_ase": (("direct_sun_hours", "ase_hours", "sda_fraction"),
+                ("sda", "ase", "shading_hours")),
+    "en17037": ((), ("en17037_level",)),
+}
+
+
+def store_variables(metrics: list[str]) -> tuple[list[str], list[str]]:
+    """Per-sensor and per-variant variables kept for the study's metric families."""
+    sensor: list[str] = []
+    variant: list[str] = []
+    for family in metrics:
+        s, v = FAMILIES[family]
+        sensor += [x for x in s if x not in sensor]
+        variant += [x for x in v if x not in variant]
+    return sensor, variant
+
+
+# ---------------------------------------------------------------------------
+# worker tasks
+
+
+def coefficient_task(job: CoefficientJob, cache_root: str) -> dict[str, Any]:
+    """Compute and publish one coefficient set (no-op when already cached)."""
+    from kernels.coefficients import compute_coefficients
+
+    cache = CoefficientCache(cache_root)
+    t0 = time.perf_counter()
+    if cache.contains(job.key):
+        try:
+            cache.verify(job.key)
+            return {"key": job.key, "computed": False, "seconds": 0.0}
+        except Exception:  # damaged: recompute and replace
+            pass
+    coefficients = compute_coefficients(job.geometry, job.sensors, job.settings)
+    cache.save(coefficients)
+    return {"key": job.key, "computed": True, "seconds": time.perf_counter() - t0}
+
+
+def _metric_params(task: SeriesTask) -> Any:
+    from kernels.metrics import MetricParams
+
+    study = task.study
+    return MetricParams.from_options(study.metric_options.model_dump(), study.timestep)
+
+
+def _blocks(n_steps: int, occupied: np.ndarray, series: bool, block: int) -> list[tuple[int, int]]:
+    """Time blocks ``[a, b)``; with series, each holds exactly SERIES_CHUNK occupied steps."""
+    if series:
+        occ = np.flatnonzero(occupied)
+        edges = [0, *[int(occ[k]) for k in range(SERIES_CHUNK, occ.size, SERIES_CHUNK)], n_steps]
+    else:
+        edges = [*range(0, n_steps, block), n_steps]
+    return [(a, b) for a, b in itertools.pairwise(edges) if b > a]
+
+
+def series_task(
+    task: SeriesTask,
+    todo: list[tuple[int, int, int]],
+    store_path: str,
+    cache_root: str,
+    n_store_sensors: int,
+    coefficient_result: Any = None,
+) -> dict[str, Any]:
+    """Series, metrics and writes of one group (runs on a worker).
+
+    Parameters
+    ----------
+    task : SeriesTask
+    todo : list of (variant index, orientation index, row index)
+        Members not yet done (resume).
+    store_path, cache_root : str
+    n_store_sensors : int
+        Size of the store's sensor dimension.
+    coefficient_result : any
+        Result of the coefficient task (only orders the tasks).
+
+    Returns
+    -------
+    dict
+        ``variants`` written and seconds spent per stage.
+    """
+    from kernels import metrics as km
+    from kernels.climate import read_climate
+    from kernels.sky import overcast_sky_vector, patch_scheme, sky_vectors
+    from kernels.sun import SunPoints, resample, solar_position, step_times
+    from kernels.timeseries import daylight_factor, illuminance
+
+    timing = {"load": 0.0, "sky": 0.0, "illuminance": 0.0, "metrics": 0.0, "write": 0.0}
+    t0 = time.perf_counter()
+    coeffs = CoefficientCache(cache_root).load(task.key)
+    if coeffs is None:
+        raise RuntimeError(f"coefficient set {task.key} is missing from the cache {cache_root}")
+    study = task.study
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # reported once by the client's check
+        climate = resample(read_climate(task.climate_file), study.timestep)
+    scheme = patch_scheme(coeffs.subdivision)
+    sun_points = SunPoints(coeffs.settings.sun_spacing)
+    stamps, sun_times = step_times(climate, study.timestep)
+    altitude, _ = solar_position(sun_times, climate.site)
+    daylight = altitude > 0.0
+    occ = study.occupancy
+    occupied = km.occupancy_mask(stamps, occ.start, occ.end, occ.days, study.timestep)
+    analysis = km.lm83_analysis_mask(stamps, study.timestep)
+    params = _metric_params(task)
+    open_rows, closed_rows = task.open_rows(), task.closed_rows()
+    shading = task.shading
+    n_o, n_r, n_s = len(task.orientations), len(task.rows), coeffs.n_sensors
+    series = study.store_series
+    timing["load"] += time.perf_counter() - t0
+
+    n_basis = scheme.n_patches + 1
+    per_step = 4 * (n_o * n_r * n_s * (3 if shading else 2) + n_o * n_basis)
+    block = int(np.clip(BLOCK_BYTES // max(per_step, 1), 24, 8760))
+    counts = None
+    occ_done = 0
+    for a, b in _blocks(len(stamps), occupied, series, block):
+        lit = a + np.flatnonzero(daylight[a:b])
+        dark = a + np.flatnonzero(~daylight[a:b])
+        t1 = time.perf_counter()
+        if dark.size:
+            masks = km.StepMasks(occupied[dark], analysis[dark], daylight[dark])
+            counts = km.accumulate_dark(counts, masks, params, (n_o, n_r), n_s)
+        total = direct = None
+        if lit.size:
+            t1 = time.perf_counter()
+            sky = sky_vectors(climate, task.orientations, scheme, sun_points, study.timestep,
+                              study.ground_reflectance, steps=lit)
+            t2 = time.perf_counter()
+            timing["sky"] += t2 - t1
+            total, direct = illuminance(coeffs, sky, open_rows)
+            shaded = illuminance(coeffs, sky, closed_rows)[0] if shading else None
+            t3 = time.perf_counter()
+            timing["illuminance"] += t3 - t2
+            masks = km.StepMasks(occupied[lit], analysis[lit], daylight[lit])
+            counts = km.accumulate(counts, total, direct, masks, params, shaded)
+            timing["metrics"] += time.perf_counter() - t3
+        if series:
+            t4 = time.perf_counter()
+            occ_steps = a + np.flatnonzero(occupied[a:b])
+            e = np.zeros((n_o, n_r, n_s, occ_steps.size), dtype=np.float32)
+            d = np.zeros_like(e)
+            if total is not None:
+                pos = np.searchsorted(lit, occ_steps)
+                hit = (pos < lit.size) & (lit[np.minimum(pos, lit.size - 1)] == occ_steps)
+                e[..., hit] = total[..., pos[hit]]
+                d[..., hit] = direct[..., pos[hit]]
+            for vi, oi, ri in todo:
+                results_store.write_series(store_path, vi, occ_done, e[oi, ri], d[oi, ri])
+            occ_done += occ_steps.size
+            timing["write"] += time.perf_counter() - t4
+    t5 = time.perf_counter()
+    results = km.finalize(counts, params)
+    df = daylight_factor(coeffs, overcast_sky_vector(scheme, study.ground_reflectance), open_rows)
+    df_stats = km.daylight_factor_stats(df)
+    results["daylight_factor"] = np.broadcast_to(df[None], (n_o, *df.shape))
+    results["daylight_factor_mean"] = np.broadcast_to(df_stats["daylight_factor_mean"][None],
+                                                      (n_o, n_r))
+    timing["metrics"] += time.perf_counter() - t5
+
+    t6 = time.perf_counter()
+    sensor_vars, variant_vars = store_variables(list(study.metrics))
+    for vi, oi, ri in todo:
+        results_store.write_variant(
+            store_path, vi,
+            {name: np.asarray(results[name][oi, ri], dtype=np.float32) for name in sensor_vars},
+            {name: results[name][oi, ri] for name in variant_vars},
+        )
+    timing["write"] += time.perf_counter() - t6
+    return {"variants": len(todo), "timing": timing}
+
+
+# ---------------------------------------------------------------------------
+# client side
+
+
+@dataclass
+class RunSummary:
+    """What a run did."""
+
+    total: int
+    skipped: int
+    results: Path
+    written: int = 0
+    failed: dict[str, list[str]] = field(default_factory=dict)
+    coefficient_sets_computed: int = 0
+    seconds: float = 0.0
+    timing: dict[str, float] = field(default_factory=dict)
+
+    @property
+    def ok(self) -> bool:
+        return not self.failed
+
+
+def default_results(loaded: StudyFile) -> Path:
+    """``<study folder>/<name>.zarr`` (the name is checked to hold no path separators)."""
+    folder = loaded.folder.resolve()
+    path = (folder / f"{loaded.study.name}.zarr").resolve()
+    if path.parent != folder:
+        raise UserInputError(f"{loaded.path}: study name '{loaded.study.name}' would place the "
+                             "results outside the study folder; use a plain name")
+    return path
+
+
+def default_cache(loaded: StudyFile) -> Path:
+    """``$LUXSWEEP_CACHE`` or ``<study folder>/.luxsweep-cache``."""
+    env = os.environ.get("LUXSWEEP_CACHE")
+    return Path(env).expanduser() if env else loaded.folder / ".luxsweep-cache"
+
+
+def _layout(plan: Plan) -> results_store.StoreLayout:
+    study = plan.loaded.study
+    sensor_vars, variant_vars = store_variables(list(study.metrics))
+    axes = {a: [v.axes[a] for v in plan.variants] for a in plan.axes}
+    return results_store.StoreLayout(
+        variant_ids=[v.variant_id for v in plan.variants],
+        labels=[v.label for v in plan.variants],
+        axes=axes,
+        sensors=plan.sensors,
+        sensor_variables=sensor_vars,
+        variant_variables=variant_vars,
+        times=plan.times,
+        series_chunk=SERIES_CHUNK,
+        attrs=_attrs(plan),
+    )
+
+
+def _attrs(plan: Plan) -> dict[str, Any]:
+    return {
+        "study_hash": plan.study_hash,
+        "study": plan.loaded.text,
+        "study_name": plan.loaded.study.name,
+        "study_file": str(plan.loaded.path),
+        "axes": plan.axes,
+        "metrics": list(plan.loaded.study.metrics),
+    }
+
+
+def is_loopback(address: str) -> bool:
+    host = urlparse(address if "://" in address else f"tcp://{address}").hostname or ""
+    if host == "localhost":
+        return True
+    try:
+        return ipaddress.ip_address(host).is_loopback
+    except ValueError:
+        return False
+
+
+@contextlib.contextmanager
+def dask_client(workers: int | None, scheduler: str | None) -> Iterator[Any]:
+    """A Client on a loopback LocalCluster, or on the cluster at ``scheduler``."""
+    from distributed import Client, LocalCluster
+
+    if scheduler:
+        if Path(scheduler).is_file():
+            with Client(scheduler_file=scheduler, timeout="30s") as client:
+                yield client
+            return
+        if scheduler.startswith("tcp://") and not is_loopback(scheduler):
+            log.warning("the link to %s is plain TCP: it is neither authenticated nor "
+                        "encrypted. Prefer a tls:// address with certificates (Dask "
+                        "Security) or an SSH tunnel to a loopback port.", scheduler)
+        with Client(scheduler, timeout="30s") as client:
+            yield client
+        return
+    n = workers or os.cpu_count() or 1
+    # loopback only, on a free port (the HTTP endpoints serve the dashboard when
+    # bokeh is installed, and health/metrics pages otherwise)
+    with LocalCluster(n_workers=n, threads_per_worker=1, processes=True, host="127.0.0.1",
+                      dashboard_address="127.0.0.1:0",
+                      silence_logs=logging.CRITICAL) as cluster, \
+            Client(cluster) as client:
+        yield client
+
+
+def _progress(console_stderr: bool = True) -> Any:
+    from rich.console import Console
+    from rich.progress import (
+        BarColumn,
+        MofNCompleteColumn,
+        Progress,
+        TextColumn,
+        TimeElapsedColumn,
+        TimeRemainingColumn,
+    )
+
+    return Progress(
+        TextColumn("[bold]variants"), BarColumn(), MofNCompleteColumn(),
+        TextColumn("{task.fields[rate]}"), TimeElapsedColumn(), TextColumn("left"),
+        TimeRemainingColumn(), console=Console(stderr=console_stderr),
+        transient=False,
+    )
+
+
+def prepare(study_path: str | Path, out: str | Path | None, cache_dir: str | Path | None
+            ) -> tuple[Plan, Path, CoefficientCache, np.ndarray | None]:
+    """Validate everything and open the store (no cluster yet).
+
+    Returns the plan, results path, cache and the ``done`` flags of an existing
+    store of this study (None for a new store).
+    """
+    loaded = load_study(study_path)
+    cache = CoefficientCache(cache_dir if cache_dir else default_cache(loaded))
+    plan = make_plan(loaded, cache)
+    results = Path(out).resolve() if out else default_results(loaded)
+    done = None
+    if results.exists():
+        done = results_store.open_existing(results, plan.study_hash)
+    return plan, results, cache, done
+
+
+def run_study(
+    study_path: str | Path,
+    out: str | Path | None = None,
+    *,
+    workers: int | None = None,
+    scheduler: str | None = None,
+    cache_dir: str | Path | None = None,
+    show_progress: bool = True,
+) -> RunSummary:
+    """Validate, plan and compute a study; resume an interrupted run of the same study.
+
+    Raises
+    ------
+    UserInputError, kernels.errors.InputError
+        Bad input, found before any cluster starts.
+    ResultsStoreError
+        ``out`` holds a store of a different study.
+    """
+    from distributed import as_completed
+
+    t_start = time.perf_counter()
+    plan, results, cache, done = prepare(study_path, out, cache_dir)
+    n = len(plan.variants)
+    if done is None:
+        results_store.create_store(results, _layout(plan))
+        done = np.zeros(n, dtype=bool)
+    else:
+        results_store.check_alignment(results, series_chunk=SERIES_CHUNK)
+        # the rank section may have changed: keep the store's study text current
+        results_store.update_attrs(results, _attrs(plan))
+    skipped = int(done.sum())
+    summary = RunSummary(total=n, skipped=skipped, results=results)
+    if skipped:
+        log.info("resuming %s: %d of %d variants already done, skipped", results, skipped, n)
+    pending = [t for t in plan.tasks if any(not done[vi] for vi, _, _ in t.members)]
+    if not pending:
+        results_store.consolidate(results)
+        summary.seconds = time.perf_counter() - t_start
+        return summary
+    cache.root.mkdir(parents=True, exist_ok=True)
+    cache.clean_temporary(older_than=3600.0)
+    needed = {t.key for t in pending}
+    missing = sorted((plan.jobs[k] for k in needed if not cache.contains(k)),
+                     key=lambda j: -j.rays)
+
+    with dask_client(workers, scheduler) as client:
+        link = getattr(client, "dashboard_link", None)
+        if link and importlib.util.find_spec("bokeh") is not None:
+            log.info("dashboard: %s", link)
+        coefficient_futures = {}
+        for rank, job in enumerate(missing):
+            coefficient_futures[job.key] = client.submit(
+                coefficient_task, job, str(cache.root), key=f"coefficients-{job.key[:24]}",
+                priority=100 + len(missing) - rank, pure=False, retries=0,
+            )
+        futures = {}
+        for task in pending:
+            todo = [m for m in task.members if not done[m[0]]]
+            dep = coefficient_futures.get(task.key)
+            fut = client.submit(
+                series_task, task, todo, str(results), str(cache.root),
+                max(len(s) for s in plan.sensors), dep,
+                key=f"{task.task_id}", priority=0, pure=False, retries=0,
+            )
+            futures[fut] = (task, todo)
+        summary = _collect(client, futures, coefficient_futures, summary, show_progress,
+                           as_completed)
+    results_store.consolidate(results)
+    summary.seconds = time.perf_counter() - t_start
+    return summary
+
+
+def _collect(client: Any, futures: dict, coefficient_futures: dict, summary: RunSummary,
+             show_progress: bool, as_completed: Any) -> RunSummary:
+    total_todo = sum(len(todo) for _, todo in futures.values())
+    timing: dict[str, float] = {"coefficients": 0.0}
+    progress = _progress() if show_progress else contextlib.nullcontext()
+    t0 = time.perf_counter()
+    with progress as bar:
+        bar_task = bar.add_task("run", total=total_todo, rate="") if show_progress else None
+        for fut in as_completed(list(futures)):
+            task, todo = futures[fut]
+            ids = [task.variant_ids[[m[0] for m in task.members].index(vi)] for vi, _, _ in todo]
+            try:
+                result = fut.result()
+            except Exception as exc:
+                summary.failed[task.task_id] = ids
+                log.error("task %s (coefficient key %s, climate %s) failed for variants %s: "
+                          "%s: %s", task.task_id, task.key[:16], task.climate, ", ".join(ids),
+                          type(exc).__name__, exc)
+                continue
+            summary.written += result["variants"]
+            for k, v in result["timing"].items():
+                timing[k] = timing.get(k, 0.0) + v
+            if show_progress:
+                elapsed = time.perf_counter() - t0
+                bar.update(bar_task, advance=result["variants"],
+                           rate=f"{summary.written / max(elapsed, 1e-9):.2f}/s")
+    for _key, fut in coefficient_futures.items():
+        if fut.status == "finished":
+            res = fut.result()
+            summary.coefficient_sets_computed += int(res["computed"])
+            timing["coefficients"] += res["seconds"]
+    summary.timing = timing
+    return summary
+
+
+def format_summary(summary: RunSummary) -> str:
+    """Plain-text account of a run (printed by ``luxsweep run``)."""
+    lines = [
+        f"results: {summary.results}",
+        f"variants: {summary.total} total, {summary.written} computed now, "
+        f"{summary.skipped} already done (skipped), {sum(map(len, summary.failed.values()))} "
+        "failed",
+        f"coefficient sets computed: {summary.coefficient_sets_computed}; wall time "
+        f"{summary.seconds:.1f} s",
+    ]
+    if summary.timing:
+        busy = sum(summary.timing.values())
+        parts = ", ".join(f"{k} {v:.1f} s ({100 * v / busy:.0f} %)"
+                          for k, v in summary.timing.items() if busy > 0)
+        lines.append(f"worker time: {parts}")
+    for task_id, ids in summary.failed.items():
+        lines.append(f"FAILED {task_id}: variants {', '.join(ids)}")
+    return "\n".join(lines)
+
+
+class _Terminated(Exception):
+    pass
+
+
+@contextlib.contextmanager
+def terminate_as_interrupt() -> Iterator[None]:
+    """Turn SIGTERM into KeyboardInterrupt so clusters shut down cleanly."""
+    def handler(signum: int, frame: Any) -> None:
+        raise KeyboardInterrupt(f"signal {signum}")
+
+    try:
+        previous = signal.signal(signal.SIGTERM, handler)
+    except ValueError:  # not the main thread
+        yield
+        return
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+
+
+__all__ = [
+    "FAMILIES", "ResultsStoreError", "RunSummary", "VariantFailedError", "coefficient_task",
+    "default_cache", "default_results", "format_summary", "prepare", "run_study",
+    "series_task", "store_variables",
+]

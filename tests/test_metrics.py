@@ -1,0 +1,353 @@
+"""Annual daylight metrics on small hand-computable series (kernels/metrics.py).
+
+Each expected value is worked out by hand from the metric's published
+definition, named beside the assertion. Counts are exact integers, so most
+checks are exact; float results carry the tolerance stated beside them.
+"""
+
+from __future__ import annotations
+
+import itertools
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from kernels.metrics import (
+    MetricParams,
+    StepMasks,
+    accumulate,
+    accumulate_dark,
+    daylight_factor_stats,
+    en17037_time_fractions,
+    finalize,
+    lm83_analysis_mask,
+    merge_counts,
+    occupancy_mask,
+)
+
+P = MetricParams()
+
+
+def masks(n: int, occupied=True, analysis=True, daylight=True) -> StepMasks:
+    def full(v):
+        return np.full(n, v, bool) if isinstance(v, bool) else np.asarray(v, bool)
+
+    return StepMasks(occupied=full(occupied), analysis=full(analysis), daylight=full(daylight))
+
+
+def run(total, direct=None, m=None, params=P, shaded=None):
+    total = np.asarray(total, np.float32)
+    direct = np.zeros_like(total) if direct is None else np.asarray(direct, np.float32)
+    m = masks(total.shape[-1]) if m is None else m
+    return finalize(accumulate(None, total, direct, m, params, shaded), params)
+
+
+# --------------------------------------------------------------------------- time masks
+
+
+def test_occupancy_mask_hour_ending_weekdays():
+    # Hour-ending stamps (DEVELOPERS.md; EPW/TMY3 convention, common practice):
+    # 08:00–18:00 covers the steps stamped 09:00 … 18:00 → 10 per weekday.
+    t = pd.date_range("2023-01-02 01:00", periods=7 * 24, freq="h")  # Mon 2 Jan 2023
+    m = occupancy_mask(t, "08:00", "18:00", "weekdays")
+    assert m.sum() == 50
+    stamps = t[m]
+    assert stamps[0] == pd.Timestamp("2023-01-02 09:00")
+    assert stamps[9] == pd.Timestamp("2023-01-02 18:00")
+    assert not m[t.get_loc(pd.Timestamp("2023-01-02 08:00"))]  # covers 07:00–08:00
+    assert set(stamps.day_of_week) == {0, 1, 2, 3, 4}
+
+
+def test_occupancy_mask_midnight_stamp_belongs_to_previous_day_and_all_days():
+    # The step stamped Saturday 00:00 covers Friday 23:00–24:00 (hour-ending stamps).
+    t = pd.date_range("2023-01-06 01:00", periods=48, freq="h")  # Fri 01:00 → Sun 00:00
+    m = occupancy_mask(t, "20:00", "24:00", "weekdays")
+    assert list(t[m]) == [pd.Timestamp(f"2023-01-06 {h}:00") for h in (21, 22, 23)] + [
+        pd.Timestamp("2023-01-07 00:00")
+    ]
+    assert occupancy_mask(t, "20:00", "24:00", "all").sum() == 8
+
+
+def test_occupancy_mask_sub_hourly_and_tz_aware():
+    # 30-min steps: 08:00–18:00 holds 20 whole steps per day; an aware index is read
+    # on its own wall clock (local standard time).
+    t = pd.date_range("2023-03-01 00:30", periods=48, freq="30min", tz="Etc/GMT+5")
+    m = occupancy_mask(t, "08:00", "18:00", "all", step_minutes=30)
+    assert m.sum() == 20
+    assert t[m][0].strftime("%H:%M") == "08:30" and t[m][-1].strftime("%H:%M") == "18:00"
+    # A partly occupied step does not count: 08:15 start excludes the 08:00–08:30 step.
+    assert occupancy_mask(t, "08:15", "18:00", "all", step_minutes=30).sum() == 19
+
+
+def test_lm83_analysis_mask_counts_3650_hours():
+    # IES LM-83-12: 08:00–18:00 every day → 10 h × 365 d = 3650 analysis hours.
+    t = pd.date_range("2023-01-01 01:00", periods=8760, freq="h")
+    assert lm83_analysis_mask(t).sum() == 3650
+
+
+@pytest.mark.parametrize("start,end", [("8:00", "25:00"), ("18:00", "08:00"), ("8h", "18:00")])
+def test_occupancy_mask_rejects_bad_times(start, end):
+    t = pd.date_range("2023-01-01 01:00", periods=24, freq="h")
+    with pytest.raises(ValueError, match=r"start|HH:MM"):
+        occupancy_mask(t, start, end, "all")
+
+
+# --------------------------------------------------------------------------- DA, cDA, UDI
+
+
+def test_daylight_autonomy_and_continuous():
+    # DA_300 (Reinhart & Walkenhorst 2001): share of occupied steps with E ≥ 300 lx.
+    # cDA (Rogers 2006, from memory): mean of min(E/300, 1).
+    # The last step is unoccupied and must be ignored.
+    e = [[0, 150, 300, 450, 75, 9000]]
+    m = masks(6, occupied=[1, 1, 1, 1, 1, 0])
+    r = run(e, m=m)
+    assert r["daylight_autonomy"][0] == pytest.approx(2 / 5, abs=1e-12)  # 300 and 450
+    # (0 + 0.5 + 1 + 1 + 0.25) / 5 = 0.55; exact up to float division (1e-12)
+    assert r["continuous_daylight_autonomy"][0] == pytest.approx(0.55, abs=1e-12)
+    assert r["mean_illuminance"][0] == pytest.approx(975 / 5, abs=1e-9)  # occupied mean
+
+
+def test_udi_bands_at_their_edges():
+    # UDI (Nabil & Mardaljevic 2005, bands 100/300/3000 lx as CONTRACT §3):
+    # low E<100, supplementary 100≤E<300, autonomous 300≤E≤3000, high E>3000.
+    e = [[99.9, 100, 299, 300, 3000, 3000.5, 0, 50]]
+    r = run(e)
+    assert r["udi_low"][0] == 3 / 8  # 99.9, 0, 50
+    assert r["udi_supplementary"][0] == 2 / 8  # 100, 299
+    assert r["udi_autonomous"][0] == 2 / 8  # 300, 3000
+    assert r["udi_high"][0] == 1 / 8  # 3000.5
+    total = r["udi_low"] + r["udi_supplementary"] + r["udi_autonomous"] + r["udi_high"]
+    np.testing.assert_allclose(total, 1.0, atol=1e-15)  # the bands partition the time
+    assert r["udi_useful_mean"] == pytest.approx(0.5, abs=1e-15)
+
+
+def test_udi_useful_mean_is_grid_mean():
+    # Two sensors: useful shares 1 and 0 → grid mean 0.5 (CONTRACT §3 definition).
+    r = run([[200, 2000], [50, 5000]])
+    assert r["udi_useful_mean"] == pytest.approx(0.5, abs=1e-15)
+
+
+def test_direct_sun_hours_and_exposure_with_half_hour_steps():
+    # direct_sun_hours: occupied hours with direct sun > 1000 lx (CONTRACT §3, "above").
+    # Light exposure = Σ E Δt over all steps (definition of exposure, lx·h).
+    p = MetricParams(step_hours=0.5)
+    direct = [[1000, 1000.5, 5000, 0, 2000]]
+    total = [[1000, 1000.5, 5000, 100, 2000]]
+    m = masks(5, occupied=[1, 1, 1, 1, 0])
+    r = run(total, direct, m, params=p)
+    assert r["direct_sun_hours"][0] == 1.0  # two steps of 0.5 h (1000 exactly excluded)
+    assert r["light_exposure"][0] == pytest.approx(0.5 * 9100.5, rel=1e-12)
+
+
+# --------------------------------------------------------------------------- LM-83
+
+
+def lm83_case(n_sunlit_per_step: list[int], n_sensors: int = 50):
+    """Open 500 lx everywhere, closed 100 lx; some sensors in > 1000 lx direct sun."""
+    n = len(n_sunlit_per_step)
+    total = np.full((n_sensors, n), 500, np.float32)
+    shaded = np.full((n_sensors, n), 100, np.float32)
+    direct = np.zeros((n_sensors, n), np.float32)
+    for step, k in enumerate(n_sunlit_per_step):
+        direct[:k, step] = 1500
+    return total, direct, shaded
+
+
+def test_lm83_shading_not_triggered_at_exactly_two_percent():
+    # IES LM-83-12: shading closes when MORE than 2 % of sensors get > 1000 lx
+    # direct sun. 1 of 50 sensors = exactly 2 % → stays open → sDA = 100 %.
+    total, direct, shaded = lm83_case([1, 1, 1, 1])
+    r = run(total, direct, shaded=shaded)
+    assert r["sda"] == 100.0
+    assert r["shading_hours"] == 0
+
+
+def test_lm83_shading_triggered_above_two_percent():
+    # 2 of 50 sensors (4 %) → closed in every step → 100 lx < 300 lx → sDA = 0 %.
+    total, direct, shaded = lm83_case([2, 2, 2, 2])
+    r = run(total, direct, shaded=shaded)
+    assert r["sda"] == 0.0
+    assert r["shading_hours"] == 4
+    # Without operable shading, `total` is used throughout (LM-83-12) → 100 %.
+    assert run(total, direct)["sda"] == 100.0
+
+
+def test_lm83_sda_half_of_analysis_hours_passes():
+    # sDA_300/50% (IES LM-83-12): ≥ 300 lx for at least 50 % of analysis hours.
+    # Closed in 2 of 4 steps → 2/4 = 50 % → passes; closed in 3 of 4 → 25 % → fails.
+    total, direct, shaded = lm83_case([2, 2, 0, 0])
+    assert run(total, direct, shaded=shaded)["sda"] == 100.0
+    total, direct, shaded = lm83_case([2, 2, 2, 0])
+    assert run(total, direct, shaded=shaded)["sda"] == 0.0
+
+
+def test_lm83_night_steps_in_the_window_count_as_below():
+    # Night steps inside 08:00–18:00 count as below 300 lx (IES LM-83-12 analysis
+    # period is fixed clock hours). 4 lit steps at 500 lx + 4 dark → 4/8 = 50 % → pass;
+    # + 5 dark → 4/9 < 50 % → fail.
+    total = np.full((3, 4), 500, np.float32)
+    c = accumulate(None, total, np.zeros_like(total), masks(4), P)
+    c4 = accumulate_dark(dict(c), masks(4), P, batch_shape=(), n_sensors=3)
+    assert finalize(c4, P)["sda"] == 100.0
+    c5 = accumulate_dark(dict(c), masks(5), P, batch_shape=(), n_sensors=3)
+    assert finalize(c5, P)["sda"] == 0.0
+
+
+def test_lm83_ase_more_than_250_hours():
+    # ASE_1000,250h (IES LM-83-12): share of sensors with direct sun > 1000 lx for
+    # more than 250 analysis hours, shading open. 10 sensors over 300 analysis steps:
+    # sensors 0–2 sunlit 251 h → count; 3–4 exactly 250 h → not; 5 at exactly
+    # 1000 lx for 300 h → not (> 1000); 6 sunlit 260 h of which 20 outside analysis.
+    n = 320
+    direct = np.zeros((10, n), np.float32)
+    direct[0:3, :251] = 1200
+    direct[3:5, :250] = 1200
+    direct[5, :300] = 1000
+    direct[6, 40:300] = 1200  # steps 300.. are outside analysis; 40..299 = 260 inside
+    direct[6, 300:] = 1200
+    analysis = np.arange(n) < 300
+    m = masks(n, analysis=analysis)
+    r = run(direct + 100, direct, m)
+    assert r["ase"] == pytest.approx(40.0, abs=1e-12)  # sensors 0, 1, 2, 6
+    np.testing.assert_array_equal(r["ase_hours"][:7], [251, 251, 251, 250, 250, 0, 260])
+
+
+# --------------------------------------------------------------------------- EN 17037
+
+
+def en17037_grid(high, low, floor, n_high, n_low, n_pass, n_day=10):
+    """20 sensors: n_high at `high` lx, n_low at `low` lx, the rest at `floor` lx, in
+    n_pass of n_day daylight steps; 0 lx in the other daylight steps."""
+    e = np.zeros((20, n_day), np.float32)
+    e[:, :n_pass] = floor
+    e[:n_high, :n_pass] = high
+    e[n_high : n_high + n_low, :n_pass] = low
+    return e
+
+
+@pytest.mark.parametrize(
+    "level,target,minimum,floor", [(1, 300, 100, 0), (2, 500, 300, 100), (3, 750, 500, 300)]
+)
+def test_en17037_level_exactly_at_each_threshold(level, target, minimum, floor):
+    # EN 17037:2018 Table A.1: target over ≥ 50 % of the grid and minimum target over
+    # ≥ 95 % of it, each for ≥ 50 % of daylight hours. 20 sensors: 10 at the target and
+    # 9 more at the minimum (19/20 = 95 %), in 5 of 10 daylight steps (50 %) → met.
+    # The last sensor sits at the level below's minimum target (`floor`), so a grid
+    # one sensor short of this level still meets the level below.
+    def level_of(*args):
+        return int(run(en17037_grid(*args))["en17037_level"])
+
+    assert level_of(target, minimum, floor, 10, 9, 5) == level
+    # One sensor short of the 50 % target share, or of the 95 % minimum share.
+    assert level_of(target, minimum, floor, 9, 10, 5) == level - 1
+    assert level_of(target, minimum, floor, 10, 8, 5) == level - 1
+    # Just under the illuminance (by 0.5 lx) → the level below.
+    assert level_of(target - 0.5, minimum, floor, 10, 9, 5) == level - 1
+    assert level_of(target, minimum - 0.5, floor, 10, 9, 5) == level - 1
+    # 4 of 10 daylight steps (40 %) → no level at all (every level needs ≥ 50 %).
+    assert level_of(target, minimum, floor, 10, 9, 4) == 0
+
+
+def test_en17037_only_daylight_steps_count_and_fractions():
+    # Daylight hours are the sun-up steps: dark non-daylight steps do not dilute.
+    e = en17037_grid(300, 100, 0, 10, 9, 5, n_day=12)
+    day = np.arange(12) < 10  # steps 10, 11 are not daylight hours
+    p = P
+    c = accumulate(None, e, np.zeros_like(e), masks(12, daylight=day), p)
+    assert finalize(c, p)["en17037_level"] == 1
+    target, minimum = en17037_time_fractions(c, p)
+    np.testing.assert_array_equal(target, [0.5, 0.0, 0.0])
+    np.testing.assert_array_equal(minimum, [0.5, 0.0, 0.0])
+
+
+# --------------------------------------------------------------------------- additivity
+
+
+def random_year(seed=7, batch=(2, 3), n_sensors=12, n_steps=700):
+    rng = np.random.default_rng(seed)
+    # integer lux so that float sums are exact in any order
+    total = np.floor(rng.lognormal(6.0, 1.0, size=(*batch, n_sensors, n_steps)))
+    total = total.astype(np.float32)
+    direct = np.where(rng.random(total.shape) < 0.3, total, 0).astype(np.float32)
+    shaded = np.floor(total * 0.6).astype(np.float32)
+    m = StepMasks(
+        occupied=rng.random(n_steps) < 0.4,
+        analysis=rng.random(n_steps) < 0.45,
+        daylight=rng.random(n_steps) < 0.5,
+    )
+    return total, direct, shaded, m
+
+
+def test_one_chunk_equals_seven_chunks_and_merge():
+    # Additivity over time chunks (the engine's contract): identical results.
+    total, direct, shaded, m = random_year()
+    p = MetricParams(ase_hours=20.0)
+    whole = finalize(accumulate(None, total, direct, m, p, shaded), p)
+    edges = [0, 13, 100, 101, 250, 400, 555, 700]  # 7 uneven chunks
+    counts, parts = None, []
+    for a, b in itertools.pairwise(edges):
+        mk = StepMasks(m.occupied[a:b], m.analysis[a:b], m.daylight[a:b])
+        args = (total[..., a:b], direct[..., a:b], mk, p, shaded[..., a:b])
+        counts = accumulate(counts, *args)
+        parts.append(accumulate(None, *args))
+    chunked = finalize(counts, p)
+    merged = finalize(merge_counts(*parts[::-1]), p)
+    assert set(whole) == set(chunked)
+    for key in whole:
+        np.testing.assert_array_equal(chunked[key], whole[key], err_msg=key)
+        np.testing.assert_array_equal(merged[key], whole[key], err_msg=key)
+    # the random case exercises the metrics (not all zeros or ones)
+    assert 0 < whole["sda"].min() < 100 and 0 < whole["ase"].max() < 100
+    assert whole["sda"].shape == (2, 3) and whole["daylight_autonomy"].shape == (2, 3, 12)
+
+
+def test_batch_equals_per_element():
+    # Vectorisation over the batch axes gives the same as one element at a time.
+    total, direct, shaded, m = random_year(seed=3, batch=(2,), n_steps=200)
+    both = finalize(accumulate(None, total, direct, m, P, shaded), P)
+    for i in range(2):
+        one = finalize(accumulate(None, total[i], direct[i], m, P, shaded[i]), P)
+        for key in one:
+            np.testing.assert_array_equal(both[key][i], one[key], err_msg=key)
+
+
+def test_accumulate_dark_equals_zero_illuminance():
+    total, direct, shaded, m = random_year(seed=5, batch=(3,), n_sensors=4, n_steps=50)
+    dm = StepMasks(m.occupied[:20], m.analysis[:20], m.daylight[:20])
+    zeros = np.zeros((3, 4, 20), np.float32)
+    base = accumulate(None, total, direct, m, P, shaded)
+    a = accumulate(dict(base), zeros, zeros, dm, P, zeros)
+    b = accumulate_dark(dict(base), dm, P, batch_shape=(3,), n_sensors=4)
+    assert set(a) == set(b)
+    for key in a:
+        np.testing.assert_array_equal(a[key], b[key], err_msg=key)
+        assert a[key].dtype == b[key].dtype
+
+
+# --------------------------------------------------------------------------- daylight factor
+
+
+def test_daylight_factor_stats():
+    # Mean, median, minimum and uniformity = min/mean (common practice).
+    s = daylight_factor_stats(np.array([[1.0, 2.0, 3.0, 6.0]]))
+    assert s["daylight_factor_mean"][0] == 3.0
+    assert s["daylight_factor_median"][0] == 2.5
+    assert s["daylight_factor_min"][0] == 1.0
+    assert s["daylight_factor_uniformity"][0] == pytest.approx(1 / 3, rel=1e-15)
+
+
+def test_params_reject_bad_udi_edges():
+    with pytest.raises(ValueError, match="udi_edges"):
+        MetricParams(udi_edges=(300.0, 100.0, 3000.0))
+
+
+def test_params_from_study_options():
+    # sda_time_fraction is a percentage in the study file, a share here.
+    p = MetricParams.from_options(
+        {"daylight_autonomy": 500, "sda_time_fraction": 75, "ase_illuminance": 1200},
+        step_minutes=15,
+    )
+    assert (p.da_threshold, p.sda_time_fraction, p.sun_threshold) == (500.0, 0.75, 1200.0)
+    assert p.step_hours == 0.25
