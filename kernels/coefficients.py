@@ -60,6 +60,8 @@ from kernels.transfer import (
 __all__ = ["CoefficientSet", "Settings", "coefficient_key", "compute_coefficients"]
 
 _RAYS_PER_BATCH = 1 << 20  # rays per ray-casting batch (bounds temporary memory)
+MAX_EXTERIOR_ELEMENTS = 1500
+"""Rough upper bound on the number of exterior elements (see ``_element_sizes``)."""
 _SENSOR_DECIMALS = 6  # sensor coordinates rounded to 1 µm in the key
 
 # seed streams of the stages (fixed: changing them changes every result)
@@ -375,6 +377,21 @@ def _sun_direct(scene: Any, points: np.ndarray, normals: np.ndarray, exterior: n
     return out
 
 
+def _element_sizes(geometry: Any, active: np.ndarray, element_size: float) -> np.ndarray:
+    """Element size of every triangle: ``element_size`` inside, coarser outside.
+
+    Exterior surfaces (obstructions, overhangs, outer faces) light the room only
+    through its windows, from a distance, so they are meshed at twice the
+    interior size, and coarser still when they are large, so that there are
+    about :data:`MAX_EXTERIOR_ELEMENTS` of them at most (a 40 m neighbour would
+    otherwise bring tens of thousands of elements and a dense solve of that size).
+    """
+    outside = active & geometry.exterior
+    area = float(geometry.areas[outside].sum())
+    coarse = max(2.0 * element_size, float(np.sqrt(2.0 * area / MAX_EXTERIOR_ELEMENTS)))
+    return np.where(geometry.exterior, coarse, element_size)
+
+
 def _reflected(scene: Any, geometry: Any, sensors: np.ndarray, settings: Settings,
                scheme: Any, coarse_sun: np.ndarray, panes: tuple[int, ...]) -> np.ndarray:
     """Reflected coefficients (n_sets, n_sensors, n_basis + n_coarse_sun) float64."""
@@ -384,7 +401,7 @@ def _reflected(scene: Any, geometry: Any, sensors: np.ndarray, settings: Setting
     if n_sets == 0 or not np.any(active):
         return out
     el = mesh_elements(geometry.triangles, geometry.reflectance, geometry.exterior,
-                       settings.element_size, mask=active)
+                       _element_sizes(geometry, active, settings.element_size), mask=active)
     tr = transfer_matrix(scene, el, settings.element_rays, _rng(settings, _STREAM_ELEMENT),
                          panes, scheme, batch=_RAYS_PER_BATCH)
     r1, r2 = _rng(settings, _STREAM_SUNPOINT).random((2, el.n, 1))

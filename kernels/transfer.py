@@ -207,7 +207,7 @@ def mesh_elements(
     triangles: np.ndarray,
     reflectance: np.ndarray,
     exterior: np.ndarray,
-    element_size: float,
+    element_size: float | np.ndarray,
     mask: np.ndarray | None = None,
 ) -> Elements:
     """Cut triangles into elements of about ``element_size``.
@@ -220,8 +220,8 @@ def mesh_elements(
         Diffuse reflectance per triangle.
     exterior : ndarray (n,) bool
         Exterior-surface flag per triangle.
-    element_size : float [m]
-        Target edge length: a triangle is split into ``m²`` congruent pieces
+    element_size : float or ndarray (n,) [m]
+        Target edge length (one value, or one per triangle): a triangle is split into ``m²`` congruent pieces
         with ``m = ceil(max(sqrt(2 A), L_max / 2) / element_size)`` (``A`` its
         area, ``L_max`` its longest edge), so a right-angled half of an
         ``s x s`` square gives half-squares of side about ``element_size`` and

@@ -71,7 +71,13 @@ METRICS: dict[str, tuple[str, str]] = {
     "udi_useful": ("useful daylight 100–3000 lx", "fraction"),
     "daylight_factor": ("daylight factor", "%"),
     "direct_sun_hours": ("occupied hours of direct sun above 1000 lx", "h"),
-    "shaded_hours": ("hours with shading closed (LM-83 rule)", "h"),
+    "shading_hours": ("analysis hours with shading closed (LM-83 rule)", "h"),
+    "daylight_autonomy_mean": ("daylight autonomy 300 lx, grid mean", "fraction"),
+    "continuous_daylight_autonomy": ("continuous daylight autonomy 300 lx", "fraction"),
+    "mean_illuminance": ("mean illuminance over occupied time", "lx"),
+    "light_exposure": ("annual light exposure", "lx·h"),
+    "ase_hours": ("analysis hours of direct sun above 1000 lx", "h"),
+    "sda_fraction": ("share of analysis hours at or above 300 lx", "fraction"),
 }
 
 # attribute names under which the store may keep the study file's text

@@ -36,6 +36,7 @@ import io
 from pathlib import Path
 from typing import Any
 
+import matplotlib
 import numpy as np
 import pandas as pd
 import xarray as xr
@@ -120,6 +121,8 @@ def _fmt(value: Any) -> str:
     if isinstance(value, float | np.floating):
         if np.isnan(value):
             return "–"
+        if float(value).is_integer() and abs(value) < 1e6:
+            return str(int(value))
         return f"{value:.3g}" if abs(value) < 10 else f"{value:.1f}"
     return str(value)
 
@@ -474,7 +477,7 @@ def _plan_maps(ds: xr.Dataset, table: pd.DataFrame, study: dict, top: int = 3) -
     for n, _, _ in metrics:
         scale = 1.0 if n == "daylight_factor" else 100.0
         data[n] = [_per_sensor(ds, n, int(v)) * scale for v in done["variant"]]
-    fig = Figure(figsize=(4.2 * len(metrics), 4.3 * len(done) + 0.6))
+    fig = Figure(figsize=(4.2 * len(metrics), 4.8 * len(done) + 0.6))
     grid = fig.subplots(len(done), len(metrics), squeeze=False)
     for j, (n, title, unit) in enumerate(metrics):
         top_value = 100.0 if unit.startswith("%") and n != "daylight_factor" else max(
@@ -545,8 +548,7 @@ def _hourly_map(ds: xr.Dataset, table: pd.DataFrame, study: dict) -> str:
     top_value = max(1000.0, float(np.nanpercentile(series, 99.5)) if np.isfinite(
         series).any() else 1000.0)
     norm = colors.LogNorm(vmin=10.0, vmax=top_value, clip=True)
-    cmap = colors.Colormap.copy(__import__("matplotlib").colormaps[CMAP])
-    cmap.set_bad("#ececec")
+    cmap = matplotlib.colormaps[CMAP].with_extremes(bad="#ececec")
     fig = Figure(figsize=(10.5, 3.8))
     ax = fig.add_subplot()
     mesh = ax.imshow(np.where(img <= 0, 10.0, img), aspect="auto", origin="lower",
@@ -631,6 +633,10 @@ def build_report(ds: xr.Dataset, source: str | None = None) -> str:
     source : str, optional
         The store's path (shown, and used for the time of the last write).
     """
+    # per-variant and per-sensor results are small: read them once (series stay lazy)
+    small = [n for n in ds.variables if "time" not in ds[n].dims]
+    ds = ds.assign({n: ds[n].load() for n in small if n in ds.data_vars})
+    ds = ds.assign_coords({n: ds[n].load() for n in small if n in ds.coords})
     study = study_from_store(ds)
     spec = rank_spec_from_store(ds)
     table = rank_table(ds, spec)

@@ -18,6 +18,7 @@ import threading
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import pvlib
 import pytest
@@ -251,3 +252,41 @@ def write_tiny_study(
 def tiny_study(tmp_path: Path) -> Path:
     """A written tiny study (2 orientations × 2 climates × 2 transmittances = 8 variants)."""
     return write_tiny_study(tmp_path / "study")
+
+
+# --------------------------------------------------------------------- results stores
+
+
+def store_arrays(path: Path) -> dict[str, Any]:
+    """Every array of a results store, read with zarr-python (name -> ndarray)."""
+    import zarr
+
+    group = zarr.open_group(str(path), mode="r")
+    return {name: arr[...] for name, arr in group.arrays()}
+
+
+def store_files(path: Path) -> dict[str, bytes]:
+    """Every file of a store folder (relative path -> bytes)."""
+    return {str(p.relative_to(path)): p.read_bytes() for p in sorted(path.rglob("*"))
+            if p.is_file()}
+
+
+def assert_same_results(store: Path, reference: Path) -> None:
+    """Both stores hold the same arrays with the same values (NaN equal to NaN) and the
+    same study attributes; raises AssertionError naming the first difference."""
+    import numpy as np
+    import zarr
+
+    got, want = store_arrays(store), store_arrays(reference)
+    assert sorted(got) == sorted(want), (sorted(got), sorted(want))
+    for name, expected in want.items():
+        value = got[name]
+        assert value.shape == expected.shape and value.dtype == expected.dtype, name
+        if value.dtype.kind == "f":
+            assert np.array_equal(value, expected, equal_nan=True), f"{name} differs"
+        else:
+            assert np.array_equal(value, expected), f"{name} differs"
+    a = dict(zarr.open_group(str(store), mode="r").attrs)
+    b = dict(zarr.open_group(str(reference), mode="r").attrs)
+    for key in ("study_hash", "study", "axes", "metrics"):
+        assert a.get(key) == b.get(key), f"attribute {key} differs"

@@ -8,6 +8,7 @@ and the attribute names of ``sweep/store.py`` (``study`` holds the study text).
 
 from __future__ import annotations
 
+import functools
 import itertools
 from pathlib import Path
 
@@ -94,6 +95,16 @@ def _outdoor(times: pd.DatetimeIndex, climate: str, seed: int) -> tuple[np.ndarr
 
 def make_dataset(series: bool = True) -> xr.Dataset:
     """The made-up store as an in-memory Dataset (24 variants, 63 sensors)."""
+    ds = _full_dataset().copy()
+    if not series:
+        ds = ds.drop_vars(["illuminance", "direct_sun_illuminance", "time"])
+        ds.attrs["study"] = STUDY_TEXT.replace("store_series: true", "store_series: false")
+    return ds
+
+
+@functools.cache
+def _full_dataset() -> xr.Dataset:
+    series = True
     times = pd.date_range("2023-01-01 01:00", periods=8760, freq="h")
     occ = occupancy_mask(times, "08:00", "18:00", "weekdays")
     pts = sensors()
@@ -149,8 +160,7 @@ def make_dataset(series: bool = True) -> xr.Dataset:
     attrs = {
         "study_hash": "0" * 16,
         "luxsweep_version": "0.1.0",
-        "study": STUDY_TEXT if series else STUDY_TEXT.replace("store_series: true",
-                                                             "store_series: false"),
+        "study": STUDY_TEXT,
         "study_name": "harbour-lane-studios",
         "axes": list(AXES),
     }

@@ -20,3 +20,94 @@ def test_help_lists_program_name():
     )
     assert out.returncode == 0
     assert "luxsweep" in out.stdout
+
+
+# --------------------------------------------------------------------------
+# commands (CONTRACT.md §2)
+
+import json  # noqa: E402
+
+from conftest import write_tiny_study  # noqa: E402
+
+
+def test_check_accepts_a_valid_study(tmp_path, cli):
+    study = write_tiny_study(tmp_path)
+    result = cli("check", study)
+    assert result.code == 0, result.err
+    assert "8 variants" in result.out
+
+
+def test_check_refuses_bad_input_with_exit_2_and_no_traceback(tmp_path, cli):
+    study = write_tiny_study(tmp_path)
+    study.write_text(study.read_text().replace("sill: 0.9", "sil: 0.9"))
+    result = cli("check", study)
+    assert result.code == 2
+    assert "Traceback" not in result.text
+    assert "room.windows.0.sil" in result.err and "did you mean 'sill'" in result.err
+
+
+def test_check_schema_prints_json_schema(cli):
+    result = cli("check", "--schema")
+    assert result.code == 0
+    schema = json.loads(result.out)
+    assert "vary" in schema["properties"]
+
+
+def test_plan_json_lists_keys_and_estimate(tmp_path, cli):
+    study = write_tiny_study(tmp_path, widths=(1.2, 1.8))
+    result = cli("plan", study, "--json", "--cache", tmp_path / "cache")
+    assert result.code == 0, result.err
+    plan = json.loads(result.out)
+    assert plan["estimate"]["coefficient_sets"] == 2
+    assert plan["estimate"]["variants"] == 16
+    assert len({v["variant_id"] for v in plan["variants"]}) == 16
+    text = cli("plan", study, "--cache", tmp_path / "cache")
+    assert text.code == 0 and "coefficient sets: 2" in text.out
+
+
+def test_missing_study_file_is_exit_2(tmp_path, cli):
+    result = cli("run", tmp_path / "nope.yaml")
+    assert result.code == 2 and "nope.yaml" in result.err
+
+
+def test_bad_worker_count_is_an_argument_error(tmp_path, cli):
+    result = cli("run", tmp_path / "s.yaml", "--workers", "0")
+    assert result.code == 2
+
+
+def test_rank_and_report_are_registered_when_present():
+    import importlib.util
+
+    from sweep.cli import build_parser
+
+    text = build_parser().format_help()
+    for command in ("demo", "check", "plan", "run"):
+        assert command in text
+    for command in ("rank", "report"):
+        present = importlib.util.find_spec(f"sweep.{command}") is not None
+        assert (command in text) == present
+
+
+def test_demo_study_is_valid(tmp_path, cli):
+    from sweep.demo import write_demo
+
+    study = write_demo(tmp_path / "demo")
+    result = cli("check", study)
+    assert result.code == 0, result.err
+    assert "96 variants" in result.out and "4 distinct geometries" in result.out
+
+
+def test_example_studies_are_valid(tmp_path, cli):
+    import shutil
+
+    from conftest import REPO, TMY3_GREENSBORO, TMY3_SAND_POINT
+
+    examples = tmp_path / "examples"
+    shutil.copytree(REPO / "examples", examples)
+    for folder in (examples / "climates", examples / "mesh-studio" / "climates"):
+        folder.mkdir(exist_ok=True)
+        shutil.copyfile(TMY3_GREENSBORO, folder / "piedmont.csv")
+        shutil.copyfile(TMY3_SAND_POINT, folder / "coast.csv")
+    for study in (examples / "shaded-office.yaml", examples / "mesh-studio" / "study.yaml"):
+        result = cli("check", study)
+        assert result.code == 0, result.err

@@ -1,0 +1,220 @@
+"""The engine end to end: batching, caching, resume, clusters (DESIGN.md §3).
+
+The reference for the batched engine is each variant computed alone, straight
+through the kernels (its own coefficient set, sky vectors of its one
+orientation, one glazing row, the whole year in one chunk): the engine's
+grouping, time blocks, dark-step skipping and store writes must not change any
+result. Physics itself is checked in the kernels' tests.
+"""
+
+from __future__ import annotations
+
+import os
+import signal
+import socket
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+import xarray as xr
+import zarr
+from conftest import TINY_COMPUTE, luxsweep_process, run_luxsweep, write_tiny_study
+
+from sweep.cache import CoefficientCache
+from sweep.config import load_study
+from sweep.expand import expand
+from sweep.run import run_study
+
+SENSOR_VARS = ("daylight_factor", "daylight_autonomy", "udi_low", "udi_supplementary",
+               "udi_autonomous", "udi_high", "direct_sun_hours")
+VARIANT_VARS = ("sda", "ase", "udi_useful_mean", "daylight_factor_mean", "en17037_level")
+
+
+def reference(variant) -> dict[str, np.ndarray]:
+    """One variant alone through the kernels (no sweep code but the resolved study)."""
+    from kernels import metrics as km
+    from kernels.climate import read_climate
+    from kernels.coefficients import Settings, compute_coefficients
+    from kernels.geometry import parametric_room, sensor_grid
+    from kernels.sky import overcast_sky_vector, patch_scheme, sky_vectors
+    from kernels.sun import SunPoints
+    from kernels.timeseries import daylight_factor, illuminance
+
+    s = variant.study
+    room = s.room
+    geometry = parametric_room(
+        room.width, room.depth, room.height, [w.model_dump() for w in room.windows],
+        room.reflectance.model_dump(), {"main": 2})
+    sensors = sensor_grid(room.width, room.depth, s.grid.height, s.grid.spacing, s.grid.margin)
+    settings = Settings(**TINY_COMPUTE)
+    coeffs = compute_coefficients(geometry, sensors, settings)
+    climate = read_climate(s.climates[s.climate])
+    scheme = patch_scheme(settings.subdivision)
+    sky = sky_vectors(climate, [s.orientation], scheme, SunPoints(settings.sun_spacing), 60,
+                      s.ground_reflectance)
+    tau = [[s.glazings["main"].transmittance]]
+    total, direct = illuminance(coeffs, sky, tau)
+    masks = km.StepMasks(km.occupancy_mask(sky.time, "08:00", "18:00", "weekdays", 60),
+                         km.lm83_analysis_mask(sky.time, 60), sky.daylight)
+    params = km.MetricParams(step_hours=1.0)
+    out = km.finalize(km.accumulate(None, total[0], direct[0], masks, params), params)
+    df = daylight_factor(coeffs, overcast_sky_vector(scheme, s.ground_reflectance), tau)
+    out["daylight_factor"] = df
+    out["daylight_factor_mean"] = km.daylight_factor_stats(df)["daylight_factor_mean"]
+    return {k: np.asarray(v).reshape(-1) for k, v in out.items()}
+
+
+@pytest.fixture(scope="module")
+def finished(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("engine")
+    study = write_tiny_study(folder, orientations=(0.0, 90.0, 180.0, 270.0),
+                             transmittances=(0.7, 0.5, 0.3), widths=(1.2, 1.8))
+    t0 = time.perf_counter()
+    summary = run_study(study, folder / "r.zarr", workers=2, cache_dir=folder / "cache",
+                        show_progress=False)
+    return study, folder, summary, time.perf_counter() - t0
+
+
+def test_two_geometries_compute_exactly_two_coefficient_sets(finished):
+    _study, folder, summary, _ = finished
+    assert summary.ok and summary.total == 48 and summary.written == 48
+    assert summary.coefficient_sets_computed == 2
+    assert len(CoefficientCache(folder / "cache").keys()) == 2
+    ds = xr.open_zarr(folder / "r.zarr")
+    assert ds.done.values.all()
+    assert set(ds.coords) >= {"variant_id", "orientation", "climate",
+                              "glazings.main.transmittance", "room.windows.0.width", "x", "y"}
+
+
+@pytest.mark.parametrize("index", [0, 23, 30, 47])
+def test_batched_results_equal_each_variant_alone(finished, index):
+    study, folder, _, _ = finished
+    variant = expand(load_study(study))[index]
+    ds = xr.open_zarr(folder / "r.zarr").isel(variant=index)
+    assert str(ds.variant_id.values) == variant.variant_id
+    ref = reference(variant)
+    for name in SENSOR_VARS + VARIANT_VARS:
+        got = np.asarray(ds[name].values, dtype=np.float64).reshape(-1)
+        # float32 products summed in another order (batched GEMM): relative 1e-5;
+        # step counts near a threshold could flip, which would show as a larger gap
+        np.testing.assert_allclose(got, ref[name], rtol=1e-5, atol=1e-6, err_msg=name)
+
+
+def test_second_run_computes_nothing(finished):
+    study, folder, _, _ = finished
+    before = {p: p.stat().st_mtime_ns for p in (folder / "r.zarr").rglob("c/*")}
+    summary = run_study(study, folder / "r.zarr", workers=2, cache_dir=folder / "cache",
+                        show_progress=False)
+    assert summary.skipped == 48 and summary.written == 0
+    assert summary.coefficient_sets_computed == 0
+    after = {p: p.stat().st_mtime_ns for p in (folder / "r.zarr").rglob("c/*")}
+    assert before == after  # no chunk rewritten
+
+
+def test_store_of_another_study_is_refused(finished, tmp_path):
+    _, folder, _, _ = finished
+    other = write_tiny_study(tmp_path, transmittances=(0.6,))
+    result = run_luxsweep("run", other, "--out", folder / "r.zarr", "--cache",
+                          folder / "cache", "--workers", "1")
+    assert result.code == 2, result.err
+    assert "different study" in result.err and "--out" in result.err
+    assert "Traceback" not in result.err
+
+
+def test_series_are_stored_for_occupied_steps(tmp_path):
+    study = write_tiny_study(tmp_path, orientations=(180.0,), climates=("coastal",),
+                             transmittances=(0.7,), extra="store_series: true\n")
+    run_study(study, tmp_path / "r.zarr", workers=1, cache_dir=tmp_path / "cache",
+              show_progress=False)
+    ds = xr.open_zarr(tmp_path / "r.zarr")
+    # hourly, 08:00-18:00 on weekdays: ten occupied steps per weekday (occupancy_mask)
+    assert ds.sizes["time"] == 260 * 10 or ds.sizes["time"] == 261 * 10
+    e = ds.illuminance.isel(variant=0).values
+    assert np.isfinite(e).all() and (e >= 0).all() and e.max() > 100
+    assert ds.illuminance.encoding["chunks"][2] == 512
+    # the stored series reproduces the stored daylight autonomy (≥ 300 lx share)
+    da = (e >= 300).mean(axis=1)
+    np.testing.assert_allclose(da, ds.daylight_autonomy.isel(variant=0).values, atol=1e-6)
+
+
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+@pytest.mark.slow
+def test_separate_scheduler_and_workers_give_identical_results(finished, tmp_path):
+    study, folder, _, _ = finished
+    port = _free_port()
+    address = f"tcp://127.0.0.1:{port}"
+    env = {**os.environ, "PYTHONUNBUFFERED": "1"}
+    bindir = Path(sys.executable).parent
+    procs = [subprocess.Popen([str(bindir / "dask"), "scheduler", "--host", "127.0.0.1",
+                               "--port", str(port), "--dashboard-address", "127.0.0.1:0"],
+                              env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
+                              start_new_session=True)]
+    try:
+        for _ in range(2):
+            procs.append(subprocess.Popen(
+                [str(bindir / "dask"), "worker", address, "--nthreads", "1", "--host",
+                 "127.0.0.1", "--dashboard-address", "127.0.0.1:0", "--no-nanny"],
+                env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
+                start_new_session=True))
+        from distributed import Client
+
+        with Client(address, timeout="60s") as client:
+            client.wait_for_workers(2, timeout=60)
+        out = tmp_path / "cluster.zarr"
+        result = run_luxsweep("run", study, "--out", out, "--cache", tmp_path / "cache",
+                              "--scheduler", address, timeout=300)
+        assert result.code == 0, result.err
+    finally:
+        for p in procs:
+            p.terminate()
+        for p in procs:
+            try:
+                p.wait(20)
+            except subprocess.TimeoutExpired:
+                p.kill()
+    local = xr.open_zarr(folder / "r.zarr")
+    remote = xr.open_zarr(out)
+    for name in SENSOR_VARS + VARIANT_VARS + ("done",):
+        np.testing.assert_array_equal(remote[name].values, local[name].values, err_msg=name)
+
+
+@pytest.mark.slow
+def test_killed_run_resumes_to_identical_results(finished, tmp_path):
+    study, folder, _, _ = finished
+    out = tmp_path / "killed.zarr"
+    proc = luxsweep_process("run", study, "--out", out, "--cache", tmp_path / "cache",
+                            "--workers", "2", new_session=True)
+    deadline = time.monotonic() + 240
+    n_done = 0
+    try:
+        while time.monotonic() < deadline and proc.poll() is None:
+            if (out / "done" / "zarr.json").exists():
+                n_done = int(np.sum(zarr.open_group(str(out), mode="r")["done"][:]))
+                if 0 < n_done < 48:
+                    break
+            time.sleep(0.2)
+        assert proc.poll() is None and 0 < n_done < 48, "could not catch the run halfway"
+        proc.send_signal(signal.SIGTERM)
+        proc.communicate(timeout=60)
+    finally:
+        if proc.poll() is None:
+            os.killpg(proc.pid, signal.SIGKILL)
+            proc.communicate()
+    done_after_kill = int(np.sum(zarr.open_group(str(out), mode="r")["done"][:]))
+    assert 0 < done_after_kill < 48
+    result = run_luxsweep("run", study, "--out", out, "--cache", tmp_path / "cache",
+                          "--workers", "2", timeout=300)
+    assert result.code == 0, result.err
+    assert f"{done_after_kill} already done (skipped)" in result.out
+    local = xr.open_zarr(folder / "r.zarr")
+    resumed = xr.open_zarr(out)
+    for name in SENSOR_VARS + VARIANT_VARS + ("done",):
+        np.testing.assert_array_equal(resumed[name].values, local[name].values, err_msg=name)

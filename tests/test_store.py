@@ -1,0 +1,113 @@
+"""The results store (CONTRACT.md §3): layout, xarray compatibility, chunk ownership."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+import xarray as xr
+import zarr
+
+from sweep import store
+from sweep.errors import ResultsStoreError
+
+
+def layout(sensors=None, times=None, **attrs) -> store.StoreLayout:
+    grid = np.column_stack([np.arange(4.0), np.zeros(4), np.full(4, 0.8)])
+    sensors = sensors if sensors is not None else [grid, grid, grid]
+    n = len(sensors)
+    return store.StoreLayout(
+        variant_ids=[f"{i:016x}" for i in range(n)],
+        labels=[f"orientation={90 * i}" for i in range(n)],
+        axes={"orientation": [90.0 * i for i in range(n)],
+              "climate": ["coastal"] * n,
+              "glazings.main.transmittance": [0.7] * n},
+        sensors=sensors,
+        sensor_variables=["daylight_factor", "daylight_autonomy", "udi_low"],
+        variant_variables=["sda", "ase", "en17037_level"],
+        times=times,
+        series_chunk=3,
+        attrs={"study_hash": "abc", "study": "name: x\n", "axes": ["orientation", "climate"],
+               **attrs},
+    )
+
+
+def test_new_store_opens_with_xarray(tmp_path):
+    path = tmp_path / "r.zarr"
+    store.create_store(path, layout())
+    store.consolidate(path)
+    ds = xr.open_zarr(path, consolidated=False)
+    assert dict(ds.sizes) == {"variant": 3, "sensor": 4}
+    assert list(ds.variant_id.values) == [f"{i:016x}" for i in range(3)]
+    assert ds["glazings.main.transmittance"].dims == ("variant",)
+    assert ds.x.dims == ("sensor",) and ds.x.attrs["units"] == "m"
+    assert ds.attrs["study_hash"] == "abc" and ds.attrs["luxsweep_version"]
+    assert not ds.done.values.any()
+    assert np.isnan(ds.sda.values).all()
+    assert zarr.open_group(str(path)).metadata.zarr_format == 3
+
+
+def test_write_variant_fills_its_own_chunks_done_last(tmp_path):
+    path = tmp_path / "r.zarr"
+    store.create_store(path, layout())
+    store.write_variant(path, 1, {"daylight_factor": np.array([1, 2, 3, 4], "f4")},
+                        {"sda": 55.0, "en17037_level": 2})
+    ds = xr.open_zarr(path, consolidated=False)
+    assert ds.done.values.tolist() == [False, True, False]
+    assert ds.daylight_factor.values[1].tolist() == [1, 2, 3, 4]
+    assert np.isnan(ds.daylight_factor.values[[0, 2]]).all()
+    assert float(ds.sda.values[1]) == 55.0 and int(ds.en17037_level.values[1]) == 2
+    # every data variable holds one variant per chunk (tasks own whole chunks)
+    group = zarr.open_group(str(path))
+    for name in ("daylight_factor", "sda", "done"):
+        assert group[name].chunks[0] == 1
+
+
+def test_different_grids_give_padded_variant_sensor_coordinates(tmp_path):
+    small = np.column_stack([np.arange(2.0), np.zeros(2), np.zeros(2)])
+    large = np.column_stack([np.arange(5.0), np.ones(5), np.zeros(5)])
+    path = tmp_path / "r.zarr"
+    store.create_store(path, layout(sensors=[small, large]))
+    store.write_variant(path, 0, {"daylight_factor": np.array([7, 8], "f4")}, {})
+    ds = xr.open_zarr(path, consolidated=False)
+    assert ds.x.dims == ("variant", "sensor") and ds.sizes["sensor"] == 5
+    assert np.isnan(ds.x.values[0, 2:]).all() and ds.x.values[1].tolist() == [0, 1, 2, 3, 4]
+    assert ds.n_sensors.values.tolist() == [2, 5]
+    assert np.isnan(ds.daylight_factor.values[0, 2:]).all()
+
+
+def test_series_chunked_along_time(tmp_path):
+    times = pd.date_range("2023-01-02 09:00", periods=7, freq="h")
+    path = tmp_path / "r.zarr"
+    store.create_store(path, layout(times=times))
+    block = np.arange(12, dtype="f4").reshape(4, 3)
+    store.write_series(path, 2, 3, block, block * 0)
+    ds = xr.open_zarr(path, consolidated=False)
+    assert ds.illuminance.dims == ("variant", "sensor", "time")
+    assert ds.illuminance.encoding["chunks"] == (1, 4, 3)
+    assert pd.DatetimeIndex(ds.time.values).equals(times)
+    assert np.array_equal(ds.illuminance.values[2, :, 3:6], block)
+
+
+def test_existing_store_of_another_study_is_refused(tmp_path):
+    path = tmp_path / "r.zarr"
+    store.create_store(path, layout())
+    assert store.open_existing(path, "abc").tolist() == [False] * 3
+    with pytest.raises(ResultsStoreError, match="--out"):
+        store.open_existing(path, "another-hash")
+    with pytest.raises(ResultsStoreError, match="already exists"):
+        store.create_store(path, layout())
+
+
+def test_not_a_store_is_refused(tmp_path):
+    (tmp_path / "junk").mkdir()
+    with pytest.raises(ResultsStoreError, match="not a luxsweep results store"):
+        store.open_existing(tmp_path / "junk", "abc")
+
+
+def test_misaligned_chunks_are_refused(tmp_path):
+    path = tmp_path / "r.zarr"
+    ds = xr.Dataset({"sda": (("variant",), np.zeros(4, "f4"))})
+    ds.to_zarr(path, zarr_format=3, encoding={"sda": {"chunks": (2,)}}, consolidated=False)
+    with pytest.raises(ResultsStoreError, match="one variant per chunk"):
+        store.check_alignment(path)
