@@ -105,11 +105,11 @@ class Settings:
 
     subdivision: int = 2
     sun_spacing: float = DEFAULT_SPACING
-    sky_rays_per_patch: int = 16
+    sky_rays_per_patch: int = 64
     ground_rays: int = 4096
     element_size: float = 0.5
-    element_rays: int = 256
-    sensor_rays: int = 2048
+    element_rays: int = 1024
+    sensor_rays: int = 4096
     reflected_sun_spacing: float = 3.0
     seed: int = 0
 
@@ -283,20 +283,66 @@ def _seed(settings: Settings, stream: int, *more: int) -> int:
     return int(state[0])
 
 
+_MAX_CONES = 64  # glazing triangles above which the cone pre-test is skipped
+
+
+def _window_cones(scene: Any, points: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
+    """Cone around every glazing triangle seen from every point.
+
+    Returns ``(axis (n_points, n_glazing, 3), cos_half (n_points, n_glazing))``:
+    the cap centred on the normalised sum of the unit directions to the three
+    corners, with the largest corner angle as half-angle, contains every
+    direction from the point through the triangle (a spherical triangle lies in
+    any cap narrower than a hemisphere that holds its corners). Caps of 90° or
+    more cannot reject anything and get ``cos_half = -1``. None when the scene
+    has no or too many glazing triangles.
+    """
+    tri = scene.geometry.triangles[scene.glazing_index]
+    if tri.shape[0] == 0 or tri.shape[0] > _MAX_CONES:
+        return None
+    v = tri[None, :, :, :] - points[:, None, None, :]  # (p, g, 3, 3)
+    v /= np.linalg.norm(v, axis=-1, keepdims=True)
+    axis = v.sum(axis=2)
+    axis /= np.maximum(np.linalg.norm(axis, axis=-1, keepdims=True), 1e-300)
+    cos_half = np.einsum("pgkc,pgc->pgk", v, axis).min(axis=2)
+    cos_half = np.where(cos_half > 1e-3, cos_half - 1e-6, -1.0)
+    return axis, cos_half
+
+
+def _may_cross(cones: tuple[np.ndarray, np.ndarray] | None, owner: np.ndarray,
+               directions: np.ndarray) -> np.ndarray:
+    """False for rays that certainly miss every glazing triangle (cone pre-test)."""
+    if cones is None:
+        return np.ones(owner.size, dtype=bool)
+    axis, cos_half = cones
+    ok = np.zeros(owner.size, dtype=bool)
+    for g in range(axis.shape[1]):
+        ok |= np.einsum("ij,ij->i", directions, axis[owner, g]) >= cos_half[owner, g]
+    return ok
+
+
 def _through_glazing(scene: Any, origins: np.ndarray, directions: np.ndarray,
-                     panes: tuple[int, ...]) -> tuple[np.ndarray, np.ndarray]:
+                     panes: tuple[int, ...], may_cross: np.ndarray | None = None,
+                     ) -> tuple[np.ndarray, np.ndarray]:
     """Glazing set through which each ray from inside reaches the sky, and τ_rel.
 
     Returns ``(set, tau)``: set -1 where the ray does not reach the sky through
-    glazing. The (cheap) glazing scene is queried first; only the rays that
-    cross a window are tested against the opaque scene.
+    glazing. Rays rejected by ``may_cross`` (cone pre-test) are skipped; the
+    (cheap) glazing scene is queried next; only the rays that cross a window
+    are tested against the opaque scene.
     """
-    gset, cos, _ = scene.glazing_crossing(origins, directions)
-    cand = np.flatnonzero(gset >= 0)
-    if cand.size:
-        blocked = scene.occluded(origins[cand], directions[cand])
-        gset[cand[blocked]] = -1
-    tau = relative_transmit(cos, gset, panes)
+    n = directions.shape[0]
+    gset = np.full(n, -1, dtype=np.int32)
+    tau = np.ones(n)
+    sel = np.arange(n) if may_cross is None else np.flatnonzero(may_cross)
+    if sel.size:
+        o, d = origins[sel], directions[sel]
+        g, cos, _ = scene.glazing_crossing(o, d)
+        cand = np.flatnonzero(g >= 0)
+        if cand.size:
+            g[cand[scene.occluded(o[cand], d[cand])]] = -1
+        gset[sel] = g
+        tau[sel] = relative_transmit(cos, g, panes)
     return gset, tau
 
 
@@ -338,7 +384,8 @@ def _sensor_sky_direct(scene: Any, sensors: np.ndarray, scheme: Any, settings: S
         c_idx, r_idx = np.nonzero(cos > 0.0)
         o = sensors[idx[c_idx], :3]
         d = dirs[c_idx, r_idx]
-        gset, tau = _through_glazing(scene, o, d, panes)
+        may = _may_cross(_window_cones(scene, sensors[idx, :3]), c_idx, d)
+        gset, tau = _through_glazing(scene, o, d, panes, may)
         ok = gset >= 0
         flat = (gset[ok].astype(np.int64) * n_s + idx[c_idx[ok]]) * n_basis + basis[r_idx[ok]]
         out += np.bincount(flat, weights=tau[ok] * cos[c_idx[ok], r_idx[ok]],
@@ -366,7 +413,8 @@ def _sun_direct(scene: Any, points: np.ndarray, normals: np.ndarray, exterior: n
         layer = np.full(c_idx.size, n_sets, dtype=np.int64)
         inner = np.flatnonzero(~ext)
         if inner.size:
-            gset, tau = _through_glazing(scene, o[inner], d[inner], panes)
+            may = _may_cross(_window_cones(scene, points[idx]), c_idx[inner], d[inner])
+            gset, tau = _through_glazing(scene, o[inner], d[inner], panes, may)
             ok = gset >= 0
             value[inner[ok]] = tau[ok]
             layer[inner[ok]] = gset[ok]

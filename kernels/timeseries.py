@@ -32,9 +32,10 @@ if TYPE_CHECKING:
 __all__ = ["daylight_factor", "illuminance"]
 
 
-def _transmittances(coeffs: CoefficientSet, transmittances: np.ndarray) -> np.ndarray:
-    """(n_variants, n_sets) float32 transmittance table, shape-checked."""
-    tau = np.asarray(transmittances, dtype=np.float32)
+def _transmittances(coeffs: CoefficientSet, transmittances: np.ndarray,
+                    dtype: type = np.float32) -> np.ndarray:
+    """(n_variants, n_sets) transmittance table, shape-checked."""
+    tau = np.asarray(transmittances, dtype=dtype)
     n_sets = len(coeffs.glazing_sets)
     if tau.ndim == 1:
         tau = tau[None, :]
@@ -151,7 +152,7 @@ def daylight_factor(
         ``100 E_inside / E_outside`` under the CIE overcast sky (CIE S 011 /
         ISO 15469 sky type 1 in its traditional form, Moon & Spencer 1942).
     """
-    tau = _transmittances(coeffs, transmittances).astype(np.float64)
+    tau = _transmittances(coeffs, transmittances, np.float64)
     v = np.asarray(overcast_vector, dtype=np.float64)
     c = coeffs.sky_direct.astype(np.float64) + coeffs.sky_reflected.astype(np.float64)
     per_set = np.einsum("gsj,j->gs", c, v)

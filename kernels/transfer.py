@@ -221,11 +221,12 @@ def mesh_elements(
     exterior : ndarray (n,) bool
         Exterior-surface flag per triangle.
     element_size : float or ndarray (n,) [m]
-        Target edge length (one value, or one per triangle): a triangle is split into ``m²`` congruent pieces
-        with ``m = ceil(max(sqrt(2 A), L_max / 2) / element_size)`` (``A`` its
-        area, ``L_max`` its longest edge), so a right-angled half of an
-        ``s x s`` square gives half-squares of side about ``element_size`` and
-        slivers are still cut along their length.
+        Target edge length (one value, or one per triangle). A triangle is
+        split into ``m²`` congruent pieces with
+        ``m = ceil(max(sqrt(2 A), L_max / 2) / element_size)``, ``A`` its area and
+        ``L_max`` its longest edge: the right-angled half of an ``s x s`` square
+        gives half-squares of side about ``element_size``, and slivers are
+        still cut along their length.
     mask : ndarray (n,) bool, optional
         Triangles to mesh (default all); others get ``first = -1``.
 

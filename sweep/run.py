@@ -162,7 +162,7 @@ def series_task(
     scheme = patch_scheme(coeffs.subdivision)
     sun_points = SunPoints(coeffs.settings.sun_spacing)
     stamps, sun_times = step_times(climate, study.timestep)
-    altitude, _ = solar_position(sun_times, climate.site)
+    altitude, azimuth = solar_position(sun_times, climate.site)
     daylight = altitude > 0.0
     occ = study.occupancy
     occupied = km.occupancy_mask(stamps, occ.start, occ.end, occ.days, study.timestep)
@@ -190,7 +190,8 @@ def series_task(
         if lit.size:
             t1 = time.perf_counter()
             sky = sky_vectors(climate, task.orientations, scheme, sun_points, study.timestep,
-                              study.ground_reflectance, steps=lit)
+                              study.ground_reflectance, steps=lit,
+                              sun_position=(altitude, azimuth))
             t2 = time.perf_counter()
             timing["sky"] += t2 - t1
             total, direct = illuminance(coeffs, sky, open_rows)

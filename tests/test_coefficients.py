@@ -173,12 +173,14 @@ def test_average_daylight_factor_against_handbook_formula():
 # ------------------------------------------------------------------ invariances
 
 
+@pytest.mark.slow
 def test_scaling_the_room_leaves_daylight_factors_unchanged():
     # Daylight factors are ratios of illuminances, invariant under a uniform scaling of the
     # geometry (radiative transfer has no length scale; common practice for scale models).
     # The direct part uses the same ray directions at both scales (equal to float rounding);
     # the reflected part is meshed at the same element size at both scales, so it differs
-    # by sampling noise: 3 % of the reflected part per sensor, 1 % on the mean.
+    # by sampling noise (measured scatter 0.7 % per sensor at the default rays): 4 % of the
+    # reflected part per sensor (about 5 σ), 2 % on the mean.
     windows, panes = _front_window(width=2.5, sill=0.9, head=2.1)
     sensors = sensor_grid(4.0, 5.0, 0.8, 1.0, 0.5)
     out = []
@@ -192,8 +194,8 @@ def test_scaling_the_room_leaves_daylight_factors_unchanged():
         out.append((c.sky_direct[0].astype(float) @ v, c.sky_reflected[0].astype(float) @ v))
     (d1, r1), (d2, r2) = out
     assert np.allclose(d1, d2, rtol=1e-5, atol=1e-7)
-    assert np.allclose(r1, r2, rtol=0.03)
-    assert r2.mean() == pytest.approx(r1.mean(), rel=0.01)
+    assert np.allclose(r1, r2, rtol=0.04)
+    assert r2.mean() == pytest.approx(r1.mean(), rel=0.02)
 
 
 def test_square_room_rotation_gives_same_centre_illuminance():
@@ -254,8 +256,10 @@ def test_direct_sun_interpolation_against_exact_ray_tracing():
     tau = np.where(visible, relative_transmittance(cos_w, 2), 0.0)
     exact = (tau * np.tile(suns[:, 2], n_s)).reshape(n_s, -1)
     err = np.abs(interpolated - exact)
+    lit = (exact > 0) | (interpolated > 0)
     print(f"direct sun interpolation error / E_dn: mean {err.mean():.4f}, "
-          f"p95 {np.percentile(err, 95):.4f}, max {err.max():.3f}, "
+          f"p95 {np.percentile(err, 95):.4f}, max {err.max():.3f}; over sunlit cases: "
+          f"mean {err[lit].mean():.4f}, p95 {np.percentile(err[lit], 95):.4f}; "
           f"sunlit fraction {np.mean(exact > 0):.2f}")
     assert np.mean(exact > 0) > 0.05  # the check does see sun through the window
     assert err.mean() < 0.01

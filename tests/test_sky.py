@@ -398,9 +398,10 @@ def test_efficacy_against_tmy3_illuminance(tmy3_raw, name):
     global efficacy is insensitive to those inputs: annual sums within 3 %, and every
     clearness bin's median hourly ratio within 3 %. The split into direct and diffuse
     depends strongly on the clearness bin (bins 4–6 of the diffuse table span
-    100–106 lm/W at the zenith but −14…−36 cos Z): we measured annual direct −4.4 % /
-    −1.0 % and diffuse +8.4 % / +2.3 % (Greensboro / Sand Point), so 6 % and 10 %.
-    Overcast hours (bin 1, ~40 % of daylight) must agree closely: medians within 1.5 %.
+    100–106 lm/W at the zenith but −14…−36 cos Z): we measured annual global +2.0 % /
+    +0.7 %, direct −4.4 % / −1.3 % and diffuse +8.3 % / +2.2 % (Greensboro / Sand Point),
+    so bounds of 3 %, 6 % and 10 %. Overcast hours (bin 1, 23–39 % of daylight hours)
+    must agree closely: measured medians −0.3 … −1.0 %, bound 1.5 %.
     """
     data, sp = tmy3_raw[name]
     (e_g, e_b, e_d), (r_g, r_b, r_d), bins, (ghi, _, _), z = _tmy3_compare(data, sp)
@@ -508,8 +509,9 @@ def test_orientation_rotates_the_sky(vectors):
 
 def test_patch_luminance_close_to_fine_patch_means(greensboro_climate):
     """Our per-patch luminance vs a brute-force 256-sample mean of the Perez (1993) formula
-    over each patch (MF1, 300 spring hours). Measured L1 error 0.4 % mean / 0.8 % max at MF1
-    (0.1 % at MF2, 0.03 % at MF4); 1.5 % bounds it with margin."""
+    over each patch (MF1, 300 spring hours). Measured L1 error 0.33 % mean / 0.76 % max at
+    MF1 (0.1 % at MF2, 0.03 % at MF4); 1.5 % bounds it with margin (the 256-sample
+    reference itself carries ~0.1 % noise)."""
     from kernels import sun as sunmod
 
     clim = greensboro_climate
@@ -531,10 +533,13 @@ def test_patch_luminance_close_to_fine_patch_means(greensboro_climate):
     ours = sv.sky[0, :-1][:, m].T.astype(float)
     err = np.abs(ours - lo).sum(1) / lo.sum(1)
     assert err.max() < 0.015
-    # the step subset equals the same steps of a full run
-    full = sky.sky_vectors(clim, [180.0], scheme, sunmod.SunPoints(5.0), 60,
-                           steps=slice(3990, 4310))
-    assert np.allclose(full.sky[:, :, 10:310], sv.sky, rtol=1e-5, atol=1e-3)
+    # the step subset equals the same steps of a longer run, with the year's sun given
+    all_alt, all_az = sunmod.solar_position(sun_times, clim.site)
+    longer = sky.sky_vectors(clim, [180.0], scheme, sunmod.SunPoints(5.0), 60,
+                             steps=slice(3990, 4310), sun_position=(all_alt, all_az))
+    assert longer.time.equals(clim.time[3990:4310])
+    assert np.allclose(longer.sky[:, :, 10:310], sv.sky, rtol=1e-5, atol=1e-3)
+    assert np.array_equal(longer.sun_index[:, 10:310], sv.sun_index)
 
 
 def test_sub_hourly_steps(greensboro_climate):
@@ -548,3 +553,34 @@ def test_sub_hourly_steps(greensboro_climate):
     c_up = np.append(sky.patch_mean_sin_altitude(scheme), 0.0)
     assert np.allclose(c_up @ sv.sky[0].astype(float), sv.diffuse_horizontal_illuminance,
                        rtol=1e-5, atol=1e-3)
+
+
+# ------------------------------------------------------------------------------- conformance
+
+
+MODEL_PARAMS = {
+    "perez1993": {"sun_direction": unit(135.0, 30.0), "epsilon": 3.0, "delta": 0.2,
+                  "zenith": 60.0, "diffuse_illuminance": 15000.0},
+    "cie": {"sky_type": 12, "sun_direction": unit(135.0, 30.0)},
+    "cie_overcast": {},
+}
+
+
+@pytest.mark.parametrize("model", sky.SKY_MODELS)
+def test_every_sky_model_conforms(model):
+    """Shared contract of the sky models: finite, non-negative luminance per direction,
+    and a pickled copy of the inputs gives the same result (workers receive pickles)."""
+    assert set(MODEL_PARAMS) == set(sky.SKY_MODELS)
+    d = sky.sample_directions(sky.patch_scheme(1), 4, seed=0).reshape(-1, 3)
+    lum = sky.sky_luminance(model, d, **dict(MODEL_PARAMS[model]))
+    assert lum.shape == (d.shape[0],)
+    assert np.isfinite(lum).all() and (lum >= 0).all()
+    again = sky.sky_luminance(model, *pickle.loads(pickle.dumps((d,))),
+                              **pickle.loads(pickle.dumps(dict(MODEL_PARAMS[model]))))
+    assert np.array_equal(lum, again)
+    if model == "perez1993":
+        # normalised to the given diffuse illuminance (DESIGN §2.4): patch sum within 0.5 %
+        scheme = sky.patch_scheme(2)
+        lp = patch_means(scheme, lambda x: sky.sky_luminance(model, x, **MODEL_PARAMS[model]))
+        e = (lp * scheme.solid_angle * sky.patch_mean_sin_altitude(scheme)).sum()
+        assert e == pytest.approx(15000.0, rel=5e-3)

@@ -1,0 +1,101 @@
+"""Reuse: marginal cost of one more orientation, climate or glazing variant (item 3).
+
+Each figure is divided by the cost of computing one coefficient set of the
+reference classroom (default settings, MF2) measured in the same run::
+
+    reuse_x = marginal seconds of one more x / seconds of compute_coefficients
+
+Marginal costs come from the engine's own series task (``sweep.run.series_task``,
+in this process — one worker's work, including loading the cached coefficient
+set, sky vectors, illuminance, metrics and writing the results), hourly steps,
+all metric families:
+
+* orientation: (T(5 orientations) − T(1 orientation)) / 4, one climate, τ = 0.7;
+* glazing variant: (T(5 transmittances) − T(1)) / 4, one orientation (180°);
+* climate: T(the series task of a second climate) for one orientation and one
+  glazing variant — a new climate is a new series task (sky vectors, sun
+  positions, weather file), so its marginal cost is a whole task.
+
+Each T is the best of two runs (the least disturbed on a shared machine).
+Goal ≤ 0.01 each.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+from pathlib import Path
+from typing import Any
+
+import bench_common as bc
+
+CLIMATES = {"greensboro": bc.TMY3_GREENSBORO, "sand-point": bc.TMY3_SAND_POINT}
+
+
+def _task_seconds(folder: Path, cache: Path, name: str, vary: dict[str, list[Any]],
+                  climates: dict[str, Path], which: int = 0, repeat: int = 2
+                  ) -> tuple[float, dict[str, float]]:
+    """Best wall time [s] of series task ``which`` of a study, and its stage timing."""
+    study = bc.write_study(folder, name, climates, vary)
+    best, timing = float("inf"), {}
+    for i in range(repeat):
+        results = folder / f"{name}-{i}.zarr"
+        plan, _ = bc.plan_and_cache(study, cache, results)
+        task = plan.tasks[which]
+        t, res = bc.timed(lambda plan=plan, task=task, results=results:
+                          bc.run_series(plan, task, results, cache))
+        if t < best:
+            best, timing = t, res["timing"]
+    return best, timing
+
+
+def main(cache: Path | None = None) -> dict[str, Any]:
+    from kernels.coefficients import Settings, compute_coefficients
+
+    with bc.scratch("reuse") as work:
+        cache = cache or work / "cache"
+        one = {"greensboro": bc.TMY3_GREENSBORO}
+        # warm-up (imports, first calls) and the cached coefficient set
+        _task_seconds(work, cache, "warm", {}, one, repeat=1)
+        load0 = bc.load_average()
+        geometry, sensors = bc.reference_geometry()
+        t_coeff, _ = bc.timed(lambda: compute_coefficients(geometry, sensors, Settings()))
+        t1, timing1 = _task_seconds(work, cache, "base", {}, one)
+        t5o, timing5o = _task_seconds(work, cache, "orient5",
+                                      {"orientation": [180, 90, 270, 0, 45]}, one)
+        t5g, timing5g = _task_seconds(work, cache, "glazing5",
+                                      {"glazings.main.transmittance":
+                                       [0.7, 0.6, 0.5, 0.4, 0.3]}, one)
+        t_clim, timing_c = _task_seconds(work, cache, "climate2",
+                                         {"climate": list(CLIMATES)}, CLIMATES, which=1)
+    marginal = {
+        "orientation": (t5o - t1) / 4,
+        "glazing_variant": (t5g - t1) / 4,
+        "climate": t_clim,
+    }
+    ratios = {k: v / t_coeff for k, v in marginal.items()}
+    return {
+        "figure": "reuse",
+        "ratio": ratios,
+        "goal": "<= 0.01 each",
+        "met": {k: bool(v <= 0.01) for k, v in ratios.items()},
+        "coefficient_seconds": t_coeff,
+        "marginal_seconds": marginal,
+        "task_seconds": {"base": t1, "orient5": t5o, "glazing5": t5g, "climate": t_clim},
+        "stage_seconds": {"base": timing1, "orient5": timing5o, "glazing5": timing5g,
+                          "climate": timing_c},
+        "timestep_min": 60,
+        "load_average": [load0, bc.load_average()],
+    }
+
+
+if __name__ == "__main__":
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--json", help="write the figures to this file")
+    parser.add_argument("--cache", help="coefficient cache folder (shared between benchmarks)")
+    args = parser.parse_args()
+    result = main(Path(args.cache) if args.cache else None)
+    print(json.dumps(result, indent=1))
+    if args.json:
+        with open(args.json, "w", encoding="utf-8") as fh:
+            json.dump(result, fh, indent=1)

@@ -1,0 +1,147 @@
+"""Whole sweeps through ``sweep.run.run_study``: scaling (item 5) and throughput (item 6).
+
+Both run the real engine end to end (plan, LocalCluster of single-threaded
+worker processes, coefficient tasks, series tasks, Zarr store) on studies of
+the reference classroom, with a fresh coefficient cache, hourly steps, all
+metric families and these coarse compute settings (stated, as the issue
+allows; the demo study uses the same)::
+
+    subdivision 2, sun_spacing 3°, sky_rays_per_patch 8, ground_rays 1024,
+    element_size 0.6 m, element_rays 128, sensor_rays 512
+
+Scaling
+-------
+A 64-variant study (4 window widths × 4 orientations × 2 climates × 2
+transmittances: 4 coefficient sets, 8 series tasks) on 1 and on 2 worker
+processes; speed-up = wall(1) / wall(2), wall time including cluster start.
+The cluster projection is a list-scheduling model built from the measured
+1-worker run (see :func:`projection`).
+
+Throughput
+----------
+10 window widths × 8 orientations × 5 climates × 4 transmittances = 1,600
+variants (10 coefficient sets, 50 series tasks) on 2 workers: variants per
+second and total wall time. Goal: under 10 minutes. The five climates are the
+two pvlib TMY3 years and three files derived from them
+(:data:`bench_common.DERIVED_CLIMATES`: site longitude moved 7.5° west or
+east, weather moved 61 days later in the year).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import logging
+from pathlib import Path
+from typing import Any
+
+import bench_common as bc
+
+COARSE = {"subdivision": 2, "sun_spacing": 3.0, "sky_rays_per_patch": 8, "ground_rays": 1024,
+          "element_size": 0.6, "element_rays": 128, "sensor_rays": 512}
+
+
+def run(study: Path, workers: int, work: Path, tag: str) -> dict[str, Any]:
+    """One ``run_study`` with a fresh cache and store; wall time and worker time by stage."""
+    from sweep.run import run_study
+
+    logging.getLogger("distributed").setLevel(logging.ERROR)
+    load0 = bc.load_average()
+    t, summary = bc.timed(lambda: run_study(study, work / f"{tag}.zarr", workers=workers,
+                                            cache_dir=work / f"cache-{tag}",
+                                            show_progress=False))
+    if not summary.ok:
+        raise RuntimeError(f"run {tag} failed: {summary.failed}")
+    return {"workers": workers, "wall_seconds": t, "variants": summary.written,
+            "variants_per_second": summary.written / t,
+            "coefficient_sets": summary.coefficient_sets_computed,
+            "worker_seconds": summary.timing, "load_average": [load0, bc.load_average()]}
+
+
+def projection(one: dict[str, Any], n_tasks: int, n_sets: int,
+               workers: tuple[int, ...] = (2, 8, 32, 128)) -> dict[str, Any]:
+    """Wall time of the same sweep on N workers, projected from a measured run.
+
+    Model (list scheduling of independent tasks after their coefficient set)::
+
+        T(N) = T_fixed + max(W / N, c + s)
+
+    ``W`` the measured worker-busy seconds (all stages), ``T_fixed`` = wall −
+    W / n (n the workers of the measured run, assumed evenly loaded): planning,
+    cluster start, client-side bookkeeping, consolidation;
+    ``c`` the mean coefficient-set time and ``s`` the mean series-task time
+    (the critical path of one geometry). Assumptions: workers as fast as one
+    core here; the cache and the store on a shared filesystem whose latency
+    adds nothing (measured here on a local disk); scheduler overhead per task
+    (milliseconds) neglected; at most ``n_tasks`` workers are useful.
+    """
+    busy = float(sum(one["worker_seconds"].values()))
+    fixed = max(one["wall_seconds"] - busy / one["workers"], 0.0)
+    c = one["worker_seconds"].get("coefficients", 0.0) / max(n_sets, 1)
+    s = (busy - one["worker_seconds"].get("coefficients", 0.0)) / max(n_tasks, 1)
+    out = {"model": "T(N) = T_fixed + max(W/N, c + s)", "T_fixed": fixed, "W": busy,
+           "c": c, "s": s, "n_series_tasks": n_tasks, "wall_seconds": {}}
+    for n in workers:
+        useful = min(n, n_tasks)
+        out["wall_seconds"][str(n)] = fixed + max(busy / useful, c + s)
+    return out
+
+
+def scaling(work: Path) -> dict[str, Any]:
+    climates = {"greensboro": bc.TMY3_GREENSBORO, "sand-point": bc.TMY3_SAND_POINT}
+    vary = {"room.windows.0.width": [2.5, 4.0, 5.0, 6.5], "orientation": [0, 90, 180, 270],
+            "climate": list(climates), "glazings.main.transmittance": [0.7, 0.4]}
+    study = bc.write_study(work, "scaling", climates, vary, compute=COARSE)
+    one = run(study, 1, work, "w1")
+    two = run(study, 2, work, "w2")
+    busy1 = sum(one["worker_seconds"].values())
+    busy2 = sum(two["worker_seconds"].values())
+    return {
+        "figure": "scaling",
+        "ratio": one["wall_seconds"] / two["wall_seconds"],
+        "goal": "(none stated) speed-up on 2 workers, ideal 2",
+        "busy_ratio_2_over_1": busy2 / busy1,
+        "runs": [one, two],
+        "variants": 64,
+        "projection": projection(one, n_tasks=8, n_sets=4),
+    }
+
+
+def throughput(work: Path) -> dict[str, Any]:
+    climates = bc.derived_climates(work / "climates")
+    widths = [2.0, 2.5, 3.0, 3.5, 4.0, 4.5, 5.0, 5.5, 6.0, 6.5]
+    vary = {"room.windows.0.width": widths, "orientation": list(range(0, 360, 45)),
+            "climate": list(climates), "glazings.main.transmittance": [0.8, 0.65, 0.5, 0.35]}
+    study = bc.write_study(work, "throughput", climates, vary, compute=COARSE)
+    res = run(study, 2, work, "throughput")
+    return {
+        "figure": "sweep throughput",
+        "ratio": res["variants_per_second"],
+        "goal": "1600 variants in < 600 s on 2 cores",
+        "met": bool(res["wall_seconds"] < 600.0 and res["variants"] == 1600),
+        "climates": bc.DERIVED_CLIMATES,
+        "run": res,
+        "projection": projection(res, n_tasks=50, n_sets=10, workers=(8, 32, 128)),
+    }
+
+
+def main(include_throughput: bool = False) -> dict[str, Any]:
+    out: dict[str, Any] = {}
+    with bc.scratch("sweep") as work:
+        out["scaling"] = scaling(work)
+        if include_throughput:
+            out["throughput"] = throughput(work)
+    return out
+
+
+if __name__ == "__main__":
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--json", help="write the figures to this file")
+    parser.add_argument("--throughput", action="store_true",
+                        help="also run the 1,600-variant throughput study")
+    args = parser.parse_args()
+    result = main(args.throughput)
+    print(json.dumps(result, indent=1))
+    if args.json:
+        with open(args.json, "w", encoding="utf-8") as fh:
+            json.dump(result, fh, indent=1)
