@@ -7,12 +7,17 @@ default :class:`kernels.coefficients.Settings` (MF2).
 Prints
 ------
 * wall and CPU time of the whole coefficient set;
-* the rays it resolved and the Embree queries it made (counted by wrapping
-  the ray-casting entry points — the real ones run unchanged), and its
-  effective rate (resolved rays per second);
+* the rays it resolved and the rays it handed to Embree (counted by wrapping
+  private helpers of the stage — the real ones run unchanged, see
+  :func:`count_rays`), and its effective rate (resolved rays per second);
 * the raw rate of ``embreex`` occlusion queries on the same opaque scene with
   the same number of rays (float32 arrays prepared in advance), and the ratio
   of the two (goal ≥ 0.5).
+
+A tiny coefficient set is computed first (imports, first calls; not timed).
+The script also runs against the kernels before issue 8 (it then counts the
+Embree rays at the old Scene query methods), for before/after figures in the
+same conditions.
 
 Run: ``.venv/bin/python benchmarks/bench_coefficients.py``.
 """
@@ -36,30 +41,79 @@ def classroom():
     return geo, sensor_grid(7.2, 8.0, 0.8, 0.5, 0.5)
 
 
-def count_rays() -> dict[str, int]:
-    """Count rays by wrapping the ray-casting entry points (the real ones run unchanged).
+class RayCounts(dict):
+    """``{"resolved": …, "queries": …}`` filled while the stage runs.
 
-    ``resolved`` rays are those whose fate the computation settles: rays handed
-    to the glazing/sky test (including those the cone pre-test settles without
-    Embree), the exterior sky test and the path tracing of elements and sensors.
-    ``queries`` are the Embree queries actually made by ``Scene``.
+    Rays the stage settles without looking at them one by one (whole sky
+    patches outside every window) cannot be counted as it runs without
+    slowing it down: the arguments of those calls are recorded and the rays
+    with a positive cosine counted when ``"resolved"`` is read (after the
+    timed run).
     """
-    counts = {"resolved": 0, "queries": 0}
 
-    def wrap(owner, name, key, arg):
+    def __init__(self) -> None:
+        super().__init__(resolved=0, queries=0)
+        self.pending: list = []
+
+    def __getitem__(self, key: str) -> int:
+        if key == "resolved":
+            while self.pending:
+                super().__setitem__("resolved", super().__getitem__("resolved")
+                                    + self.pending.pop()())
+        return super().__getitem__(key)
+
+
+def _sky_rays(sensors: np.ndarray, scheme, settings) -> int:
+    """Sky and ground rays of ``coefficients._sensor_sky_direct`` with ``n·d > 0``."""
+    from kernels.sky import sample_directions, sample_ground
+
+    n = 0
+    for s in range(sensors.shape[0]):
+        sky = sample_directions(scheme, settings.sky_rays_per_patch,
+                                coefficients._seed(settings, coefficients._STREAM_SKY, s))
+        ground = sample_ground(settings.ground_rays,
+                               coefficients._seed(settings, coefficients._STREAM_GROUND, s))
+        n += int(np.count_nonzero(sky.reshape(-1, 3) @ sensors[s, 3:] > 0.0))
+        n += int(np.count_nonzero(ground @ sensors[s, 3:] > 0.0))
+    return n
+
+
+def count_rays() -> RayCounts:
+    """Count rays by wrapping private helpers of the stage (the real ones run unchanged).
+
+    ``resolved`` rays are those whose fate the computation settles: every
+    sensor/element ray with a positive cosine of the sky and sun tests
+    (``coefficients._sensor_sky_direct``, ``coefficients._sun_direct``),
+    whether a pre-test settles it or Embree does, and the rays of the element
+    and sensor path tracing (``transfer.trace_paths``). ``queries`` are the
+    rays actually handed to Embree (``raytrace._run``, through which every
+    Scene query of the stage goes). The wrappers stay for the rest of the
+    process; see :class:`RayCounts` for when the sky rays are counted.
+    """
+    counts = RayCounts()
+
+    def wrap(owner, name, record):
         original = getattr(owner, name)
 
         def counted(*args, _f=original, **kw):
-            counts[key] += int(np.asarray(args[arg]).reshape(-1, 3).shape[0])
+            record(args)
             return _f(*args, **kw)
 
         setattr(owner, name, counted)
 
-    wrap(coefficients, "_through_glazing", "resolved", 2)
-    wrap(coefficients, "_open_sky", "resolved", 2)
-    wrap(transfer, "trace_paths", "resolved", 3)
-    for name in ("first_hit", "occluded", "glazing_crossing"):
-        wrap(raytrace.Scene, name, "queries", 2)
+    def add(key, n):
+        dict.__setitem__(counts, key, dict.__getitem__(counts, key) + n)
+
+    wrap(coefficients, "_sensor_sky_direct",
+         lambda a: counts.pending.append(lambda: _sky_rays(a[1], a[2], a[3])))
+    wrap(coefficients, "_sun_direct", lambda a: counts.pending.append(
+        lambda: int(np.count_nonzero(a[2] @ a[4].T > 0.0))))
+    wrap(transfer, "trace_paths", lambda a: add("resolved", int(np.shape(a[3])[0])))
+    if hasattr(raytrace, "_run"):
+        wrap(raytrace, "_run", lambda a: add("queries", int(np.shape(a[1])[0])))
+    else:  # kernels before issue 8 (for before/after runs of this script)
+        for name in ("first_hit", "occluded", "glazing_crossing"):
+            wrap(raytrace.Scene, name, lambda a: add("queries", int(np.shape(a[2])[0])))
     return counts
 
 
@@ -80,6 +134,9 @@ def raw_occlusion_rate(geo, n_rays: int) -> float:
 def main() -> None:
     geo, sensors = classroom()
     settings = Settings()
+    # warm-up: imports and first-call costs on a tiny setting (not timed, not counted)
+    compute_coefficients(geo, sensors[:2], Settings(sky_rays_per_patch=1, ground_rays=16,
+                                                     element_rays=16, sensor_rays=16))
     counts = count_rays()
     t0, c0 = time.perf_counter(), time.process_time()
     coeffs = compute_coefficients(geo, sensors, settings)
@@ -88,7 +145,7 @@ def main() -> None:
     raw = raw_occlusion_rate(geo, rays)
     print(f"reference classroom: {sensors.shape[0]} sensors, {settings}")
     print(f"coefficient set: wall {wall:.2f} s, cpu {cpu:.2f} s, {coeffs.nbytes / 1e6:.1f} MB")
-    print(f"rays resolved {rays / 1e6:.2f} M, Embree queries {counts['queries'] / 1e6:.2f} M")
+    print(f"rays resolved {rays:,}, Embree queries {counts['queries']:,}")
     for label, seconds in (("wall", wall), ("cpu", cpu)):
         ours = rays / seconds
         print(f"effective rate ({label}) {ours / 1e6:.2f} M rays/s; raw embreex occlusion "

@@ -54,18 +54,15 @@ ALL_METRICS = ["daylight_factor", "daylight_autonomy", "udi", "sda_ase", "en1703
 # geometry
 
 
-def reference_geometry(window_width: float = 5.0) -> tuple[Any, np.ndarray]:
-    """Geometry and sensors (195, 6) of the reference classroom (kernel API)."""
-    from kernels import geometry as kg
+def reference_geometry() -> tuple[Any, np.ndarray]:
+    """Geometry and sensors (195, 6) of the reference classroom.
 
-    room = REFERENCE_ROOM
-    windows = [dict(w, width=window_width) for w in room["windows"]]
-    geometry = kg.parametric_room(room["width"], room["depth"], room["height"], windows,
-                                  room["reflectance"], {"main": 2})
-    g = REFERENCE_GRID
-    sensors = kg.sensor_grid(room["width"], room["depth"], g["height"], g["spacing"],
-                             g["margin"])
-    return geometry, sensors
+    From ``bench_coefficients.classroom`` (the coefficient benchmark's owner
+    defines it; imported rather than duplicated).
+    """
+    import bench_coefficients
+
+    return bench_coefficients.classroom()
 
 
 # ---------------------------------------------------------------------------

@@ -14,6 +14,9 @@ Scaling
 A 64-variant study (4 window widths × 4 orientations × 2 climates × 2
 transmittances: 4 coefficient sets, 8 series tasks) on 1 and on 2 worker
 processes; speed-up = wall(1) / wall(2), wall time including cluster start.
+Beside it, the speed-up the machine itself gives two processes at that moment
+(:func:`machine_parallelism`: a fixed numpy job in one process, then in two at
+once) — on a shared machine the sweep cannot beat it.
 The cluster projection is a list-scheduling model built from the measured
 1-worker run (see :func:`projection`).
 
@@ -32,6 +35,9 @@ from __future__ import annotations
 import argparse
 import json
 import logging
+import multiprocessing
+import os
+import time
 from pathlib import Path
 from typing import Any
 
@@ -39,6 +45,45 @@ import bench_common as bc
 
 COARSE = {"subdivision": 2, "sun_spacing": 3.0, "sky_rays_per_patch": 8, "ground_rays": 1024,
           "element_size": 0.6, "element_rays": 128, "sensor_rays": 512}
+
+
+def _busy_work(n: int) -> float:
+    """A fixed CPU-bound numpy job (single-threaded); its wall time [s]."""
+    import numpy as np
+
+    t0 = time.perf_counter()
+    rng = np.random.default_rng(0)
+    a = rng.random((256, 256))
+    for _ in range(n):
+        a = np.tanh(a @ a / 256.0)
+    return time.perf_counter() - t0
+
+
+def machine_parallelism(n: int = 1500) -> dict[str, float]:
+    """How much two processes gain over one on this machine right now.
+
+    The same fixed job in one process, then in two processes at once (spawned,
+    one BLAS thread each): ``2 × T(1) / T(2 at once)``; 2 on an idle 2-core
+    machine, less when other work shares the cores.
+    """
+    env_threads = bc.single_thread_env()
+    ctx = multiprocessing.get_context("spawn")
+    saved = {k: os.environ.get(k) for k in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS")}
+    os.environ.update({k: env_threads[k] for k in saved})
+    try:
+        with ctx.Pool(2) as pool:
+            pool.map(_busy_work, [5, 5])  # start-up and imports
+            one = pool.apply(_busy_work, (n,))
+            t0 = time.perf_counter()
+            pool.map(_busy_work, [n, n])
+            both = time.perf_counter() - t0
+    finally:
+        for k, v in saved.items():
+            if v is None:
+                os.environ.pop(k, None)
+            else:
+                os.environ[k] = v
+    return {"one_seconds": one, "two_at_once_seconds": both, "speedup": 2.0 * one / both}
 
 
 def run(study: Path, workers: int, work: Path, tag: str) -> dict[str, Any]:
@@ -92,6 +137,7 @@ def scaling(work: Path) -> dict[str, Any]:
     vary = {"room.windows.0.width": [2.5, 4.0, 5.0, 6.5], "orientation": [0, 90, 180, 270],
             "climate": list(climates), "glazings.main.transmittance": [0.7, 0.4]}
     study = bc.write_study(work, "scaling", climates, vary, compute=COARSE)
+    machine = machine_parallelism()
     one = run(study, 1, work, "w1")
     two = run(study, 2, work, "w2")
     busy1 = sum(one["worker_seconds"].values())
@@ -100,6 +146,10 @@ def scaling(work: Path) -> dict[str, Any]:
         "figure": "scaling",
         "ratio": one["wall_seconds"] / two["wall_seconds"],
         "goal": "(none stated) speed-up on 2 workers, ideal 2",
+        "machine_speedup": machine["speedup"],
+        "ratio_over_machine_speedup": one["wall_seconds"] / two["wall_seconds"]
+        / machine["speedup"],
+        "machine": machine,
         "busy_ratio_2_over_1": busy2 / busy1,
         "runs": [one, two],
         "variants": 64,

@@ -127,7 +127,8 @@ def table(results: dict[str, Any]) -> str:
         rows.append(
             f"| 5 | scaling: 64-variant sweep, wall(1 worker) ÷ wall(2 workers) | "
             f"{_f(sc['ratio'])} ({_f(sc['runs'][0]['wall_seconds'], 1)} s vs "
-            f"{_f(sc['runs'][1]['wall_seconds'], 1)} s); projected "
+            f"{_f(sc['runs'][1]['wall_seconds'], 1)} s; the machine gave two processes "
+            f"{_f(sc['machine_speedup'])}× at the time); projected "
             + ", ".join(f"{n} workers {_f(v, 1)} s" for n, v in pj.items())
             + f" | ideal 2 | — | {_load(sc['runs'][1])} |")
         if "throughput" in b["sweep"]:

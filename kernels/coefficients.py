@@ -283,113 +283,148 @@ def _seed(settings: Settings, stream: int, *more: int) -> int:
     return int(state[0])
 
 
-_MAX_CONES = 64  # glazing triangles above which the cone pre-test is skipped
+_MAX_WINDOW_TRIANGLES = 64  # glazing triangles above which the window pre-test is skipped
+_WEDGE_SLACK = 1e-6  # [rad] the pre-test keeps rays up to this angle outside a triangle
 
 
-def _window_cones(scene: Any, points: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
-    """Cone around every glazing triangle seen from every point.
+def _window_wedges(scene: Any, points: np.ndarray) -> np.ndarray | None:
+    """Edge planes of every glazing triangle seen from every point.
 
-    Returns ``(axis (n_points, n_glazing, 3), cos_half (n_points, n_glazing))``:
-    the cap centred on the normalised sum of the unit directions to the three
-    corners, with the largest corner angle as half-angle, contains every
-    direction from the point through the triangle (a spherical triangle lies in
-    any cap narrower than a hemisphere that holds its corners). Caps of 90° or
-    more cannot reject anything and get ``cos_half = -1``. None when the scene
-    has no or too many glazing triangles.
+    Returns unit normals ``(n_points, n_glazing, 3, 3)`` (point, triangle,
+    edge, xyz) such that a ray from the point in direction ``d`` crosses the
+    triangle exactly when ``d · normal >= 0`` for its three edges: with
+    ``a, b, c`` the corners relative to the point and ``s = a · (b × c) > 0``
+    (else the corners are swapped in sign), the planes through the point and
+    each edge, ``a × b``, ``b × c``, ``c × a``, bound the solid angle of the
+    triangle (the same construction as Van Oosterom & Strackee, "The solid
+    angle of a plane triangle", IEEE Trans. Biomed. Eng. BME-30(2), 1983,
+    doi:10.1109/TBME.1983.325207). A point (nearly) in a triangle's plane gets
+    zero normals: nothing is rejected. None when the scene has no or too many
+    glazing triangles.
     """
     tri = scene.geometry.triangles[scene.glazing_index]
-    if tri.shape[0] == 0 or tri.shape[0] > _MAX_CONES:
+    if tri.shape[0] == 0 or tri.shape[0] > _MAX_WINDOW_TRIANGLES:
         return None
     v = tri[None, :, :, :] - points[:, None, None, :]  # (p, g, 3, 3)
-    v /= np.linalg.norm(v, axis=-1, keepdims=True)
-    axis = v.sum(axis=2)
-    axis /= np.maximum(np.linalg.norm(axis, axis=-1, keepdims=True), 1e-300)
-    cos_half = np.einsum("pgkc,pgc->pgk", v, axis).min(axis=2)
-    cos_half = np.where(cos_half > 1e-3, cos_half - 1e-6, -1.0)
-    return axis, cos_half
+    edge = np.cross(v, np.roll(v, -1, axis=2))  # a × b, b × c, c × a
+    s = np.einsum("pgc,pgc->pg", v[:, :, 0], edge[:, :, 1])
+    size = np.prod(np.linalg.norm(v, axis=-1), axis=-1)
+    sign = np.where(np.abs(s) > 1e-9 * size, np.sign(s), 0.0)
+    norm = np.linalg.norm(edge, axis=-1, keepdims=True)
+    return edge * (sign[..., None, None] / np.maximum(norm, 1e-300))
 
 
-def _may_cross(cones: tuple[np.ndarray, np.ndarray] | None, owner: np.ndarray,
-               directions: np.ndarray) -> np.ndarray:
-    """False for rays that certainly miss every glazing triangle (cone pre-test)."""
-    if cones is None:
-        return np.ones(owner.size, dtype=bool)
-    axis, cos_half = cones
-    ok = np.zeros(owner.size, dtype=bool)
-    for g in range(axis.shape[1]):
-        ok |= np.einsum("ij,ij->i", directions, axis[owner, g]) >= cos_half[owner, g]
+def _window_mask(wedges: np.ndarray | None, dots: Any, reach: Any = 0.0) -> np.ndarray | None:
+    """False for rays that certainly miss every glazing triangle (window pre-test).
+
+    ``dots(normal)`` gives the cosines between the rays and one unit vector
+    per point, ``normal`` (n_points, 3), as an array whose first axis runs
+    over the points; the mask has that shape. A ray is kept when it lies
+    inside (or within :data:`_WEDGE_SLACK` of) the edge planes of some
+    triangle (:func:`_window_wedges`): conservative, Embree decides. With
+    ``reach`` = sin(radius) of caps of directions (broadcast against the
+    dots), a cap is kept when some of it may lie inside. None when there are
+    no wedges (nothing can be rejected).
+    """
+    if wedges is None:
+        return None
+    floor = -_WEDGE_SLACK - np.asarray(reach)
+    ok = None
+    for g in range(wedges.shape[1]):
+        inside = dots(wedges[:, g, 0]) >= floor
+        for e in (1, 2):
+            inside &= dots(wedges[:, g, e]) >= floor
+        ok = inside if ok is None else ok | inside
     return ok
 
 
-def _through_glazing(scene: Any, origins: np.ndarray, directions: np.ndarray,
-                     panes: tuple[int, ...], may_cross: np.ndarray | None = None,
-                     ) -> tuple[np.ndarray, np.ndarray]:
-    """Glazing set through which each ray from inside reaches the sky, and τ_rel.
+def _patch_reach(scheme: Any) -> np.ndarray:
+    """sin of the angular radius of every patch about ``scheme.centres``, (n_patches,).
 
-    Returns ``(set, tau)``: set -1 where the ray does not reach the sky through
-    glazing. Rays rejected by ``may_cross`` (cone pre-test) are skipped; the
-    (cheap) glazing scene is queried next; only the rays that cross a window
-    are tested against the opaque scene.
+    The radius is the largest angle from the centre to a corner (the farthest
+    point of a patch narrower than a half-turn in azimuth lies at a corner:
+    along a parallel the angle grows with the azimuth difference, along a
+    meridian it has no interior maximum above the horizon); the cap's radius
+    is its colatitude span. A cap of directions of radius r about c reaches
+    the half-space ``d · n >= 0`` exactly when ``c · n >= -sin r``.
     """
-    n = directions.shape[0]
-    gset = np.full(n, -1, dtype=np.int32)
-    tau = np.ones(n)
-    sel = np.arange(n) if may_cross is None else np.flatnonzero(may_cross)
-    if sel.size:
-        o, d = origins[sel], directions[sel]
-        g, cos, _ = scene.glazing_crossing(o, d)
-        cand = np.flatnonzero(g >= 0)
-        if cand.size:
-            g[cand[scene.occluded(o[cand], d[cand])]] = -1
-        gset[sel] = g
-        tau[sel] = relative_transmit(cos, g, panes)
-    return gset, tau
+    from kernels.sun import direction
+
+    corners = np.stack([direction(az, alt) for az in (scheme.azimuth_low, scheme.azimuth_high)
+                        for alt in (scheme.altitude_low, scheme.altitude_high)], axis=1)
+    cos_r = np.einsum("pkc,pc->pk", corners, scheme.centres).min(axis=1)
+    cap = scheme.azimuth_high - scheme.azimuth_low >= 360.0
+    cos_r = np.where(cap, np.sin(np.radians(scheme.altitude_low)), cos_r)
+    return np.sqrt(np.clip(1.0 - cos_r * cos_r, 0.0, 1.0)) + 1e-9
 
 
-def _open_sky(scene: Any, origins: np.ndarray, directions: np.ndarray) -> np.ndarray:
-    """True where a ray from outside reaches the sky without glazing or opaque hits."""
-    free = ~scene.occluded(origins, directions)
-    cand = np.flatnonzero(free)
-    if cand.size:
-        gset, _, _ = scene.glazing_crossing(origins[cand], directions[cand])
-        free[cand[gset >= 0]] = False
-    return free
+def _sky_blocks(scene: Any, sensors: np.ndarray, owner: np.ndarray, basis: np.ndarray,
+                blocks: np.ndarray, wedges: np.ndarray | None, panes: tuple[int, ...],
+                shape: tuple[int, int, int]) -> np.ndarray:
+    """Sum of τ_rel n·d over rays that reach the sky through glazing, (n_sets, n_s, n_basis).
+
+    ``blocks`` (k, m, 3) holds m unit directions from sensor ``owner[k]`` into
+    basis entry ``basis[k]``; ``wedges`` the window wedges of the owners.
+    Rays with ``n·d <= 0`` or outside every window are settled here; the
+    others go to :meth:`kernels.raytrace.Scene.exit_glazing`.
+    """
+    cos = np.matmul(blocks, sensors[owner, 3:, None])[..., 0]
+    may = _window_mask(wedges, lambda a: np.matmul(blocks, a[:, :, None])[..., 0])
+    use = cos > 0.0
+    b, r = np.nonzero(use if may is None else use & may)
+    gset, cos_w = scene.exit_glazing(sensors[owner[b], :3], blocks[b, r], unit=True)
+    ok = np.flatnonzero(gset >= 0)
+    b, r, g = b[ok], r[ok], gset[ok]
+    tau = relative_transmit(cos_w[ok], g, panes)
+    flat = (g.astype(np.int64) * shape[1] + owner[b]) * shape[2] + basis[b]
+    return np.bincount(flat, weights=tau * cos[b, r], minlength=int(np.prod(shape))
+                       ).reshape(shape)
 
 
 def _sensor_sky_direct(scene: Any, sensors: np.ndarray, scheme: Any, settings: Settings,
                        panes: tuple[int, ...]) -> np.ndarray:
-    """``sky_direct`` (n_sets, n_sensors, n_basis) float64."""
-    n_s, n_sets, n_basis = sensors.shape[0], len(panes), scheme.n_patches + 1
-    n_sky = scheme.n_patches * settings.sky_rays_per_patch
-    per_sensor = n_sky + settings.ground_rays
-    basis = np.concatenate([
-        np.repeat(np.arange(scheme.n_patches), settings.sky_rays_per_patch),
-        np.full(settings.ground_rays, scheme.n_patches),
-    ])
-    counts = np.concatenate([
-        np.full(scheme.n_patches, settings.sky_rays_per_patch), [settings.ground_rays]
-    ]).astype(np.float64)
-    out = np.zeros((n_sets, n_s, n_basis))
-    chunk = max(1, _RAYS_PER_BATCH // per_sensor)
+    """``sky_direct`` (n_sets, n_sensors, n_basis) float64.
+
+    Whole patches that face away from a sensor or lie outside every window
+    (:func:`_patch_reach`, :func:`_window_mask`) are settled without looking
+    at their rays; the rays of the other patches and of the ground go to
+    :func:`_sky_blocks`.
+    """
+    n_s, n_sets, n_p = sensors.shape[0], len(panes), scheme.n_patches
+    rpp = settings.sky_rays_per_patch
+    shape = (n_sets, n_s, n_p + 1)
+    out = np.zeros(shape)
+    # sup of n·d over the upper (lower) hemisphere is |n_horizontal| unless n_z > 0 (< 0)
+    tilt = np.hypot(sensors[:, 3], sensors[:, 4]) > 0.0
+    sees_sky, sees_ground = tilt | (sensors[:, 5] > 0.0), tilt | (sensors[:, 5] < 0.0)
+    reach = _patch_reach(scheme)
+    chunk = max(1, _RAYS_PER_BATCH // (n_p * rpp + settings.ground_rays))
     for start in range(0, n_s, chunk):
         idx = np.arange(start, min(start + chunk, n_s))
-        dirs = np.concatenate([
-            np.stack([sample_directions(scheme, settings.sky_rays_per_patch,
-                                        _seed(settings, _STREAM_SKY, s)).reshape(-1, 3)
-                      for s in idx]),
-            np.stack([sample_ground(settings.ground_rays, _seed(settings, _STREAM_GROUND, s))
-                      for s in idx]),
-        ], axis=1)  # (c, per_sensor, 3)
-        cos = np.einsum("crk,ck->cr", dirs, sensors[idx, 3:])
-        c_idx, r_idx = np.nonzero(cos > 0.0)
-        o = sensors[idx[c_idx], :3]
-        d = dirs[c_idx, r_idx]
-        may = _may_cross(_window_cones(scene, sensors[idx, :3]), c_idx, d)
-        gset, tau = _through_glazing(scene, o, d, panes, may)
-        ok = gset >= 0
-        flat = (gset[ok].astype(np.int64) * n_s + idx[c_idx[ok]]) * n_basis + basis[r_idx[ok]]
-        out += np.bincount(flat, weights=tau[ok] * cos[c_idx[ok], r_idx[ok]],
-                           minlength=out.size).reshape(out.shape)
+        wedges = _window_wedges(scene, sensors[idx, :3])
+        keep = (sensors[idx, 3:] @ scheme.centres.T >= -reach) & sees_sky[idx, None]
+        may = _window_mask(wedges, lambda a: a @ scheme.centres.T, reach)
+        if may is not None:
+            keep &= may
+        owner, patch, parts = [], [], []
+        for i in np.flatnonzero(keep.any(axis=1)):
+            s = idx[i]
+            dirs = sample_directions(scheme, rpp, _seed(settings, _STREAM_SKY, s))
+            kept = np.flatnonzero(keep[i])
+            parts.append(dirs[kept])
+            owner.append(np.full(kept.size, s))
+            patch.append(kept)
+        if parts:
+            c = np.concatenate(owner)
+            out += _sky_blocks(scene, sensors, c, np.concatenate(patch), np.concatenate(parts),
+                               None if wedges is None else wedges[c - start], panes, shape)
+        ground = idx[sees_ground[idx]]
+        if ground.size:
+            blocks = np.stack([sample_ground(settings.ground_rays,
+                                             _seed(settings, _STREAM_GROUND, s)) for s in ground])
+            out += _sky_blocks(scene, sensors, ground, np.full(ground.size, n_p), blocks,
+                               None if wedges is None else wedges[ground - start], panes, shape)
+    counts = np.append(np.full(n_p, float(rpp)), float(settings.ground_rays))
     return out / counts
 
 
@@ -398,30 +433,37 @@ def _sun_direct(scene: Any, points: np.ndarray, normals: np.ndarray, exterior: n
     """Direct sun irradiance per unit E_dn on points (sensors or elements).
 
     Returns ``(n_sets + 1, n_points, n_sun)``: through each glazing set for
-    interior points, and (last) unglazed for exterior points.
+    interior points, and (last) unglazed for exterior points. Pairs with
+    ``n·s <= 0`` and, for interior points, suns outside every window
+    (:func:`_window_mask`) are settled without Embree.
     """
+    from kernels.raytrace import NO_GLAZING
+
     n_p, n_sun, n_sets = points.shape[0], sun.shape[0], len(panes)
     out = np.zeros((n_sets + 1, n_p, n_sun))
     chunk = max(1, _RAYS_PER_BATCH // max(n_sun, 1))
     for start in range(0, n_p, chunk):
         idx = np.arange(start, min(start + chunk, n_p))
         cos = normals[idx] @ sun.T  # (c, n_sun)
-        c_idx, k_idx = np.nonzero(cos > 0.0)
-        o, d = points[idx[c_idx]], sun[k_idx]
-        ext = exterior[idx[c_idx]]
-        value = np.zeros(c_idx.size)
-        layer = np.full(c_idx.size, n_sets, dtype=np.int64)
-        inner = np.flatnonzero(~ext)
-        if inner.size:
-            may = _may_cross(_window_cones(scene, points[idx]), c_idx[inner], d[inner])
-            gset, tau = _through_glazing(scene, o[inner], d[inner], panes, may)
-            ok = gset >= 0
-            value[inner[ok]] = tau[ok]
-            layer[inner[ok]] = gset[ok]
-        outer = np.flatnonzero(ext)
-        if outer.size:
-            value[outer[_open_sky(scene, o[outer], d[outer])]] = 1.0
-        out[layer, idx[c_idx], k_idx] = value * cos[c_idx, k_idx]
+        ext = exterior[idx]
+        may = _window_mask(_window_wedges(scene, points[idx]), lambda a: a @ sun.T)
+        use = cos > 0.0
+        c_idx, k_idx = np.nonzero(use if may is None else use & (may | ext[:, None]))
+        outside = ext[c_idx]
+        for sel in (np.flatnonzero(~outside), np.flatnonzero(outside)):
+            if sel.size == 0:
+                continue
+            c, k = c_idx[sel], k_idx[sel]
+            o, d = points[idx[c]], sun[k]
+            if outside[sel[0]]:  # exterior points: open sky, no glazing
+                free = scene.sky_view(o, d, unit=True)[0] == NO_GLAZING
+                layer, value = np.full(c.size, n_sets), free.astype(np.float64)
+            else:
+                gset, cos_w = scene.exit_glazing(o, d, unit=True)
+                layer, value = gset.astype(np.int64), relative_transmit(cos_w, gset, panes)
+            ok = np.flatnonzero((layer >= 0) & (value > 0.0))
+            c, k = c[ok], k[ok]
+            out[layer[ok], idx[c], k] = value[ok] * cos[c, k]
     return out
 
 
@@ -465,10 +507,16 @@ def _reflected(scene: Any, geometry: Any, sensors: np.ndarray, settings: Setting
     source_ext = np.concatenate([s_sky_ext, s_sun[n_sets]], axis=1)[outer]
     b_ext = solve_radiosity(f_same[outer][:, outer], rho[outer], source_ext)
     response = gather_radiosity(g_same[:, inner].toarray(), f_same[inner][:, inner], rho[inner])
+    everything = inner.size == el.n  # no exterior elements: no selections to copy
     for g in range(n_sets):
-        source = np.concatenate([s_sky_int[g], s_sun[g]], axis=1)[inner]
-        source += f_through[g][inner][:, outer] @ b_ext
-        out[g] = response @ source + g_through[g][:, outer] @ b_ext
+        through = f_through[g][inner][:, outer] @ b_ext if outer.size else None
+        for cols, first in ((slice(0, n_basis), s_sky_int[g]), (slice(n_basis, None), s_sun[g])):
+            source = first if everything else first[inner]
+            if through is not None:
+                source = source + through[:, cols]
+            out[g][:, cols] = response @ source
+        if outer.size:
+            out[g] += g_through[g][:, outer] @ b_ext
     return out
 
 

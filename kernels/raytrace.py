@@ -1,9 +1,27 @@
 """Ray casting against a :class:`~kernels.geometry.Geometry` with Embree (``embreex``).
 
-A :class:`Scene` holds two Embree scenes: the opaque triangles (visibility) and
-the glazing triangles (which window a ray crosses and at what angle). All
-queries take float64 arrays of any length and work in batches of
+A :class:`Scene` holds three Embree scenes built once: the opaque triangles
+(visibility), the glazing triangles (which window a ray crosses and at what
+angle) and every triangle together in geometry order (so Embree's primitive
+index *is* the geometry triangle index, and one query tells opaque from
+glazing hits). Queries take arrays of any length and work in batches of
 :data:`BATCH` rays; Embree itself works in float32.
+
+Fast paths
+----------
+Every query takes ``unit``: pass ``unit=True`` when the directions are unit
+vectors already (they are then not normalised again), and float32 C-contiguous
+direction arrays are used as they are, without a copy. The queries used by the
+coefficient stage:
+
+* :meth:`Scene.trace` — nearest opaque hit with its barycentric coordinates and
+  the glazing crossed before it, from one query on the combined scene (a second
+  one on the opaque scene only for the few rays whose nearest hit is glazing);
+* :meth:`Scene.exit_glazing` — through which glazing set a ray from inside
+  reaches the sky (glazing scene, then an opaque occlusion query only for the
+  rays that cross glazing);
+* :meth:`Scene.sky_view` — the same for rays from anywhere, telling blocked
+  from unglazed rays.
 
 Self-intersection
 -----------------
@@ -14,17 +32,17 @@ their points as they are. ``epsilon`` defaults to ``1e-5 ×`` the scene's extent
 point lying *on* a surface should in addition be lifted off it along the
 surface normal with :meth:`Scene.lift` before casting nearly tangential rays.
 
-Measured (embreex, 2-core machine shared with other jobs, 6 × 8 × 3 m box room
-with one front window = 20 triangles, 1e6 rays from the room centre, float64
-in): :meth:`Scene.occluded` 5–10 Mrays/s, :meth:`Scene.first_hit` 3–8 Mrays/s,
-:meth:`Scene.sky_view` about 3 Mrays/s; a raw float32 ``EmbreeScene.run``
-occlusion call reaches about 18 Mrays/s, the rest is the float64 → float32
-conversion and normalisation. ``EmbreeScene.run`` releases the GIL (two Python
-threads reach about 1.4× the single-thread rate), but a Scene runs
-single-threaded: Dask worker processes provide the parallelism.
+Measured (embreex, 2-core machine shared with other jobs, 7.2 × 8 × 3 m room
+with one front window = 20 triangles, rays from inside): a raw float32
+``EmbreeScene.run`` occlusion call reaches 12–19 Mrays/s; an intersection with
+hit data 8–13 Mrays/s; on the two glazing triangles alone 25–28 Mrays/s.
+``EmbreeScene.run`` releases the GIL, but a Scene runs single-threaded: Dask
+worker processes provide the parallelism.
 """
 
 from __future__ import annotations
+
+from dataclasses import dataclass
 
 import numpy as np
 from embreex import rtcore_scene as rtcs
@@ -32,8 +50,10 @@ from embreex.mesh_construction import TriangleMesh
 
 from kernels.geometry import Geometry
 
+__all__ = ["BATCH", "BLOCKED", "NO_GLAZING", "Hits", "Scene"]
+
 BATCH = 1 << 20
-"""Rays per Embree call (bounds the float32 copies to ~25 MB)."""
+"""Rays per Embree call (bounds Embree's per-call result arrays)."""
 
 NO_GLAZING = -2
 """:meth:`Scene.sky_view` code: the ray reaches the sky without crossing glazing."""
@@ -43,13 +63,74 @@ BLOCKED = -1
 
 _MISS = 1e30  # embree reports tfar = 1e37 on a miss
 
+_Embree = tuple[rtcs.EmbreeScene, TriangleMesh]
 
-def _embree(triangles: np.ndarray) -> tuple[rtcs.EmbreeScene, TriangleMesh] | None:
+
+def _embree(triangles: np.ndarray) -> _Embree | None:
     if triangles.shape[0] == 0:
         return None
     scene = rtcs.EmbreeScene()
     mesh = TriangleMesh(scene, np.ascontiguousarray(triangles, dtype=np.float32))
     return scene, mesh
+
+
+def _run(scene: _Embree, o: np.ndarray, d: np.ndarray, query: str,
+         output: bool = False) -> np.ndarray | dict[str, np.ndarray]:
+    """``EmbreeScene.run`` in batches of :data:`BATCH` rays (results concatenated)."""
+    kw = {"output": 1} if output else {}
+    n = o.shape[0]
+    if n <= BATCH:
+        return scene[0].run(o, d, query=query, **kw)
+    parts = [scene[0].run(o[s:s + BATCH], d[s:s + BATCH], query=query, **kw)
+             for s in range(0, n, BATCH)]
+    if output:
+        return {k: np.concatenate([p[k] for p in parts]) for k in parts[0]}
+    return np.concatenate(parts)
+
+
+def _abs_cos(d: np.ndarray, normals: np.ndarray) -> np.ndarray:
+    """|d · n| per row, float64, element by element (the same bits for any subset)."""
+    return np.abs(d[:, 0] * normals[:, 0] + d[:, 1] * normals[:, 1] + d[:, 2] * normals[:, 2])
+
+
+@dataclass(frozen=True, eq=False)
+class Hits:
+    """Result of :meth:`Scene.trace`: nearest opaque hit and glazing crossed before it.
+
+    Attributes
+    ----------
+    triangle : ndarray (n,) int64
+        Opaque triangle hit (index into ``geometry.triangles``), −1 for none.
+    u, v : ndarray (n,) float32
+        Barycentric coordinates of the hit point, ``p = (1 − u − v) v0 + u v1 + v v2``
+        with the triangle's corners as stored in the geometry (meaningless
+        where ``triangle`` is −1).
+    front : ndarray (n,) bool
+        The ray meets the front face of the triangle (runs against its normal).
+    glazing : ndarray (n,) int32
+        Glazing set of the nearest glazing crossed before the hit (or on the
+        way out, where there is no hit), −1 for none.
+    cos_incidence : ndarray (n,) float64
+        |cos| of the incidence angle at that glazing (0 where none).
+    tfar : ndarray (n,) float32 [m]
+        Embree's distance from the offset origin (see :attr:`distance`).
+    epsilon : float [m]
+        The scene's origin offset.
+    """
+
+    triangle: np.ndarray
+    u: np.ndarray
+    v: np.ndarray
+    front: np.ndarray
+    glazing: np.ndarray
+    cos_incidence: np.ndarray
+    tfar: np.ndarray
+    epsilon: float
+
+    @property
+    def distance(self) -> np.ndarray:
+        """ndarray (n,) float64 [m]: distance of the hit from the given origin (inf: none)."""
+        return np.where(self.triangle >= 0, self.tfar.astype(np.float64) + self.epsilon, np.inf)
 
 
 class Scene:
@@ -76,8 +157,19 @@ class Scene:
         self.glazing_index = np.flatnonzero(glz).astype(np.int64)
         self._opaque = _embree(geometry.triangles[self.opaque_index])
         self._glazing = _embree(geometry.triangles[self.glazing_index])
-        self._glazing_normals = geometry.normals[self.glazing_index]
+        # opaque triangles first, then glazing: primitive index ≥ n_opaque means glazing, and
+        # indices below n_opaque agree with the opaque scene's
+        self._n_opaque = int(self.opaque_index.size)
+        self._all = (_embree(geometry.triangles[np.concatenate([self.opaque_index,
+                                                                self.glazing_index])])
+                     if self._glazing is not None else self._opaque)
+        # primitive index (−1: miss, the last entry) -> geometry triangle index
+        self._opaque_table = np.append(self.opaque_index, -1)
+        self._normals = np.ascontiguousarray(geometry.normals)
+        self._is_glazing = np.asarray(glz, dtype=bool)
+        self._glazing_normals = self._normals[self.glazing_index]
         self._glazing_set = geometry.glazing_set_index[self.glazing_index]
+        self._set_of_triangle = geometry.glazing_set_index.astype(np.int32)
 
     def __reduce__(self) -> tuple:
         return (Scene, (self.geometry, self.epsilon))
@@ -85,39 +177,47 @@ class Scene:
     # ------------------------------------------------------------ internals
 
     def _prepare(
-        self, origins: np.ndarray, directions: np.ndarray
+        self, origins: np.ndarray, directions: np.ndarray, unit: bool = False
     ) -> tuple[np.ndarray, np.ndarray]:
-        """Offset origins and unit directions as contiguous float32 (n, 3) arrays."""
-        o = np.asarray(origins, dtype=np.float64).reshape(-1, 3)
-        d = np.asarray(directions, dtype=np.float64).reshape(-1, 3)
-        if o.shape != d.shape:
-            o, d = np.broadcast_arrays(o, d)
-        d = d / np.sqrt(np.einsum("ij,ij->i", d, d))[:, None]
-        o32 = np.empty(o.shape, dtype=np.float32)
-        np.add(o, self.epsilon * d, out=o32, casting="same_kind")
-        return o32, d.astype(np.float32)
+        """Offset origins and unit directions as contiguous float32 (n, 3) arrays.
+
+        With ``unit`` the directions are taken as unit vectors (no
+        normalisation); float32 C-contiguous directions are then used without
+        a copy. Origins or directions given once (shape (3,) or (1, 3)) are
+        broadcast to the other's length.
+        """
+        o = np.asarray(origins).reshape(-1, 3)
+        d = np.asarray(directions).reshape(-1, 3)
+        if not unit:
+            d = np.asarray(d, dtype=np.float64)
+            d = d / np.sqrt(np.einsum("ij,ij->i", d, d))[:, None]
+        n = max(o.shape[0], d.shape[0])
+        if d.shape[0] != n:
+            d = np.broadcast_to(d, (n, 3))
+        d32 = np.ascontiguousarray(d, dtype=np.float32)
+        o32 = np.multiply(d32, np.float32(self.epsilon))
+        np.add(o32, o, out=o32, casting="same_kind")
+        return o32, d32
 
     @staticmethod
-    def _intersect(
-        scene: tuple[rtcs.EmbreeScene, TriangleMesh] | None, o: np.ndarray, d: np.ndarray
-    ) -> tuple[np.ndarray, np.ndarray]:
+    def _intersect(scene: _Embree | None, o: np.ndarray, d: np.ndarray
+                   ) -> tuple[np.ndarray, np.ndarray]:
         """Nearest hit per ray: (primitive index int64 or −1, distance float64 or inf)."""
         n = o.shape[0]
-        prim = np.full(n, -1, dtype=np.int64)
-        dist = np.full(n, np.inf)
-        if scene is None:
-            return prim, dist
-        for s in range(0, n, BATCH):
-            sl = slice(s, s + BATCH)
-            res = scene[0].run(
-                o[sl], d[sl], query="INTERSECT", output=1
-            )
-            p = res["primID"].astype(np.int64)
-            t = res["tfar"].astype(np.float64)
-            hit = p >= 0
-            prim[sl] = np.where(hit, p, -1)
-            dist[sl] = np.where(hit & (t < _MISS), t, np.inf)
-        return prim, dist
+        if scene is None or n == 0:
+            return np.full(n, -1, dtype=np.int64), np.full(n, np.inf)
+        res = _run(scene, o, d, "INTERSECT", output=True)
+        prim = res["primID"].astype(np.int64)
+        t = res["tfar"].astype(np.float64)
+        hit = prim >= 0
+        prim[~hit] = -1
+        return prim, np.where(hit & (t < _MISS), t, np.inf)
+
+    def _blocked(self, o: np.ndarray, d: np.ndarray) -> np.ndarray:
+        """True where an opaque triangle lies anywhere along the (prepared) rays."""
+        if self._opaque is None or o.shape[0] == 0:
+            return np.zeros(o.shape[0], dtype=bool)
+        return _run(self._opaque, o, d, "OCCLUDED") >= 0
 
     # ------------------------------------------------------------- queries
 
@@ -126,7 +226,7 @@ class Scene:
         return np.asarray(points, dtype=np.float64) + self.epsilon * np.asarray(normals)
 
     def first_hit(
-        self, origins: np.ndarray, directions: np.ndarray
+        self, origins: np.ndarray, directions: np.ndarray, unit: bool = False
     ) -> tuple[np.ndarray, np.ndarray]:
         """Nearest opaque triangle along each ray.
 
@@ -134,7 +234,9 @@ class Scene:
         ----------
         origins : ndarray (n, 3) [m]
         directions : ndarray (n, 3)
-            Need not be unit length.
+            Need not be unit length unless ``unit`` is set.
+        unit : bool
+            The directions are unit vectors (skip normalisation).
 
         Returns
         -------
@@ -143,7 +245,7 @@ class Scene:
         distance : ndarray (n,) float64 [m]
             From the given origin (inf: no hit).
         """
-        o, d = self._prepare(origins, directions)
+        o, d = self._prepare(origins, directions, unit)
         prim, dist = self._intersect(self._opaque, o, d)
         tri = np.where(prim >= 0, self.opaque_index[np.maximum(prim, 0)], -1)
         return tri, dist + self.epsilon
@@ -153,28 +255,25 @@ class Scene:
         origins: np.ndarray,
         directions: np.ndarray,
         max_distance: float | np.ndarray = np.inf,
+        unit: bool = False,
     ) -> np.ndarray:
         """True where an opaque triangle lies within ``max_distance`` [m] along the ray."""
-        o, d = self._prepare(origins, directions)
+        o, d = self._prepare(origins, directions, unit)
         n = o.shape[0]
-        out = np.zeros(n, dtype=bool)
-        if self._opaque is None:
-            return out
+        if self._opaque is None or n == 0:
+            return np.zeros(n, dtype=bool)
+        if np.all(np.isinf(max_distance)):
+            return self._blocked(o, d)
         far = np.broadcast_to(np.asarray(max_distance, dtype=np.float64), (n,)) - self.epsilon
         far = np.clip(far, 0.0, 1e37).astype(np.float32)
+        out = np.empty(n, dtype=bool)
         for s in range(0, n, BATCH):
             sl = slice(s, s + BATCH)
-            res = self._opaque[0].run(
-                o[sl],
-                d[sl],
-                dists=far[sl],
-                query="OCCLUDED",
-            )
-            out[sl] = res >= 0
+            out[sl] = self._opaque[0].run(o[sl], d[sl], dists=far[sl], query="OCCLUDED") >= 0
         return out
 
     def glazing_crossing(
-        self, origins: np.ndarray, directions: np.ndarray
+        self, origins: np.ndarray, directions: np.ndarray, unit: bool = False
     ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Nearest glazing triangle along each ray (opaque triangles ignored).
 
@@ -188,18 +287,53 @@ class Scene:
             From the given origin (inf where none); compare it with
             :meth:`first_hit`'s distance to know whether the glazing comes first.
         """
-        o, d = self._prepare(origins, directions)
+        o, d = self._prepare(origins, directions, unit)
+        n = o.shape[0]
         prim, dist = self._intersect(self._glazing, o, d)
-        hit = prim >= 0
-        k = np.maximum(prim, 0)
-        if self._glazing is None:
-            return np.full(o.shape[0], -1, np.int32), np.zeros(o.shape[0]), dist
-        gset = np.where(hit, self._glazing_set[k], -1).astype(np.int32)
-        cos = np.where(hit, np.abs(np.einsum("ij,ij->i", d, self._glazing_normals[k])), 0.0)
+        gset = np.full(n, -1, dtype=np.int32)
+        cos = np.zeros(n)
+        hit = np.flatnonzero(prim >= 0)
+        if hit.size:
+            k = prim[hit]
+            gset[hit] = self._glazing_set[k]
+            cos[hit] = _abs_cos(d[hit], self._glazing_normals[k])
         return gset, cos, dist + self.epsilon
 
+    def exit_glazing(
+        self, origins: np.ndarray, directions: np.ndarray, unit: bool = False
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """Glazing set through which each ray reaches the sky (rays from inside).
+
+        A ray reaches the sky through glazing when it crosses a glazing
+        triangle and no opaque triangle lies anywhere along it. The glazing
+        scene is queried for every ray, the opaque one only for the rays that
+        cross glazing.
+
+        Returns
+        -------
+        glazing_set : ndarray (n,) int32
+            Set of the nearest glazing along the ray, −1 where the ray does not
+            reach the sky through glazing.
+        cos_incidence : ndarray (n,) float64
+            |cos| at that glazing (0 where −1).
+        """
+        o, d = self._prepare(origins, directions, unit)
+        n = o.shape[0]
+        gset = np.full(n, -1, dtype=np.int32)
+        cos = np.zeros(n)
+        if self._glazing is None or n == 0:
+            return gset, cos
+        prim = _run(self._glazing, o, d, "INTERSECT")
+        cross = np.flatnonzero(prim >= 0)
+        if cross.size:
+            free = cross[~self._blocked(o[cross], d[cross])]
+            k = prim[free]
+            gset[free] = self._glazing_set[k]
+            cos[free] = _abs_cos(d[free], self._glazing_normals[k])
+        return gset, cos
+
     def sky_view(
-        self, origins: np.ndarray, directions: np.ndarray
+        self, origins: np.ndarray, directions: np.ndarray, unit: bool = False
     ) -> tuple[np.ndarray, np.ndarray]:
         """How each ray leaves the scene: through which glazing set, or blocked.
 
@@ -217,7 +351,65 @@ class Scene:
         cos_incidence : ndarray (n,) float64
             |cos| at the crossed glazing (0 unless code ≥ 0).
         """
-        blocked = self.occluded(origins, directions)
-        gset, cos, _ = self.glazing_crossing(origins, directions)
-        code = np.where(blocked, BLOCKED, np.where(gset >= 0, gset, NO_GLAZING)).astype(np.int32)
-        return code, np.where(code >= 0, cos, 0.0)
+        o, d = self._prepare(origins, directions, unit)
+        n = o.shape[0]
+        code = np.full(n, BLOCKED, dtype=np.int32)
+        cos = np.zeros(n)
+        free = np.flatnonzero(~self._blocked(o, d))
+        if free.size == 0:
+            return code, cos
+        code[free] = NO_GLAZING
+        if self._glazing is not None:
+            prim = _run(self._glazing, o[free], d[free], "INTERSECT")
+            cross = prim >= 0
+            k = prim[cross]
+            code[free[cross]] = self._glazing_set[k]
+            cos[free[cross]] = _abs_cos(d[free[cross]], self._glazing_normals[k])
+        return code, cos
+
+    def trace(self, origins: np.ndarray, directions: np.ndarray, unit: bool = False) -> Hits:
+        """Nearest opaque hit along each ray and the glazing crossed before it.
+
+        One intersection query on the combined scene settles every ray whose
+        nearest triangle is opaque or that hits nothing; the rays whose nearest
+        triangle is glazing are cast again, from the same origin, against the
+        opaque scene alone. The glazing crossed is the nearest glazing when it
+        lies before the nearest opaque triangle (as :meth:`glazing_crossing`
+        and :meth:`first_hit` would tell together).
+
+        Parameters
+        ----------
+        origins : ndarray (n, 3) [m]
+        directions : ndarray (n, 3)
+        unit : bool
+            The directions are unit vectors (skip normalisation).
+
+        Returns
+        -------
+        Hits
+        """
+        o, d = self._prepare(origins, directions, unit)
+        n = o.shape[0]
+        glazing = np.full(n, -1, dtype=np.int32)
+        cos = np.zeros(n)
+        if self._all is None or n == 0:
+            z = np.zeros(n, dtype=np.float32)
+            return Hits(np.full(n, -1, np.int64), z, z, np.zeros(n, bool), glazing, cos,
+                        np.full(n, np.inf, np.float32), self.epsilon)
+        res = _run(self._all, o, d, "INTERSECT", output=True)
+        prim, u, v, t, ng = res["primID"], res["u"], res["v"], res["tfar"], res["Ng"]
+        glass = np.flatnonzero(prim >= self._n_opaque)
+        if glass.size:
+            k = self.glazing_index[prim[glass] - self._n_opaque]
+            glazing[glass] = self._set_of_triangle[k]
+            cos[glass] = _abs_cos(d[glass], self._normals[k])
+            if self._opaque is None:
+                prim[glass] = -1
+            else:
+                again = _run(self._opaque, o[glass], d[glass], "INTERSECT", output=True)
+                prim[glass] = again["primID"]
+                u[glass], v[glass], t[glass] = again["u"], again["v"], again["tfar"]
+                ng[glass] = again["Ng"]
+        # Embree's geometric normal Ng points like the geometry's (v1 − v0) × (v2 − v0)
+        front = (np.einsum("ij,ij->i", ng, d) < 0.0) & (prim >= 0)
+        return Hits(self._opaque_table[prim], u, v, front, glazing, cos, t, self.epsilon)

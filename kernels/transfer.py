@@ -151,6 +151,25 @@ class Elements:
         b1, b2 = _barycentric(tri, points)
         return self.first[triangle] + _subtriangle_index(b1, b2, m)
 
+    def locate_barycentric(self, triangle: np.ndarray, b1: np.ndarray,
+                           b2: np.ndarray) -> np.ndarray:
+        """Element holding each point given by barycentric coordinates on its parent.
+
+        Parameters
+        ----------
+        triangle : ndarray (k,) int
+            Parent triangle index of each point (must be meshed).
+        b1, b2 : ndarray (k,)
+            Barycentric coordinates, ``p = v0 + b1 (v1 − v0) + b2 (v2 − v0)``
+            (Embree's ``u``, ``v`` of a hit, :class:`kernels.raytrace.Hits`).
+
+        Returns
+        -------
+        ndarray (k,) int64
+            Element index.
+        """
+        return self.first[triangle] + _subtriangle_index(b1, b2, self.divisions[triangle])
+
 
 def _barycentric(tri: np.ndarray, p: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Barycentric coordinates (b1, b2) of p in triangles tri (p = v0 + b1 e1 + b2 e2)."""
@@ -174,17 +193,25 @@ def _subtriangle_index(b1: np.ndarray, b2: np.ndarray, m: np.ndarray) -> np.ndar
     Ordering: first the m(m+1)/2 "lower" triangles (cell (i, j), i + j <= m-1,
     corners (i,j), (i+1,j), (i,j+1)), row by row in i; then the m(m-1)/2
     "upper" ones (i + j <= m-2, corners (i+1,j), (i+1,j+1), (i,j+1)).
+    Works in the floating-point type of the coordinates (float32 for Embree's);
+    the index arithmetic is exact in it (integers below 2^24 in float32).
     """
-    a = np.clip(b1, 0.0, 1.0) * m
-    b = np.clip(b2, 0.0, 1.0) * m
-    i = np.minimum(np.floor(a), m - 1).astype(np.int64)
-    j = np.minimum(np.floor(b), m - 1).astype(np.int64)
-    over = i + j > m - 1  # numerically outside the hypotenuse
-    j = np.where(over, m - 1 - i, j)
-    upper = ((a - i) + (b - j) > 1.0) & (i + j <= m - 2)
-    lower_index = i * m - i * (i - 1) // 2 + j
-    upper_index = m * (m + 1) // 2 + i * (m - 1) - i * (i - 1) // 2 + j
-    return np.where(upper, upper_index, lower_index)
+    dtype = np.result_type(b1, b2, np.float32)
+    if dtype == np.float32 and np.max(m, initial=0) > 2048:
+        dtype = np.dtype(np.float64)
+    mf = np.asarray(m, dtype=dtype)
+    top = mf - 1
+    a = np.clip(b1, 0.0, 1.0).astype(dtype, copy=False) * mf
+    b = np.clip(b2, 0.0, 1.0).astype(dtype, copy=False) * mf
+    i = np.minimum(np.floor(a), top)
+    j = np.minimum(np.floor(b), top - i)  # (also) numerically past the hypotenuse
+    a -= i
+    b -= j
+    upper = (a + b > 1.0) & (i + j < top)
+    # lower: i m − i(i − 1)/2 + j; upper: m(m + 1)/2 + i(m − 1) − i(i − 1)/2 + j
+    index = i * (mf - 0.5 * (i - 1)) + j
+    index += upper * (0.5 * mf * (mf + 1) - i)
+    return index.astype(np.int64)
 
 
 def _subdivide(tri: np.ndarray, m: int) -> np.ndarray:
@@ -314,6 +341,8 @@ def cosine_directions(normal: np.ndarray, u1: np.ndarray, u2: np.ndarray) -> np.
         Unit normal of each hemisphere.
     u1, u2 : ndarray (m, k)
         Uniform samples of the unit square (e.g. from :func:`latin_square`).
+        The result has their floating-point type: float32 samples give float32
+        directions (unit to float32 rounding, for the ray caster).
 
     Returns
     -------
@@ -324,17 +353,20 @@ def cosine_directions(normal: np.ndarray, u1: np.ndarray, u2: np.ndarray) -> np.
     -----
     A uniform point on the unit disc (radius ``sqrt(u1)``, angle ``2 pi u2``)
     lifted onto the hemisphere has density ``cos(theta)/pi`` in solid angle
-    (Malley 1988).
+    (Malley 1988). The local direction is turned into the frame of
+    :func:`onb` by one batched matrix product.
     """
+    dtype = np.result_type(u1, u2, np.float32)
+    u1, u2 = np.asarray(u1, dtype=dtype), np.asarray(u2, dtype=dtype)
     r = np.sqrt(u1)
-    phi = 2.0 * np.pi * u2
-    lx, ly, lz = r * np.cos(phi), r * np.sin(phi), np.sqrt(np.maximum(1.0 - u1, 0.0))
+    phi = dtype.type(2.0 * np.pi) * u2
+    local = np.empty((*u1.shape, 3), dtype=dtype)
+    np.multiply(r, np.cos(phi), out=local[..., 0])
+    np.multiply(r, np.sin(phi), out=local[..., 1])
+    np.sqrt(np.maximum(dtype.type(1.0) - u1, dtype.type(0.0)), out=local[..., 2])
     t1, t2 = onb(normal)
-    return (
-        lx[..., None] * t1[:, None, :]
-        + ly[..., None] * t2[:, None, :]
-        + lz[..., None] * normal[:, None, :]
-    )
+    frame = np.stack([t1, t2, np.asarray(normal)], axis=1).astype(dtype)  # rows t1, t2, n
+    return np.matmul(local, frame)
 
 
 def points_in_triangles(vertices: np.ndarray, r1: np.ndarray, r2: np.ndarray) -> np.ndarray:
@@ -344,6 +376,7 @@ def points_in_triangles(vertices: np.ndarray, r1: np.ndarray, r2: np.ndarray) ->
     ----------
     vertices : ndarray (m, 3, 3) [m]
     r1, r2 : ndarray (m, k)
+        The result has their floating-point type (float32 samples: float32 points).
 
     Returns
     -------
@@ -352,12 +385,17 @@ def points_in_triangles(vertices: np.ndarray, r1: np.ndarray, r2: np.ndarray) ->
     Notes
     -----
     ``p = (1 - sqrt r1) v0 + sqrt r1 (1 - r2) v1 + sqrt r1 r2 v2`` is uniform in
-    area (Osada et al., "Shape distributions", ACM TOG 21(4), 2002, eq. 1).
+    area (Osada et al., "Shape distributions", ACM TOG 21(4), 2002, eq. 1),
+    evaluated as one batched product of the weights with the corners.
     """
-    s = np.sqrt(r1)[..., None]
-    r2 = r2[..., None]
-    v0, v1, v2 = (vertices[:, None, k, :] for k in range(3))
-    return (1.0 - s) * v0 + s * (1.0 - r2) * v1 + s * r2 * v2
+    dtype = np.result_type(r1, r2, np.float32)
+    r1, r2 = np.asarray(r1, dtype=dtype), np.asarray(r2, dtype=dtype)
+    s = np.sqrt(r1)
+    weights = np.empty((*r1.shape, 3), dtype=dtype)
+    np.subtract(dtype.type(1.0), s, out=weights[..., 0])
+    np.multiply(s, r2, out=weights[..., 2])
+    np.subtract(s, weights[..., 2], out=weights[..., 1])
+    return np.matmul(weights, np.asarray(vertices, dtype=dtype))
 
 
 # ---------------------------------------------------------------------------
@@ -600,32 +638,31 @@ def trace_paths(scene: Any, elements: Elements, origins: np.ndarray, directions:
     elements : Elements
         Meshed triangles (``elements.first`` indexed by geometry triangle).
     origins, directions : ndarray (n, 3)
-        Directions must be unit vectors.
+        Directions must be unit vectors (float32 arrays are cast as they are).
     panes : sequence of int
         Panes of each glazing set.
 
     Returns
     -------
     RayPaths
+
+    Notes
+    -----
+    One :meth:`kernels.raytrace.Scene.trace` query per ray; the element is
+    found from the barycentric coordinates of the hit that Embree returns.
     """
-    tri, dist = scene.first_hit(origins, directions)
-    gset, cos, gdist = scene.glazing_crossing(origins, directions)
-    crossed = (gset >= 0) & (gdist < dist)
-    glazing = np.where(crossed, gset, -1).astype(np.int32)
-    element = np.full(tri.shape, -1, dtype=np.int64)
-    hit = np.flatnonzero(tri >= 0)
-    t = tri[hit]
-    front = (elements.first[t] >= 0) & (
-        np.einsum("ij,ij->i", scene.geometry.normals[t], directions[hit]) < 0.0
-    )
-    hit, t = hit[front], t[front]
-    points = origins[hit] + dist[hit, None] * directions[hit]
-    element[hit] = elements.locate(t, points)
+    hits = scene.trace(origins, directions, unit=True)
+    element = np.full(hits.triangle.shape, -1, dtype=np.int64)
+    hit = np.flatnonzero(hits.front)
+    t = hits.triangle[hit]
+    meshed = elements.first[t] >= 0
+    hit, t = hit[meshed], t[meshed]
+    element[hit] = elements.locate_barycentric(t, hits.u[hit], hits.v[hit])
     return RayPaths(
         element=element,
-        escaped=tri < 0,
-        glazing=glazing,
-        transmit=relative_transmit(cos, glazing, panes),
+        escaped=hits.triangle < 0,
+        glazing=hits.glazing,
+        transmit=relative_transmit(hits.cos_incidence, hits.glazing, panes),
     )
 
 
@@ -720,11 +757,13 @@ def transfer_matrix(
     for start in range(0, n, chunk):
         idx = np.arange(start, min(start + chunk, n))
         u1, u2 = latin_square(idx.size, rays, rng)
-        r1, r2 = rng.random((2, idx.size, rays))
+        r1, r2 = rng.random((2, idx.size, rays)).astype(np.float32)
         normal = elements.normal[idx]
-        origins = scene.lift(points_in_triangles(elements.vertices[idx], r1, r2).reshape(-1, 3),
-                             np.repeat(normal, rays, axis=0))
-        dirs = cosine_directions(normal, u1, u2).reshape(-1, 3)
+        # origins on the lifted elements (lifting is affine: lift corners, then sample)
+        lifted = scene.lift(elements.vertices[idx], normal[:, None, :])
+        origins = points_in_triangles(lifted, r1, r2).reshape(-1, 3)
+        dirs = cosine_directions(normal, u1.astype(np.float32),
+                                 u2.astype(np.float32)).reshape(-1, 3)
         owner = np.repeat(idx, rays)
         paths = trace_paths(scene, elements, origins, dirs, panes)
 
@@ -785,8 +824,8 @@ def gather_matrix(
     """
     m, n, n_sets = points.shape[0], elements.n, len(panes)
     u1, u2 = latin_square(m, rays, rng)
-    dirs = cosine_directions(normals, u1, u2).reshape(-1, 3)
-    origins = np.repeat(points, rays, axis=0)
+    dirs = cosine_directions(normals, u1.astype(np.float32), u2.astype(np.float32)).reshape(-1, 3)
+    origins = np.repeat(np.asarray(points, dtype=np.float32), rays, axis=0)
     owner = np.repeat(np.arange(m), rays)
     same = _csr(np.zeros(0, int), np.zeros(0, int), np.zeros(0), (m, n))
     through = [same.copy() for _ in range(n_sets)]

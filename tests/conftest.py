@@ -8,6 +8,7 @@ fixtures — ask for additions rather than editing.
 from __future__ import annotations
 
 import json
+import logging
 import os
 import shutil
 import socket
@@ -15,6 +16,7 @@ import subprocess
 import sys
 import textwrap
 import threading
+import warnings
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -56,11 +58,18 @@ def cli(capfd: pytest.CaptureFixture[str]) -> Callable[..., CliResult]:
 
     def run(*argv: str) -> CliResult:
         capfd.readouterr()
+        log = logging.getLogger("luxsweep")
+        saved = (list(log.handlers), log.level, log.propagate, warnings.showwarning)
         t0 = time.perf_counter()
         try:
             code = main([str(a) for a in argv])
         except SystemExit as exc:  # argparse errors exit with 2
             code = exc.code if isinstance(exc.code, int) else 1
+        finally:
+            # main() binds a log handler to this test's captured stderr; drop it so
+            # later tests do not log into a closed stream
+            log.handlers[:] = saved[0]
+            log.level, log.propagate, warnings.showwarning = saved[1:]
         seconds = time.perf_counter() - t0
         cap = capfd.readouterr()
         return CliResult(int(code or 0), cap.out, cap.err, seconds)
@@ -246,6 +255,35 @@ def write_tiny_study(
     path = folder / "study.yaml"
     path.write_text(text)
     return path
+
+
+# A room no daylight reaches (OBJ): a closed box whose only glazing hangs inside.
+SEALED_ROOM = """\
+# a closed 3 x 3 x 2.7 m box; its only glazing hangs inside, so no daylight enters
+v 0 0 0
+v 3 0 0
+v 3 3 0
+v 0 3 0
+v 0 0 2.7
+v 3 0 2.7
+v 3 3 2.7
+v 0 3 2.7
+v 1 1.5 1
+v 2 1.5 1
+v 2 1.5 2
+v 1 1.5 2
+g floor
+f 1 2 3 4
+g ceiling
+f 5 8 7 6
+g walls
+f 1 5 6 2
+f 2 6 7 3
+f 3 7 8 4
+f 4 8 5 1
+g glass
+f 9 10 11 12
+"""
 
 
 @pytest.fixture

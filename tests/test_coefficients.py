@@ -324,3 +324,73 @@ def test_bad_sensors_and_settings_are_named():
         compute_coefficients(geo, bad, TINY)
     with pytest.raises(ValueError, match="element_rays"):
         Settings(element_rays=0)
+
+
+# ------------------------------------------------------------------ pre-tests (issue 8)
+
+
+def _two_windows():
+    windows = [{"wall": "front", "width": 2.0, "sill": 0.9, "head": 2.1, "offset": -0.8,
+                "glazing": "main"},
+               {"wall": "right", "width": 1.2, "sill": 0.5, "head": 2.4, "offset": 0.5,
+                "glazing": "main"}]
+    return parametric_room(4.0, 5.0, 2.7, windows, GREY, {"main": 2}, thickness=0.25,
+                           overhang={"depth": 0.5, "gap": 0.1})
+
+
+def test_window_pretest_keeps_every_ray_that_crosses_glazing():
+    # The edge-plane pre-test must be conservative: every ray Embree finds crossing
+    # glazing (Scene.glazing_crossing, the independent reference) is kept; and it should
+    # be tight (rays kept ≈ rays crossing), since each kept ray costs Embree queries.
+    from kernels.coefficients import _window_mask, _window_wedges
+
+    geo = _two_windows()
+    scene = Scene(geo)
+    rng = np.random.default_rng(31)
+    pts = rng.uniform([0.2, 0.2, 0.2], [3.8, 4.8, 2.5], size=(40, 3))
+    d = rng.normal(size=(40, 5000, 3))
+    d /= np.linalg.norm(d, axis=2, keepdims=True)
+    keep = _window_mask(_window_wedges(scene, pts),
+                        lambda a: np.matmul(d, a[:, :, None])[..., 0])
+    gset, _, _ = scene.glazing_crossing(np.repeat(pts, 5000, axis=0), d.reshape(-1, 3))
+    cross = (gset >= 0).reshape(40, 5000)
+    assert cross.sum() > 1000
+    assert not np.any(cross & ~keep)
+    assert keep.sum() <= cross.sum() * 1.001 + 10
+
+
+def test_patch_culling_gives_the_brute_force_sky_direct():
+    # sky_direct by definition (DEVELOPERS.md): mean over each patch's stratified rays of
+    # τ_rel n·d for rays crossing glazing and then no opaque surface — evaluated here for
+    # every ray with Embree (Scene.exit_glazing), no pre-test. The culled computation must
+    # give the same sums; sensors facing up, sideways, tilted and down.
+    from kernels.coefficients import _STREAM_GROUND, _STREAM_SKY, _seed
+    from kernels.sky import sample_ground
+    from kernels.transfer import relative_transmit
+
+    geo = _two_windows()
+    settings = Settings(subdivision=1, sky_rays_per_patch=16, ground_rays=1024,
+                        sun_spacing=10.0, reflected_sun_spacing=10.0, element_rays=16,
+                        sensor_rays=16, element_size=1.0)
+    n = np.array([[0, 0, 1.0], [0, -1.0, 0], [0.6, -0.3, 0.74], [0, 0, -1.0], [1.0, 0, 0]])
+    pts = np.array([[2.0, 1.0, 0.8], [1.0, 0.8, 1.5], [3.0, 2.0, 1.2], [2.0, 2.5, 2.2],
+                    [3.2, 3.0, 1.4]])
+    sensors = np.column_stack([pts, n / np.linalg.norm(n, axis=1, keepdims=True)])
+    c = compute_coefficients(geo, sensors, settings)
+    scene = Scene(geo)
+    sch = patch_scheme(1)
+    ref = np.zeros((sensors.shape[0], sch.n_patches + 1))
+    for s in range(sensors.shape[0]):
+        sky = sample_directions(sch, 16, _seed(settings, _STREAM_SKY, s)).reshape(-1, 3)
+        ground = sample_ground(1024, _seed(settings, _STREAM_GROUND, s))
+        dirs = np.concatenate([sky, ground])
+        basis = np.append(np.repeat(np.arange(sch.n_patches), 16), np.full(1024, sch.n_patches))
+        cos = dirs @ sensors[s, 3:]
+        gset, cos_w = scene.exit_glazing(np.broadcast_to(pts[s], dirs.shape), dirs)
+        w = np.where((gset >= 0) & (cos > 0), relative_transmit(cos_w, gset, (2,)) * cos, 0.0)
+        ref[s] = np.bincount(basis, weights=w, minlength=sch.n_patches + 1)
+    ref /= np.append(np.full(sch.n_patches, 16.0), 1024.0)
+    assert np.all(ref.sum(axis=1) > 0)  # every sensor sees some sky through the windows
+    assert ref[3, -1] > 0 and ref[0, -1] == 0  # facing down sees the ground; facing up never
+    # float32 storage of the coefficients: 1e-6 relative
+    np.testing.assert_allclose(c.sky_direct[0], ref, rtol=1e-6, atol=1e-9)

@@ -18,7 +18,7 @@ import dask
 import psutil
 import pytest
 import zarr
-from conftest import luxsweep_process, run_luxsweep, write_tiny_study
+from conftest import SEALED_ROOM, luxsweep_process, run_luxsweep, write_tiny_study
 
 from sweep.run import dask_client, run_study
 
@@ -27,7 +27,8 @@ from sweep.run import dask_client, run_study
 
 def _listening(pid: int) -> list[str]:
     """Local addresses ``ip:port`` on which process ``pid`` listens (TCP)."""
-    conns = psutil.Process(pid).net_connections(kind="inet")
+    proc = psutil.Process(pid)
+    conns = (getattr(proc, "net_connections", None) or proc.connections)(kind="inet")  # psutil<6
     return [f"{c.laddr.ip}:{c.laddr.port}" for c in conns if c.status == psutil.CONN_LISTEN]
 
 
@@ -258,3 +259,38 @@ def test_study_name_cannot_place_results_outside(tmp_path, cli, name):
     assert result.code == 2, result.err
     assert "name" in result.err
     assert _tree(tmp_path) == before
+
+
+@pytest.mark.slow
+def test_path_like_variant_labels_do_not_become_paths(tmp_path):
+    """A sweep over mesh files whose values are relative paths climbing out of the
+    study folder (``../elsewhere/room.obj``) gives variant labels holding ``..``
+    and ``/``; a full run still creates files only inside its results store and
+    cache, and the labels are stored as plain text."""
+    project = tmp_path / "project"
+    study = write_tiny_study(project / "study")
+    (project / "study" / "room.obj").write_text(SEALED_ROOM)
+    (project / "elsewhere").mkdir()
+    (project / "elsewhere" / "room.obj").write_text(SEALED_ROOM.replace("v 2 1.5 2", "v 2 1.5 2.2"))
+    study.write_text(
+        "name: label-paths\n"
+        "climates: {coastal: climates/coastal.csv}\n"
+        "mesh: room.obj\n"
+        "materials:\n  floor: {reflectance: 0.2}\n  walls: {reflectance: 0.5}\n"
+        "  ceiling: {reflectance: 0.7}\n  glass: {glazing: main}\n"
+        "glazings: {main: {transmittance: 0.7, panes: 2}}\n"
+        "grid: {height: 0.8, spacing: 1.0, margin: 0.4, floors: [floor]}\n"
+        'compute: {"subdivision": 1, "sun_spacing": 10.0, "sky_rays_per_patch": 4, '
+        '"ground_rays": 16, "element_size": 1.5, "element_rays": 16, "sensor_rays": 32}\n'
+        "vary: {mesh: [room.obj, ../elsewhere/room.obj]}\n"
+    )
+    before = _tree(tmp_path)
+    result = run_luxsweep("run", study, "--workers", "1", cwd=study.parent, timeout=300)
+    assert result.code == 0, result.err
+    labels = [str(v) for v in zarr.open_group(str(study.parent / "label-paths.zarr"),
+                                                mode="r")["label"][...]]
+    assert any(".." in label and "/" in label for label in labels), labels
+    created = _tree(tmp_path) - before
+    allowed = ("project/study/label-paths.zarr", "project/study/.luxsweep-cache")
+    stray = sorted(p for p in created if not p.startswith(allowed))
+    assert not stray, f"files outside the results store and cache: {stray[:10]}"

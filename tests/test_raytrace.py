@@ -223,3 +223,81 @@ def test_room_without_windows_blocks_everything():
     assert np.all(gset == -1) and np.all(cos == 0) and np.all(np.isinf(dist))
     assert np.all(s.sky_view(o, d)[0] == BLOCKED)  # a closed box: nothing escapes
     assert np.all(s.first_hit(o, d)[0] >= 0)
+
+
+# ------------------------------------------------------------------ fast paths (issue 8)
+
+
+def _random_rays(n, seed):
+    rng = np.random.default_rng(seed)
+    o = rng.uniform([0.1, 0.1, 0.1], [W - 0.1, D - 0.1, H - 0.1], size=(n, 3))
+    d = rng.normal(size=(n, 3))
+    return o, d / np.linalg.norm(d, axis=1, keepdims=True)
+
+
+def _two_window_box():
+    return box(windows=[FRONT, {"wall": "roof", "width": 1.0, "length": 1.0, "x": 3.0,
+                                "y": 4.0, "glazing": "top"}],
+               obstructions=[{"x": 3.0, "y": -6.0, "width": 8.0, "depth": 2.0, "height": 4.0}])
+
+
+def test_trace_agrees_with_separate_queries():
+    # Scene.trace (one combined query + a second one for glazing-first rays) against
+    # first_hit and glazing_crossing (each checked against analytic distances above).
+    g = _two_window_box()
+    s = Scene(g)
+    o, d = _random_rays(50_000, 21)
+    hits = s.trace(o, d, unit=True)
+    tri, dist = s.first_hit(o, d)
+    gset, cos, gdist = s.glazing_crossing(o, d)
+    assert np.array_equal(hits.triangle, tri)
+    np.testing.assert_allclose(hits.distance, dist, rtol=RTOL)
+    crossed = (gset >= 0) & (gdist < dist)
+    assert crossed.sum() > 500  # the rays do reach both windows
+    assert np.array_equal(hits.glazing, np.where(crossed, gset, -1))
+    assert np.array_equal(hits.cos_incidence, np.where(crossed, cos, 0.0))
+    # barycentric definition: p = (1 − u − v) v0 + u v1 + v v2 is the hit point o + t d
+    # (float32 inside Embree: 1e-5 m on a room of a few metres)
+    h = tri >= 0
+    t = g.triangles[tri[h]]
+    u, v = hits.u[h, None].astype(float), hits.v[h, None].astype(float)
+    p = (1 - u - v) * t[:, 0] + u * t[:, 1] + v * t[:, 2]
+    np.testing.assert_allclose(p, o[h] + dist[h, None] * d[h], atol=1e-5 * D)
+    # front face: the ray runs against the geometry's normal (winding (v1−v0)×(v2−v0));
+    # grazing rays (|cos| < 1e-6) may go either way in float32
+    c = np.einsum("ij,ij->i", g.normals[tri[h]], d[h])
+    clear = np.abs(c) > 1e-6
+    assert np.array_equal(hits.front[h][clear], (c < 0)[clear])
+    assert not hits.front[~h].any()
+
+
+def test_exit_glazing_and_sky_view_agree_with_separate_queries():
+    # A ray from inside reaches the sky through glazing when it crosses glazing and no
+    # opaque triangle lies anywhere along it (definition, DEVELOPERS.md coefficients).
+    s = Scene(_two_window_box())
+    o, d = _random_rays(50_000, 22)
+    gset, cos, _ = s.glazing_crossing(o, d)
+    blocked = s.occluded(o, d)
+    expect = np.where(blocked, -1, gset)
+    assert (expect >= 0).sum() > 200
+    got, got_cos = s.exit_glazing(o, d, unit=True)
+    assert np.array_equal(got, expect)
+    assert np.array_equal(got_cos, np.where(expect >= 0, cos, 0.0))
+    code, code_cos = s.sky_view(o, d)
+    assert np.array_equal(np.where(code >= 0, code, -1), expect)
+    assert np.array_equal(code_cos, got_cos)
+
+
+def test_float32_unit_directions_are_used_as_given():
+    # unit=True with float32 unit directions: the same answers as float64 input up to
+    # float32 rounding of the directions (1e-7), i.e. identical triangles except grazing
+    s = Scene(_two_window_box())
+    o, d = _random_rays(20_000, 23)
+    d32 = d.astype(np.float32)
+    a = s.trace(o, d32, unit=True)
+    b = s.trace(o, d)
+    assert np.mean(a.triangle == b.triangle) > 0.999
+    np.testing.assert_allclose(a.distance[a.triangle == b.triangle],
+                               b.distance[a.triangle == b.triangle], rtol=1e-5)
+    _, dd = s._prepare(o, d32, unit=True)
+    assert dd is d32 or np.shares_memory(dd, d32)  # no copy of float32 unit directions

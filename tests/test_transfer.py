@@ -23,6 +23,7 @@ from kernels.transfer import (
     onb,
     points_in_triangles,
     solve_radiosity,
+    trace_paths,
     transfer_matrix,
 )
 
@@ -183,3 +184,46 @@ def test_sensor_gather_sees_whole_closed_room():
     h = 2.5 - 0.8
     exact = sum(factor_element_parallel_rectangle(x, y, h) for x in (1.5, 1.5) for y in (2.0, 2.0))
     assert seen == pytest.approx(exact, rel=0.03)
+
+
+# ------------------------------------------------------------------ fast paths (issue 8)
+
+
+def test_locate_barycentric_matches_locate():
+    # Barycentric coordinates (b1, b2) of p = v0 + b1 e1 + b2 e2 (definition) name the same
+    # element as the point itself; float32 coordinates (Embree's) agree off the element edges.
+    tri = np.array([[[0, 0, 0], [7.2, 0, 0], [7.2, 8, 0]], [[0, 0, 3], [0, 0.3, 3], [5, 0, 3]]],
+                   float)
+    el = mesh_elements(tri, np.array([0.2, 0.4]), np.zeros(2, bool), 0.5)
+    rng = np.random.default_rng(4)
+    b1 = rng.random(200_000)
+    b2 = rng.random(b1.size) * (1 - b1)
+    t = rng.integers(0, 2, b1.size)
+    p = tri[t, 0] + b1[:, None] * (tri[t, 1] - tri[t, 0]) + b2[:, None] * (tri[t, 2] - tri[t, 0])
+    ref = el.locate(t, p)
+    assert np.array_equal(el.locate_barycentric(t, b1, b2), ref)
+    f32 = el.locate_barycentric(t, b1.astype(np.float32), b2.astype(np.float32))
+    assert np.mean(f32 != ref) < 1e-4
+
+
+def test_trace_paths_lands_on_the_element_under_the_hit_point():
+    # trace_paths locates elements from Embree's barycentrics; the hit point o + t d of
+    # first_hit (checked against analytic distances in test_raytrace) must lie in the same
+    # element except within float32 rounding of an element edge (< 0.1 % of the rays).
+    geo = parametric_room(4.0, 5.0, 2.7, [{"wall": "front", "width": 2.0, "sill": 0.9,
+                                           "head": 2.1, "offset": 0.0, "glazing": "main"}],
+                          {"floor": 0.2, "walls": 0.5, "ceiling": 0.7}, {"main": 2})
+    scene = Scene(geo)
+    el = mesh_elements(geo.triangles, geo.reflectance, geo.exterior, 0.5, mask=~geo.is_glazing)
+    rng = np.random.default_rng(5)
+    o = rng.uniform([0.2, 0.2, 0.2], [3.8, 4.8, 2.5], size=(100_000, 3))
+    d = rng.normal(size=o.shape)
+    d /= np.linalg.norm(d, axis=1, keepdims=True)
+    paths = trace_paths(scene, el, o, d, (2,))
+    tri, dist = scene.first_hit(o, d)
+    hit = tri >= 0
+    ref = np.full(o.shape[0], -1)
+    ref[hit] = el.locate(tri[hit], o[hit] + dist[hit, None] * d[hit])
+    assert np.mean(paths.element != ref) < 1e-3
+    assert np.array_equal(paths.escaped, ~hit)
+    assert paths.escaped.sum() > 1000 and np.all(paths.glazing[paths.escaped] == 0)
