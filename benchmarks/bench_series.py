@@ -177,7 +177,7 @@ def memory(cache: Path, work: Path) -> dict[str, Any]:
     hourly, quarter = out["runs"]
     # what the 15-minute year would need if the series of all orientations and
     # glazing variants were held at once (total + direct sun, float32, daylight steps)
-    n_s = 195
+    n_s = len(bc.reference_geometry()[1])
     full_year = 2 * 4 * len(ORIENTATIONS) * len(TRANSMITTANCES) * n_s * (35040 // 2)
     out["series_length_ratio"] = 4.0
     out["peak_ratio"] = quarter["peak_rss_mib"] / hourly["peak_rss_mib"]

@@ -29,6 +29,17 @@ patch over the room), while the element source matrix at 24,000 sun points
 would cost tens of millions of rays and hundreds of MB. The stored
 ``sun_reflected`` array is on the fine points like the other sun family.
 
+Rays settled without Embree: a ray with ``n·d <= 0`` contributes nothing, and a
+ray from inside that misses every window cannot reach the sky. The window
+pre-test (:func:`_window_wedges`, :func:`_window_mask`) keeps a ray only when it
+lies inside the three edge planes of some glazing triangle seen from its origin
+(1e-6 rad of slack, so it is conservative and Embree still decides every kept
+ray); for ``sky_direct`` whole sky patches are first tested as caps of
+directions (:func:`_patch_reach`), so the rays of patches that face away from a
+sensor or lie outside every window are never looked at. The results are those
+of testing every ray (``tests/test_coefficients.py`` checks both pre-tests
+against Embree and a brute-force ``sky_direct``).
+
 Determinism: every random draw takes a seed derived from ``Settings.seed``
 and the stage, and sparse sums are accumulated in a fixed order, so the same
 inputs give bit-identical arrays.
@@ -506,8 +517,12 @@ def _reflected(scene: Any, geometry: Any, sensors: np.ndarray, settings: Setting
     rho = el.reflectance
     source_ext = np.concatenate([s_sky_ext, s_sun[n_sets]], axis=1)[outer]
     b_ext = solve_radiosity(f_same[outer][:, outer], rho[outer], source_ext)
-    response = gather_radiosity(g_same[:, inner].toarray(), f_same[inner][:, inner], rho[inner])
     everything = inner.size == el.n  # no exterior elements: no selections to copy
+    if everything:
+        response = gather_radiosity(g_same.toarray(), f_same, rho)
+    else:
+        response = gather_radiosity(g_same[:, inner].toarray(), f_same[inner][:, inner],
+                                    rho[inner])
     for g in range(n_sets):
         through = f_through[g][inner][:, outer] @ b_ext if outer.size else None
         for cols, first in ((slice(0, n_basis), s_sky_int[g]), (slice(n_basis, None), s_sun[g])):

@@ -221,8 +221,14 @@ class Geometry:
         flat = self.triangles.reshape(-1, 3)
         return np.stack([flat.min(axis=0), flat.max(axis=0)])
 
-    def group_mask(self, names: Sequence[str]) -> np.ndarray:
+    def group_mask(self, names: Sequence[str], field: str | None = None) -> np.ndarray:
         """(n,) bool: triangles belonging to any of the named groups.
+
+        Parameters
+        ----------
+        names : sequence of str
+        field : str, optional
+            Key that lists ``names`` (named by the error); default the group name.
 
         Raises
         ------
@@ -236,7 +242,7 @@ class Geometry:
                     f"no group named '{name}'; the geometry has groups "
                     f"{', '.join(sorted(self.group_names))}",
                     file=self.source,
-                    field=name,
+                    field=field or name,
                 )
             idx.append(self.group_names.index(name))
         return np.isin(self.group, idx)
@@ -820,7 +826,7 @@ def read_obj(
             raise GeometryError(
                 f"a material is given for group '{name}', which has no faces in the file; "
                 f"the file's groups are {', '.join(sorted(group_line))}",
-                file=src, field=name,
+                file=src, field=f"materials.{name}",
             )
     b = _Builder()
     v = np.array(verts, dtype=np.float64)
@@ -996,7 +1002,7 @@ def sensor_grid_on(
     if margin < 0:
         raise GeometryError(f"margin {margin:g} m is negative; use 0 or more",
                             field="grid.margin")
-    mask = geometry.group_mask(groups)
+    mask = geometry.group_mask(groups, field="grid.floors")
     tris = geometry.triangles[mask]
     steep = np.abs(geometry.normals[mask][:, 2]) < math.cos(math.radians(10.0))
     if np.any(steep):

@@ -28,7 +28,11 @@ A ray hit on a triangle is mapped to its element from the barycentric
 coordinates of the hit point, so the ray-tracing scene stays the coarse one.
 
 Everything here is pure numerics (arrays in, arrays out); the ray casting of
-the classification step goes through :class:`kernels.raytrace.Scene`.
+the classification step goes through :class:`kernels.raytrace.Scene`
+(:meth:`~kernels.raytrace.Scene.trace`: one combined query per ray, the element
+found from Embree's barycentric coordinates of the hit). Ray origins and
+directions are generated in float32, the precision Embree works in; the
+sampling (random draws, strata) is float64 as before.
 
 References
 ----------
@@ -672,6 +676,21 @@ def _csr(rows: np.ndarray, cols: np.ndarray, values: np.ndarray,
     return scipy.sparse.coo_matrix((values, (rows, cols)), shape=shape).tocsr()
 
 
+class _Triplets:
+    """Entries (row, column, value) collected chunk by chunk, summed into one CSR matrix."""
+
+    def __init__(self) -> None:
+        self.parts: list[tuple[np.ndarray, np.ndarray, np.ndarray]] = []
+
+    def add(self, rows: np.ndarray, cols: np.ndarray, values: np.ndarray) -> None:
+        self.parts.append((rows, cols, values))
+
+    def csr(self, shape: tuple[int, int]) -> scipy.sparse.csr_matrix:
+        if not self.parts:
+            return _csr(np.zeros(0, int), np.zeros(0, int), np.zeros(0), shape)
+        return _csr(*(np.concatenate(p) for p in zip(*self.parts, strict=True)), shape)
+
+
 @dataclass(frozen=True, eq=False)
 class Transfer:
     """Sampled transfer of light between elements and from the sky to elements.
@@ -749,8 +768,7 @@ def transfer_matrix(
     omega = (np.concatenate([scheme.solid_angle, [2.0 * np.pi]]) if scheme is not None
              else np.zeros(0))
     ext, area = elements.exterior, elements.area
-    same = _csr(np.zeros(0, int), np.zeros(0, int), np.zeros(0), (n, n))
-    through = [same.copy() for _ in range(n_sets)]
+    same, through = _Triplets(), [_Triplets() for _ in range(n_sets)]
     sky_int = np.zeros((n_sets, n, n_basis))
     sky_ext = np.zeros((n, n_basis))
     chunk = max(1, batch // rays)
@@ -771,20 +789,22 @@ def transfer_matrix(
         src, dst = owner[landed], paths.element[landed]
         g, tau = paths.glazing[landed], paths.transmit[landed]
         sel = (g < 0) & (ext[src] == ext[dst])
-        same = same + _csr(dst[sel], src[sel], area[src[sel]] / (area[dst[sel]] * rays), (n, n))
+        same.add(dst[sel], src[sel], area[src[sel]] / (area[dst[sel]] * rays))
         for k in range(n_sets):
             sel = (g == k) & ~ext[src] & ext[dst]
-            through[k] = through[k] + _csr(src[sel], dst[sel], tau[sel] / rays, (n, n))
+            through[k].add(src[sel], dst[sel], tau[sel] / rays)
 
         if scheme is not None:
             esc = paths.escaped
             src, j = owner[esc], patch_index(scheme, dirs[esc])
             g, weight = paths.glazing[esc], np.pi * paths.transmit[esc] / (rays * omega[j])
+            flat = src * n_basis + j
             for k in range(n_sets):
                 sel = (g == k) & ~ext[src]
-                sky_int[k] += _csr(src[sel], j[sel], weight[sel], (n, n_basis)).toarray()
+                sky_int[k] += np.bincount(flat[sel], weight[sel], n * n_basis).reshape(n, -1)
             sel = (g < 0) & ext[src]
-            sky_ext += _csr(src[sel], j[sel], weight[sel], (n, n_basis)).toarray()
+            sky_ext += np.bincount(flat[sel], weight[sel], n * n_basis).reshape(n, -1)
+    same, through = same.csr((n, n)), [t.csr((n, n)) for t in through]
     return Transfer(same=same, through=through, sky_interior=sky_int, sky_exterior=sky_ext)
 
 
@@ -827,8 +847,7 @@ def gather_matrix(
     dirs = cosine_directions(normals, u1.astype(np.float32), u2.astype(np.float32)).reshape(-1, 3)
     origins = np.repeat(np.asarray(points, dtype=np.float32), rays, axis=0)
     owner = np.repeat(np.arange(m), rays)
-    same = _csr(np.zeros(0, int), np.zeros(0, int), np.zeros(0), (m, n))
-    through = [same.copy() for _ in range(n_sets)]
+    same, through = _Triplets(), [_Triplets() for _ in range(n_sets)]
     for start in range(0, owner.size, batch):
         sl = slice(start, start + batch)
         paths = trace_paths(scene, elements, origins[sl], dirs[sl], panes)
@@ -837,8 +856,9 @@ def gather_matrix(
         g, tau = paths.glazing[landed], paths.transmit[landed]
         ext = elements.exterior[dst]
         sel = (g < 0) & ~ext
-        same = same + _csr(src[sel], dst[sel], np.full(int(sel.sum()), 1.0 / rays), (m, n))
+        same.add(src[sel], dst[sel], np.full(int(sel.sum()), 1.0 / rays))
         for k in range(n_sets):
             sel = (g == k) & ext
-            through[k] = through[k] + _csr(src[sel], dst[sel], tau[sel] / rays, (m, n))
+            through[k].add(src[sel], dst[sel], tau[sel] / rays)
+    same, through = same.csr((m, n)), [t.csr((m, n)) for t in through]
     return same, through

@@ -133,19 +133,27 @@ class CoefficientCache:
         A damaged entry is a miss: it is reported with a :class:`UserWarning`
         and removed, so the caller recomputes and publishes a good one.
         """
-        if not self.contains(key):
-            if self.entry(key).exists():
-                self._discard(key, "it has no manifest (an interrupted writer?)")
+        folder = self.entry(key)
+        # existence first: an entry published between two checks must not look damaged
+        if not folder.exists():
+            return None
+        if not (folder / "manifest.json").is_file():
+            self._discard(key, "it has no manifest (an interrupted writer?)")
             return None
         try:
             manifest = self.verify(key)
-            folder = self.entry(key) / "arrays"
-            arrays = {name: np.load(folder / f"{name}.npy", allow_pickle=False)
+            arrays = {name: np.load(folder / "arrays" / f"{name}.npy", allow_pickle=False)
                       for name in manifest["files"]}
         except (CacheIntegrityError, OSError, ValueError) as exc:
             self._discard(key, str(exc))
             return None
         return arrays, manifest["metadata"]
+
+    def discard(self, key: str) -> None:
+        """Remove entry ``key`` (no-op when absent); readers see it whole or not at all."""
+        folder = self.entry(key)
+        if folder.exists():
+            self._remove_entry(folder)
 
     def _discard(self, key: str, reason: str) -> None:
         warnings.warn(f"coefficient cache: ignoring and replacing entry {key}: {reason}",

@@ -860,19 +860,89 @@ def validation_problems(exc: ValidationError) -> list[tuple[tuple, str]]:
     return [_describe(e) for e in errors]
 
 
+MAX_NODES = 100_000
+"""Largest study document accepted, counted in YAML nodes with every alias expanded.
+
+A real study file has a few hundred; a few hundred bytes of nested anchors and
+aliases ("billion laughs") expand to millions and would exhaust time and memory.
+"""
+
+
+class _AliasRecordingLoader(yaml.SafeLoader):
+    """A safe loader that records every alias: (anchor name, line, node it stands for)."""
+
+    def __init__(self, stream: str) -> None:
+        super().__init__(stream)
+        self.aliases: list[tuple[str, int, yaml.Node]] = []
+
+    def compose_node(self, parent: Any, index: Any) -> Any:
+        if self.check_event(yaml.AliasEvent):
+            event = self.peek_event()
+            if event.anchor in self.anchors:
+                self.aliases.append((event.anchor, event.start_mark.line + 1,
+                                     self.anchors[event.anchor]))
+        return super().compose_node(parent, index)
+
+
+def _expanded_size(node: yaml.Node, memo: dict[int, float]) -> float:
+    """Nodes in ``node``'s tree with aliases expanded (shared nodes counted once per use).
+
+    Memoised per node, so it costs one visit per distinct node; a node that
+    contains itself (a recursive alias) expands without end (``inf``).
+    """
+    key = id(node)
+    if key in memo:
+        return memo[key]
+    memo[key] = float("inf")  # while in progress: meeting it again is a cycle
+    size = 1.0
+    if isinstance(node, yaml.MappingNode):
+        for k, v in node.value:
+            size += _expanded_size(k, memo) + _expanded_size(v, memo)
+    elif isinstance(node, yaml.SequenceNode):
+        for item in node.value:
+            size += _expanded_size(item, memo)
+    memo[key] = size
+    return size
+
+
+def _refuse_alias_bombs(path: Path, node: yaml.Node,
+                        aliases: list[tuple[str, int, yaml.Node]]) -> None:
+    """Raise StudyFileError when aliases expand the document beyond :data:`MAX_NODES`."""
+    memo: dict[int, float] = {}
+    if _expanded_size(node, memo) <= MAX_NODES:
+        return
+    if not aliases:
+        raise StudyFileError(f"{path}: holds more than {MAX_NODES:,} values; a study file "
+                             "describes one room and its variants, so split or shorten it.")
+    anchor, line, _ = max(aliases, key=lambda a: memo.get(id(a[2]), 0.0))
+    raise StudyFileError(
+        f"{path}: line {line}: the YAML aliases expand this file to more than {MAX_NODES:,} "
+        f"values (alias '*{anchor}' here repeats a block that is itself built from aliases, "
+        "or refers to itself). A study file needs no such repetition: write the values out "
+        "or remove the anchors ('&') and aliases ('*')."
+    )
+
+
 def parse_study(text: str, path: str | Path) -> StudyFile:
     """Parse study ``text`` that came from file ``path`` (relative paths resolve beside it).
 
     Raises
     ------
     StudyFileError
-        For YAML syntax errors, Python object tags, unknown keys (with a "did you
-        mean" hint), wrong types or values, and bad ``vary`` entries; the message
+        For YAML syntax errors, Python object tags, aliases that expand beyond
+        :data:`MAX_NODES` nodes, unknown keys (with a "did you mean" hint), wrong
+        types or values, and bad ``vary`` entries; the message
         names the file, the line and the dotted key path.
     """
     path = Path(path).resolve()
     try:
-        node = yaml.compose(text, Loader=yaml.SafeLoader)
+        loader = _AliasRecordingLoader(text)
+        try:
+            node = loader.get_single_node()
+        finally:
+            loader.dispose()
+        if node is not None:
+            _refuse_alias_bombs(path, node, loader.aliases)
         lines = _line_map(node) if node is not None else {}
         data = yaml.safe_load(text)
     except _Duplicate as dup:

@@ -41,6 +41,10 @@ _PRESENTATION = ("name", "vary", "vary_together", "exclude", "rank", "metrics", 
                  "climates")
 
 
+# Study keys holding file paths (resolved to absolute paths in the model).
+_FILE_KEYS = ("mesh", "sensors")
+
+
 @dataclass(frozen=True)
 class Variant:
     """One point of the sweep.
@@ -54,7 +58,7 @@ class Variant:
     label : str
         ``orientation=90 climate=coastal ...`` (axis order of the study file).
     axes : dict
-        Vary key -> resolved value.
+        Vary key -> resolved value (file paths as written in the study file).
     study : Study
         The resolved study (values substituted, no ``vary``).
     params : dict
@@ -245,16 +249,27 @@ def file_sha256(path: str | Path) -> str:
     return digest.hexdigest()
 
 
+def _content_hash(path: str, hashes: dict[str, str]) -> str:
+    """sha256 of file ``path``, read once per path and remembered in ``hashes``."""
+    if path not in hashes:
+        hashes[path] = file_sha256(path)
+    return hashes[path]
+
+
 def variant_params(study: Study, hashes: dict[str, str]) -> dict[str, Any]:
-    """The hashed parameters of a resolved study: physics only, files as content hashes."""
+    """The hashed parameters of a resolved study: physics only, files as content hashes.
+
+    ``hashes`` (path -> sha256) is filled as files are first met, so a varied
+    ``mesh`` or ``sensors`` path is hashed like the base one.
+    """
     data = study.canonical()
     params = {k: v for k, v in data.items() if k not in _PRESENTATION}
     label = study.default_climate
     params["climate"] = label
-    params["climate_file"] = hashes[study.climates[label]]
+    params["climate_file"] = _content_hash(study.climates[label], hashes)
     for key in ("mesh", "sensors"):
         if params.get(key) is not None:
-            params[key] = hashes[params[key]]
+            params[key] = _content_hash(params[key], hashes)
     return params
 
 
@@ -275,11 +290,7 @@ def expand(loaded: StudyFile) -> list[Variant]:
     study = loaded.study
     base = study.canonical()
     axes = _axes(study)
-    hashes: dict[str, str] = {}
-    for path in [*study.climates.values(), study.mesh, study.sensors]:
-        if path is not None and path not in hashes:
-            hashes[path] = file_sha256(path)
-
+    hashes: dict[str, str] = {}  # filled by variant_params as files are met
     variants: list[Variant] = []
     ids: dict[str, str] = {}
     for combo in itertools.product(*[range(len(rows)) for _, _, rows in axes]):
@@ -292,7 +303,10 @@ def expand(loaded: StudyFile) -> list[Variant]:
         if resolved.climate is None:
             resolved = resolved.model_copy(update={"climate": resolved.default_climate})
         canon = resolved.canonical()
-        axis_values = {p: get_path(canon, split_path(p)) for p in assignment}
+        # file paths as written in the study file (portable, no machine paths);
+        # other values in canonical form (90 -> 90.0)
+        axis_values = {p: str(v) if p in _FILE_KEYS else get_path(canon, split_path(p))
+                       for p, v in assignment.items()}
         params = variant_params(resolved, hashes)
         variant_id = hashlib.sha256(canonical_json(params).encode()).hexdigest()[:16]
         label = " ".join(f"{p}={_format(v)}" for p, v in axis_values.items()) or "base"

@@ -204,18 +204,25 @@ def _geometry_inputs(study: Study) -> dict[str, Any]:
 
 
 def _wrap_geometry_error(loaded: StudyFile, variant: Variant | None, exc: InputError) -> Exception:
-    """A kernel error about the room as a study-file error naming the key path."""
-    if exc.file and Path(exc.file).resolve() != loaded.path:
-        return exc  # an OBJ or sensor file: the kernel's message names it and its line
+    """A kernel error about the room as a study-file error naming the key path.
+
+    Errors in an OBJ or sensor file pass through (the kernel's message names that
+    file and its line), unless their field is a study-file key (``materials.*``,
+    ``grid.*``): then the mistake is in the study file, and the other file is
+    named as context.
+    """
     loc = tuple(int(p) if p.isdigit() else p for p in (exc.field or "").split(".") if p)
+    elsewhere = bool(exc.file) and Path(str(exc.file)).resolve() != loaded.path
+    if elsewhere and not (exc.field or "").startswith(("materials.", "grid.")):
+        return exc
     where = ""
     if variant is not None and variant.axes:
         where = f" (in variant '{variant.label}', from 'vary')"
     line = loaded.line_of(loc)
     line_text = f"line {line}, " if line is not None else ""
     key = ".".join(str(p) for p in loc) or "room"
-    err = StudyFileError(f"{loaded.path}: {line_text}key '{key}'{where}: {exc.message}")
-    return err
+    source = f" (in {exc.file})" if elsewhere else ""
+    return StudyFileError(f"{loaded.path}: {line_text}key '{key}'{where}: {exc.message}{source}")
 
 
 def build_geometry(study: Study) -> tuple[Any, np.ndarray]:

@@ -45,7 +45,12 @@ import numpy as np
 from sweep import store as results_store
 from sweep.cache import CoefficientCache
 from sweep.config import StudyFile, load_study
-from sweep.errors import ResultsStoreError, UserInputError, VariantFailedError
+from sweep.errors import (
+    CacheIntegrityError,
+    ResultsStoreError,
+    UserInputError,
+    VariantFailedError,
+)
 from sweep.plan import CoefficientJob, Plan, SeriesTask, make_plan
 
 log = logging.getLogger("luxsweep")
@@ -55,6 +60,17 @@ SERIES_CHUNK = 512
 
 BLOCK_BYTES = 192 * 2**20
 """Memory budget of one time block of a series task [bytes]."""
+
+ALLOWED_FAILURES = 2
+"""Worker deaths a task may cause before it fails, on the run's own LocalCluster.
+
+A task whose worker dies three times (e.g. out of memory) is almost surely the
+cause rather than a bystander; failing it sooner than Dask's default (3 allowed,
+4 deaths) keeps a poison variant from costing many worker restarts. A failed
+series task is retried member by member (see :func:`_collect`), so a bystander
+gets a second chance there.
+A joined cluster (``--scheduler``) keeps its own setting.
+"""
 
 # metric family -> (per-sensor variables, per-variant variables)
 FAMILIES: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
@@ -128,6 +144,11 @@ def series_task(
 ) -> dict[str, Any]:
     """Series, metrics and writes of one group (runs on a worker).
 
+    BLAS runs on one thread here, wherever the task runs: a multi-threaded GEMM
+    may split its sums differently and change results in the last place, and
+    results must be bit-identical across machines and resumed runs (the workers
+    are single-threaded processes, so nothing is lost on a cluster).
+
     Parameters
     ----------
     task : SeriesTask
@@ -144,6 +165,19 @@ def series_task(
     dict
         ``variants`` written and seconds spent per stage.
     """
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(limits=1, user_api="blas"):
+        return _series(task, todo, store_path, cache_root)
+
+
+def _series(
+    task: SeriesTask,
+    todo: list[tuple[int, int, int]],
+    store_path: str,
+    cache_root: str,
+) -> dict[str, Any]:
+    """Body of :func:`series_task` (same parameters and result)."""
     from kernels import metrics as km
     from kernels.climate import read_climate
     from kernels.sky import overcast_sky_vector, patch_scheme, sky_vectors
@@ -312,9 +346,20 @@ def is_loopback(address: str) -> bool:
         return False
 
 
+def is_plain_link(address: str) -> bool:
+    """Whether ``address`` joins a remote scheduler unencrypted and unauthenticated.
+
+    True for ``tcp://`` and ``ws://`` addresses and for bare ``host:port`` (Dask's
+    default scheme is TCP) whose host is not loopback.
+    """
+    scheme = address.split("://", 1)[0].lower() if "://" in address else ""
+    return scheme in ("", "tcp", "ws") and not is_loopback(address)
+
+
 @contextlib.contextmanager
 def dask_client(workers: int | None, scheduler: str | None) -> Iterator[Any]:
     """A Client on a loopback LocalCluster, or on the cluster at ``scheduler``."""
+    import dask
     from distributed import Client, LocalCluster
 
     if scheduler:
@@ -322,7 +367,7 @@ def dask_client(workers: int | None, scheduler: str | None) -> Iterator[Any]:
             with Client(scheduler_file=scheduler, timeout="30s") as client:
                 yield client
             return
-        if scheduler.startswith("tcp://") and not is_loopback(scheduler):
+        if is_plain_link(scheduler):
             log.warning("the link to %s is plain TCP: it is neither authenticated nor "
                         "encrypted. Prefer a tls:// address with certificates (Dask "
                         "Security) or an SSH tunnel to a loopback port.", scheduler)
@@ -331,10 +376,12 @@ def dask_client(workers: int | None, scheduler: str | None) -> Iterator[Any]:
         return
     n = workers or os.cpu_count() or 1
     # loopback only, on a free port (the HTTP endpoints serve the dashboard when
-    # bokeh is installed, and health/metrics pages otherwise)
-    with LocalCluster(n_workers=n, threads_per_worker=1, processes=True, host="127.0.0.1",
-                      dashboard_address="127.0.0.1:0",
-                      silence_logs=logging.CRITICAL) as cluster, \
+    # bokeh is installed, and health/metrics pages otherwise); a task that kills
+    # its worker ALLOWED_FAILURES + 1 times fails (Dask's default is 3)
+    with dask.config.set({"distributed.scheduler.allowed-failures": ALLOWED_FAILURES}), \
+            LocalCluster(n_workers=n, threads_per_worker=1, processes=True, host="127.0.0.1",
+                         dashboard_address="127.0.0.1:0",
+                         silence_logs=logging.CRITICAL) as cluster, \
             Client(cluster) as client:
         yield client
 
@@ -371,8 +418,29 @@ def prepare(study_path: str | Path, out: str | Path | None, cache_dir: str | Pat
     results = Path(out).resolve() if out else default_results(loaded)
     done = None
     if results.exists():
-        done = results_store.open_existing(results, plan.study_hash)
+        sensor_vars, variant_vars = store_variables(list(plan.loaded.study.metrics))
+        series = list(results_store.SERIES_VARIABLES) if plan.times is not None else []
+        done = results_store.open_existing(results, plan.study_hash,
+                                           [*sensor_vars, *variant_vars, *series])
     return plan, results, cache, done
+
+
+def _usable(cache: CoefficientCache, key: str) -> bool:
+    """Whether entry ``key`` is in the cache and passes its checksums.
+
+    A damaged entry is reported with a warning naming the key, removed, and
+    counted as missing, so that it is recomputed before any series task reads it.
+    """
+    if not cache.contains(key):
+        return False
+    try:
+        cache.verify(key)
+    except CacheIntegrityError as exc:
+        warnings.warn(f"coefficient cache: entry {key} is damaged and will be recomputed: "
+                      f"{exc}", UserWarning, stacklevel=2)
+        cache.discard(key)
+        return False
+    return True
 
 
 def run_study(
@@ -398,6 +466,8 @@ def run_study(
     t_start = time.perf_counter()
     plan, results, cache, done = prepare(study_path, out, cache_dir)
     n = len(plan.variants)
+    for stale in results_store.remove_unfinished(results):
+        log.info("removed %s, left by a run killed while creating the store", stale)
     if done is None:
         results_store.create_store(results, _layout(plan))
         done = np.zeros(n, dtype=bool)
@@ -417,7 +487,7 @@ def run_study(
     cache.root.mkdir(parents=True, exist_ok=True)
     cache.clean_temporary(older_than=3600.0)
     needed = {t.key for t in pending}
-    missing = sorted((plan.jobs[k] for k in needed if not cache.contains(k)),
+    missing = sorted((plan.jobs[k] for k in needed if not _usable(cache, k)),
                      key=lambda j: -j.rays)
 
     with dask_client(workers, scheduler) as client:
@@ -430,40 +500,68 @@ def run_study(
                 coefficient_task, job, str(cache.root), key=f"coefficients-{job.key[:24]}",
                 priority=100 + len(missing) - rank, pure=False, retries=0,
             )
+        n_store = max(len(s) for s in plan.sensors)
+
+        def submit(task: SeriesTask, todo: list[tuple[int, int, int]], key: str) -> Any:
+            return client.submit(
+                series_task, task, todo, str(results), str(cache.root), n_store,
+                coefficient_futures.get(task.key), key=key, priority=0, pure=False, retries=0,
+            )
+
         futures = {}
         for task in pending:
             todo = [m for m in task.members if not done[m[0]]]
-            dep = coefficient_futures.get(task.key)
-            fut = client.submit(
-                series_task, task, todo, str(results), str(cache.root),
-                max(len(s) for s in plan.sensors), dep,
-                key=f"{task.task_id}", priority=0, pure=False, retries=0,
-            )
-            futures[fut] = (task, todo)
-        summary = _collect(client, futures, coefficient_futures, summary, show_progress,
+            futures[submit(task, todo, task.task_id)] = (task, todo, False)
+        summary = _collect(futures, submit, coefficient_futures, summary, show_progress,
                            as_completed)
     results_store.consolidate(results)
     summary.seconds = time.perf_counter() - t_start
     return summary
 
 
-def _collect(client: Any, futures: dict, coefficient_futures: dict, summary: RunSummary,
+def _variant_ids(task: SeriesTask, todo: list[tuple[int, int, int]]) -> list[str]:
+    ids = {m[0]: vid for m, vid in zip(task.members, task.variant_ids, strict=True)}
+    return [ids[vi] for vi, _, _ in todo]
+
+
+def _collect(futures: dict, submit: Any, coefficient_futures: dict, summary: RunSummary,
              show_progress: bool, as_completed: Any) -> RunSummary:
-    total_todo = sum(len(todo) for _, todo in futures.values())
+    """Gather the series tasks; retry the members of a failed group one by one.
+
+    When a group's task fails (an exception, or its worker died too often), each of
+    its pending members is submitted again as its own task (key
+    ``<task_id>-<variant_id>``), so that one poison variant cannot take the others
+    down with it; only members whose own task fails too are reported. When the
+    group failed because its coefficient set could not be computed, its members
+    are reported at once.
+    """
+    total_todo = sum(len(todo) for _, todo, _ in futures.values())
     timing: dict[str, float] = {"coefficients": 0.0}
     progress = _progress() if show_progress else contextlib.nullcontext()
     t0 = time.perf_counter()
     with progress as bar:
         bar_task = bar.add_task("run", total=total_todo, rate="") if show_progress else None
-        for fut in as_completed(list(futures)):
-            task, todo = futures[fut]
-            ids = [task.variant_ids[[m[0] for m in task.members].index(vi)] for vi, _, _ in todo]
+        pending = as_completed(list(futures))
+        for fut in pending:
+            task, todo, alone = futures.pop(fut)
+            ids = _variant_ids(task, todo)
             try:
                 result = fut.result()
             except Exception as exc:
-                summary.failed[task.task_id] = ids
+                dep = coefficient_futures.get(task.key)
+                if not alone and len(todo) > 1 and (dep is None or dep.status != "error"):
+                    log.warning("task %s (coefficient key %s, climate %s) failed (%s: %s); "
+                                "retrying its variants %s one by one", task.task_id,
+                                task.key[:16], task.climate, type(exc).__name__, exc,
+                                ", ".join(ids))
+                    for member, vid in zip(todo, ids, strict=True):
+                        retry = submit(task, [member], f"{task.task_id}-{vid}")
+                        futures[retry] = (task, [member], True)
+                        pending.add(retry)
+                    continue
+                summary.failed.setdefault(task.task_id, []).extend(ids)
                 log.error("task %s (coefficient key %s, climate %s) failed for variants %s: "
-                          "%s: %s", task.task_id, task.key[:16], task.climate, ", ".join(ids),
+                          "%s: %s", fut.key, task.key[:16], task.climate, ", ".join(ids),
                           type(exc).__name__, exc)
                 continue
             summary.written += result["variants"]

@@ -28,6 +28,9 @@ from variant labels.
 
 from __future__ import annotations
 
+import os
+import shutil
+import uuid
 import warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
@@ -187,17 +190,48 @@ def _template(layout: StoreLayout) -> tuple[xr.Dataset, dict[str, dict[str, Any]
     return ds, encoding
 
 
+CREATING = ".creating-"
+"""Infix of the sibling folder a new store is built in: ``<store>.creating-<random>``."""
+
+
 def create_store(path: str | Path, layout: StoreLayout) -> None:
-    """Write the metadata and coordinates of a new store at ``path`` (must not exist)."""
+    """Write the metadata and coordinates of a new store at ``path`` (must not exist).
+
+    The store is built in a sibling folder ``<path>.creating-<random>`` and moved
+    into place with one ``os.rename``, so ``path`` holds either no store or one
+    with all its arrays (a run killed meanwhile leaves only the sibling, which
+    :func:`remove_unfinished` deletes).
+    """
     path = Path(path)
     if path.exists():
         raise ResultsStoreError(f"{path}: already exists; delete it or choose another --out")
     ds, encoding = _template(layout)
     attrs = {"luxsweep_version": __version__, **ds.attrs}
     ds.attrs = attrs
-    ds.to_zarr(path, mode="w-", compute=False, zarr_format=3, consolidated=False,
-               encoding=encoding)
-    check_alignment(path, series_chunk=layout.series_chunk)
+    tmp = path.with_name(f"{path.name}{CREATING}{uuid.uuid4().hex[:12]}")
+    try:
+        ds.to_zarr(tmp, mode="w-", compute=False, zarr_format=3, consolidated=False,
+                   encoding=encoding)
+        check_alignment(tmp, series_chunk=layout.series_chunk)
+        try:
+            os.rename(tmp, path)
+        except OSError as exc:
+            raise ResultsStoreError(f"{path}: cannot create the results store ({exc}); "
+                                    "delete it or choose another --out") from None
+    finally:
+        if tmp.exists():
+            shutil.rmtree(tmp, ignore_errors=True)
+
+
+def remove_unfinished(path: str | Path) -> list[Path]:
+    """Delete folders ``<path>.creating-*`` left by runs killed while creating ``path``."""
+    path = Path(path)
+    if not path.parent.is_dir():
+        return []
+    stale = [p for p in path.parent.iterdir() if p.name.startswith(f"{path.name}{CREATING}")]
+    for p in stale:
+        shutil.rmtree(p, ignore_errors=True)
+    return stale
 
 
 def check_alignment(path: str | Path, *, series_chunk: int | None = None) -> None:
@@ -240,14 +274,22 @@ def read_attrs(path: str | Path) -> dict[str, Any]:
     return dict(group.attrs)
 
 
-def open_existing(path: str | Path, study_hash: str) -> np.ndarray:
+def open_existing(path: str | Path, study_hash: str, expected: Sequence[str] = ()
+                  ) -> np.ndarray:
     """Check that the store at ``path`` belongs to this study; return its ``done`` flags.
+
+    Parameters
+    ----------
+    path : str or Path
+    study_hash : str
+    expected : sequence of str
+        Arrays the run will write (``done`` is always checked).
 
     Raises
     ------
     ResultsStoreError
         When the store was made for a different study (different variants, axes,
-        metrics or series setting).
+        metrics or series setting), or is damaged (an expected array is missing).
     """
     attrs = read_attrs(path)
     if attrs.get("study_hash") != study_hash:
@@ -257,6 +299,12 @@ def open_existing(path: str | Path, study_hash: str) -> np.ndarray:
             f"fresh, delete the folder {path} or write elsewhere with --out."
         )
     group = zarr.open_group(str(path), mode="r")
+    absent = [name for name in ["variant_id", *expected, "done"] if name not in group]
+    if absent:
+        raise ResultsStoreError(
+            f"{path}: this results store is damaged: array(s) {', '.join(absent)} are missing. "
+            f"To start fresh, delete the folder {path} or write elsewhere with --out."
+        )
     return np.asarray(group["done"][:], dtype=bool)
 
 

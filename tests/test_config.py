@@ -231,3 +231,40 @@ def test_rank_metric_table_matches_store():
 def test_parse_study_relative_to_given_path(folder):
     loaded = parse_study(BASE, folder / "elsewhere.yaml")
     assert loaded.folder == folder.resolve()
+
+
+def _alias_bomb(depth: int) -> str:
+    lines = ["notes:", "  a0: &a0 [x, x, x, x, x, x, x, x, x, x]"]
+    for i in range(1, depth + 1):
+        lines.append(f"  a{i}: &a{i} [" + ", ".join([f"*a{i - 1}"] * 10) + "]")
+    return "\n".join(lines) + "\n"
+
+
+def test_alias_bomb_is_refused_without_expanding(folder):
+    """Nested aliases expanding to 10**7 values ("billion laughs", common practice
+    in YAML hardening) are refused in well under a second, naming the file and an
+    alias line; the refusal happens before expansion, so time does not grow with
+    the expanded size (bound 2 s: generous for a machine under load)."""
+    import time
+
+    text = BASE + _alias_bomb(6)
+    t0 = time.perf_counter()
+    message = refuse(folder, text)
+    assert time.perf_counter() - t0 < 2.0
+    assert "alias" in message and "100,000" in message
+    alias_lines = [i for i, line in enumerate(text.splitlines(), 1) if "*a" in line]
+    assert any(f"line {n}:" in message for n in alias_lines)
+
+
+def test_recursive_alias_is_refused(folder):
+    message = refuse(folder, BASE + "notes: &loop [1, *loop]\n")
+    assert "alias '*loop'" in message
+
+
+def test_small_aliases_stay_allowed(folder):
+    """Anchors used as plain shorthand are fine (the limit only stops blow-ups)."""
+    text = BASE.replace("main: {transmittance: 0.70, panes: 2}",
+                        "main: &pane {transmittance: 0.70, panes: 2}\n  spare: *pane")
+    path = folder / "study.yaml"
+    path.write_text(text)
+    assert load_study(path).study.glazings["spare"].transmittance == 0.70

@@ -136,3 +136,52 @@ def test_dotted_path_helpers():
     assert parts == ("room", "windows", 0, "width")
     changed = set_path(data, parts, 2.0)
     assert get_path(changed, parts) == 2.0 and get_path(data, parts) == 1.0
+
+
+MESH_STUDY = textwrap.dedent(
+    """\
+    name: birchfold-mesh
+    climates:
+      coastal: climates/coastal.csv
+    mesh: room.obj
+    materials:
+      floor: {reflectance: 0.2}
+      walls: {reflectance: 0.5}
+      ceiling: {reflectance: 0.7}
+      glass: {glazing: main}
+    glazings:
+      main: {transmittance: 0.70, panes: 2}
+    grid: {floors: [floor]}
+    vary:
+      mesh: [room.obj, ../elsewhere/room.obj]
+    """
+)
+
+
+def test_varied_mesh_files_are_hashed_by_content(tmp_path):
+    """A varied mesh path expands (each file hashed as first met); ids follow file
+    contents, labels keep the paths as written in the study file."""
+    from conftest import SEALED_ROOM
+
+    study_dir, other = tmp_path / "study", tmp_path / "elsewhere"
+    path = write(study_dir, MESH_STUDY)
+    other.mkdir()
+    (study_dir / "room.obj").write_text(SEALED_ROOM)
+    (other / "room.obj").write_text(SEALED_ROOM.replace("v 2 1.5 2", "v 2 1.5 2.2"))
+    variants = expand(load_study(path))
+    assert [v.label for v in variants] == ["mesh=room.obj", "mesh=../elsewhere/room.obj"]
+    assert len({v.variant_id for v in variants}) == 2
+    digest = hashlib.sha256((other / "room.obj").read_bytes()).hexdigest()
+    assert variants[1].params["mesh"] == digest
+    (other / "room.obj").write_text(SEALED_ROOM)  # same bytes as the base mesh
+    with pytest.raises(StudyFileError, match="identical"):
+        expand(load_study(path))
+
+
+def test_missing_varied_mesh_is_refused_at_check(tmp_path):
+    from conftest import SEALED_ROOM
+
+    path = write(tmp_path, MESH_STUDY.replace("../elsewhere/room.obj", "missing.obj"))
+    (tmp_path / "room.obj").write_text(SEALED_ROOM)
+    with pytest.raises(StudyFileError, match=r"vary\.mesh.*missing\.obj.*does not exist"):
+        load_study(path)

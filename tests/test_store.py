@@ -111,3 +111,34 @@ def test_misaligned_chunks_are_refused(tmp_path):
     ds.to_zarr(path, zarr_format=3, encoding={"sda": {"chunks": (2,)}}, consolidated=False)
     with pytest.raises(ResultsStoreError, match="one variant per chunk"):
         store.check_alignment(path)
+
+
+def test_store_appears_whole_and_leaves_nothing_beside_it(tmp_path):
+    """The store is built beside its final name and moved into place in one rename,
+    so nothing else is left in the folder (issue 7, killed while creating)."""
+    path = tmp_path / "r.zarr"
+    store.create_store(path, layout())
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["r.zarr"]
+    assert store.open_existing(path, "abc", ["daylight_factor", "sda"]).tolist() == [False] * 3
+
+
+def test_unfinished_creations_are_removed(tmp_path):
+    path = tmp_path / "r.zarr"
+    left = tmp_path / f"r.zarr{store.CREATING}0123456789ab"
+    (left / "sda").mkdir(parents=True)
+    other = tmp_path / "rr.zarr.creating-keep"  # another store's name: not ours
+    other.mkdir()
+    assert store.remove_unfinished(path) == [left]
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["rr.zarr.creating-keep"]
+
+
+def test_store_missing_an_array_is_refused_as_damaged(tmp_path):
+    """A store whose metadata lacks an array the run writes is refused with a
+    message that says how to start fresh (not accepted and then failing per task)."""
+    import shutil
+
+    path = tmp_path / "r.zarr"
+    store.create_store(path, layout())
+    shutil.rmtree(path / "daylight_factor")
+    with pytest.raises(ResultsStoreError, match="damaged.*daylight_factor.*delete"):
+        store.open_existing(path, "abc", ["daylight_factor", "sda"])
