@@ -338,9 +338,15 @@ def _step_counts(counts: dict[str, np.ndarray], masks: StepMasks) -> None:
     _add(counts, "n_daylight", np.count_nonzero(masks.daylight, axis=-1).astype(np.int64))
 
 
-def _count(condition: np.ndarray, mask: np.ndarray) -> np.ndarray:
-    """Steps where ``condition`` holds within ``mask`` (summed over the last axis)."""
-    return np.count_nonzero(condition & mask, axis=-1).astype(np.int64)
+def _grid_rows(mask: np.ndarray, batch: tuple[int, ...], n_steps: int) -> np.ndarray:
+    """A step mask as one row per grid, ``(n_grids, n_steps)`` bool (broadcast, not copied)."""
+    m = np.broadcast_to(np.asarray(mask, dtype=bool), (*batch, n_steps))
+    return m.reshape(-1, n_steps)
+
+
+def _sensor_count(n_sensors: int) -> type:
+    """Narrowest exact accumulator for per-step counts of sensors (sums of 0/1 bytes)."""
+    return np.uint16 if n_sensors < 2**16 else np.int64
 
 
 def accumulate(
@@ -373,52 +379,115 @@ def accumulate(
     -------
     dict of str to ndarray
         Additive counts; integer step counts (int64) and lux sums (float64).
+
+    Notes
+    -----
+    One grid (``(n_sensors, n_steps)``) is folded at a time so that every pass
+    over it runs from the CPU cache; each distinct threshold is compared once
+    per grid (into preallocated buffers, in the arrays' own precision). Counts
+    over masked steps and lux sums are matrix–vector products of 0/1
+    indicators (or the illuminance) with the 0/1 step masks: integer counts are
+    exact (below 2**24 steps per chunk in float32), lux sums are accumulated in
+    the arrays' precision within a chunk and in float64 across chunks (exact
+    for integer lux below 2**24 lx·steps per sensor and chunk; relative
+    rounding of a few 1e-7 otherwise).
     """
     counts = {} if counts is None else counts
     _step_counts(counts, masks)
-    occ = np.asarray(masks.occupied, dtype=bool)[..., None, :]
-    ana = np.asarray(masks.analysis, dtype=bool)[..., None, :]
-    day = np.asarray(masks.daylight, dtype=bool)
     e0, e1, e2 = params.udi_edges
+    n_sensors, n_steps = total.shape[-2:]
+    batch = np.broadcast_shapes(
+        total.shape[:-2], *(np.shape(m)[:-1] for m in (masks.occupied, masks.analysis,
+                                                       masks.daylight)))
+    dtype = np.result_type(total.dtype, np.float32)
+    grids = [np.broadcast_to(a, (*batch, n_sensors, n_steps)).reshape(-1, n_sensors, n_steps)
+             for a in (total, direct_sun) + (() if total_shaded is None else (total_shaded,))]
+    occ, ana, day = (_grid_rows(m, batch, n_steps)
+                     for m in (masks.occupied, masks.analysis, masks.daylight))
+    n_grids = grids[0].shape[0]
 
-    # occupied-time metrics, per sensor
-    _add(counts, "occ_da", _count(total >= params.da_threshold, occ))
-    _add(counts, "occ_udi_ge_e0", _count(total >= e0, occ))
-    _add(counts, "occ_udi_ge_e1", _count(total >= e1, occ))
-    _add(counts, "occ_udi_gt_e2", _count(total > e2, occ))
-    _add(counts, "occ_sun", _count(direct_sun > params.sun_threshold, occ))
-    # min(E, x) summed in lux (exact for lux-valued inputs); divided by x at the end
-    capped = np.minimum(total, np.float32(params.da_threshold))
-    _add(counts, "occ_cda_lux", np.sum(np.where(occ, capped, 0), axis=-1, dtype=np.float64))
-    _add(counts, "occ_sum_lux", np.sum(np.where(occ, total, 0), axis=-1, dtype=np.float64))
-    _add(counts, "all_sum_lux", np.sum(total, axis=-1, dtype=np.float64))
+    # the distinct comparisons on ``total``: (threshold, strictly above?)
+    def key(x: float, strict: bool = False) -> tuple[float, bool]:
+        return (float(dtype.type(x)), strict)
 
-    # IES LM-83-12: shading rule, sDA and ASE over the analysis steps
-    n_sensors = total.shape[-2]
-    sunlit = direct_sun > params.sun_threshold
-    n_sunlit = np.count_nonzero(sunlit, axis=-2)  # (..., n_steps)
-    closed = _share_more_than(n_sunlit, n_sensors, params.shading_sensor_fraction)
-    closed &= np.asarray(masks.analysis, dtype=bool)
-    if total_shaded is None:
-        closed[...] = False
-        effective = total
-    else:
-        effective = np.where(closed[..., None, :], total_shaded, total)
-    _add(counts, "ana_shaded", np.count_nonzero(closed, axis=-1).astype(np.int64))
-    _add(counts, "ana_sda", _count(effective >= params.sda_threshold, ana))
-    _add(counts, "ana_ase", _count(sunlit, ana))
+    k_da, k_e0, k_e1, k_e2 = key(params.da_threshold), key(e0), key(e1), key(e2, True)
+    k_sda = key(params.sda_threshold)
+    levels = [(key(t), key(m)) for t, m in params.en17037_levels]
+    per_sensor = {k_da, k_e0, k_e1, k_e2}  # counted over occupied steps
+    per_step = {k for pair in levels for k in pair}  # counted over sensors
+    x_da = dtype.type(params.da_threshold)
+    x_sun = dtype.type(params.sun_threshold)
+    shade_num, shade_den = _ratio(params.shading_sensor_fraction)
+    target_num, target_den = _ratio(params.en17037_target_area)
+    minimum_num, minimum_den = _ratio(params.en17037_minimum_area)
+    acc = _sensor_count(n_sensors)
 
-    # EN 17037:2018 daylight provision, per daylight step and level
-    target_ok, minimum_ok = [], []
-    for target, minimum in params.en17037_levels:
-        n_target = np.count_nonzero(total >= target, axis=-2)
-        n_minimum = np.count_nonzero(total >= minimum, axis=-2)
-        ok_t = _share_at_least(n_target, n_sensors, params.en17037_target_area)
-        ok_m = _share_at_least(n_minimum, n_sensors, params.en17037_minimum_area)
-        target_ok.append(_count(ok_t, day))
-        minimum_ok.append(_count(ok_m, day))
-    _add(counts, "day_target_ok", np.stack(target_ok, axis=-1))
-    _add(counts, "day_minimum_ok", np.stack(minimum_ok, axis=-1))
+    out_sensor = {name: np.zeros((n_grids, n_sensors), np.int64) for name in (
+        "occ_da", "occ_udi_ge_e0", "occ_udi_ge_e1", "occ_udi_gt_e2", "occ_sun",
+        "ana_sda", "ana_ase")}
+    out_lux = {name: np.zeros((n_grids, n_sensors), np.float64)
+               for name in ("occ_cda_lux", "occ_sum_lux", "all_sum_lux")}
+    out_shaded = np.zeros(n_grids, np.int64)
+    out_target = np.zeros((n_grids, len(levels)), np.int64)
+    out_minimum = np.zeros((n_grids, len(levels)), np.int64)
+
+    flag = np.empty((n_sensors, n_steps), dtype=bool)
+    ind = np.empty((n_sensors, n_steps), dtype=dtype)
+    work = np.empty((n_sensors, n_steps), dtype=dtype)
+    cap = np.full(n_steps, x_da, dtype=dtype)
+    steps = np.empty((n_steps, 3), dtype=dtype)  # columns: occupied, analysis, every step
+    steps[:, 2] = 1.0
+    for g in range(n_grids):
+        e, d = grids[0][g], grids[1][g]
+        steps[:, 0], steps[:, 1] = occ[g], ana[g]
+        sensor_counts: dict[tuple[float, bool], np.ndarray] = {}
+        step_counts: dict[tuple[float, bool], np.ndarray] = {}
+        for k in sorted(per_sensor | per_step | {k_sda}):
+            (np.greater if k[1] else np.greater_equal)(e, dtype.type(k[0]), out=flag)
+            if k in per_step:
+                step_counts[k] = flag.view(np.uint8).sum(axis=0, dtype=acc)
+            if k in per_sensor or k == k_sda:
+                np.copyto(ind, flag, casting="unsafe")
+                sensor_counts[k] = ind @ steps[:, :2]  # (S, 2): occupied, analysis
+        for name, k in (("occ_da", k_da), ("occ_udi_ge_e0", k_e0), ("occ_udi_ge_e1", k_e1),
+                        ("occ_udi_gt_e2", k_e2)):
+            out_sensor[name][g] = sensor_counts[k][:, 0]
+        # min(E, x) summed in lux (divided by x at the end); the plain lux sums
+        np.minimum(e, cap, out=work)
+        out_lux["occ_cda_lux"][g] = work @ steps[:, 0]
+        sums = e @ steps[:, [0, 2]]
+        out_lux["occ_sum_lux"][g], out_lux["all_sum_lux"][g] = sums[:, 0], sums[:, 1]
+
+        # IES LM-83-12: shading rule, sDA and ASE over the analysis steps
+        np.greater(d, x_sun, out=flag)
+        n_sunlit = flag.view(np.uint8).sum(axis=0, dtype=acc).astype(np.int64)
+        np.copyto(ind, flag, casting="unsafe")
+        sun = ind @ steps[:, :2]
+        out_sensor["occ_sun"][g], out_sensor["ana_ase"][g] = sun[:, 0], sun[:, 1]
+        closed = (n_sunlit * shade_den > n_sensors * shade_num) & ana[g]
+        if total_shaded is not None and closed.any():
+            shut = np.flatnonzero(closed)
+            np.copyto(work, e)
+            work[:, shut] = grids[2][g][:, shut]
+            np.greater_equal(work, dtype.type(k_sda[0]), out=flag)
+            np.copyto(ind, flag, casting="unsafe")
+            out_sensor["ana_sda"][g] = ind @ steps[:, 1]
+            out_shaded[g] = shut.size
+        else:
+            out_sensor["ana_sda"][g] = sensor_counts[k_sda][:, 1]
+
+        # EN 17037:2018 daylight provision, per daylight step and level
+        for i, (kt, km) in enumerate(levels):
+            ok_t = step_counts[kt].astype(np.int64) * target_den >= n_sensors * target_num
+            ok_m = step_counts[km].astype(np.int64) * minimum_den >= n_sensors * minimum_num
+            out_target[g, i] = np.count_nonzero(ok_t & day[g])
+            out_minimum[g, i] = np.count_nonzero(ok_m & day[g])
+
+    for name, value in (*out_sensor.items(), *out_lux.items()):
+        _add(counts, name, value.reshape(*batch, n_sensors))
+    _add(counts, "ana_shaded", out_shaded.reshape(batch))
+    _add(counts, "day_target_ok", out_target.reshape(*batch, len(levels)))
+    _add(counts, "day_minimum_ok", out_minimum.reshape(*batch, len(levels)))
     return counts
 
 

@@ -958,6 +958,40 @@ def _near_patches(scheme: PatchScheme, radius: float) -> np.ndarray:
     return out
 
 
+def _site_patches(scheme: PatchScheme, orientations: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Distinct site-frame patch centres over several orientations.
+
+    The angle between a patch centre and the sun, hence the Perez indicatrix at
+    the centre, is the same in either frame. With orientation φ a patch at
+    building azimuth a sits at site azimuth a + φ − 180, so orientations that
+    differ by a multiple of a band's patch width share that band's site
+    centres (all twelve multiples of 30° share every band of MF2: 577
+    distinct centres instead of 6,924).
+
+    Parameters
+    ----------
+    scheme : PatchScheme
+    orientations : ndarray (k,) [deg]
+
+    Returns
+    -------
+    centres : ndarray (n_distinct, 3)
+        Unit vectors, site frame.
+    index : ndarray (k, n_patches) int
+        Row of ``centres`` of each orientation's patch.
+    """
+    alt = np.degrees(np.arcsin(np.clip(scheme.centres[:, 2], -1.0, 1.0)))
+    az = np.degrees(np.arctan2(scheme.centres[:, 0], scheme.centres[:, 1]))
+    site = (az[None, :] + orientations[:, None] - 180.0) % 360.0  # (k, P)
+    site = np.where(scheme.centres[:, 2] >= 1.0 - 1e-12, 0.0, site)  # the cap: any azimuth
+    micro = np.round(site * 1e6).astype(np.int64) % 360_000_000  # same within 1e-6 deg
+    band = np.repeat(np.arange(scheme.band_counts.size), scheme.band_counts)
+    keys = band[None, :] * 360_000_000 + micro
+    _, first, index = np.unique(keys.ravel(), return_index=True, return_inverse=True)
+    k, p = np.divmod(first, scheme.n_patches)
+    return _direction(site[k, p], alt[p]), index.reshape(keys.shape)
+
+
 def _active_chunks(active: np.ndarray, chunk: int):
     """Yield (steps, runs) covering the active steps in chunks of about ``chunk``.
 
@@ -1157,24 +1191,23 @@ def sky_vectors(
     mean_sin = patch_mean_sin_altitude(scheme).astype(np.float32)
     omega = scheme.solid_angle.astype(np.float32)
     centres = scheme.centres.astype(np.float32)
-    cx, cy, cz = centres.T
+    site_centres, site_of = _site_patches(scheme, phi)
+    site_centres = site_centres.astype(np.float32)
     samples = sample_directions(scheme, refine_samples, seed).astype(np.float32)
     radius = REFINE_BANDS * scheme.band_edges[1]
     near, cos_radius = _near_patches(scheme, radius), np.float32(np.cos(np.radians(radius)))
-    cx, cy, cz = (v[None, :, None] for v in (cx, cy, cz))
+    sun_site32 = sun_site.astype(np.float32)
     for t, runs in _active_chunks(active, chunk):
         a, b, c, d, e = coef[:, t]
         # gradation: exact mean over each band (altitude only), times Ω: (P, chunk)
         grad_band = (_perez_gradation(node_cos[:, :, None], a, b) * node_w[:, :, None]).sum(1)
         weight = (grad_band[band] * omega[:, None]).astype(np.float32)
-        sb = np.ascontiguousarray(sun_b[:, t].transpose(0, 2, 1), dtype=np.float32)  # (k, 3, T)
-        cos_g = cx * sb[:, None, 0]
-        cos_g += cy * sb[:, None, 1]
-        cos_g += cz * sb[:, None, 2]
-        lum = _perez_indicatrix(cos_g, c, d, e)  # (k, P, chunk)
+        # indicatrix at the centres, once per distinct site-frame centre: (V, chunk)
+        indicatrix = _perez_indicatrix(site_centres @ sun_site32[t].T, c, d, e)
+        lum = np.take(indicatrix, site_of, axis=0)  # (k, P, chunk)
         lum *= weight
         # patches near the sun: mean of the whole product over stratified samples
-        sun_kt = sb.transpose(0, 2, 1)  # (k, T, 3)
+        sun_kt = sun_b[:, t].astype(np.float32)  # (k, T, 3)
         cand = near[patch_index(scheme, sun_kt)]  # (k, T, M)
         ok = cand >= 0
         cand = np.where(ok, cand, 0)

@@ -22,9 +22,13 @@ Research & Technology 15(2), 65–71. doi:10.1177/096032718301500201
 
 from __future__ import annotations
 
+import weakref
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
+from scipy import sparse
+
+from kernels import buffers
 
 if TYPE_CHECKING:
     from kernels.coefficients import CoefficientSet
@@ -47,33 +51,39 @@ def _transmittances(coeffs: CoefficientSet, transmittances: np.ndarray,
     return tau
 
 
-def _sun_gather(
-    coefficients: np.ndarray, index: np.ndarray, weight: np.ndarray, columns: np.ndarray
-) -> np.ndarray:
-    """Sun illuminance from three interpolated sun points per step.
+_SUMMED: weakref.WeakKeyDictionary = weakref.WeakKeyDictionary()
+"""Per coefficient set (weakly held): summed families in the layouts of :func:`illuminance`."""
 
-    Parameters
-    ----------
-    coefficients : ndarray (n_sensors, n_sun) float32
-    index : ndarray (n_cols, 3) int
-        Sun points of each (orientation, step) column.
-    weight : ndarray (n_cols, 3) float32
-        Barycentric weight × direct normal illuminance [lx].
-    columns : ndarray (k,) int
-        Columns with the sun up (others stay zero).
+
+def _summed(coeffs: CoefficientSet) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Sky (direct + reflected), sun (direct + reflected) and direct-sun coefficients.
 
     Returns
     -------
-    ndarray (n_sensors, n_cols) float32 [lx]
+    sky : ndarray (n_sets, n_sensors, n_basis) float32
+    sun_t, direct_t : ndarray (n_sets, n_sun, n_sensors) float32
+        Transposed, so that the three sun points of a step are three contiguous rows.
     """
-    out = np.zeros((coefficients.shape[0], index.shape[0]), dtype=np.float32)
-    if columns.size:
-        idx, w = index[columns], weight[columns]
-        acc = coefficients[:, idx[:, 0]] * w[:, 0]
-        acc += coefficients[:, idx[:, 1]] * w[:, 1]
-        acc += coefficients[:, idx[:, 2]] * w[:, 2]
-        out[:, columns] = acc
-    return out
+    found = _SUMMED.get(coeffs)
+    if found is None:
+        sky = np.add(coeffs.sky_direct, coeffs.sky_reflected, dtype=np.float32)
+        sun = np.add(coeffs.sun_direct, coeffs.sun_reflected, dtype=np.float32)
+        found = (
+            sky,
+            np.ascontiguousarray(sun.transpose(0, 2, 1)),
+            np.ascontiguousarray(np.asarray(coeffs.sun_direct, np.float32).transpose(0, 2, 1)),
+        )
+        _SUMMED[coeffs] = found
+    return found
+
+
+def _sun_matrix(index: np.ndarray, weight: np.ndarray, n_sun: int) -> sparse.csr_array:
+    """(n_steps, n_sun) sparse matrix of three barycentric weights × E_dn per step [lx]."""
+    n_steps = index.shape[0]
+    return sparse.csr_array(
+        (weight.reshape(-1), index.reshape(-1), np.arange(0, 3 * n_steps + 1, 3)),
+        shape=(n_steps, n_sun),
+    )
 
 
 def illuminance(
@@ -100,6 +110,17 @@ def illuminance(
     direct_sun : ndarray (n_orient, n_glazing_variants, n_sensors, n_steps) float32 [lx]
         Direct sun only (the ``sun_direct`` family): for annual sunlight
         exposure and the IES LM-83-12 shading rule.
+
+    Notes
+    -----
+    Per orientation and glazing set, one float32 matrix product
+    (n_sensors × n_basis) @ (n_basis × n_steps) gives the sky part in the
+    output's own layout; the sun is one sparse product (three weights per
+    step) with the transposed sun coefficients, whose three rows per step are
+    contiguous. The direct and reflected families are summed (and transposed)
+    once per coefficient set and kept while the set lives. The (n_sensors,
+    n_steps) buffers are reused across orientations, and the outputs come
+    from :func:`kernels.buffers.empty` (no fresh pages to map per call).
     """
     tau = _transmittances(coeffs, transmittances)
     sky_lum = np.asarray(sky.sky, dtype=np.float32)
@@ -109,26 +130,31 @@ def illuminance(
             f"sky vectors have {n_basis} basis entries but the coefficients have "
             f"{coeffs.sky_direct.shape[2]}: build both with the same sky subdivision"
         )
-    n_sensors = coeffs.sky_direct.shape[1]
-    sky_cols = sky_lum.transpose(1, 0, 2).reshape(n_basis, n_orient * n_steps)
-    index = np.asarray(sky.sun_index).reshape(n_orient * n_steps, 3)
-    weight = np.asarray(sky.sun_weight, dtype=np.float32).reshape(n_orient * n_steps, 3)
-    up = np.flatnonzero(np.any(weight != 0.0, axis=1))
+    n_sets, n_sensors = coeffs.sky_direct.shape[:2]
+    index = np.asarray(sky.sun_index, dtype=np.int32)
+    weight = np.asarray(sky.sun_weight, dtype=np.float32)
+    c_sky, c_sun_t, c_direct_t = _summed(coeffs)
+    n_sun = c_sun_t.shape[1]
 
     shape = (n_orient, tau.shape[0], n_sensors, n_steps)
-    total = np.zeros(shape, dtype=np.float32)
-    direct_sun = np.zeros(shape, dtype=np.float32)
-    for g in range(tau.shape[1]):
-        c_sky = coeffs.sky_direct[g] + coeffs.sky_reflected[g]
-        sun_direct = _sun_gather(coeffs.sun_direct[g], index, weight, up)
-        e_g = c_sky @ sky_cols
-        e_g += sun_direct
-        e_g += _sun_gather(coeffs.sun_reflected[g], index, weight, up)
-        e_g = e_g.reshape(n_sensors, n_orient, n_steps).transpose(1, 0, 2)
-        d_g = sun_direct.reshape(n_sensors, n_orient, n_steps).transpose(1, 0, 2)
-        t = tau[:, g][None, :, None, None]
-        total += t * e_g[:, None]
-        direct_sun += t * d_g[:, None]
+    total = buffers.empty(shape, np.float32)
+    direct_sun = buffers.empty(shape, np.float32)
+    e = np.empty((n_sensors, n_steps), dtype=np.float32)
+    d = np.empty_like(e)
+    work = np.empty_like(e)
+    for o in range(n_orient):
+        sun = _sun_matrix(index[o], weight[o], n_sun)
+        for g in range(n_sets):
+            np.matmul(c_sky[g], sky_lum[o], out=e)
+            e += (sun @ c_sun_t[g]).T
+            np.copyto(d, (sun @ c_direct_t[g]).T)
+            for v in range(tau.shape[0]):
+                for src, dst in ((e, total[o, v]), (d, direct_sun[o, v])):
+                    if g == 0:
+                        np.multiply(src, tau[v, g], out=dst)
+                    else:
+                        np.multiply(src, tau[v, g], out=work)
+                        dst += work
     return total, direct_sun
 
 

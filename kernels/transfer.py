@@ -511,6 +511,13 @@ def factor_parallel_rectangles(a: np.ndarray, b: np.ndarray, c: np.ndarray) -> n
 # ---------------------------------------------------------------------------
 
 
+def _system(F: np.ndarray, rho: np.ndarray) -> np.ndarray:
+    """``I - diag(rho) F`` as a new array (one pass over F)."""
+    system = F * -rho[:, None]
+    system.flat[:: F.shape[0] + 1] += 1.0
+    return system
+
+
 def solve_radiosity(
     transfer: np.ndarray | scipy.sparse.spmatrix,
     reflectance: np.ndarray,
@@ -544,8 +551,7 @@ def solve_radiosity(
     rho = np.asarray(reflectance, dtype=np.float64)
     if n == 0:
         return np.zeros_like(source, dtype=np.float64)
-    system = np.eye(n) - rho[:, None] * F
-    lu = scipy.linalg.lu_factor(system, check_finite=False)
+    lu = scipy.linalg.lu_factor(_system(F, rho), overwrite_a=True, check_finite=False)
     return scipy.linalg.lu_solve(lu, rho[:, None] * source, check_finite=False)
 
 
@@ -575,8 +581,7 @@ def gather_radiosity(
     rho = np.asarray(reflectance, dtype=np.float64)
     if n == 0:
         return np.zeros((gather.shape[0], 0))
-    system = np.eye(n) - rho[:, None] * F
-    lu = scipy.linalg.lu_factor(system, check_finite=False)
+    lu = scipy.linalg.lu_factor(_system(F, rho), overwrite_a=True, check_finite=False)
     # G M^-1 = (M^-T G^T)^T
     h = scipy.linalg.lu_solve(lu, np.ascontiguousarray(gather.T), trans=1, check_finite=False)
     return h.T * rho[None, :]
@@ -676,6 +681,9 @@ def _csr(rows: np.ndarray, cols: np.ndarray, values: np.ndarray,
     return scipy.sparse.coo_matrix((values, (rows, cols)), shape=shape).tocsr()
 
 
+_DENSE_SUM = 1 << 24  # matrix entries up to which _Triplets sums in a dense array
+
+
 class _Triplets:
     """Entries (row, column, value) collected chunk by chunk, summed into one CSR matrix."""
 
@@ -688,7 +696,13 @@ class _Triplets:
     def csr(self, shape: tuple[int, int]) -> scipy.sparse.csr_matrix:
         if not self.parts:
             return _csr(np.zeros(0, int), np.zeros(0, int), np.zeros(0), shape)
-        return _csr(*(np.concatenate(p) for p in zip(*self.parts, strict=True)), shape)
+        rows, cols, values = (np.concatenate(p) for p in zip(*self.parts, strict=True))
+        size = shape[0] * shape[1]
+        if size > _DENSE_SUM or values.size < size // 16:
+            return _csr(rows, cols, values, shape)
+        # many entries on a small matrix: summing in a dense array beats sorting them
+        dense = np.bincount(rows * shape[1] + cols, values, size).reshape(shape)
+        return scipy.sparse.csr_matrix(dense)
 
 
 @dataclass(frozen=True, eq=False)

@@ -218,3 +218,69 @@ def test_killed_run_resumes_to_identical_results(finished, tmp_path):
     resumed = xr.open_zarr(out)
     for name in SENSOR_VARS + VARIANT_VARS + ("done",):
         np.testing.assert_array_equal(resumed[name].values, local[name].values, err_msg=name)
+
+
+def test_series_task_is_bit_identical_whatever_the_callers_blas_threads(finished, tmp_path):
+    """A series task run in this process with BLAS allowed 2 threads writes the
+    same bytes as the run's single-threaded workers did (issue 7: a multi-threaded
+    GEMM may sum in another order and change the last bit)."""
+    import shutil
+
+    from threadpoolctl import threadpool_limits
+
+    from sweep.run import prepare, series_task
+
+    study, folder, _, _ = finished
+    out = tmp_path / "r.zarr"
+    shutil.copytree(folder / "r.zarr", out)
+    plan, results, cache, _ = prepare(study, out, folder / "cache")
+    zarr.open_group(str(out), mode="r+")["done"][:] = False
+    task = max(plan.tasks, key=lambda t: len(t.members))
+    with threadpool_limits(limits=2, user_api="blas"):
+        series_task(task, list(task.members), str(results), str(cache.root),
+                    max(len(s) for s in plan.sensors))
+    got, want = zarr.open_group(str(out), mode="r"), zarr.open_group(str(folder / "r.zarr"))
+    rows = [vi for vi, _, _ in task.members]
+    assert got["done"][:][rows].all()
+    from sweep.store import SENSOR_VARIABLES, VARIANT_VARIABLES
+
+    names = [n for n in got.array_keys() if n in {**SENSOR_VARIABLES, **VARIANT_VARIABLES}]
+    assert {"mean_illuminance", "continuous_daylight_autonomy"} <= set(names)  # sums of lx
+    for name in names:
+        np.testing.assert_array_equal(got[name][...][rows], want[name][...][rows], err_msg=name)
+
+
+def test_plain_links_to_remote_schedulers_are_recognised():
+    """Dask's default scheme is TCP, so a bare host:port is a plain link too."""
+    from sweep.run import is_plain_link
+
+    for address in ("tcp://192.0.2.10:8786", "192.0.2.10:8786", "ws://head.invalid:8786",
+                    "head.invalid:8786"):
+        assert is_plain_link(address), address
+    for address in ("tls://192.0.2.10:8786", "wss://head.invalid:8786",
+                    "tcp://127.0.0.1:8786", "localhost:8786", "inproc://192.0.2.10/1/2"):
+        assert not is_plain_link(address), address
+
+
+def test_damaged_cache_entry_counts_as_missing(tmp_path):
+    """Before tasks are submitted, a cached entry that fails its checksum is
+    reported (naming the key), removed and counted as missing, so it is recomputed
+    instead of being read by a series task."""
+    import warnings
+
+    from sweep.run import _usable
+
+    cache = CoefficientCache(tmp_path / "cache")
+    key = "5e" * 32
+    cache.save_arrays(key, {"sky_direct": np.arange(64, dtype=np.float32)}, {})
+    assert _usable(cache, key)
+    target = cache.root / key / "arrays" / "sky_direct.npy"
+    data = bytearray(target.read_bytes())
+    data[-3] ^= 0x04
+    target.write_bytes(bytes(data))
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        assert not _usable(cache, key)
+    assert any(key in str(w.message) for w in caught)
+    assert not cache.contains(key) and not (cache.root / key).exists()
+    assert not _usable(cache, "6f" * 32)  # absent: missing, no warning needed
