@@ -61,8 +61,9 @@ def empty(shape: tuple[int, ...], dtype: type = np.float32) -> np.ndarray:
         if fits:
             i = min(fits, key=lambda j: _POOL[j].nbytes)
         else:
-            # room for slightly longer blocks next time
-            buffer = np.empty(nbytes + nbytes // 8, dtype=np.uint8)
+            # twice the size: later blocks may be longer, and pages never written
+            # are never mapped, so the spare half costs address space only
+            buffer = np.empty(2 * nbytes, dtype=np.uint8)
             free = [j for j in range(len(_POOL)) if _free(j)]
             if len(_POOL) < MAX_BUFFERS:
                 _POOL.append(buffer)

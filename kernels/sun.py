@@ -37,6 +37,7 @@ References
 from __future__ import annotations
 
 import dataclasses
+import functools
 from functools import cached_property
 
 import numpy as np
@@ -400,7 +401,7 @@ class SunPoints:
 
     @cached_property
     def _triangulation(self) -> _Triangulation:
-        return _Triangulation(self.directions)
+        return _triangulation(self.spacing)
 
     def weights(self, directions) -> tuple[np.ndarray, np.ndarray]:
         """Interpolation points and weights for directions.
@@ -501,6 +502,16 @@ class _Triangulation:
             simplex[step] = across
             w[step] = self._weights(across, s[step])
         return simplex, w, found
+
+
+@functools.lru_cache(maxsize=4)
+def _triangulation(spacing: float) -> _Triangulation:
+    """The triangulation of the sun points of a spacing, built once per process.
+
+    Every series task builds its own :class:`SunPoints`; the triangulation
+    (0.2 s at 1.5°) depends on the spacing alone and is only read.
+    """
+    return _Triangulation(_ring_points(spacing))
 
 
 def _ring_points(spacing: float) -> np.ndarray:

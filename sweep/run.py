@@ -15,12 +15,19 @@ Order of work (DESIGN.md §3):
 
 Task keys are explicit (``coefficients-<key>``, ``series-<key>-<hash>``), so a
 failure names its coefficient key and its variant ids; the other tasks finish
-and the run ends with exit status 1. A rerun of the same study skips every
-variant whose ``done`` flag is set (resume).
+and the run ends with exit status 1. A failed series task is retried member by
+member, and members that failed only because workers died run once more alone
+at the end (:func:`_collect`), so one poison variant fails alone. A rerun of the
+same study skips every variant whose ``done`` flag is set (resume). The store is
+created under a temporary sibling name and renamed into place
+(:func:`sweep.store.create_store`); a damaged cache entry is recomputed.
 
 The default cluster is a ``distributed.LocalCluster`` of single-threaded worker
-processes bound to 127.0.0.1; ``--scheduler`` joins an existing cluster instead
-(an address or a scheduler file).
+processes bound to 127.0.0.1, where a task fails after killing its worker
+``ALLOWED_FAILURES + 1`` = 3 times; ``--scheduler`` joins an existing cluster
+instead (an address or a scheduler file; a plain-TCP link to a host other than
+loopback is warned about). Series tasks run BLAS on one thread so results are
+bit-identical wherever they run.
 """
 
 from __future__ import annotations
@@ -511,7 +518,7 @@ def run_study(
         futures = {}
         for task in pending:
             todo = [m for m in task.members if not done[m[0]]]
-            futures[submit(task, todo, task.task_id)] = (task, todo, False)
+            futures[submit(task, todo, task.task_id)] = (task, todo)
         summary = _collect(futures, submit, coefficient_futures, summary, show_progress,
                            as_completed)
     results_store.consolidate(results)
@@ -531,39 +538,30 @@ def _collect(futures: dict, submit: Any, coefficient_futures: dict, summary: Run
     When a group's task fails (an exception, or its worker died too often), each of
     its pending members is submitted again as its own task (key
     ``<task_id>-<variant_id>``), so that one poison variant cannot take the others
-    down with it; only members whose own task fails too are reported. When the
-    group failed because its coefficient set could not be computed, its members
-    are reported at once.
+    down with it; only members whose own task fails too are reported. A task that
+    failed because workers died may have been a bystander, queued on the worker
+    that another task killed: such one-member tasks run once more at the end, one
+    at a time on the otherwise idle cluster (key ``<task_id>-<variant_id>-alone``),
+    where only a task's own deaths count against it. When a group failed because
+    its coefficient set could not be computed, its members are reported at once.
     """
-    total_todo = sum(len(todo) for _, todo, _ in futures.values())
+    from distributed import KilledWorker
+
+    total_todo = sum(len(todo) for _, todo in futures.values())
     timing: dict[str, float] = {"coefficients": 0.0}
     progress = _progress() if show_progress else contextlib.nullcontext()
     t0 = time.perf_counter()
+    suspects: list[tuple[SeriesTask, tuple[int, int, int], str]] = []
+
+    def report(key: str, task: SeriesTask, ids: list[str], exc: Exception) -> None:
+        summary.failed.setdefault(task.task_id, []).extend(ids)
+        log.error("task %s (coefficient key %s, climate %s) failed for variants %s: %s: %s",
+                  key, task.key[:16], task.climate, ", ".join(ids), type(exc).__name__, exc)
+
     with progress as bar:
         bar_task = bar.add_task("run", total=total_todo, rate="") if show_progress else None
-        pending = as_completed(list(futures))
-        for fut in pending:
-            task, todo, alone = futures.pop(fut)
-            ids = _variant_ids(task, todo)
-            try:
-                result = fut.result()
-            except Exception as exc:
-                dep = coefficient_futures.get(task.key)
-                if not alone and len(todo) > 1 and (dep is None or dep.status != "error"):
-                    log.warning("task %s (coefficient key %s, climate %s) failed (%s: %s); "
-                                "retrying its variants %s one by one", task.task_id,
-                                task.key[:16], task.climate, type(exc).__name__, exc,
-                                ", ".join(ids))
-                    for member, vid in zip(todo, ids, strict=True):
-                        retry = submit(task, [member], f"{task.task_id}-{vid}")
-                        futures[retry] = (task, [member], True)
-                        pending.add(retry)
-                    continue
-                summary.failed.setdefault(task.task_id, []).extend(ids)
-                log.error("task %s (coefficient key %s, climate %s) failed for variants %s: "
-                          "%s: %s", fut.key, task.key[:16], task.climate, ", ".join(ids),
-                          type(exc).__name__, exc)
-                continue
+
+        def done(result: dict[str, Any]) -> None:
             summary.written += result["variants"]
             for k, v in result["timing"].items():
                 timing[k] = timing.get(k, 0.0) + v
@@ -571,6 +569,40 @@ def _collect(futures: dict, submit: Any, coefficient_futures: dict, summary: Run
                 elapsed = time.perf_counter() - t0
                 bar.update(bar_task, advance=result["variants"],
                            rate=f"{summary.written / max(elapsed, 1e-9):.2f}/s")
+
+        pending = as_completed(list(futures))
+        for fut in pending:
+            task, todo = futures.pop(fut)
+            ids = _variant_ids(task, todo)
+            try:
+                result = fut.result()
+            except Exception as exc:
+                dep = coefficient_futures.get(task.key)
+                if dep is not None and dep.status == "error":
+                    report(fut.key, task, ids, exc)
+                elif len(todo) > 1:
+                    log.warning("task %s (coefficient key %s, climate %s) failed (%s: %s); "
+                                "retrying its variants %s one by one", task.task_id,
+                                task.key[:16], task.climate, type(exc).__name__, exc,
+                                ", ".join(ids))
+                    for member, vid in zip(todo, ids, strict=True):
+                        retry = submit(task, [member], f"{task.task_id}-{vid}")
+                        futures[retry] = (task, [member])
+                        pending.add(retry)
+                elif isinstance(exc, KilledWorker):
+                    suspects.append((task, todo[0], ids[0]))
+                else:
+                    report(fut.key, task, ids, exc)
+                continue
+            done(result)
+        for task, member, vid in suspects:
+            fut = submit(task, [member], f"{task.task_id}-{vid}-alone")
+            try:
+                result = fut.result()
+            except Exception as exc:
+                report(fut.key, task, [vid], exc)
+                continue
+            done(result)
     for _key, fut in coefficient_futures.items():
         if fut.status == "finished":
             res = fut.result()

@@ -153,3 +153,17 @@ def test_real_coefficient_set_round_trip(tmp_path):
     assert back.key == coeffs.key and back.glazing_sets == coeffs.glazing_sets
     for name, array in coeffs.to_arrays().items():
         assert np.array_equal(getattr(back, name), array)
+
+
+def test_absent_entry_is_a_quiet_miss_and_discard_removes_whole_entries(tmp_path):
+    """An absent key is a miss without any warning (a reader polling a key that is
+    being published must not treat it as damaged); ``discard`` removes an entry
+    in one rename, leaving no trash behind."""
+    cache = CoefficientCache(tmp_path)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        assert cache.load_arrays("k") is None
+        cache.discard("k")  # absent: nothing to do
+    cache.save_arrays("k", arrays(), {})
+    cache.discard("k")
+    assert not cache.contains("k") and sorted(p.name for p in tmp_path.iterdir()) == []

@@ -351,3 +351,48 @@ def test_params_from_study_options():
     )
     assert (p.da_threshold, p.sda_time_fraction, p.sun_threshold) == (500.0, 0.75, 1200.0)
     assert p.step_hours == 0.25
+
+
+def _direct_counts(total, direct, shaded, m, p):
+    """The count definitions of the module docstring evaluated directly over whole arrays
+    (IES LM-83-12 shading rule, sDA, ASE; EN 17037:2018 grid shares; Reinhart & Walkenhorst
+    2001 DA; Nabil & Mardaljevic 2005 UDI), with no blocking or shared comparisons."""
+    occ, ana = m.occupied[..., None, :], m.analysis[..., None, :]
+    s = total.shape[-2]
+
+    def n(cond, mask):
+        return np.count_nonzero(cond & mask, axis=-1)
+
+    sunlit = direct > p.sun_threshold
+    closed = (np.count_nonzero(sunlit, axis=-2) * 50 > s) & m.analysis  # > 2 % of the grid
+    effective = np.where(closed[..., None, :], shaded, total)
+    out = {
+        "occ_da": n(total >= p.da_threshold, occ), "occ_udi_ge_e0": n(total >= 100, occ),
+        "occ_udi_ge_e1": n(total >= 300, occ), "occ_udi_gt_e2": n(total > 3000, occ),
+        "occ_sun": n(sunlit, occ), "ana_sda": n(effective >= 300, ana), "ana_ase": n(sunlit, ana),
+        "ana_shaded": np.count_nonzero(closed, axis=-1),
+        "occ_sum_lux": np.where(occ, total, 0).sum(-1, dtype=float),
+        "occ_cda_lux": np.where(occ, np.minimum(total, 300), 0).sum(-1, dtype=float),
+        "all_sum_lux": total.sum(-1, dtype=float),
+    }
+    for name, col, share in (("day_target_ok", 0, 0.5), ("day_minimum_ok", 1, 0.95)):
+        out[name] = np.stack([np.count_nonzero(
+            (np.count_nonzero(total >= lv[col], axis=-2) >= share * s) & m.daylight, axis=-1)
+            for lv in p.en17037_levels], -1)
+    return out
+
+
+@pytest.mark.parametrize("batch_masks", [False, True])
+def test_accumulate_equals_the_definitions_evaluated_directly(batch_masks):
+    # integer lux (float sums exact in any order) with many values on the thresholds
+    total, direct, shaded, _ = random_year(seed=11, batch=(3, 2), n_sensors=40, n_steps=300)
+    total[..., ::5] = np.round(total[..., ::5] / 100.0) * 100.0
+    direct = np.where(direct > 0, np.maximum(direct, 900.0), 0).astype(np.float32)
+    rng = np.random.default_rng(2)
+    shape = (3, 1, 300) if batch_masks else (300,)
+    m = StepMasks(rng.random(shape) < 0.6, rng.random(shape) < 0.7, rng.random(shape) < 0.8)
+    got = accumulate(None, total, direct, m, P, shaded)
+    want = _direct_counts(total, direct, shaded, m, P)
+    assert want["ana_shaded"].sum() > 0 and 0 < want["day_target_ok"].sum()
+    for key, value in want.items():
+        np.testing.assert_array_equal(got[key], value, err_msg=key)  # exact: integers

@@ -140,5 +140,5 @@ def test_store_missing_an_array_is_refused_as_damaged(tmp_path):
     path = tmp_path / "r.zarr"
     store.create_store(path, layout())
     shutil.rmtree(path / "daylight_factor")
-    with pytest.raises(ResultsStoreError, match="damaged.*daylight_factor.*delete"):
+    with pytest.raises(ResultsStoreError, match=r"damaged.*daylight_factor.*delete"):
         store.open_existing(path, "abc", ["daylight_factor", "sda"])
