@@ -384,8 +384,13 @@ def dask_client(workers: int | None, scheduler: str | None) -> Iterator[Any]:
     n = workers or os.cpu_count() or 1
     # loopback only, on a free port (the HTTP endpoints serve the dashboard when
     # bokeh is installed, and health/metrics pages otherwise); a task that kills
-    # its worker ALLOWED_FAILURES + 1 times fails (Dask's default is 3)
-    with dask.config.set({"distributed.scheduler.allowed-failures": ALLOWED_FAILURES}), \
+    # its worker ALLOWED_FAILURES + 1 times fails (Dask's default is 3); and a
+    # worker that is being restarted by its nanny when the lost-worker check
+    # fires (15 s by default) must not have its nanny closed for good, which
+    # a task killing fresh workers in a row could otherwise do to every worker
+    settings = {"distributed.scheduler.allowed-failures": ALLOWED_FAILURES,
+                "distributed.deploy.lost-worker-timeout": "1h"}
+    with dask.config.set(settings), \
             LocalCluster(n_workers=n, threads_per_worker=1, processes=True, host="127.0.0.1",
                          dashboard_address="127.0.0.1:0",
                          silence_logs=logging.CRITICAL) as cluster, \
@@ -510,6 +515,8 @@ def run_study(
         n_store = max(len(s) for s in plan.sensors)
 
         def submit(task: SeriesTask, todo: list[tuple[int, int, int]], key: str) -> Any:
+            # depend on the coefficient task only while it runs: once its set is
+            # cached, its future is released (see _collect)
             return client.submit(
                 series_task, task, todo, str(results), str(cache.root), n_store,
                 coefficient_futures.get(task.key), key=key, priority=0, pure=False, retries=0,
@@ -535,15 +542,19 @@ def _collect(futures: dict, submit: Any, coefficient_futures: dict, summary: Run
              show_progress: bool, as_completed: Any) -> RunSummary:
     """Gather the series tasks; retry the members of a failed group one by one.
 
-    When a group's task fails (an exception, or its worker died too often), each of
-    its pending members is submitted again as its own task (key
-    ``<task_id>-<variant_id>``), so that one poison variant cannot take the others
-    down with it; only members whose own task fails too are reported. A task that
-    failed because workers died may have been a bystander, queued on the worker
-    that another task killed: such one-member tasks run once more at the end, one
-    at a time on the otherwise idle cluster (key ``<task_id>-<variant_id>-alone``),
-    where only a task's own deaths count against it. When a group failed because
-    its coefficient set could not be computed, its members are reported at once.
+    When a group's task raises, each of its pending members is submitted again as
+    its own task (key ``<task_id>-<variant_id>``), so that one bad variant cannot
+    take the others down with it; only members whose own task fails too are
+    reported. When a task failed because workers died (``KilledWorker``), the
+    cause may be any task that shared those workers, so its members run again
+    one at a time at the end, alone on the cluster (key
+    ``<task_id>-<variant_id>-alone``), where only a task's own deaths count
+    against it: a poison variant then costs two rounds of worker deaths in all.
+    When a group failed because its coefficient set could not be computed, its
+    members are reported at once.
+
+    Finished futures are released as soon as they are read, so that a worker
+    dying later does not make Dask recompute them (and count them as suspects).
     """
     from distributed import KilledWorker
 
@@ -552,6 +563,19 @@ def _collect(futures: dict, submit: Any, coefficient_futures: dict, summary: Run
     progress = _progress() if show_progress else contextlib.nullcontext()
     t0 = time.perf_counter()
     suspects: list[tuple[SeriesTask, tuple[int, int, int], str]] = []
+    failed_sets: set[str] = set()
+
+    def harvest() -> None:
+        """Record and release the finished coefficient tasks."""
+        for key, fut in list(coefficient_futures.items()):
+            if fut.status == "finished":
+                res = fut.result()
+                summary.coefficient_sets_computed += int(res["computed"])
+                timing["coefficients"] += res["seconds"]
+                del coefficient_futures[key]
+                fut.release()
+            elif fut.status == "error":
+                failed_sets.add(key)
 
     def report(key: str, task: SeriesTask, ids: list[str], exc: Exception) -> None:
         summary.failed.setdefault(task.task_id, []).extend(ids)
@@ -574,12 +598,16 @@ def _collect(futures: dict, submit: Any, coefficient_futures: dict, summary: Run
         for fut in pending:
             task, todo = futures.pop(fut)
             ids = _variant_ids(task, todo)
+            harvest()
             try:
                 result = fut.result()
             except Exception as exc:
-                dep = coefficient_futures.get(task.key)
-                if dep is not None and dep.status == "error":
+                if task.key in failed_sets:
                     report(fut.key, task, ids, exc)
+                elif isinstance(exc, KilledWorker):
+                    log.warning("task %s failed (%s); its variants %s will run again one at "
+                                "a time at the end", fut.key, exc, ", ".join(ids))
+                    suspects += [(task, m, vid) for m, vid in zip(todo, ids, strict=True)]
                 elif len(todo) > 1:
                     log.warning("task %s (coefficient key %s, climate %s) failed (%s: %s); "
                                 "retrying its variants %s one by one", task.task_id,
@@ -589,25 +617,21 @@ def _collect(futures: dict, submit: Any, coefficient_futures: dict, summary: Run
                         retry = submit(task, [member], f"{task.task_id}-{vid}")
                         futures[retry] = (task, [member])
                         pending.add(retry)
-                elif isinstance(exc, KilledWorker):
-                    suspects.append((task, todo[0], ids[0]))
                 else:
                     report(fut.key, task, ids, exc)
                 continue
+            finally:
+                fut.release()
             done(result)
+        harvest()
         for task, member, vid in suspects:
             fut = submit(task, [member], f"{task.task_id}-{vid}-alone")
             try:
-                result = fut.result()
+                done(fut.result())
             except Exception as exc:
                 report(fut.key, task, [vid], exc)
-                continue
-            done(result)
-    for _key, fut in coefficient_futures.items():
-        if fut.status == "finished":
-            res = fut.result()
-            summary.coefficient_sets_computed += int(res["computed"])
-            timing["coefficients"] += res["seconds"]
+            finally:
+                fut.release()
     summary.timing = timing
     return summary
 
