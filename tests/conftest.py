@@ -162,6 +162,7 @@ def sentinel_scheduler() -> Iterator[Sentinel]:
 def short_dask_timeouts() -> Iterator[None]:
     """Make a stray connection attempt fail in seconds rather than hang."""
     import dask
+    import distributed  # noqa: F401  (loads distributed's config defaults first)
 
     with dask.config.set({"distributed.comm.timeouts.connect": "3s"}):
         yield

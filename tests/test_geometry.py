@@ -268,7 +268,7 @@ def test_obj_errors_name_file_line_and_group(tmp_path):
 
     with pytest.raises(GeometryError) as err:
         read_obj(DATA / "unit_box.obj", {**BOX_OBJ_MATERIALS, "roof": {"reflectance": 0.3}})
-    assert err.value.field == "roof" and "no faces" in str(err.value)
+    assert err.value.field == "materials.roof" and "no faces" in str(err.value)
 
     p = _write(tmp_path, "v 0 0 0\nv 1 0 0\nv 0 1 0\ng tri\nf 1 2 4\n")
     with pytest.raises(GeometryError) as err:
