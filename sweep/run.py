@@ -39,6 +39,7 @@ import itertools
 import logging
 import os
 import signal
+import threading
 import time
 import warnings
 from collections.abc import Iterator
@@ -141,6 +142,40 @@ def _blocks(n_steps: int, occupied: np.ndarray, series: bool, block: int) -> lis
     return [(a, b) for a, b in itertools.pairwise(edges) if b > a]
 
 
+_CLIMATE_STEPS: dict[tuple, tuple] = {}
+_CLIMATE_STEPS_MAX = 4
+_CLIMATE_STEPS_LOCK = threading.Lock()
+
+
+def _climate_steps(path: str | os.PathLike, step_minutes: int) -> tuple:
+    """The climate resampled to ``step_minutes``, its step stamps and the sun's
+    apparent altitude and azimuth [deg] at every step's representative time.
+
+    Kept per worker process for the last few (file, size, mtime, step): one worker
+    usually runs several series tasks of the same climate (one per coefficient
+    key), and reading, resampling and locating the sun is the same work each time.
+    """
+    from kernels.climate import read_climate
+    from kernels.sun import resample, solar_position, step_times
+
+    stat = os.stat(path)
+    key = (os.fspath(path), stat.st_size, stat.st_mtime_ns, step_minutes)
+    with _CLIMATE_STEPS_LOCK:
+        if key in _CLIMATE_STEPS:
+            return _CLIMATE_STEPS[key]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # reported once by the client's check
+        climate = resample(read_climate(path), step_minutes)
+    stamps, sun_times = step_times(climate, step_minutes)
+    altitude, azimuth = solar_position(sun_times, climate.site)
+    entry = (climate, stamps, altitude, azimuth)
+    with _CLIMATE_STEPS_LOCK:
+        if len(_CLIMATE_STEPS) >= _CLIMATE_STEPS_MAX:
+            _CLIMATE_STEPS.pop(next(iter(_CLIMATE_STEPS)))
+        _CLIMATE_STEPS[key] = entry
+    return entry
+
+
 def series_task(
     task: SeriesTask,
     todo: list[tuple[int, int, int]],
@@ -186,9 +221,8 @@ def _series(
 ) -> dict[str, Any]:
     """Body of :func:`series_task` (same parameters and result)."""
     from kernels import metrics as km
-    from kernels.climate import read_climate
     from kernels.sky import overcast_sky_vector, patch_scheme, sky_vectors
-    from kernels.sun import SunPoints, resample, solar_position, step_times
+    from kernels.sun import SunPoints
     from kernels.timeseries import daylight_factor, illuminance
 
     timing = {"load": 0.0, "sky": 0.0, "illuminance": 0.0, "metrics": 0.0, "write": 0.0}
@@ -197,13 +231,9 @@ def _series(
     if coeffs is None:
         raise RuntimeError(f"coefficient set {task.key} is missing from the cache {cache_root}")
     study = task.study
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")  # reported once by the client's check
-        climate = resample(read_climate(task.climate_file), study.timestep)
+    climate, stamps, altitude, azimuth = _climate_steps(task.climate_file, study.timestep)
     scheme = patch_scheme(coeffs.subdivision)
     sun_points = SunPoints(coeffs.settings.sun_spacing)
-    stamps, sun_times = step_times(climate, study.timestep)
-    altitude, azimuth = solar_position(sun_times, climate.site)
     daylight = altitude > 0.0
     occ = study.occupancy
     occupied = km.occupancy_mask(stamps, occ.start, occ.end, occ.days, study.timestep)
