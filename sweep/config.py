@@ -390,25 +390,10 @@ class Compute(_Model):
             raise ValueError(f"subdivision must be 1 (Tregenza 145) to 8, got {v}")
         return v
 
-    @field_validator("sky_rays_per_patch")
+    @field_validator("sky_rays_per_patch", "ground_rays", "element_rays", "sensor_rays")
     @classmethod
-    def _sky_rays(cls, v: int | None) -> int | None:
-        return _positive_count(v, "sky_rays_per_patch")
-
-    @field_validator("ground_rays")
-    @classmethod
-    def _ground_rays(cls, v: int | None) -> int | None:
-        return _positive_count(v, "ground_rays")
-
-    @field_validator("element_rays")
-    @classmethod
-    def _element_rays(cls, v: int | None) -> int | None:
-        return _positive_count(v, "element_rays")
-
-    @field_validator("sensor_rays")
-    @classmethod
-    def _sensor_rays(cls, v: int | None) -> int | None:
-        return _positive_count(v, "sensor_rays")
+    def _ray_count(cls, v: int | None, info: ValidationInfo) -> int | None:
+        return _positive_count(v, info.field_name)
 
     @field_validator("seed")
     @classmethod
