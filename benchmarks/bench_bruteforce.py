@@ -45,7 +45,6 @@ from __future__ import annotations
 
 import argparse
 import dataclasses
-import json
 import warnings
 from typing import Any
 
@@ -222,7 +221,4 @@ if __name__ == "__main__":
     parser.add_argument("--json", help="write the figures to this file")
     args = parser.parse_args()
     result = main()
-    print(json.dumps(result, indent=1))
-    if args.json:
-        with open(args.json, "w", encoding="utf-8") as fh:
-            json.dump(result, fh, indent=1)
+    bc.report(result, args.json)

@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import contextlib
 import gc
+import json
 import os
 import platform
 import shutil
@@ -212,6 +213,15 @@ def run_series(plan: Any, task: Any, results: Path, cache_root: Path) -> dict[st
 
 # ---------------------------------------------------------------------------
 # timing and environment
+
+
+def report(result: dict[str, Any], json_path: str | None, *, show: bool = True) -> None:
+    """Print a benchmark's figures as JSON and, when asked, write them to ``json_path``."""
+    if show:
+        print(json.dumps(result, indent=1))
+    if json_path:
+        with open(json_path, "w", encoding="utf-8") as fh:
+            json.dump(result, fh, indent=1)
 
 
 def timed(fn: Callable[[], Any]) -> tuple[float, Any]:

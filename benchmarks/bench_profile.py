@@ -15,7 +15,6 @@ from __future__ import annotations
 
 import argparse
 import cProfile
-import json
 import pstats
 from pathlib import Path
 from typing import Any
@@ -85,6 +84,4 @@ if __name__ == "__main__":
     args = parser.parse_args()
     result = main(Path(args.cache) if args.cache else None)
     _print(result)
-    if args.json:
-        with open(args.json, "w", encoding="utf-8") as fh:
-            json.dump(result, fh, indent=1)
+    bc.report(result, args.json, show=False)

@@ -23,7 +23,6 @@ gap is ray casting and how much is the numpy work around it. Goal ≥ 0.5.
 from __future__ import annotations
 
 import argparse
-import json
 import time
 from typing import Any
 
@@ -123,7 +122,4 @@ if __name__ == "__main__":
     parser.add_argument("--json", help="write the figures to this file")
     args = parser.parse_args()
     result = main()
-    print(json.dumps(result, indent=1))
-    if args.json:
-        with open(args.json, "w", encoding="utf-8") as fh:
-            json.dump(result, fh, indent=1)
+    bc.report(result, args.json)

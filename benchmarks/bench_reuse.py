@@ -23,7 +23,6 @@ Goal ≤ 0.01 each.
 from __future__ import annotations
 
 import argparse
-import json
 from pathlib import Path
 from typing import Any
 
@@ -95,7 +94,4 @@ if __name__ == "__main__":
     parser.add_argument("--cache", help="coefficient cache folder (shared between benchmarks)")
     args = parser.parse_args()
     result = main(Path(args.cache) if args.cache else None)
-    print(json.dumps(result, indent=1))
-    if args.json:
-        with open(args.json, "w", encoding="utf-8") as fh:
-            json.dump(result, fh, indent=1)
+    bc.report(result, args.json)

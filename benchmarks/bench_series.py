@@ -208,7 +208,4 @@ if __name__ == "__main__":
         print(json.dumps(memory_probe(Path(args.cache), Path(args.work), args.memory_probe)))
         sys.exit(0)
     result = main(Path(args.cache) if args.cache else None)
-    print(json.dumps(result, indent=1))
-    if args.json:
-        with open(args.json, "w", encoding="utf-8") as fh:
-            json.dump(result, fh, indent=1)
+    bc.report(result, args.json)

@@ -33,7 +33,6 @@ east, weather moved 61 days later in the year).
 from __future__ import annotations
 
 import argparse
-import json
 import logging
 import multiprocessing
 import os
@@ -191,7 +190,4 @@ if __name__ == "__main__":
                         help="also run the 1,600-variant throughput study")
     args = parser.parse_args()
     result = main(args.throughput)
-    print(json.dumps(result, indent=1))
-    if args.json:
-        with open(args.json, "w", encoding="utf-8") as fh:
-            json.dump(result, fh, indent=1)
+    bc.report(result, args.json)
