@@ -287,6 +287,23 @@ f 9 10 11 12
 """
 
 
+
+def sealed_room_study(name: str, vary: str) -> str:
+    """Study text for :data:`SEALED_ROOM` (as ``room.obj``) with the ``coastal``
+    climate of :func:`write_tiny_study`, cheap settings and the given ``vary:`` body."""
+    return (
+        f"name: {name}\n"
+        "climates: {coastal: climates/coastal.csv}\n"
+        "mesh: room.obj\n"
+        "materials:\n  floor: {reflectance: 0.2}\n  walls: {reflectance: 0.5}\n"
+        "  ceiling: {reflectance: 0.7}\n  glass: {glazing: main}\n"
+        "glazings: {main: {transmittance: 0.7, panes: 2}}\n"
+        "grid: {height: 0.8, spacing: 1.0, margin: 0.4, floors: [floor]}\n"
+        'compute: {"subdivision": 1, "sun_spacing": 10.0, "sky_rays_per_patch": 4, '
+        '"ground_rays": 16, "element_size": 1.5, "element_rays": 16, "sensor_rays": 32}\n'
+        f"vary: {vary}\n"
+    )
+
 @pytest.fixture
 def tiny_study(tmp_path: Path) -> Path:
     """A written tiny study (2 orientations × 2 climates × 2 transmittances = 8 variants)."""

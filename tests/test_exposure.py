@@ -18,7 +18,13 @@ import dask
 import psutil
 import pytest
 import zarr
-from conftest import SEALED_ROOM, luxsweep_process, run_luxsweep, write_tiny_study
+from conftest import (
+    SEALED_ROOM,
+    luxsweep_process,
+    run_luxsweep,
+    sealed_room_study,
+    write_tiny_study,
+)
 
 from sweep.run import dask_client, run_study
 
@@ -272,18 +278,7 @@ def test_path_like_variant_labels_do_not_become_paths(tmp_path):
     (project / "study" / "room.obj").write_text(SEALED_ROOM)
     (project / "elsewhere").mkdir()
     (project / "elsewhere" / "room.obj").write_text(SEALED_ROOM.replace("v 2 1.5 2", "v 2 1.5 2.2"))
-    study.write_text(
-        "name: label-paths\n"
-        "climates: {coastal: climates/coastal.csv}\n"
-        "mesh: room.obj\n"
-        "materials:\n  floor: {reflectance: 0.2}\n  walls: {reflectance: 0.5}\n"
-        "  ceiling: {reflectance: 0.7}\n  glass: {glazing: main}\n"
-        "glazings: {main: {transmittance: 0.7, panes: 2}}\n"
-        "grid: {height: 0.8, spacing: 1.0, margin: 0.4, floors: [floor]}\n"
-        'compute: {"subdivision": 1, "sun_spacing": 10.0, "sky_rays_per_patch": 4, '
-        '"ground_rays": 16, "element_size": 1.5, "element_rays": 16, "sensor_rays": 32}\n'
-        "vary: {mesh: [room.obj, ../elsewhere/room.obj]}\n"
-    )
+    study.write_text(sealed_room_study("label-paths", "{mesh: [room.obj, ../elsewhere/room.obj]}"))
     before = _tree(tmp_path)
     result = run_luxsweep("run", study, "--workers", "1", cwd=study.parent, timeout=300)
     assert result.code == 0, result.err

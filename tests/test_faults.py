@@ -28,6 +28,7 @@ from conftest import (
     SEALED_ROOM,
     assert_same_results,
     luxsweep_process,
+    sealed_room_study,
     store_files,
     write_tiny_study,
 )
@@ -352,18 +353,7 @@ def test_all_zero_variants_count_as_done_on_resume(tmp_path):
     write_tiny_study(folder)  # for the climate files
     (folder / "room.obj").write_text(SEALED_ROOM)
     study = folder / "sealed.yaml"
-    study.write_text(
-        "name: sealed-store-room\n"
-        "climates: {coastal: climates/coastal.csv}\n"
-        "mesh: room.obj\n"
-        "materials:\n  floor: {reflectance: 0.2}\n  walls: {reflectance: 0.5}\n"
-        "  ceiling: {reflectance: 0.7}\n  glass: {glazing: main}\n"
-        "glazings: {main: {transmittance: 0.7, panes: 2}}\n"
-        "grid: {height: 0.8, spacing: 1.0, margin: 0.4, floors: [floor]}\n"
-        'compute: {"subdivision": 1, "sun_spacing": 10.0, "sky_rays_per_patch": 4, '
-        '"ground_rays": 16, "element_size": 1.5, "element_rays": 16, "sensor_rays": 32}\n'
-        "vary: {orientation: [90, 180, 270]}\n"
-    )
+    study.write_text(sealed_room_study("sealed-store-room", "{orientation: [90, 180, 270]}"))
     out, cache = tmp_path / "results.zarr", tmp_path / "cache"
     first = run_study(study, out, workers=1, cache_dir=cache, show_progress=False)
     assert first.ok and first.written == 3
