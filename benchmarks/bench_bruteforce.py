@@ -186,7 +186,8 @@ def main() -> dict[str, Any]:
     brute_sun_a = passes[0][1]  # one ray to the sun: both passes agree
     noise_a = 0.5 * np.abs(passes[0][0] - passes[1][0])
 
-    sub = dataclasses.replace(sv, sky=sv.sky[:, :, hours], sun_index=sv.sun_index[:, hours],
+    sub = dataclasses.replace(sv, basis_sky=sv.basis_sky[:, :, hours],
+                              sun_index=sv.sun_index[:, hours],
                               sun_weight=sv.sun_weight[:, hours])
     route_sky = illuminance(sky_only, sub, np.ones((1, 1)))[0][0, 0]
     route_sun = illuminance(sun_only, sub, np.ones((1, 1)))[0][0, 0]

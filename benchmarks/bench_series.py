@@ -9,7 +9,7 @@ stage is the engine's own ``sweep.run.series_task`` run in this process (one
 Dask worker's work): sky vectors → illuminance → metrics, plus loading the
 coefficient set and writing the results, which are reported apart. The
 reference is the bare numpy matmuls of the same shapes: for every call the
-engine makes to :func:`kernels.timeseries.illuminance` (recorded by a wrapper
+engine makes to :func:`kernels.timeseries.unit_illuminance` (recorded by a wrapper
 that calls through), one float32 product (n_sensors × n_basis) @ (n_basis ×
 n_orient·n_steps) per glazing set, on random data. Goal: sky + illuminance +
 metrics ≤ 1.5 × the bare matmuls.
@@ -51,7 +51,7 @@ def series_study(folder: Path, timestep: int = 15) -> Path:
 
 
 class ShapeRecorder:
-    """Records the shapes of every ``kernels.timeseries.illuminance`` call (calls through)."""
+    """Records the shapes of every ``kernels.timeseries.unit_illuminance`` call (calls through)."""
 
     def __init__(self) -> None:
         self.calls: list[tuple[int, int, int, int, int]] = []
@@ -60,23 +60,24 @@ class ShapeRecorder:
     def __enter__(self) -> ShapeRecorder:
         import kernels.timeseries as ts
 
-        self._original = ts.illuminance
+        self._original = ts.unit_illuminance
 
-        def wrapper(coeffs: Any, sky: Any, transmittances: Any) -> Any:
-            n_o, n_b, n_t = np.shape(sky.sky)
+        def wrapper(coeffs: Any, sky: Any) -> Any:
+            n_o, n_b = np.shape(sky.basis_index)
+            n_t = np.shape(sky.basis_sky)[2]
             self.calls.append((coeffs.n_sensors, n_b, n_o, n_t, len(coeffs.glazing_sets)))
             t0 = time.perf_counter()
-            out = self._original(coeffs, sky, transmittances)
+            out = self._original(coeffs, sky)
             self.seconds += time.perf_counter() - t0
             return out
 
-        ts.illuminance = wrapper
+        ts.unit_illuminance = wrapper
         return self
 
     def __exit__(self, *exc: Any) -> None:
         import kernels.timeseries as ts
 
-        ts.illuminance = self._original
+        ts.unit_illuminance = self._original
 
 
 def bare_matmul_seconds(calls: list[tuple[int, int, int, int, int]], repeat: int = 2) -> float:

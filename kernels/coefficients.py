@@ -36,9 +36,27 @@ lies inside the three edge planes of some glazing triangle seen from its origin
 (1e-6 rad of slack, so it is conservative and Embree still decides every kept
 ray); for ``sky_direct`` whole sky patches are first tested as caps of
 directions (:func:`_patch_reach`), so the rays of patches that face away from a
-sensor or lie outside every window are never looked at. The results are those
-of testing every ray (``tests/test_coefficients.py`` checks both pre-tests
-against Embree and a brute-force ``sky_direct``).
+sensor or lie outside every window are never looked at, nor even turned into
+directions (``sample_directions(..., patches=kept)`` skips the other patches'
+draws). The results are those of testing every ray
+(``tests/test_coefficients.py`` checks both pre-tests against Embree and a
+brute-force ``sky_direct``).
+
+Speed (reference classroom of ``benchmarks/bench_coefficients.py``, 195
+sensors, default settings, one core, the same 14.7 M resolved rays; measured
+back to back, alternating processes, load 1–2): 1.52 s best / 1.95 s median
+before and 0.98 s best / 1.34 s median after the changes of the ray-kernel
+issue (``bench_rays.py`` ratio 0.47–0.57 → 0.77–0.80), with bit-identical
+arrays (``KERNEL_VERSION`` unchanged): directions only for kept
+patches, the transmittance path of the glazing optics alone, dense transfer
+matrices without a CSR round trip and a Fortran-ordered system for LAPACK,
+element and sensor rays traced in small pieces (far fewer fresh pages), the
+sun points and their interpolation kept per spacing (:func:`_sun_points`),
+and direct sun written straight into float32. About a quarter of the time is
+inside Embree; the dense LU of the radiosity system (0.15 s, see
+:func:`kernels.transfer.solve_radiosity` for why not an iteration) and the
+permutations of the Latin-hypercube strata (~0.1 s) are the largest parts
+outside it.
 
 Determinism: every random draw takes a seed derived from ``Settings.seed``
 and the stage, and sparse sums are accumulated in a fixed order, so the same
@@ -47,6 +65,7 @@ inputs give bit-identical arrays.
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import json
 from dataclasses import asdict, dataclass, fields
@@ -71,6 +90,7 @@ from kernels.transfer import (
 __all__ = ["CoefficientSet", "Settings", "coefficient_key", "compute_coefficients"]
 
 _RAYS_PER_BATCH = 1 << 20  # rays per ray-casting batch (bounds temporary memory)
+_INTERPOLATE_SENSORS = 16  # sensors per block of the sun_reflected interpolation
 MAX_EXTERIOR_ELEMENTS = 1500
 """Rough upper bound on the number of exterior elements (see ``_element_sizes``)."""
 _SENSOR_DECIMALS = 6  # sensor coordinates rounded to 1 µm in the key
@@ -420,9 +440,9 @@ def _sensor_sky_direct(scene: Any, sensors: np.ndarray, scheme: Any, settings: S
         owner, patch, parts = [], [], []
         for i in np.flatnonzero(keep.any(axis=1)):
             s = idx[i]
-            dirs = sample_directions(scheme, rpp, _seed(settings, _STREAM_SKY, s))
             kept = np.flatnonzero(keep[i])
-            parts.append(dirs[kept])
+            parts.append(sample_directions(scheme, rpp, _seed(settings, _STREAM_SKY, s),
+                                           patches=kept))
             owner.append(np.full(kept.size, s))
             patch.append(kept)
         if parts:
@@ -440,18 +460,19 @@ def _sensor_sky_direct(scene: Any, sensors: np.ndarray, scheme: Any, settings: S
 
 
 def _sun_direct(scene: Any, points: np.ndarray, normals: np.ndarray, exterior: np.ndarray,
-                sun: np.ndarray, panes: tuple[int, ...]) -> np.ndarray:
+                sun: np.ndarray, panes: tuple[int, ...], dtype: type = np.float64) -> np.ndarray:
     """Direct sun irradiance per unit E_dn on points (sensors or elements).
 
-    Returns ``(n_sets + 1, n_points, n_sun)``: through each glazing set for
-    interior points, and (last) unglazed for exterior points. Pairs with
+    Returns ``(n_sets + 1, n_points, n_sun)`` of ``dtype``: through each
+    glazing set for interior points, and (last) unglazed for exterior points
+    (only ``n_sets`` layers when no point is exterior). Pairs with
     ``n·s <= 0`` and, for interior points, suns outside every window
     (:func:`_window_mask`) are settled without Embree.
     """
     from kernels.raytrace import NO_GLAZING
 
     n_p, n_sun, n_sets = points.shape[0], sun.shape[0], len(panes)
-    out = np.zeros((n_sets + 1, n_p, n_sun))
+    out = np.zeros((n_sets + int(np.any(exterior)), n_p, n_sun), dtype=dtype)
     chunk = max(1, _RAYS_PER_BATCH // max(n_sun, 1))
     for start in range(0, n_p, chunk):
         idx = np.arange(start, min(start + chunk, n_p))
@@ -510,19 +531,19 @@ def _reflected(scene: Any, geometry: Any, sensors: np.ndarray, settings: Setting
     s_sun = _sun_direct(scene, points, el.normal, el.exterior, coarse_sun, panes)
     g_same, g_through = gather_matrix(scene, el, sensors[:, :3], sensors[:, 3:],
                                       settings.sensor_rays, _rng(settings, _STREAM_SENSOR),
-                                      panes, batch=_RAYS_PER_BATCH)
+                                      panes)
     f_same, f_through, s_sky_int, s_sky_ext = tr.same, tr.through, tr.sky_interior, tr.sky_exterior
 
     inner, outer = np.flatnonzero(~el.exterior), np.flatnonzero(el.exterior)
     rho = el.reflectance
-    source_ext = np.concatenate([s_sky_ext, s_sun[n_sets]], axis=1)[outer]
-    b_ext = solve_radiosity(f_same[outer][:, outer], rho[outer], source_ext)
+    if outer.size:
+        source_ext = np.concatenate([s_sky_ext[outer], s_sun[n_sets][outer]], axis=1)
+        b_ext = solve_radiosity(f_same[outer][:, outer], rho[outer], source_ext)
     everything = inner.size == el.n  # no exterior elements: no selections to copy
     if everything:
-        response = gather_radiosity(g_same.toarray(), f_same, rho)
+        response = gather_radiosity(g_same, f_same, rho)
     else:
-        response = gather_radiosity(g_same[:, inner].toarray(), f_same[inner][:, inner],
-                                    rho[inner])
+        response = gather_radiosity(g_same[:, inner], f_same[inner][:, inner], rho[inner])
     for g in range(n_sets):
         through = f_through[g][inner][:, outer] @ b_ext if outer.size else None
         for cols, first in ((slice(0, n_basis), s_sky_int[g]), (slice(n_basis, None), s_sun[g])):
@@ -560,6 +581,24 @@ def _check_sensors(sensors: np.ndarray) -> np.ndarray:
     return s
 
 
+@functools.lru_cache(maxsize=4)
+def _sun_points(fine_spacing: float, coarse_spacing: float
+                ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Fine and coarse sun points and the interpolation from coarse to fine.
+
+    Returns read-only ``(fine directions, coarse directions, index, weight)``
+    (:meth:`kernels.sun.SunPoints.weights` of the fine points on the coarse
+    ones); they depend on the two spacings only, so they are kept for the
+    next coefficient set of the process.
+    """
+    fine, coarse = SunPoints(fine_spacing), SunPoints(coarse_spacing)
+    index, weight = coarse.weights(fine.directions)
+    out = (fine.directions, coarse.directions, index, weight)
+    for a in out:
+        a.flags.writeable = False
+    return out
+
+
 def compute_coefficients(geometry: Any, sensors: np.ndarray,
                          settings: Settings | None = None) -> CoefficientSet:
     """Ray-trace the four coefficient families of a geometry.
@@ -581,30 +620,35 @@ def compute_coefficients(geometry: Any, sensors: np.ndarray,
     sensors = _check_sensors(sensors)
     key = coefficient_key(geometry, sensors, settings)
     scheme = patch_scheme(settings.subdivision)
-    fine = SunPoints(settings.sun_spacing)
-    coarse = SunPoints(max(settings.reflected_sun_spacing, settings.sun_spacing))
+    fine, coarse, index, weight = _sun_points(
+        float(settings.sun_spacing),
+        float(max(settings.reflected_sun_spacing, settings.sun_spacing)))
     scene = Scene(geometry)
     panes = tuple(int(p) for p in geometry.set_panes)
     n_sets, n_basis = len(panes), scheme.n_patches + 1
 
     sky_direct = _sensor_sky_direct(scene, sensors, scheme, settings, panes)
     inside = np.zeros(sensors.shape[0], dtype=bool)
-    sun_direct = _sun_direct(scene, sensors[:, :3], sensors[:, 3:], inside, fine.directions,
-                             panes)[:n_sets]
-    reflected = _reflected(scene, geometry, sensors, settings, scheme, coarse.directions, panes)
-    index, weight = coarse.weights(fine.directions)
+    sun_direct = _sun_direct(scene, sensors[:, :3], sensors[:, 3:], inside, fine, panes,
+                             np.float32)
+    reflected = _reflected(scene, geometry, sensors, settings, scheme, coarse, panes)
+    # barycentric interpolation onto the fine sun points, a few sensors at a time
     sun_coarse = reflected[:, :, n_basis:]
-    sun_reflected = sum(sun_coarse[:, :, index[:, m]] * weight[:, m] for m in range(3))
+    sun_reflected = np.empty((n_sets, sensors.shape[0], index.shape[0]), dtype=np.float32)
+    for first in range(0, sensors.shape[0], _INTERPOLATE_SENSORS):
+        part = slice(first, first + _INTERPOLATE_SENSORS)
+        sun_reflected[:, part] = sum(sun_coarse[:, part][:, :, index[:, m]] * weight[:, m]
+                                     for m in range(3))
     return CoefficientSet(
         key=key,
         glazing_sets=tuple(geometry.glazing_sets),
         sensors=sensors,
         subdivision=scheme.subdivision,
-        sun_directions=fine.directions.copy(),
+        sun_directions=fine.copy(),
         sky_direct=sky_direct.astype(np.float32),
         sky_reflected=reflected[:, :, :n_basis].astype(np.float32),
-        sun_direct=sun_direct.astype(np.float32),
-        sun_reflected=sun_reflected.astype(np.float32),
+        sun_direct=sun_direct,
+        sun_reflected=sun_reflected,
         settings=settings,
         kernel_version=kernels.KERNEL_VERSION,
     )

@@ -103,6 +103,7 @@ from __future__ import annotations
 import re
 from dataclasses import dataclass, field
 from fractions import Fraction
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -344,9 +345,9 @@ def _grid_rows(mask: np.ndarray, batch: tuple[int, ...], n_steps: int) -> np.nda
     return m.reshape(-1, n_steps)
 
 
-def _sensor_count(n_sensors: int) -> type:
-    """Narrowest exact accumulator for per-step counts of sensors (sums of 0/1 bytes)."""
-    return np.uint16 if n_sensors < 2**16 else np.int64
+FOLD_STEPS = 512
+"""Time steps folded together in :func:`accumulate`: a grid of 200 sensors × 512
+float32 steps (400 kB) and its work buffers stay in a core's L2 cache."""
 
 
 def accumulate(
@@ -356,6 +357,9 @@ def accumulate(
     masks: StepMasks,
     params: MetricParams,
     total_shaded: np.ndarray | None = None,
+    *,
+    transmittance: np.ndarray | None = None,
+    shaded_transmittance: np.ndarray | None = None,
 ) -> dict[str, np.ndarray]:
     """Fold one time chunk of illuminance into the additive counts.
 
@@ -364,7 +368,8 @@ def accumulate(
     counts : dict or None
         Counts of the chunks folded so far (updated and returned), or None to start.
     total : ndarray (..., n_sensors, n_steps) [lx]
-        Illuminance with operable shading open (all light).
+        Illuminance with operable shading open (all light). Any memory layout
+        (the engine passes time-major arrays as transposed views).
     direct_sun : ndarray (..., n_sensors, n_steps) [lx]
         The part of ``total`` from the sun's direct beam (shading open).
     masks : StepMasks
@@ -374,6 +379,17 @@ def accumulate(
     total_shaded : ndarray (..., n_sensors, n_steps) [lx], optional
         Illuminance with the operable shading closed (LM-83 sDA rule); None when
         the study has no operable shading.
+    transmittance : ndarray (n_variants,), optional
+        When given, ``total`` and ``direct_sun`` are the illuminance of a single
+        glazing set at unit normal transmittance and each variant v is folded as
+        ``transmittance[v] × total`` (illuminance is linear in the transmittance,
+        DESIGN §2.6): the counts gain a trailing variant axis, batch
+        ``(..., n_variants)``. The products are formed grid by grid in a small
+        buffer, exactly as the caller would form them (same float32 rounding).
+    shaded_transmittance : ndarray (n_variants,), optional
+        With ``transmittance``: the closed-shading transmittance of each variant
+        (the LM-83 closed state is ``shaded_transmittance[v] × total``), instead
+        of ``total_shaded``.
 
     Returns
     -------
@@ -382,106 +398,146 @@ def accumulate(
 
     Notes
     -----
-    One grid (``(n_sensors, n_steps)``) is folded at a time so that every pass
-    over it runs from the CPU cache; each distinct threshold is compared once
-    per grid (into preallocated buffers, in the arrays' own precision). Counts
-    over masked steps and lux sums are matrix–vector products of 0/1
-    indicators (or the illuminance) with the 0/1 step masks: integer counts are
-    exact (below 2**24 steps per chunk in float32), lux sums are accumulated in
-    the arrays' precision within a chunk and in float64 across chunks (exact
-    for integer lux below 2**24 lx·steps per sensor and chunk; relative
-    rounding of a few 1e-7 otherwise).
+    One grid (``(n_sensors, n_steps)``) is folded at a time, in pieces of
+    :data:`FOLD_STEPS` steps so that every pass over it runs from the CPU
+    cache; each distinct threshold is compared once per piece (into
+    preallocated buffers laid out like the input, in the arrays' own
+    precision). Counts over masked steps and lux sums are matrix–vector
+    products of 0/1 indicators (or the illuminance) with the 0/1 step masks:
+    integer counts are exact (below 2**24 steps per chunk in float32), lux sums
+    are accumulated in the arrays' precision within a piece and in float64
+    across pieces (exact for integer lux below 2**24 lx·steps per sensor and
+    piece; relative rounding of a few 1e-7 otherwise).
     """
     counts = {} if counts is None else counts
-    _step_counts(counts, masks)
     e0, e1, e2 = params.udi_edges
     n_sensors, n_steps = total.shape[-2:]
-    batch = np.broadcast_shapes(
+    scaled = transmittance is not None
+    if scaled and total_shaded is not None:
+        raise ValueError("with transmittance, give shaded_transmittance instead of total_shaded")
+    dtype = np.result_type(total.dtype, np.float32)
+    tau = np.atleast_1d(np.asarray(transmittance if scaled else 1.0, dtype=dtype))
+    tau_shut = (None if shaded_transmittance is None
+                else np.atleast_1d(np.asarray(shaded_transmittance, dtype=dtype)))
+    grid_batch = np.broadcast_shapes(
         total.shape[:-2], *(np.shape(m)[:-1] for m in (masks.occupied, masks.analysis,
                                                        masks.daylight)))
-    dtype = np.result_type(total.dtype, np.float32)
-    grids = [np.broadcast_to(a, (*batch, n_sensors, n_steps)).reshape(-1, n_sensors, n_steps)
+    batch = (*grid_batch, tau.size) if scaled else grid_batch
+    # masks may vary per grid, never per variant: their counts broadcast over variants
+    _step_counts(counts, StepMasks(*(np.expand_dims(m, -2) if scaled and np.ndim(m) > 1 else m
+                                     for m in (masks.occupied, masks.analysis, masks.daylight))))
+    grids = [np.broadcast_to(a, (*grid_batch, n_sensors, n_steps)).reshape(-1, n_sensors, n_steps)
              for a in (total, direct_sun) + (() if total_shaded is None else (total_shaded,))]
-    occ, ana, day = (_grid_rows(m, batch, n_steps)
+    occ, ana, day = (_grid_rows(m, grid_batch, n_steps)
                      for m in (masks.occupied, masks.analysis, masks.daylight))
     n_grids = grids[0].shape[0]
+    n_out = n_grids * tau.size
 
     # the distinct comparisons on ``total``: (threshold, strictly above?)
     def key(x: float, strict: bool = False) -> tuple[float, bool]:
-        return (float(dtype.type(x)), strict)
+        return (float(x), strict)
 
     k_da, k_e0, k_e1, k_e2 = key(params.da_threshold), key(e0), key(e1), key(e2, True)
-    k_sda = key(params.sda_threshold)
+    k_sda, k_sun = key(params.sda_threshold), key(params.sun_threshold, True)
     levels = [(key(t), key(m)) for t, m in params.en17037_levels]
     per_sensor = {k_da, k_e0, k_e1, k_e2}  # counted over occupied steps
     per_step = {k for pair in levels for k in pair}  # counted over sensors
-    x_da = dtype.type(params.da_threshold)
-    x_sun = dtype.type(params.sun_threshold)
+    compared = sorted(per_sensor | per_step | {k_sda})
+    # per variant, the unit-illuminance level at which each comparison turns true: (n_v, 1, 1)
+    limit = {k: np.array([_first_passing(k[0], t, k[1], dtype) for t in tau],
+                         dtype=dtype)[:, None, None] for k in [*compared, k_sun]}
+    limit_shut = (None if tau_shut is None else
+                  np.array([_first_passing(k_sda[0], t, False, dtype) for t in tau_shut]))
+    x_da = float(params.da_threshold)
     shade_num, shade_den = _ratio(params.shading_sensor_fraction)
     target_num, target_den = _ratio(params.en17037_target_area)
     minimum_num, minimum_den = _ratio(params.en17037_minimum_area)
-    acc = _sensor_count(n_sensors)
 
-    out_sensor = {name: np.zeros((n_grids, n_sensors), np.int64) for name in (
+    out_sensor = {name: np.zeros((n_out, n_sensors), np.int64) for name in (
         "occ_da", "occ_udi_ge_e0", "occ_udi_ge_e1", "occ_udi_gt_e2", "occ_sun",
         "ana_sda", "ana_ase")}
-    out_lux = {name: np.zeros((n_grids, n_sensors), np.float64)
+    out_lux = {name: np.zeros((n_out, n_sensors), np.float64)
                for name in ("occ_cda_lux", "occ_sum_lux", "all_sum_lux")}
-    out_shaded = np.zeros(n_grids, np.int64)
-    out_target = np.zeros((n_grids, len(levels)), np.int64)
-    out_minimum = np.zeros((n_grids, len(levels)), np.int64)
+    out_shaded = np.zeros(n_out, np.int64)
+    out_target = np.zeros((n_out, len(levels)), np.int64)
+    out_minimum = np.zeros((n_out, len(levels)), np.int64)
 
-    flag = np.empty((n_sensors, n_steps), dtype=bool)
-    ind = np.empty((n_sensors, n_steps), dtype=dtype)
-    work = np.empty((n_sensors, n_steps), dtype=dtype)
-    cap = np.full(n_steps, x_da, dtype=dtype)
-    steps = np.empty((n_steps, 3), dtype=dtype)  # columns: occupied, analysis, every step
-    steps[:, 2] = 1.0
-    for g in range(n_grids):
-        e, d = grids[0][g], grids[1][g]
-        steps[:, 0], steps[:, 1] = occ[g], ana[g]
-        sensor_counts: dict[tuple[float, bool], np.ndarray] = {}
+    n_v = tau.size
+    width = min(FOLD_STEPS, n_steps)
+    like = grids[0][0][:, :width]  # buffers follow the input's memory layout
+    order = [0, *(1 + np.argsort(like.strides)[::-1])]
+    shape = (n_v, n_sensors, width)
+    ind, work = (np.empty([shape[i] for i in order], dtype=dtype).transpose(np.argsort(order))
+                 for _ in range(2))
+    every_sensor = np.ones(n_sensors, dtype=dtype)
+    step_vec = np.empty((3, width), dtype=dtype)  # rows: occupied, analysis, every step
+    tau64 = tau.astype(np.float64)[:, None]
+
+    def fold(rows: slice, e: np.ndarray, d: np.ndarray | None, shut_e: np.ndarray | None,
+             m_occ: np.ndarray, m_ana: np.ndarray, ana_g: np.ndarray, day_g: np.ndarray
+             ) -> None:
+        """Count every variant of one piece (n_sensors, w) of a grid into output ``rows``."""
+        w = e.shape[1]
+        ix, wk = ind[:, :, :w], work[:, :, :w]  # (n_v, S, w)
         step_counts: dict[tuple[float, bool], np.ndarray] = {}
-        for k in sorted(per_sensor | per_step | {k_sda}):
-            (np.greater if k[1] else np.greater_equal)(e, dtype.type(k[0]), out=flag)
+        for k in compared:
+            np.greater_equal(e, limit[k], out=ix, casting="unsafe")  # 0/1 indicators
             if k in per_step:
-                step_counts[k] = flag.view(np.uint8).sum(axis=0, dtype=acc)
+                step_counts[k] = (every_sensor @ ix).astype(np.int64)  # (n_v, w)
             if k in per_sensor or k == k_sda:
-                np.copyto(ind, flag, casting="unsafe")
-                sensor_counts[k] = ind @ steps[:, :2]  # (S, 2): occupied, analysis
-        for name, k in (("occ_da", k_da), ("occ_udi_ge_e0", k_e0), ("occ_udi_ge_e1", k_e1),
-                        ("occ_udi_gt_e2", k_e2)):
-            out_sensor[name][g] = sensor_counts[k][:, 0]
-        # min(E, x) summed in lux (divided by x at the end); the plain lux sums
-        np.minimum(e, cap, out=work)
-        out_lux["occ_cda_lux"][g] = work @ steps[:, 0]
-        sums = e @ steps[:, [0, 2]]
-        out_lux["occ_sum_lux"][g], out_lux["all_sum_lux"][g] = sums[:, 0], sums[:, 1]
+                n_occ = ix @ m_occ  # (n_v, S)
+                for name, kk in (("occ_da", k_da), ("occ_udi_ge_e0", k_e0),
+                                 ("occ_udi_ge_e1", k_e1), ("occ_udi_gt_e2", k_e2)):
+                    if kk == k:
+                        out_sensor[name][rows] += n_occ.astype(np.int64)
+                if k == k_sda and shut_e is None and limit_shut is None:
+                    out_sensor["ana_sda"][rows] += (ix @ m_ana).astype(np.int64)
+                if k == k_da:  # Σ min(τE, x) = Σ τE − Σ_{τE ≥ x} τE + x·#(τE ≥ x)
+                    np.multiply(e, ix, out=wk)
+                    out_lux["occ_cda_lux"][rows] += x_da * n_occ - tau64 * (wk @ m_occ)
 
         # IES LM-83-12: shading rule, sDA and ASE over the analysis steps
-        np.greater(d, x_sun, out=flag)
-        n_sunlit = flag.view(np.uint8).sum(axis=0, dtype=acc).astype(np.int64)
-        np.copyto(ind, flag, casting="unsafe")
-        sun = ind @ steps[:, :2]
-        out_sensor["occ_sun"][g], out_sensor["ana_ase"][g] = sun[:, 0], sun[:, 1]
-        closed = (n_sunlit * shade_den > n_sensors * shade_num) & ana[g]
-        if total_shaded is not None and closed.any():
-            shut = np.flatnonzero(closed)
-            np.copyto(work, e)
-            work[:, shut] = grids[2][g][:, shut]
-            np.greater_equal(work, dtype.type(k_sda[0]), out=flag)
-            np.copyto(ind, flag, casting="unsafe")
-            out_sensor["ana_sda"][g] = ind @ steps[:, 1]
-            out_shaded[g] = shut.size
-        else:
-            out_sensor["ana_sda"][g] = sensor_counts[k_sda][:, 1]
+        closed = None
+        if d is not None:
+            np.greater_equal(d, limit[k_sun], out=ix, casting="unsafe")
+            n_sunlit = (every_sensor @ ix).astype(np.int64)  # (n_v, w)
+            out_sensor["occ_sun"][rows] += (ix @ m_occ).astype(np.int64)
+            out_sensor["ana_ase"][rows] += (ix @ m_ana).astype(np.int64)
+            closed = (n_sunlit * shade_den > n_sensors * shade_num) & ana_g
+        if shut_e is not None or limit_shut is not None:
+            edge = np.broadcast_to(limit[k_sda][:, :, 0], (n_v, w)).copy()  # per step
+            if closed is not None and limit_shut is not None:
+                edge = np.where(closed, limit_shut[:, None], edge)
+            np.greater_equal(e, edge[:, None, :], out=ix, casting="unsafe")
+            if closed is not None and shut_e is not None:  # closed steps from the shaded grid
+                for v, shut in enumerate(closed):
+                    ix[v][:, shut] = shut_e[:, shut] >= limit[k_sda][v]
+            if closed is not None:
+                out_shaded[rows] += np.count_nonzero(closed, axis=1)
+            out_sensor["ana_sda"][rows] += (ix @ m_ana).astype(np.int64)
 
         # EN 17037:2018 daylight provision, per daylight step and level
         for i, (kt, km) in enumerate(levels):
-            ok_t = step_counts[kt].astype(np.int64) * target_den >= n_sensors * target_num
-            ok_m = step_counts[km].astype(np.int64) * minimum_den >= n_sensors * minimum_num
-            out_target[g, i] = np.count_nonzero(ok_t & day[g])
-            out_minimum[g, i] = np.count_nonzero(ok_m & day[g])
+            ok_t = step_counts[kt] * target_den >= n_sensors * target_num
+            ok_m = step_counts[km] * minimum_den >= n_sensors * minimum_num
+            out_target[rows, i] += np.count_nonzero(ok_t & day_g, axis=1)
+            out_minimum[rows, i] += np.count_nonzero(ok_m & day_g, axis=1)
+
+    for g in range(n_grids):
+        rows = slice(g * n_v, (g + 1) * n_v)
+        for lo in range(0, n_steps, width):
+            hi = min(lo + width, n_steps)
+            e, d = grids[0][g][:, lo:hi], grids[1][g][:, lo:hi]
+            shut_e = grids[2][g][:, lo:hi] if total_shaded is not None else None
+            m_occ, m_ana, m_all = step_vec[:, : hi - lo]
+            m_occ[:], m_ana[:], m_all[:] = occ[g, lo:hi], ana[g, lo:hi], 1.0
+            sum_occ, sum_all = (e @ m_occ).astype(np.float64), (e @ m_all).astype(np.float64)
+            out_lux["occ_sum_lux"][rows] += tau64 * sum_occ
+            out_lux["all_sum_lux"][rows] += tau64 * sum_all
+            out_lux["occ_cda_lux"][rows] += tau64 * sum_occ
+            lit = bool(np.any(d))  # no direct sun in the piece: nothing to count or close
+            fold(rows, e, d if lit else None, shut_e, m_occ, m_ana, ana[g, lo:hi],
+                 day[g, lo:hi])
 
     for name, value in (*out_sensor.items(), *out_lux.items()):
         _add(counts, name, value.reshape(*batch, n_sensors))
@@ -489,6 +545,30 @@ def accumulate(
     _add(counts, "day_target_ok", out_target.reshape(*batch, len(levels)))
     _add(counts, "day_minimum_ok", out_minimum.reshape(*batch, len(levels)))
     return counts
+
+
+def _first_passing(x: float, tau: float, strict: bool, dtype: np.dtype) -> float:
+    """The smallest unit illuminance u with ``fl(tau·u) ≥ x`` (``> x`` when strict).
+
+    ``fl`` is rounding to ``dtype``: comparing u with this level gives the same
+    answer as forming ``tau × u`` in ``dtype`` and comparing with ``x`` (the
+    rounded product never decreases as u grows), so variants that scale one
+    illuminance series are counted without forming their series.
+    """
+    t, x = dtype.type(tau), dtype.type(x)
+    if not t > 0:
+        return float("inf")
+
+    def passes(u: Any) -> bool:
+        return bool(t * u > x) if strict else bool(t * u >= x)
+
+    u = dtype.type(float(x) / float(t))
+    down, up = dtype.type(-np.inf), dtype.type(np.inf)
+    while passes(np.nextafter(u, down)):
+        u = np.nextafter(u, down)
+    while not passes(u):
+        u = np.nextafter(u, up)
+    return float(u)
 
 
 def accumulate_dark(

@@ -168,8 +168,11 @@ class Scene:
         self._normals = np.ascontiguousarray(geometry.normals)
         self._is_glazing = np.asarray(glz, dtype=bool)
         self._glazing_normals = self._normals[self.glazing_index]
+        # all glazing in one plane orientation (one window, or coplanar ones): one normal row
+        same = self.glazing_index.size > 0 and bool(
+            np.all(self._glazing_normals == self._glazing_normals[:1]))
+        self._one_glazing_normal = self._glazing_normals[:1] if same else None
         self._glazing_set = geometry.glazing_set_index[self.glazing_index]
-        self._set_of_triangle = geometry.glazing_set_index.astype(np.int32)
 
     def __reduce__(self) -> tuple:
         return (Scene, (self.geometry, self.epsilon))
@@ -218,6 +221,20 @@ class Scene:
         if self._opaque is None or o.shape[0] == 0:
             return np.zeros(o.shape[0], dtype=bool)
         return _run(self._opaque, o, d, "OCCLUDED") >= 0
+
+    def _glazing_cos(self, d: np.ndarray, rays: np.ndarray, k: np.ndarray) -> np.ndarray:
+        """``_abs_cos(d[rays], normals of glazing triangles k)`` (k: glazing-scene index).
+
+        With a single glazing normal the normal is broadcast instead of
+        gathered per ray, and for most of the rays the cosine is taken over
+        all of them before the selection (element by element, the same bits).
+        """
+        one = self._one_glazing_normal
+        if one is None:
+            return _abs_cos(d[rays], self._glazing_normals[k])
+        if 4 * rays.size > d.shape[0]:
+            return _abs_cos(d, one)[rays]
+        return _abs_cos(d[rays], one)
 
     # ------------------------------------------------------------- queries
 
@@ -296,7 +313,7 @@ class Scene:
         if hit.size:
             k = prim[hit]
             gset[hit] = self._glazing_set[k]
-            cos[hit] = _abs_cos(d[hit], self._glazing_normals[k])
+            cos[hit] = self._glazing_cos(d, hit, k)
         return gset, cos, dist + self.epsilon
 
     def exit_glazing(
@@ -325,11 +342,15 @@ class Scene:
             return gset, cos
         prim = _run(self._glazing, o, d, "INTERSECT")
         cross = np.flatnonzero(prim >= 0)
-        if cross.size:
+        if cross.size == n:  # every ray crosses glazing (the caller culled the others)
+            free = np.flatnonzero(~self._blocked(o, d))
+        elif cross.size:
             free = cross[~self._blocked(o[cross], d[cross])]
-            k = prim[free]
-            gset[free] = self._glazing_set[k]
-            cos[free] = _abs_cos(d[free], self._glazing_normals[k])
+        else:
+            return gset, cos
+        k = prim[free]
+        gset[free] = self._glazing_set[k]
+        cos[free] = self._glazing_cos(d, free, k)
         return gset, cos
 
     def sky_view(
@@ -364,7 +385,7 @@ class Scene:
             cross = prim >= 0
             k = prim[cross]
             code[free[cross]] = self._glazing_set[k]
-            cos[free[cross]] = _abs_cos(d[free[cross]], self._glazing_normals[k])
+            cos[free[cross]] = self._glazing_cos(d, free[cross], k)
         return code, cos
 
     def trace(self, origins: np.ndarray, directions: np.ndarray, unit: bool = False) -> Hits:
@@ -400,9 +421,9 @@ class Scene:
         prim, u, v, t, ng = res["primID"], res["u"], res["v"], res["tfar"], res["Ng"]
         glass = np.flatnonzero(prim >= self._n_opaque)
         if glass.size:
-            k = self.glazing_index[prim[glass] - self._n_opaque]
-            glazing[glass] = self._set_of_triangle[k]
-            cos[glass] = _abs_cos(d[glass], self._normals[k])
+            local = prim[glass] - self._n_opaque
+            glazing[glass] = self._glazing_set[local]
+            cos[glass] = self._glazing_cos(d, glass, local)
             if self._opaque is None:
                 prim[glass] = -1
             else:

@@ -226,7 +226,8 @@ def _jittered_unit_square(n: int, count: int, rng: np.random.Generator) -> np.nd
     return np.stack([(i + jitter[..., 0]) / rows, (j + jitter[..., 1]) / cols], -1)
 
 
-def sample_directions(scheme: PatchScheme, n_per_patch: int, seed: int) -> np.ndarray:
+def sample_directions(scheme: PatchScheme, n_per_patch: int, seed: int,
+                      patches: np.ndarray | None = None) -> np.ndarray:
     """Stratified directions uniform in solid angle inside every patch.
 
     Parameters
@@ -238,20 +239,50 @@ def sample_directions(scheme: PatchScheme, n_per_patch: int, seed: int) -> np.nd
         angle (Archimedes' hat-box theorem).
     seed : int
         Seed of ``numpy.random.default_rng``.
+    patches : array_like of int, optional
+        Patches to return (indices into the scheme, any order, repeats
+        allowed). The result is exactly
+        ``sample_directions(scheme, n_per_patch, seed)[patches]``, bit for
+        bit, at the cost of the selected patches only: the generator skips
+        the draws of the other patches (``PCG64.advance``; one 64-bit draw
+        per uniform double) instead of making them.
 
     Returns
     -------
-    ndarray (n_patches, n_per_patch, 3)
+    ndarray (n_patches, n_per_patch, 3), or (len(patches), n_per_patch, 3)
         Unit vectors, building frame.
     """
+    n = int(n_per_patch)
     rng = np.random.default_rng(seed)
-    uv = _jittered_unit_square(int(n_per_patch), scheme.n_patches, rng)
-    s_lo = np.sin(np.radians(scheme.altitude_low))[:, None]
-    s_hi = np.sin(np.radians(scheme.altitude_high))[:, None]
-    sin_alt = s_lo + uv[..., 0] * (s_hi - s_lo)
-    az = scheme.azimuth_low[:, None] + uv[..., 1] * (
-        scheme.azimuth_high - scheme.azimuth_low
-    )[:, None]
+    # the strata and draws of _jittered_unit_square: 2 n uniform draws per patch, in order
+    rows, cols = _grid_shape(n)
+    i, j = np.divmod(np.arange(n), cols)
+    if patches is None:
+        sel = slice(None)
+        jitter = rng.random((scheme.n_patches, n, 2))
+    else:
+        sel = np.asarray(patches, dtype=np.int64).reshape(-1)
+        step = np.diff(sel)
+        ordered = bool(np.all(step > 0))  # increasing, no repeats: no sorting needed
+        wanted, back = (sel, None) if ordered else np.unique(sel, return_inverse=True)
+        if wanted.size and not 0 <= wanted[0] <= wanted[-1] < scheme.n_patches:
+            raise IndexError(f"patches must lie in 0 … {scheme.n_patches - 1}")
+        # runs of consecutive patches: skip to each run, then draw it
+        cut = np.flatnonzero((step if ordered else np.diff(wanted)) != 1) + 1
+        parts, last = [], 0
+        for run in np.split(wanted, cut) if wanted.size else ():
+            rng.bit_generator.advance(2 * n * (int(run[0]) - last))
+            parts.append(rng.random((run.size, n, 2)))
+            last = int(run[-1]) + 1
+        jitter = np.concatenate(parts) if parts else np.zeros((0, n, 2))
+        if back is not None:
+            jitter = jitter[back]
+    u, v = (i + jitter[..., 0]) / rows, (j + jitter[..., 1]) / cols
+    s_lo = np.sin(np.radians(scheme.altitude_low[sel]))[:, None]
+    s_hi = np.sin(np.radians(scheme.altitude_high[sel]))[:, None]
+    sin_alt = s_lo + u * (s_hi - s_lo)
+    az_lo, az_hi = scheme.azimuth_low[sel], scheme.azimuth_high[sel]
+    az = az_lo[:, None] + v * (az_hi - az_lo)[:, None]
     return _direction_sin(az, sin_alt)
 
 
@@ -882,18 +913,35 @@ of its records in hundreds of lux, which this guard catches."""
 class SkyVectors:
     """Sky and sun sources of every time step for several building orientations.
 
+    The sky is stored once per *orientation class*: orientations whose patches
+    fall on the same set of site-frame directions (they differ by a multiple of
+    every band's patch width, e.g. any multiple of 30° at MF2) see the same sky,
+    only listed in another order. ``basis_sky[c]`` holds class ``c``'s patch
+    values, and ``basis_index[k]`` says which row is orientation ``k``'s
+    building-frame patch ``j``, so that
+
+        sky[k, j, t] = basis_sky[orientation_class[k], basis_index[k, j], t]
+
+    (:attr:`sky` builds that array on demand; the illuminance kernel gathers
+    rows itself and never needs it).
+
     Attributes
     ----------
     orientations : ndarray (k,) [deg]
-        Site azimuth of the front façade's outward normal, per row of ``sky``.
+        Site azimuth of the front façade's outward normal, per orientation.
     time : pandas.DatetimeIndex (n_steps,)
         Step-ending stamps, local standard time.
     sun_altitude : ndarray (n_steps,) [deg]
         Apparent solar altitude at each step's representative sun time.
     daylight : ndarray (n_steps,) bool
         The sun is above the horizon (``sun_altitude > 0``).
-    sky : ndarray float32 (k, n_patches + 1, n_steps) [lx]
-        L_j Ω_j of every patch (building frame), the ground last.
+    basis_sky : ndarray float32 (n_classes, n_patches + 1, n_steps) [lx]
+        L_j Ω_j of the patches of each orientation class, the ground last.
+    basis_index : ndarray int64 (k, n_patches + 1)
+        Row of ``basis_sky[orientation_class[k]]`` holding building patch j of
+        orientation k (the ground maps to the last row).
+    orientation_class : ndarray int64 (k,)
+        Class of each orientation.
     sun_index : ndarray int32 (k, n_steps, 3)
         The three sun points holding the sun (building frame).
     sun_weight : ndarray float32 (k, n_steps, 3) [lx]
@@ -908,7 +956,9 @@ class SkyVectors:
     time: pd.DatetimeIndex
     sun_altitude: np.ndarray
     daylight: np.ndarray
-    sky: np.ndarray
+    basis_sky: np.ndarray
+    basis_index: np.ndarray
+    orientation_class: np.ndarray
     sun_index: np.ndarray
     sun_weight: np.ndarray
     global_horizontal_illuminance: np.ndarray
@@ -919,6 +969,19 @@ class SkyVectors:
     def n_steps(self) -> int:
         """Number of time steps."""
         return int(self.sun_altitude.size)
+
+    @functools.cached_property
+    def sky(self) -> np.ndarray:
+        """L_j Ω_j of every building-frame patch, ground last.
+
+        float32 (k, n_patches + 1, n_steps) [lx], built from the class arrays.
+        """
+        k, n_basis = self.basis_index.shape
+        out = np.empty((k, n_basis, self.basis_sky.shape[2]), dtype=np.float32)
+        for o in range(k):
+            np.take(self.basis_sky[self.orientation_class[o]], self.basis_index[o], axis=0,
+                    out=out[o])
+        return out
 
 
 REFINE_BANDS = 1.5
@@ -931,52 +994,16 @@ mean / max: MF1 0.33 % / 0.76 % (0.61 % / 1.8 % without refinement), MF2
 0.10 % / 0.22 %, MF4 0.03 % / 0.06 %."""
 
 
-@functools.lru_cache(maxsize=8)
-def _near_patches_of(subdivision: int, radius: float) -> np.ndarray:
-    """:func:`_near_patches` of ``patch_scheme(subdivision)``, kept per process (read-only)."""
-    out = _near_patches(patch_scheme(subdivision), radius)
-    out.flags.writeable = False
-    return out
+def _site_basis(
+    scheme: PatchScheme, orientations: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Distinct site-frame patches over several orientations.
 
-
-def _near_patches(scheme: PatchScheme, radius: float) -> np.ndarray:
-    """For each patch p, the patches whose centre can lie within ``radius`` of a sun in p.
-
-    Returns (n_patches, M) int, padded with −1: all j with
-    angle(centre_j, centre_p) ≤ radius + r_p, r_p the largest angle from p's
-    centre to its corners (the cap: its radius).
-    """
-    corners = np.stack(
-        [
-            _direction(az, alt)
-            for az in (scheme.azimuth_low, scheme.azimuth_high)
-            for alt in (scheme.altitude_low, scheme.altitude_high)
-        ],
-        1,
-    )  # (P, 4, 3)
-    cos_corner = np.einsum("pci,pi->pc", corners, scheme.centres).min(1)
-    r_p = np.degrees(np.arccos(np.clip(cos_corner, -1.0, 1.0)))
-    cap = scheme.altitude_high - scheme.altitude_low
-    r_p = np.where(scheme.azimuth_high - scheme.azimuth_low >= 360.0, cap, r_p)
-    cos_pj = scheme.centres @ scheme.centres.T
-    inside = cos_pj >= np.cos(np.radians(radius + r_p + 1e-6))[:, None]
-    width = int(inside.sum(1).max())
-    out = np.full((scheme.n_patches, width), -1, dtype=np.int64)
-    rows, cols = np.nonzero(inside)
-    slot = np.arange(rows.size) - np.searchsorted(rows, rows)
-    out[rows, slot] = cols
-    return out
-
-
-def _site_patches(scheme: PatchScheme, orientations: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Distinct site-frame patch centres over several orientations.
-
-    The angle between a patch centre and the sun, hence the Perez indicatrix at
-    the centre, is the same in either frame. With orientation φ a patch at
-    building azimuth a sits at site azimuth a + φ − 180, so orientations that
-    differ by a multiple of a band's patch width share that band's site
-    centres (all twelve multiples of 30° share every band of MF2: 577
-    distinct centres instead of 6,924).
+    With orientation φ a patch at building azimuth a sits at site azimuth
+    a + φ − 180 (DEVELOPERS.md frames); the sky's luminance there does not
+    depend on the frame. Orientations that differ by a multiple of a band's
+    patch width share that band's site patches (all twelve multiples of 30°
+    share every band of MF2: 577 distinct patches instead of 6,924).
 
     Parameters
     ----------
@@ -985,10 +1012,16 @@ def _site_patches(scheme: PatchScheme, orientations: np.ndarray) -> tuple[np.nda
 
     Returns
     -------
-    centres : ndarray (n_distinct, 3)
-        Unit vectors, site frame.
+    centres : ndarray (V, 3)
+        Unit vectors of the distinct site patches' centres, site frame; ordered
+        by band, then site azimuth (so any subset keeps one order, whichever
+        orientations are asked for together).
+    band : ndarray (V,) int
+        Band of each site patch.
+    azimuth : ndarray (V,) [deg]
+        Site azimuth of each site patch's centre, in [0, 360) (the cap: 0).
     index : ndarray (k, n_patches) int
-        Row of ``centres`` of each orientation's patch.
+        Site patch of each orientation's building-frame patch.
     """
     alt = np.degrees(np.arcsin(np.clip(scheme.centres[:, 2], -1.0, 1.0)))
     az = np.degrees(np.arctan2(scheme.centres[:, 0], scheme.centres[:, 1]))
@@ -999,7 +1032,60 @@ def _site_patches(scheme: PatchScheme, orientations: np.ndarray) -> tuple[np.nda
     keys = band[None, :] * 360_000_000 + micro
     _, first, index = np.unique(keys.ravel(), return_index=True, return_inverse=True)
     k, p = np.divmod(first, scheme.n_patches)
-    return _direction(site[k, p], alt[p]), index.reshape(keys.shape)
+    return _direction(site[k, p], alt[p]), band[p], site[k, p], index.reshape(keys.shape)
+
+
+def _site_samples(scheme: PatchScheme, band: np.ndarray, azimuth: np.ndarray, n: int,
+                  seed: int) -> np.ndarray:
+    """Stratified directions inside site-frame patches, (V, n, 3), site frame.
+
+    Every patch of a band gets the same jittered pattern relative to its own
+    corner (one pattern per band, :func:`_jittered_unit_square`), so a patch's
+    samples, like its centre, depend only on where it lies on the site's sky:
+    rotating the building by a multiple of the patch width gives the same
+    values, not just values equal up to sampling noise.
+    """
+    rng = np.random.default_rng(seed)
+    uv = _jittered_unit_square(int(n), scheme.band_counts.size, rng)[band]  # (V, n, 2)
+    s = np.sin(np.radians(scheme.band_edges))
+    s_lo, s_hi = s[band][:, None], s[band + 1][:, None]
+    width = (360.0 / scheme.band_counts[band])[:, None]
+    az = azimuth[:, None] - 0.5 * width + uv[..., 1] * width
+    return _direction_sin(az, s_lo + uv[..., 0] * (s_hi - s_lo))
+
+
+def _orientation_classes(index: np.ndarray) -> tuple[np.ndarray, list[np.ndarray], np.ndarray]:
+    """Group orientations that use the same set of site patches.
+
+    Parameters
+    ----------
+    index : ndarray (k, n_patches) int
+        Site patch of each orientation's patch (:func:`_site_basis`).
+
+    Returns
+    -------
+    klass : ndarray (k,) int
+        Class of each orientation (numbered in order of first appearance).
+    rows : list of ndarray (n_patches,) int
+        Each class's site patches, ascending.
+    basis_index : ndarray (k, n_patches + 1) int
+        Position of each orientation's patch in its class's rows; the ground
+        (last entry) maps to ``n_patches``.
+    """
+    k, n_p = index.shape
+    found: dict[bytes, int] = {}
+    rows: list[np.ndarray] = []
+    klass = np.empty(k, dtype=np.int64)
+    basis_index = np.empty((k, n_p + 1), dtype=np.int64)
+    for o in range(k):
+        members = np.sort(index[o])
+        c = found.setdefault(members.tobytes(), len(rows))
+        if c == len(rows):
+            rows.append(members)
+        klass[o] = c
+        basis_index[o, :n_p] = np.searchsorted(rows[c], index[o])
+        basis_index[o, n_p] = n_p
+    return klass, rows, basis_index
 
 
 def _active_chunks(active: np.ndarray, chunk: int):
@@ -1121,10 +1207,12 @@ def sky_vectors(
     Notes
     -----
     * Orientation φ rotates only where the sky is sampled: the sun's building
-      azimuth is A − φ + 180 (DEVELOPERS.md frames). The indicatrix at the patch
-      centres is evaluated once per distinct *site-frame* centre
-      (:func:`_site_patches`; the angle to the sun is frame-independent) and
-      gathered for every orientation.
+      azimuth is A − φ + 180 (DEVELOPERS.md frames). The sky is evaluated once
+      per distinct *site-frame* patch (:func:`_site_basis`; the sky does not
+      depend on the building's frame), with near-sun samples placed by site
+      azimuth (:func:`_site_samples`), and stored once per orientation class
+      (:class:`SkyVectors`): twelve orientations 30° apart at MF2 cost one
+      orientation's sky, and every orientation gets exactly what it gets alone.
     * Sky luminance: Perez, Seals & Michalsky (1993) from ε and Δ of the step's
       irradiance. A patch's luminance is its mean over the patch's solid angle:
       the gradation term (a function of altitude only) is averaged exactly per
@@ -1147,13 +1235,10 @@ def sky_vectors(
     * Cost: pass a climate already resampled to ``step_minutes``
       (``kernels.sun.resample``) and ``sun_position`` when calling repeatedly
       with ``steps``; otherwise each call resamples and finds the year's
-      representative sun times again (about 1 s). The ``sky`` array comes from
-      :func:`kernels.buffers.empty` (reused memory). Measured (before the
-      shared site-frame centres, which cut the MF2 stage by about 40 %)
-      (benchmarks/bench_sky.py): MF4, 12 orientations, a year of 15-minute steps
-      takes 5–7 s, 1.1–3.6× the wall time (1.1–1.4× the CPU time) of the
-      float32 matmul of a 200-sensor coefficient matrix with the result (best of
-      3, on a shared 2-core machine; the matmul uses both cores).
+      representative sun times again (about 1 s). The ``basis_sky`` array comes
+      from :func:`kernels.buffers.empty` (reused memory). Locating the sun
+      among the sun points for every orientation is what remains per
+      orientation (benchmarks/bench_series.py, docs/performance.md).
     """
     from kernels import sun as sunmod  # sun imports climate; keep sky importable alone
 
@@ -1189,6 +1274,51 @@ def sky_vectors(
     phi = np.atleast_1d(np.asarray(orientations, dtype=float))
     n_k, n_t, n_p = phi.size, idx.size, scheme.n_patches
     sun_site = _direction(azimuth, altitude)
+
+    # the sky on the distinct site-frame patches, then per orientation class
+    site_centres, site_band, site_az, site_of = _site_basis(scheme, phi)
+    klass, class_rows, basis_index = _orientation_classes(site_of)
+    band_start = scheme.band_start
+    omega = scheme.solid_angle[band_start][site_band].astype(np.float32)
+    mean_sin = patch_mean_sin_altitude(scheme)[band_start][site_band].astype(np.float32)
+    samples = _site_samples(scheme, site_band, site_az, refine_samples, seed).astype(np.float32)
+    site_centres = site_centres.astype(np.float32)
+    node_cos, node_w = _band_quadrature(scheme, 6)
+    cos_radius = np.float32(np.cos(np.radians(REFINE_BANDS * scheme.band_edges[1])))
+    sun_site32 = sun_site.astype(np.float32)
+
+    basis_sky = buffers.empty((len(class_rows), n_p + 1, n_t), np.float32)
+    basis_sky[:, :n_p, np.flatnonzero(~active)] = 0.0  # active steps are all written below
+    for t, runs in _active_chunks(active, chunk):
+        a, b, c, d, e = coef[:, t]
+        # gradation: exact mean over each band (altitude only), times Ω
+        grad_band = (_perez_gradation(node_cos[:, :, None], a, b) * node_w[:, :, None]).sum(1)
+        cos_sun = site_centres @ sun_site32[t].T  # (V, T)
+        near_v, near_t = np.nonzero(cos_sun > cos_radius)
+        lum = _perez_indicatrix(cos_sun, c, d, e)  # at the centres (cos_sun is consumed)
+        lum *= grad_band[site_band].astype(np.float32)
+        lum *= omega[:, None]
+        # patches near the sun: mean of the whole product over stratified samples
+        sp = samples[near_v]  # (N, S, 3)
+        sun_n = sun_site32[t][near_t][:, None, :]  # (N, 1, 3)
+        cos_s = sp[..., 0] * sun_n[..., 0]
+        cos_s += sp[..., 1] * sun_n[..., 1]
+        cos_s += sp[..., 2] * sun_n[..., 2]
+        ti = near_t[:, None]
+        lum[near_v, near_t] = (
+            _perez_gradation(sp[..., 2], a[ti], b[ti])
+            * _perez_indicatrix(cos_s, c[ti], d[ti], e[ti])
+        ).mean(-1) * omega[near_v]
+        np.maximum(lum, 0.0, out=lum)
+        for cls, rows in enumerate(class_rows):
+            part = lum if rows.size == lum.shape[0] else lum[rows]
+            # normalise: Σ_j C_j L_j Ω_j = E_dh with C_j = mean sin(alt) of patch j
+            scale = (e_dh[t] / (mean_sin[rows] @ part)).astype(np.float32)  # (T,)
+            for lo, hi, first in runs:
+                np.multiply(part[:, lo:hi], scale[lo:hi],
+                            out=basis_sky[cls, :n_p, first : first + hi - lo])
+    basis_sky[:, n_p, :] = (2.0 * ground_reflectance * e_gh).astype(np.float32)
+
     rot = np.radians(180.0 - phi)  # building azimuth = site azimuth − φ + 180
     c_r, s_r = np.cos(rot)[:, None], np.sin(rot)[:, None]
     sun_b = np.stack(
@@ -1199,60 +1329,6 @@ def sky_vectors(
         ],
         -1,
     )  # (k, n, 3)
-
-    sky = buffers.empty((n_k, n_p + 1, n_t), np.float32)
-    sky[:, :n_p, np.flatnonzero(~active)] = 0.0  # active steps are all written below
-    band = np.repeat(np.arange(scheme.band_counts.size), scheme.band_counts)
-    node_cos, node_w = _band_quadrature(scheme, 6)
-    mean_sin = patch_mean_sin_altitude(scheme).astype(np.float32)
-    omega = scheme.solid_angle.astype(np.float32)
-    centres = scheme.centres.astype(np.float32)
-    site_centres, site_of = _site_patches(scheme, phi)
-    site_centres = site_centres.astype(np.float32)
-    samples = sample_directions(scheme, refine_samples, seed).astype(np.float32)
-    radius = REFINE_BANDS * scheme.band_edges[1]
-    near, cos_radius = _near_patches_of(scheme.subdivision, radius), np.float32(
-        np.cos(np.radians(radius)))
-    sun_site32 = sun_site.astype(np.float32)
-    for t, runs in _active_chunks(active, chunk):
-        a, b, c, d, e = coef[:, t]
-        # gradation: exact mean over each band (altitude only), times Ω: (P, chunk)
-        grad_band = (_perez_gradation(node_cos[:, :, None], a, b) * node_w[:, :, None]).sum(1)
-        weight = (grad_band[band] * omega[:, None]).astype(np.float32)
-        # indicatrix at the centres, once per distinct site-frame centre: (V, chunk)
-        indicatrix = _perez_indicatrix(site_centres @ sun_site32[t].T, c, d, e)
-        lum = np.take(indicatrix, site_of, axis=0)  # (k, P, chunk)
-        lum *= weight
-        # patches near the sun: mean of the whole product over stratified samples
-        sun_kt = sun_b[:, t].astype(np.float32)  # (k, T, 3)
-        cand = near[patch_index(scheme, sun_kt)]  # (k, T, M)
-        ok = cand >= 0
-        cand = np.where(ok, cand, 0)
-        cc = centres[cand]  # (k, T, M, 3)
-        cos_c = cc[..., 0] * sun_kt[:, :, None, 0]
-        cos_c += cc[..., 1] * sun_kt[:, :, None, 1]
-        cos_c += cc[..., 2] * sun_kt[:, :, None, 2]
-        kk, tt, mm = np.nonzero(ok & (cos_c > cos_radius))
-        jj = cand[kk, tt, mm]
-        sp = samples[jj]  # (N, S, 3)
-        ti = tt[:, None]
-        sun_n = sun_kt[kk, tt][:, None, :]  # (N, 1, 3)
-        cos_s = sp[..., 0] * sun_n[..., 0]
-        cos_s += sp[..., 1] * sun_n[..., 1]
-        cos_s += sp[..., 2] * sun_n[..., 2]
-        lum[kk, jj, tt] = (
-            _perez_gradation(sp[..., 2], a[ti], b[ti])
-            * _perez_indicatrix(cos_s, c[ti], d[ti], e[ti])
-        ).mean(-1) * omega[jj]
-        np.maximum(lum, 0.0, out=lum)
-        # normalise: Σ_j C_j L_j Ω_j = E_dh with C_j = mean sin(alt) of patch j
-        scale = (e_dh[t] / (mean_sin @ lum)).astype(np.float32)  # (k, T)
-        for lo, hi, first in runs:
-            np.multiply(
-                lum[:, :, lo:hi], scale[:, None, lo:hi], out=sky[:, :n_p, first : first + hi - lo]
-            )
-    sky[:, n_p, :] = (2.0 * ground_reflectance * e_gh).astype(np.float32)
-
     sun_index = np.zeros((n_k, n_t, 3), dtype=np.int32)
     sun_weight = np.zeros((n_k, n_t, 3), dtype=np.float32)
     day = np.flatnonzero(daylight)
@@ -1265,7 +1341,9 @@ def sky_vectors(
         time=stamps,
         sun_altitude=altitude,
         daylight=daylight,
-        sky=sky,
+        basis_sky=basis_sky,
+        basis_index=basis_index,
+        orientation_class=klass,
         sun_index=sun_index,
         sun_weight=sun_weight,
         global_horizontal_illuminance=e_gh,

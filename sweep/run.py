@@ -223,7 +223,7 @@ def _series(
     from kernels import metrics as km
     from kernels.sky import overcast_sky_vector, patch_scheme, sky_vectors
     from kernels.sun import SunPoints
-    from kernels.timeseries import daylight_factor, illuminance
+    from kernels.timeseries import combine, daylight_factor, unit_illuminance
 
     timing = {"load": 0.0, "sky": 0.0, "illuminance": 0.0, "metrics": 0.0, "write": 0.0}
     t0 = time.perf_counter()
@@ -246,7 +246,11 @@ def _series(
     timing["load"] += time.perf_counter() - t0
 
     n_basis = scheme.n_patches + 1
-    per_step = 4 * (n_o * n_r * n_s * (3 if shading else 2) + n_o * n_basis)
+    n_sets = len(coeffs.glazing_sets)
+    # unit-τ series of every set (total + direct) and the gathered sky rows; with
+    # several sets also the combined variants
+    per_step = 4 * (2 * n_o * n_sets * n_s + 2 * n_o * n_basis
+                    + (n_o * n_r * n_s * (3 if shading else 2) if n_sets > 1 else 0))
     block = int(np.clip(BLOCK_BYTES // max(per_step, 1), 24, 8760))
     counts = None
     occ_done = 0
@@ -257,7 +261,7 @@ def _series(
         if dark.size:
             masks = km.StepMasks(occupied[dark], analysis[dark], daylight[dark])
             counts = km.accumulate_dark(counts, masks, params, (n_o, n_r), n_s)
-        total = direct = None
+        unit = None
         if lit.size:
             t1 = time.perf_counter()
             sky = sky_vectors(climate, task.orientations, scheme, sun_points, study.timestep,
@@ -265,23 +269,33 @@ def _series(
                               sun_position=(altitude, azimuth))
             t2 = time.perf_counter()
             timing["sky"] += t2 - t1
-            total, direct = illuminance(coeffs, sky, open_rows)
-            shaded = illuminance(coeffs, sky, closed_rows)[0] if shading else None
+            unit = unit_illuminance(coeffs, sky)  # (n_o, n_sets, n_lit, n_s) each
             t3 = time.perf_counter()
             timing["illuminance"] += t3 - t2
             masks = km.StepMasks(occupied[lit], analysis[lit], daylight[lit])
-            counts = km.accumulate(counts, total, direct, masks, params, shaded)
+            if n_sets == 1:  # variants scale one set: fold them from the unit series
+                counts = km.accumulate(
+                    counts, unit[0][:, 0].swapaxes(-1, -2), unit[1][:, 0].swapaxes(-1, -2),
+                    masks, params, transmittance=open_rows[:, 0],
+                    shaded_transmittance=closed_rows[:, 0] if shading else None)
+            else:
+                t2 = time.perf_counter()
+                total, direct = (combine(u, open_rows).swapaxes(-1, -2) for u in unit)
+                shaded = combine(unit[0], closed_rows).swapaxes(-1, -2) if shading else None
+                t3 = time.perf_counter()
+                timing["illuminance"] += t3 - t2
+                counts = km.accumulate(counts, total, direct, masks, params, shaded)
             timing["metrics"] += time.perf_counter() - t3
         if series:
             t4 = time.perf_counter()
             occ_steps = a + np.flatnonzero(occupied[a:b])
             e = np.zeros((n_o, n_r, n_s, occ_steps.size), dtype=np.float32)
             d = np.zeros_like(e)
-            if total is not None:
+            if unit is not None:
                 pos = np.searchsorted(lit, occ_steps)
                 hit = (pos < lit.size) & (lit[np.minimum(pos, lit.size - 1)] == occ_steps)
-                e[..., hit] = total[..., pos[hit]]
-                d[..., hit] = direct[..., pos[hit]]
+                for out, u in zip((e, d), unit, strict=True):
+                    out[..., hit] = combine(u[:, :, pos[hit]], open_rows).swapaxes(-1, -2)
             for vi, oi, ri in todo:
                 results_store.write_series(store_path, vi, occ_done, e[oi, ri], d[oi, ri])
             occ_done += occ_steps.size

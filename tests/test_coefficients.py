@@ -394,3 +394,58 @@ def test_patch_culling_gives_the_brute_force_sky_direct():
     assert ref[3, -1] > 0 and ref[0, -1] == 0  # facing down sees the ground; facing up never
     # float32 storage of the coefficients: 1e-6 relative
     np.testing.assert_allclose(c.sky_direct[0], ref, rtol=1e-6, atol=1e-9)
+
+
+# ------------------------------------------------------------------ speed-ups that keep the bits
+
+
+def test_sample_directions_of_some_patches_are_rows_of_the_full_call():
+    # patches= turns only the selected patches into directions and skips the draws of the
+    # others (PCG64.advance, one 64-bit draw per uniform double): the rows must be those of
+    # the full call, bit for bit, in any order, with repeats, for any subdivision.
+    for subdivision in (1, 2):
+        sch = patch_scheme(subdivision)
+        for n in (1, 6, 64):
+            full = sample_directions(sch, n, seed=11)
+            rng = np.random.default_rng(n)
+            for patches in (np.flatnonzero(rng.random(sch.n_patches) < 0.2),
+                            rng.integers(0, sch.n_patches, 40), np.arange(sch.n_patches),
+                            np.array([], dtype=int), [sch.n_patches - 1], [3, 3, 2]):
+                part = sample_directions(sch, n, seed=11, patches=patches)
+                assert part.shape == (len(patches), n, 3)
+                assert np.array_equal(part, full[np.asarray(patches, dtype=int)])
+    with pytest.raises(IndexError):
+        sample_directions(patch_scheme(1), 4, 0, patches=[145])
+
+
+def test_sun_points_are_computed_once_and_kept_read_only():
+    # the fine/coarse sun points and their interpolation depend on the spacings only
+    from kernels.coefficients import _sun_points
+
+    kept = _sun_points(6.0, 12.0)
+    assert _sun_points(6.0, 12.0) is kept
+    fine, coarse = SunPoints(6.0), SunPoints(12.0)
+    fresh = (fine.directions, coarse.directions, *coarse.weights(fine.directions))
+    for got, want in zip(kept, fresh, strict=True):
+        assert np.array_equal(got, want) and not got.flags.writeable
+
+
+def test_direct_sun_in_float32_is_the_float64_result_rounded():
+    # sensors' direct sun is written straight into float32: IEEE 754 rounds each value as
+    # astype(float32) would; exterior points add one (unglazed) layer
+    from kernels.coefficients import _sun_direct
+
+    geo = _two_windows()
+    scene = Scene(geo)
+    sun = SunPoints(6.0).directions
+    pts = np.array([[2.0, 1.0, 0.8], [1.0, 0.8, 1.5], [3.0, 2.0, 1.2], [2.0, -3.0, 0.5]])
+    nrm = np.array([[0, 0, 1.0], [0, -1.0, 0], [0.6, -0.36, 0.72], [0, 0, 1.0]])
+    inside = np.zeros(4, dtype=bool)
+    wide = _sun_direct(scene, pts, nrm, inside, sun, (2,))
+    assert wide.shape == (1, 4, sun.shape[0]) and wide.max() > 0
+    narrow = _sun_direct(scene, pts, nrm, inside, sun, (2,), np.float32)
+    assert narrow.dtype == np.float32 and np.array_equal(narrow, wide.astype(np.float32))
+    outside = np.array([False, False, False, True])
+    both = _sun_direct(scene, pts, nrm, outside, sun, (2,))
+    assert both.shape == (2, 4, sun.shape[0])
+    assert np.array_equal(both[0, :3], wide[0, :3]) and both[1, 3].max() > 0

@@ -139,3 +139,21 @@ def test_relative_transmittance():
     # panes = 0: an unglazed opening transmits everything at every angle
     assert np.array_equal(relative_transmittance(c, 0), np.ones_like(c))
     assert np.array_equal(transmittance_fresnel(c, 0, 0.5), np.ones_like(c))
+
+
+def test_transmittance_alone_equals_the_full_optics_bit_for_bit():
+    # relative_transmittance runs on every ray that crosses a window, so it evaluates the
+    # transmittance path of glazing_optics alone; the same operations in the same order
+    # must give the same bits (IEEE 754 arithmetic is deterministic), grazing included.
+    from kernels.glazing import _transmittance
+
+    rng = np.random.default_rng(4)
+    c = np.concatenate([[0.0, 1.0, 1e-300, 1e-9, 0.5, -0.2, 1.3], np.cos(ANGLES),
+                        rng.random(3000), rng.random(500) ** 12])
+    for panes in (1, 2, 3, 4):
+        for absorption in (0.0, REFERENCE_ABSORPTION, 0.4):
+            for n in (1.33, N, 1.9):
+                assert np.array_equal(_transmittance(c, panes, absorption, n),
+                                      glazing_optics(c, panes, absorption, n)[0])
+        assert np.array_equal(relative_transmittance(c, panes),
+                              glazing_optics(c, panes)[0] / glazing_optics(1.0, panes)[0])

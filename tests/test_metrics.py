@@ -396,3 +396,56 @@ def test_accumulate_equals_the_definitions_evaluated_directly(batch_masks):
     assert want["ana_shaded"].sum() > 0 and 0 < want["day_target_ok"].sum()
     for key, value in want.items():
         np.testing.assert_array_equal(got[key], value, err_msg=key)  # exact: integers
+
+
+# --------------------------------------------------------------------------- scaled variants
+
+
+@pytest.mark.parametrize("tau", [0.7, 0.35, 1.0, 0.123456])
+@pytest.mark.parametrize("strict", [False, True])
+def test_first_passing_level_is_exact(tau, strict):
+    # Definition of the level: the smallest float32 u whose rounded product with τ passes
+    # the threshold (IEEE 754 rounding is monotone, so everything above passes as well).
+    from kernels.metrics import _first_passing
+
+    f32 = np.float32
+    for x in (100.0, 300.0, 1000.0, 3000.0, 3.3):
+        u = f32(_first_passing(x, tau, strict, np.dtype(np.float32)))
+        below = np.nextafter(u, f32(-np.inf))
+
+        def passes(v, x=x):
+            return f32(tau) * v > f32(x) if strict else f32(tau) * v >= f32(x)
+
+        assert passes(u) and not passes(below)
+
+
+def test_transmittance_scaling_equals_forming_each_variant():
+    # Illuminance is linear in a single glazing set's normal transmittance (DESIGN §2.6):
+    # folding τ_v × E from E must equal folding the formed series τ_v × E (float32, as the
+    # engine used to form them). Counts are exact; lux sums are sums of the same products
+    # taken in another order (rel 1e-6, float32 sums of ~10² terms).
+    total, direct, _, m = random_year(seed=11, batch=(2,), n_steps=1300)
+    tau = np.array([0.7, 0.5, 0.35], np.float32)
+    tau_closed = 0.25 * tau
+    # place values exactly on thresholds after scaling: τ·u lands on 300 lx and 3000 lx
+    total[0, 0, :4] = [np.float32(300) / tau[0], np.float32(3000) / tau[1],
+                       np.nextafter(np.float32(300) / tau[2], np.float32(0)), 1000 / 0.7]
+    p = MetricParams(ase_hours=20.0)
+    got = finalize(accumulate(None, total, direct, m, p, transmittance=tau,
+                              shaded_transmittance=tau_closed), p)
+    formed = tau[None, :, None, None] * total[:, None]  # (2, 3, S, T) float32
+    formed_direct = tau[None, :, None, None] * direct[:, None]
+    formed_closed = tau_closed[None, :, None, None] * total[:, None]
+    want = finalize(accumulate(None, formed, formed_direct, m, p, formed_closed), p)
+    assert set(got) == set(want)
+    for key in want:
+        if np.issubdtype(want[key].dtype, np.integer) or want[key].dtype == bool:
+            np.testing.assert_array_equal(got[key], want[key], err_msg=key)
+        else:
+            np.testing.assert_allclose(got[key], want[key], rtol=1e-6, atol=1e-9, err_msg=key)
+    # the case exercises the shading rule and the metrics (not all zeros or ones)
+    counts = accumulate(None, total, direct, m, p, transmittance=tau,
+                        shaded_transmittance=tau_closed)
+    assert counts["ana_shaded"].min() > 0
+    da = got["daylight_autonomy"]
+    assert 0 < da.min() and da.max() < 1 and got["ase"].max() > 0

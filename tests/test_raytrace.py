@@ -301,3 +301,34 @@ def test_float32_unit_directions_are_used_as_given():
                                b.distance[a.triangle == b.triangle], rtol=1e-5)
     _, dd = s._prepare(o, d32, unit=True)
     assert dd is d32 or np.shares_memory(dd, d32)  # no copy of float32 unit directions
+
+
+def test_glazing_cosines_with_one_and_with_several_window_normals():
+    # |cos| of incidence = |d · n| of the crossed glazing triangle (definition), here
+    # against numpy's float64 dot product with the geometry's normals (1e-12: rounding
+    # of the float32 directions' products only). With all windows in one plane the
+    # normal is broadcast instead of gathered per ray: the same products, the same bits.
+    from kernels.raytrace import _abs_cos
+
+    o, d = _random_rays(40_000, 24)
+    d32 = d.astype(np.float32)
+    for geo, one in ((box(), True), (_two_window_box(), False)):
+        s = Scene(geo)
+        assert (s._one_glazing_normal is not None) == one
+        gset, cos = s.exit_glazing(o, d32, unit=True)
+        through = gset >= 0
+        assert through.sum() > 100
+        _, gcos, _ = s.glazing_crossing(o, d32, unit=True)
+        assert np.array_equal(cos[through], gcos[through])
+        normals = geo.normals[s.glazing_index]
+        exact = np.abs(d32[through].astype(float) @ normals.T)  # every window plane
+        assert np.all(np.isclose(exact, cos[through, None], rtol=1e-12, atol=0).any(axis=1))
+        rng = np.random.default_rng(5)
+        tri = rng.integers(0, s.glazing_index.size, d32.shape[0])
+        for rays in (np.arange(d32.shape[0]), np.sort(rng.choice(d32.shape[0], 300, False))):
+            assert np.array_equal(s._glazing_cos(d32, rays, tri[rays]),
+                                  _abs_cos(d32[rays], s._glazing_normals[tri[rays]]))
+        # rays that all cross glazing (as the coefficient stage sends them) answer as in a mix
+        sub = np.flatnonzero(s.glazing_crossing(o, d32, unit=True)[0] >= 0)
+        g_sub, c_sub = s.exit_glazing(o[sub], d32[sub], unit=True)
+        assert np.array_equal(g_sub, gset[sub]) and np.array_equal(c_sub, cos[sub])

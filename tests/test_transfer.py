@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+import scipy.sparse
 from scipy import integrate
 
 from kernels.geometry import Geometry, Material, parametric_room
@@ -47,6 +48,11 @@ def _plates(a: float, b: float, c: float) -> Geometry:
         group=np.array([0, 0, 1, 1], np.int32),
         group_names=("lower", "upper"),
     )
+
+
+def _array(matrix) -> np.ndarray:
+    """A sampled matrix (ndarray or CSR, kernels.transfer.Matrix) as an ndarray."""
+    return matrix.toarray() if scipy.sparse.issparse(matrix) else np.asarray(matrix)
 
 
 # ------------------------------------------------------------------ analytic helpers
@@ -114,7 +120,7 @@ def test_parallel_rectangles_form_factor(a, b, c):
     tr = transfer_matrix(scene, el, 2048, np.random.default_rng(1))
     lower = np.flatnonzero(el.normal[:, 2] > 0)
     upper = np.flatnonzero(el.normal[:, 2] < 0)
-    f = tr.same.toarray()
+    f = _array(tr.same)
     f_lu = (el.area[lower] @ f[np.ix_(lower, upper)].sum(axis=1)) / el.area[lower].sum()
     f_ul = (el.area[upper] @ f[np.ix_(upper, lower)].sum(axis=1)) / el.area[upper].sum()
     exact = factor_parallel_rectangles(a, b, c)  # Howell catalogue, directly opposed rectangles
@@ -133,7 +139,7 @@ def test_closed_box_conserves_energy():
     scene = Scene(geo)
     el = mesh_elements(geo.triangles, geo.reflectance, geo.exterior, 0.5)
     tr = transfer_matrix(scene, el, 256, np.random.default_rng(7))
-    landed = np.asarray(tr.same.multiply(el.area[:, None]).sum(axis=0)).ravel() / el.area
+    landed = (el.area @ _array(tr.same)) / el.area
     assert landed.min() > 0.999  # closed: (almost) every ray lands (float32 seams leak < 0.1 %)
     rng = np.random.default_rng(8)
     source = np.zeros((el.n, 3))
@@ -176,11 +182,11 @@ def test_sensor_gather_sees_whole_closed_room():
     nrm = np.array([[0, 0, 1.0], [0.6, 0, 0.8]])
     same, through = gather_matrix(scene, el, pts, nrm, 1024, np.random.default_rng(0))
     assert through == []
-    assert np.allclose(np.asarray(same.sum(axis=1)).ravel(), 1.0, atol=1e-3)
+    assert np.allclose(_array(same).sum(axis=1), 1.0, atol=1e-3)
     # the upward sensor sees the ceiling with the parallel-rectangle factor (Howell
     # catalogue, superposition of four corner rectangles); 3 % ≈ 3 σ of 1024 stratified rays
     ceiling = el.normal[:, 2] < -0.5
-    seen = same.toarray()[0, ceiling].sum()
+    seen = _array(same)[0, ceiling].sum()
     h = 2.5 - 0.8
     exact = sum(factor_element_parallel_rectangle(x, y, h) for x in (1.5, 1.5) for y in (2.0, 2.0))
     assert seen == pytest.approx(exact, rel=0.03)
@@ -227,3 +233,99 @@ def test_trace_paths_lands_on_the_element_under_the_hit_point():
     assert np.mean(paths.element != ref) < 1e-3
     assert np.array_equal(paths.escaped, ~hit)
     assert paths.escaped.sum() > 1000 and np.all(paths.glazing[paths.escaped] == 0)
+
+
+# ------------------------------------------------------------------ pieces, sums, solves
+
+
+def _room_with_outside():
+    window = [{"wall": "front", "width": 2.0, "sill": 0.8, "head": 2.2, "offset": 0.0,
+               "glazing": "main"}]
+    return parametric_room(3.0, 4.0, 2.5, window, {"floor": 0.2, "walls": 0.5, "ceiling": 0.7},
+                           {"main": 2}, overhang={"depth": 0.6, "gap": 0.1},
+                           obstructions=[{"x": 1.5, "y": -6.0, "width": 8.0, "depth": 2.0,
+                                          "height": 5.0}])
+
+
+def test_piece_size_does_not_change_the_sampled_matrices():
+    # Pieces only bound the temporary arrays: the same draws, the same rays in the same
+    # order, the same sums in the same order, hence the same bits (interior, exterior and
+    # through-window transfer, sky sources, sensor gather).
+    from kernels.sky import patch_scheme
+    from kernels.transfer import PIECE
+
+    geo = _room_with_outside()
+    scene = Scene(geo)
+    active = ~geo.is_glazing & (geo.reflectance > 0)
+    el = mesh_elements(geo.triangles, geo.reflectance, geo.exterior, 0.8, mask=active)
+    assert el.exterior.any() and (~el.exterior).any()
+    sch = patch_scheme(1)
+
+    def transfer(piece):
+        return transfer_matrix(scene, el, 64, np.random.default_rng(3), (2,), sch,
+                               batch=64 * 40, piece=piece)
+
+    ref = transfer(1 << 30)
+    assert _array(ref.through[0]).sum() > 0  # some interior light reaches the outside
+    for piece in (1, 64 * 7, PIECE):
+        tr = transfer(piece)
+        for name in ("same", "sky_interior", "sky_exterior"):
+            assert np.array_equal(_array(getattr(tr, name)), _array(getattr(ref, name))), name
+        assert np.array_equal(_array(tr.through[0]), _array(ref.through[0]))
+    pts = np.array([[1.5, 2.0, 0.8], [0.4, 3.5, 1.2], [2.5, 0.5, 2.0]])
+    nrm = np.array([[0, 0, 1.0], [0, -1.0, 0], [0.6, 0, 0.8]])
+    same, through = gather_matrix(scene, el, pts, nrm, 256, np.random.default_rng(4), (2,),
+                                  batch=1 << 30)
+    for batch in (1, 256 * 2):
+        s, t = gather_matrix(scene, el, pts, nrm, 256, np.random.default_rng(4), (2,),
+                             batch=batch)
+        assert np.array_equal(_array(s), _array(same))
+        assert np.array_equal(_array(t[0]), _array(through[0]))
+
+
+def test_triplet_sums_are_sequential_sums():
+    # The dense path adds the values in the order given, as np.add.at does (sequential
+    # IEEE additions: the same bits); the sparse path (few values) agrees to rounding.
+    from kernels.transfer import _Triplets
+
+    rng = np.random.default_rng(5)
+    shape = (30, 40)
+    many = _Triplets(shape)
+    ref = np.zeros(shape)
+    for size in (500, 3000, 1):
+        r, c, v = rng.integers(0, 30, size), rng.integers(0, 40, size), rng.random(size)
+        many.add(r, c, v)
+        np.add.at(ref, (r, c), v)
+    dense = many.matrix()
+    assert isinstance(dense, np.ndarray) and np.array_equal(dense, ref)
+    few = _Triplets(shape)
+    r, c, v = rng.integers(0, 30, 20), rng.integers(0, 40, 20), rng.random(20)
+    few.add(r, c, v)
+    ref = np.zeros(shape)
+    np.add.at(ref, (r, c), v)
+    sparse = few.matrix()
+    assert scipy.sparse.issparse(sparse)
+    np.testing.assert_allclose(sparse.toarray(), ref, rtol=1e-15)
+    assert _Triplets(shape).matrix().nnz == 0
+
+
+def test_radiosity_solves_agree_with_numpy_and_leave_inputs_alone():
+    # B = (I − diag ρ F)⁻¹ diag ρ S against numpy.linalg.solve (LAPACK gesv, an independent
+    # route); relative 1e-12 for this well-conditioned system (ρ < 1, row sums of F < 1).
+    rng = np.random.default_rng(6)
+    n = 60
+    f = rng.random((n, n)) * (rng.random((n, n)) < 0.3)
+    f /= f.sum(axis=1, keepdims=True) * 1.05
+    rho = rng.uniform(0.1, 0.9, n)
+    s = rng.random((n, 4))
+    g = rng.random((3, n))
+    system = np.eye(n) - rho[:, None] * f
+    expected = np.linalg.solve(system, rho[:, None] * s)
+    kept = f.copy()
+    for transfer in (f, scipy.sparse.csr_matrix(f)):
+        np.testing.assert_allclose(solve_radiosity(transfer, rho, s), expected, rtol=1e-12)
+        np.testing.assert_allclose(gather_radiosity(g, transfer, rho),
+                                   np.linalg.solve(system.T, g.T).T * rho, rtol=1e-12)
+    np.testing.assert_allclose(gather_radiosity(scipy.sparse.csr_matrix(g), f, rho) @ s,
+                               g @ expected, rtol=1e-12)
+    assert np.array_equal(f, kept)  # the inputs are not overwritten
