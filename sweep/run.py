@@ -252,6 +252,9 @@ def _series(
     per_step = 4 * (2 * n_o * n_sets * n_s + 2 * n_o * n_basis
                     + (n_o * n_r * n_s * (3 if shading else 2) if n_sets > 1 else 0))
     block = int(np.clip(BLOCK_BYTES // max(per_step, 1), 24, 8760))
+    vis = [vi for vi, _, _ in todo]
+    ois = np.array([oi for _, oi, _ in todo], dtype=np.intp)
+    ris = np.array([ri for _, _, ri in todo], dtype=np.intp)
     counts = None
     occ_done = 0
     for a, b in _blocks(len(stamps), occupied, series, block):
@@ -296,8 +299,7 @@ def _series(
                 hit = (pos < lit.size) & (lit[np.minimum(pos, lit.size - 1)] == occ_steps)
                 for out, u in zip((e, d), unit, strict=True):
                     out[..., hit] = combine(u[:, :, pos[hit]], open_rows).swapaxes(-1, -2)
-            for vi, oi, ri in todo:
-                results_store.write_series(store_path, vi, occ_done, e[oi, ri], d[oi, ri])
+            results_store.write_series_block(store_path, vis, occ_done, e[ois, ris], d[ois, ris])
             occ_done += occ_steps.size
             timing["write"] += time.perf_counter() - t4
     t5 = time.perf_counter()
@@ -311,12 +313,11 @@ def _series(
 
     t6 = time.perf_counter()
     sensor_vars, variant_vars = store_variables(list(study.metrics))
-    for vi, oi, ri in todo:
-        results_store.write_variant(
-            store_path, vi,
-            {name: np.asarray(results[name][oi, ri], dtype=np.float32) for name in sensor_vars},
-            {name: results[name][oi, ri] for name in variant_vars},
-        )
+    results_store.write_variants(  # every variant's data, then their `done` flags
+        store_path, vis,
+        {name: np.asarray(results[name][ois, ris], dtype=np.float32) for name in sensor_vars},
+        {name: np.asarray(results[name][ois, ris]) for name in variant_vars},
+    )
     timing["write"] += time.perf_counter() - t6
     return {"variants": len(todo), "timing": timing}
 
