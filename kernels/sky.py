@@ -1245,8 +1245,8 @@ def sky_vectors(
     clim = sunmod.resample(climate, step_minutes)
     idx = np.atleast_1d(np.arange(len(clim.time))[steps if steps is not None else slice(None)])
     if sun_position is None:
-        stamps, sun_times = sunmod.step_times(clim, clim.interval)
-        altitude, azimuth = sunmod.solar_position(sun_times[idx], clim.site)
+        stamps = clim.time
+        altitude, azimuth = (v[idx] for v in sunmod.step_sun(clim))
     else:
         stamps = clim.time
         altitude, azimuth = (np.asarray(v, dtype=float)[idx] for v in sun_position)

@@ -156,7 +156,7 @@ def _climate_steps(path: str | os.PathLike, step_minutes: int) -> tuple:
     key), and reading, resampling and locating the sun is the same work each time.
     """
     from kernels.climate import read_climate
-    from kernels.sun import resample, solar_position, step_times
+    from kernels.sun import resample, step_sun
 
     stat = os.stat(path)
     key = (os.fspath(path), stat.st_size, stat.st_mtime_ns, step_minutes)
@@ -166,8 +166,8 @@ def _climate_steps(path: str | os.PathLike, step_minutes: int) -> tuple:
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # reported once by the client's check
         climate = resample(read_climate(path), step_minutes)
-    stamps, sun_times = step_times(climate, step_minutes)
-    altitude, azimuth = solar_position(sun_times, climate.site)
+    stamps = climate.time
+    altitude, azimuth = step_sun(climate)
     entry = (climate, stamps, altitude, azimuth)
     with _CLIMATE_STEPS_LOCK:
         if len(_CLIMATE_STEPS) >= _CLIMATE_STEPS_MAX:
