@@ -110,8 +110,10 @@ def zstd_scalar_store(path: Path, lay: store.StoreLayout) -> None:
 
 
 def chunk_bytes(path: Path, names: list[str]) -> dict[str, bytes]:
+    """Chunk files of the named arrays ('c.<...>' with the "." key separator, 'c/...' with "/")."""
     return {str(p.relative_to(path)): p.read_bytes()
-            for name in names for p in sorted((path / name / "c").rglob("*")) if p.is_file()}
+            for name in names for p in sorted((path / name).rglob("*"))
+            if p.is_file() and p.name != "zarr.json"}
 
 
 def time_writers(work: Path, writers: dict[str, Callable[[Path], None]],

@@ -151,6 +151,16 @@ def _coordinate_values(values: Sequence[Any]) -> np.ndarray:
     return arr
 
 
+FLAT_KEYS = {"name": "default", "separator": "."}
+"""Chunk key encoding of the data variables: ``c.<variant>.<sensor>`` files side by
+side instead of ``c/<variant>/<sensor>`` folders (standard Zarr v3 "default"
+encoding with the "." separator). A variant's results are ~20 small chunk
+files; not making a folder for each saves ~40 % of the write time of the
+per-sensor variables (measured, benchmarks/bench_store.py). Stores written with
+the "/" separator stay readable and writable (every path goes through the
+array's own encoding)."""
+
+
 def _template(layout: StoreLayout) -> tuple[xr.Dataset, dict[str, dict[str, Any]]]:
     nv, ns = layout.n_variants, layout.n_sensors
     coords: dict[str, Any] = {
@@ -180,14 +190,14 @@ def _template(layout: StoreLayout) -> tuple[xr.Dataset, dict[str, dict[str, Any]
         data[name] = (("variant", "sensor"), da.full((nv, ns), np.nan, dtype=dtype,
                                                      chunks=(1, ns)),
                       {"units": units, "long_name": long_name})
-        encoding[name] = {"chunks": (1, ns)}
+        encoding[name] = {"chunks": (1, ns), "chunk_key_encoding": FLAT_KEYS}
     for name in [*layout.variant_variables, "done"]:
         dtype, units, long_name = VARIANT_VARIABLES[name]
         fill = np.nan if dtype.startswith("float") else 0
         data[name] = (("variant",), da.full((nv,), fill, dtype=dtype, chunks=1),
                       {"units": units, "long_name": long_name})
         # one value per chunk: a compressor only adds its frame (and time) to each
-        encoding[name] = {"chunks": (1,), "compressors": None}
+        encoding[name] = {"chunks": (1,), "compressors": None, "chunk_key_encoding": FLAT_KEYS}
     if layout.times is not None:
         nt = len(layout.times)
         coords["time"] = ("time", np.asarray(layout.times.tz_localize(None)
@@ -198,7 +208,7 @@ def _template(layout: StoreLayout) -> tuple[xr.Dataset, dict[str, dict[str, Any]
             data[name] = (("variant", "sensor", "time"),
                           da.full((nv, ns, nt), np.nan, dtype=dtype, chunks=chunks),
                           {"units": units, "long_name": long_name})
-            encoding[name] = {"chunks": chunks}
+            encoding[name] = {"chunks": chunks, "chunk_key_encoding": FLAT_KEYS}
     ds = xr.Dataset(data, coords=coords, attrs=dict(layout.attrs))
     return ds, encoding
 

@@ -221,11 +221,16 @@ def test_poison_variant_fails_alone(study, reference, tmp_path):
 
 
 def _chunk_files(store: Path, index: int) -> dict[str, tuple[int, bytes]]:
-    """(mtime, bytes) of every chunk file of variant ``index`` (chunk 'c/<index>...')."""
+    """(mtime, bytes) of every chunk file of variant ``index``: 'c.<index>' and
+    'c.<index>.<...>' (the store's "." key separator) or 'c/<index>...' (the "/" one)."""
     out = {}
     for arr in store.iterdir():
+        if not arr.is_dir():
+            continue
         chunk_root = arr / "c" / str(index)
         paths = [chunk_root] if chunk_root.is_file() else list(chunk_root.rglob("*"))
+        paths += [p for p in arr.glob(f"c.{index}*")
+                  if p.name == f"c.{index}" or p.name.startswith(f"c.{index}.")]
         for p in paths:
             if p.is_file():
                 out[str(p.relative_to(store))] = (p.stat().st_mtime_ns, p.read_bytes())
@@ -282,6 +287,8 @@ def test_whole_run_killed_then_resumed(study, reference, tmp_path, point):
     done = _read_done(out)  # None: killed before the `done` array existed
     done = np.zeros(N_VARIANTS, dtype=bool) if done is None else done
     finished = {int(i): _chunk_files(out, int(i)) for i in np.flatnonzero(done)}
+    # every finished variant has its chunk files (so the rewrite check below checks files)
+    assert all(len(files) >= 5 for files in finished.values()), finished.keys()
     cached = CoefficientCache(cache).keys()
     summary = run_study(study, out, workers=2, cache_dir=cache, show_progress=False)
     print(f"{point}: {int(done.sum())} done at the kill, {len(cached)} coefficient sets cached; "
