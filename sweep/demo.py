@@ -55,7 +55,7 @@ def run_demo(out: str | Path = "luxsweep-demo", *, workers: int | None = None) -
     with terminate_as_interrupt():
         summary = run_study(study, None, workers=workers)
     print(format_summary(summary))
-    if summary.total:
+    if summary.written:  # a rerun that finds every variant done computes none
         print(f"{summary.written / max(time.perf_counter() - t0, 1e-9):.2f} variants per second "
               "(including validation and cluster start)")
     status = 0 if summary.ok else 1
