@@ -100,6 +100,7 @@ References
 
 from __future__ import annotations
 
+import functools
 import re
 from dataclasses import dataclass, field
 from fractions import Fraction
@@ -304,8 +305,10 @@ def lm83_analysis_mask(
 # accumulation
 
 
+@functools.lru_cache(maxsize=64)
 def _ratio(fraction: float) -> tuple[int, int]:
-    """An exact integer ratio (numerator, denominator) for a decimal share."""
+    """An exact integer ratio (numerator, denominator) for a decimal share (kept: the
+    accumulation asks for the same few shares once per grid piece)."""
     r = Fraction(str(fraction)).limit_denominator(10**6)
     return r.numerator, r.denominator
 
@@ -449,9 +452,6 @@ def accumulate(
     limit_shut = (None if tau_shut is None else
                   np.array([_first_passing(k_sda[0], t, False, dtype) for t in tau_shut]))
     x_da = float(params.da_threshold)
-    shade_num, shade_den = _ratio(params.shading_sensor_fraction)
-    target_num, target_den = _ratio(params.en17037_target_area)
-    minimum_num, minimum_den = _ratio(params.en17037_minimum_area)
 
     out_sensor = {name: np.zeros((n_out, n_sensors), np.int64) for name in (
         "occ_da", "occ_udi_ge_e0", "occ_udi_ge_e1", "occ_udi_gt_e2", "occ_sun",
@@ -503,7 +503,7 @@ def accumulate(
             n_sunlit = (every_sensor @ ix).astype(np.int64)  # (n_v, w)
             out_sensor["occ_sun"][rows] += (ix @ m_occ).astype(np.int64)
             out_sensor["ana_ase"][rows] += (ix @ m_ana).astype(np.int64)
-            closed = (n_sunlit * shade_den > n_sensors * shade_num) & ana_g
+            closed = _share_more_than(n_sunlit, n_sensors, params.shading_sensor_fraction) & ana_g
         if shut_e is not None or limit_shut is not None:
             edge = np.broadcast_to(limit[k_sda][:, :, 0], (n_v, w)).copy()  # per step
             if closed is not None and limit_shut is not None:
@@ -518,8 +518,8 @@ def accumulate(
 
         # EN 17037:2018 daylight provision, per daylight step and level
         for i, (kt, km) in enumerate(levels):
-            ok_t = step_counts[kt] * target_den >= n_sensors * target_num
-            ok_m = step_counts[km] * minimum_den >= n_sensors * minimum_num
+            ok_t = _share_at_least(step_counts[kt], n_sensors, params.en17037_target_area)
+            ok_m = _share_at_least(step_counts[km], n_sensors, params.en17037_minimum_area)
             out_target[rows, i] += np.count_nonzero(ok_t & day_g, axis=1)
             out_minimum[rows, i] += np.count_nonzero(ok_m & day_g, axis=1)
 
