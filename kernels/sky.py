@@ -220,9 +220,14 @@ def _grid_shape(n: int) -> tuple[int, int]:
 
 def _jittered_unit_square(n: int, count: int, rng: np.random.Generator) -> np.ndarray:
     """Stratified points in [0, 1)², (count, n, 2): one per cell of a rows×cols grid."""
+    return _stratify(rng.random((count, n, 2)))
+
+
+def _stratify(jitter: np.ndarray) -> np.ndarray:
+    """Place uniform draws (..., n, 2) in the n cells of a rows×cols grid of [0, 1)²."""
+    n = jitter.shape[-2]
     rows, cols = _grid_shape(n)
     i, j = np.divmod(np.arange(n), cols)
-    jitter = rng.random((count, n, 2))
     return np.stack([(i + jitter[..., 0]) / rows, (j + jitter[..., 1]) / cols], -1)
 
 
@@ -254,9 +259,7 @@ def sample_directions(scheme: PatchScheme, n_per_patch: int, seed: int,
     """
     n = int(n_per_patch)
     rng = np.random.default_rng(seed)
-    # the strata and draws of _jittered_unit_square: 2 n uniform draws per patch, in order
-    rows, cols = _grid_shape(n)
-    i, j = np.divmod(np.arange(n), cols)
+    # the draws of _jittered_unit_square: 2 n uniform draws per patch, in order
     if patches is None:
         sel = slice(None)
         jitter = rng.random((scheme.n_patches, n, 2))
@@ -277,7 +280,8 @@ def sample_directions(scheme: PatchScheme, n_per_patch: int, seed: int,
         jitter = np.concatenate(parts) if parts else np.zeros((0, n, 2))
         if back is not None:
             jitter = jitter[back]
-    u, v = (i + jitter[..., 0]) / rows, (j + jitter[..., 1]) / cols
+    uv = _stratify(jitter)
+    u, v = uv[..., 0], uv[..., 1]
     s_lo = np.sin(np.radians(scheme.altitude_low[sel]))[:, None]
     s_hi = np.sin(np.radians(scheme.altitude_high[sel]))[:, None]
     sin_alt = s_lo + u * (s_hi - s_lo)
