@@ -148,8 +148,9 @@ _CLIMATE_STEPS_LOCK = threading.Lock()
 
 
 def _climate_steps(path: str | os.PathLike, step_minutes: int) -> tuple:
-    """The climate resampled to ``step_minutes``, its step stamps and the sun's
-    apparent altitude and azimuth [deg] at every step's representative time.
+    """The climate resampled to ``step_minutes`` and the sun's apparent altitude
+    and azimuth [deg] at every step's representative time (the step stamps are
+    the climate's own ``time``).
 
     Kept per worker process for the last few (file, size, mtime, step): one worker
     usually runs several series tasks of the same climate (one per coefficient
@@ -166,9 +167,8 @@ def _climate_steps(path: str | os.PathLike, step_minutes: int) -> tuple:
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # reported once by the client's check
         climate = resample(read_climate(path), step_minutes)
-    stamps = climate.time
     altitude, azimuth = step_sun(climate)
-    entry = (climate, stamps, altitude, azimuth)
+    entry = (climate, altitude, azimuth)
     with _CLIMATE_STEPS_LOCK:
         if len(_CLIMATE_STEPS) >= _CLIMATE_STEPS_MAX:
             _CLIMATE_STEPS.pop(next(iter(_CLIMATE_STEPS)))
@@ -231,7 +231,8 @@ def _series(
     if coeffs is None:
         raise RuntimeError(f"coefficient set {task.key} is missing from the cache {cache_root}")
     study = task.study
-    climate, stamps, altitude, azimuth = _climate_steps(task.climate_file, study.timestep)
+    climate, altitude, azimuth = _climate_steps(task.climate_file, study.timestep)
+    stamps = climate.time
     scheme = patch_scheme(coeffs.subdivision)
     sun_points = SunPoints(coeffs.settings.sun_spacing)
     daylight = altitude > 0.0
