@@ -79,8 +79,8 @@ def brute_force_hour(scene: Any, sensors: np.ndarray, sun_dir: np.ndarray, eps: 
 
     Returns ``(e_sky, e_sun)``.
     """
-    from kernels.glazing import relative_transmittance
-    from kernels.sky import luminance_perez1993
+    from luxsweep.kernels.glazing import relative_transmittance
+    from luxsweep.kernels.sky import luminance_perez1993
 
     n_s = sensors.shape[0]
     dirs = cosine_hemisphere(n_s, N_SKY, rng)
@@ -119,12 +119,12 @@ def _relative(route: np.ndarray, brute: np.ndarray) -> dict[str, float]:
 def main() -> dict[str, Any]:
     import pvlib
 
-    from kernels import sky as ksky
-    from kernels import sun as ksun
-    from kernels.climate import read_climate
-    from kernels.coefficients import Settings, compute_coefficients
-    from kernels.raytrace import Scene
-    from kernels.timeseries import illuminance
+    from luxsweep.kernels import sky as ksky
+    from luxsweep.kernels import sun as ksun
+    from luxsweep.kernels.climate import read_climate
+    from luxsweep.kernels.coefficients import Settings, compute_coefficients
+    from luxsweep.kernels.raytrace import Scene
+    from luxsweep.kernels.timeseries import illuminance
 
     geometry, sensors = bc.reference_geometry()
     settings = Settings()

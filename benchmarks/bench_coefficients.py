@@ -28,9 +28,9 @@ import time
 
 import numpy as np
 
-from kernels import coefficients, raytrace, transfer
-from kernels.coefficients import Settings, compute_coefficients
-from kernels.geometry import parametric_room, sensor_grid
+from luxsweep.kernels import coefficients, raytrace, transfer
+from luxsweep.kernels.coefficients import Settings, compute_coefficients
+from luxsweep.kernels.geometry import parametric_room, sensor_grid
 
 
 def classroom():
@@ -65,7 +65,7 @@ class RayCounts(dict):
 
 def _sky_rays(sensors: np.ndarray, scheme, settings) -> int:
     """Sky and ground rays of ``coefficients._sensor_sky_direct`` with ``n·d > 0``."""
-    from kernels.sky import sample_directions, sample_ground
+    from luxsweep.kernels.sky import sample_directions, sample_ground
 
     n = 0
     for s in range(sensors.shape[0]):

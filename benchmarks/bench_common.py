@@ -185,12 +185,12 @@ def plan_and_cache(study: Path, cache_root: Path, results: Path) -> tuple[Any, A
     :func:`kernels.coefficients.compute_coefficients` and published in the
     real :class:`sweep.cache.CoefficientCache`.
     """
-    from kernels.coefficients import compute_coefficients
-    from sweep import run as srun
-    from sweep import store as sstore
-    from sweep.cache import CoefficientCache
-    from sweep.config import load_study
-    from sweep.plan import make_plan
+    from luxsweep.kernels.coefficients import compute_coefficients
+    from luxsweep.sweep import run as srun
+    from luxsweep.sweep import store as sstore
+    from luxsweep.sweep.cache import CoefficientCache
+    from luxsweep.sweep.config import load_study
+    from luxsweep.sweep.plan import make_plan
 
     cache = CoefficientCache(cache_root)
     plan = make_plan(load_study(study), cache)
@@ -205,7 +205,7 @@ def plan_and_cache(study: Path, cache_root: Path, results: Path) -> tuple[Any, A
 
 def run_series(plan: Any, task: Any, results: Path, cache_root: Path) -> dict[str, Any]:
     """Run the engine's own series task (sky → illuminance → metrics → store) in-process."""
-    from sweep.run import series_task
+    from luxsweep.sweep.run import series_task
 
     n_store = max(len(s) for s in plan.sensors)
     return series_task(task, list(task.members), str(results), str(cache_root), n_store)

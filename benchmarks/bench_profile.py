@@ -39,7 +39,7 @@ def _top(profile: cProfile.Profile, total: float) -> list[dict[str, Any]]:
 
 
 def profile_coefficients() -> dict[str, Any]:
-    from kernels.coefficients import Settings, compute_coefficients
+    from luxsweep.kernels.coefficients import Settings, compute_coefficients
 
     geometry, sensors = bc.reference_geometry()
     compute_coefficients(geometry, sensors[:2], Settings(sky_rays_per_patch=1, ground_rays=16,

@@ -58,7 +58,7 @@ class QueryTimer:
         setattr(owner, name, wrapper)
 
     def __enter__(self) -> QueryTimer:
-        from kernels import raytrace
+        from luxsweep.kernels import raytrace
 
         if hasattr(raytrace, "_run"):  # _run(scene, o, d, query, output=False)
             self._wrap(raytrace, "_run",
@@ -76,7 +76,7 @@ class QueryTimer:
 def main() -> dict[str, Any]:
     import bench_coefficients as bcoef
 
-    from kernels.coefficients import Settings, compute_coefficients
+    from luxsweep.kernels.coefficients import Settings, compute_coefficients
 
     geometry, sensors = bc.reference_geometry()
     settings = Settings()

@@ -42,11 +42,11 @@ def _forget_climates() -> None:
     time): the resampled records and step sun positions. The per-instant solar ephemeris
     (``kernels.sun``) stays: every climate sits on the same reference year, so a worker
     shares it between climates in a real sweep too."""
-    import kernels.sun
-    import sweep.run
+    from luxsweep.kernels import sun
+    from luxsweep.sweep import run
 
-    sweep.run._CLIMATE_STEPS.clear()
-    kernels.sun._step_sun.cache_clear()
+    run._CLIMATE_STEPS.clear()
+    sun._step_sun.cache_clear()
 
 
 def _task_seconds(folder: Path, cache: Path, name: str, vary: dict[str, list[Any]],
@@ -69,7 +69,7 @@ def _task_seconds(folder: Path, cache: Path, name: str, vary: dict[str, list[Any
 
 
 def main(cache: Path | None = None) -> dict[str, Any]:
-    from kernels.coefficients import Settings, compute_coefficients
+    from luxsweep.kernels.coefficients import Settings, compute_coefficients
 
     with bc.scratch("reuse") as work:
         cache = cache or work / "cache"

@@ -60,7 +60,7 @@ class ShapeRecorder:
         self.seconds = 0.0
 
     def __enter__(self) -> ShapeRecorder:
-        import kernels.timeseries as ts
+        import luxsweep.kernels.timeseries as ts
 
         self._original = ts.unit_illuminance
 
@@ -77,7 +77,7 @@ class ShapeRecorder:
         return self
 
     def __exit__(self, *exc: Any) -> None:
-        import kernels.timeseries as ts
+        import luxsweep.kernels.timeseries as ts
 
         ts.unit_illuminance = self._original
 

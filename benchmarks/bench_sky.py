@@ -15,7 +15,7 @@ from pathlib import Path
 import numpy as np
 import pvlib
 
-from kernels import climate, sky, sun
+from luxsweep.kernels import climate, sky, sun
 
 
 def _timed(fn, repeat: int):

@@ -35,8 +35,8 @@ import bench_common as bc
 import numpy as np
 import zarr
 
-from sweep import store
-from sweep.run import FAMILIES, store_variables
+from luxsweep.sweep import store
+from luxsweep.sweep.run import FAMILIES, store_variables
 
 N_VARIANTS = 36
 N_SENSORS = 195

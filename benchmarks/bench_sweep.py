@@ -87,7 +87,7 @@ def machine_parallelism(n: int = 1500) -> dict[str, float]:
 
 def run(study: Path, workers: int, work: Path, tag: str) -> dict[str, Any]:
     """One ``run_study`` with a fresh cache and store; wall time and worker time by stage."""
-    from sweep.run import run_study
+    from luxsweep.sweep.run import run_study
 
     logging.getLogger("distributed").setLevel(logging.ERROR)
     load0 = bc.load_average()

@@ -73,7 +73,7 @@ import numpy as np
 import pandas as pd
 import pvlib
 
-from kernels.errors import WeatherFileError
+from luxsweep.kernels.errors import WeatherFileError
 
 REFERENCE_YEAR = 2023
 """Non-leap year on which every weather file is placed."""

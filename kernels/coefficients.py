@@ -73,11 +73,11 @@ from typing import Any
 
 import numpy as np
 
-import kernels
-from kernels.errors import GeometryError, InputError
-from kernels.sky import patch_scheme, sample_directions, sample_ground
-from kernels.sun import DEFAULT_SPACING, SunPoints
-from kernels.transfer import (
+from luxsweep import kernels
+from luxsweep.kernels.errors import GeometryError, InputError
+from luxsweep.kernels.sky import patch_scheme, sample_directions, sample_ground
+from luxsweep.kernels.sun import DEFAULT_SPACING, SunPoints
+from luxsweep.kernels.transfer import (
     gather_matrix,
     gather_radiosity,
     mesh_elements,
@@ -379,7 +379,7 @@ def _patch_reach(scheme: Any) -> np.ndarray:
     is its colatitude span. A cap of directions of radius r about c reaches
     the half-space ``d · n >= 0`` exactly when ``c · n >= -sin r``.
     """
-    from kernels.sun import direction
+    from luxsweep.kernels.sun import direction
 
     corners = np.stack([direction(az, alt) for az in (scheme.azimuth_low, scheme.azimuth_high)
                         for alt in (scheme.altitude_low, scheme.altitude_high)], axis=1)
@@ -469,7 +469,7 @@ def _sun_direct(scene: Any, points: np.ndarray, normals: np.ndarray, exterior: n
     ``n·s <= 0`` and, for interior points, suns outside every window
     (:func:`_window_mask`) are settled without Embree.
     """
-    from kernels.raytrace import NO_GLAZING
+    from luxsweep.kernels.raytrace import NO_GLAZING
 
     n_p, n_sun, n_sets = points.shape[0], sun.shape[0], len(panes)
     out = np.zeros((n_sets + int(np.any(exterior)), n_p, n_sun), dtype=dtype)
@@ -614,7 +614,7 @@ def compute_coefficients(geometry: Any, sensors: np.ndarray,
     -------
     CoefficientSet
     """
-    from kernels.raytrace import Scene
+    from luxsweep.kernels.raytrace import Scene
 
     settings = settings or Settings()
     sensors = _check_sensors(sensors)

@@ -59,7 +59,7 @@ from typing import Any
 
 import numpy as np
 
-from kernels.errors import GeometryError
+from luxsweep.kernels.errors import GeometryError
 
 WALLS = ("front", "back", "left", "right", "roof")
 """Valid ``wall`` names of a window."""

@@ -26,7 +26,7 @@ from __future__ import annotations
 import numpy as np
 from scipy.optimize import brentq
 
-from kernels.errors import InputError
+from luxsweep.kernels.errors import InputError
 
 REFRACTIVE_INDEX = 1.52
 """Refractive index of soda-lime float glass in the visible (common practice)."""

@@ -48,7 +48,7 @@ import numpy as np
 from embreex import rtcore_scene as rtcs
 from embreex.mesh_construction import TriangleMesh
 
-from kernels.geometry import Geometry
+from luxsweep.kernels.geometry import Geometry
 
 __all__ = ["BATCH", "BLOCKED", "NO_GLAZING", "Hits", "Scene"]
 

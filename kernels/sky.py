@@ -36,8 +36,8 @@ import numpy as np
 import pandas as pd
 import pvlib
 
-from kernels import buffers
-from kernels.errors import InputError
+from luxsweep.kernels import buffers
+from luxsweep.kernels.errors import InputError
 
 # --------------------------------------------------------------------------------------
 # Sky patches
@@ -1244,7 +1244,7 @@ def sky_vectors(
       among the sun points for every orientation is what remains per
       orientation (benchmarks/bench_series.py, docs/performance.md).
     """
-    from kernels import sun as sunmod  # sun imports climate; keep sky importable alone
+    from luxsweep.kernels import sun as sunmod  # sun imports climate; keep sky importable alone
 
     clim = sunmod.resample(climate, step_minutes)
     idx = np.atleast_1d(np.arange(len(clim.time))[steps if steps is not None else slice(None)])

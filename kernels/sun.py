@@ -54,7 +54,7 @@ import pandas as pd
 import pvlib
 from scipy.spatial import Delaunay, cKDTree
 
-from kernels.climate import ILLUMINANCE, IRRADIANCE, QUANTITIES, Climate, Site
+from luxsweep.kernels.climate import ILLUMINANCE, IRRADIANCE, QUANTITIES, Climate, Site
 
 TEMPERATURE = 12.0
 """Air temperature [degC] used for the refraction correction (pvlib's default)."""

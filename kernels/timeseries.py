@@ -33,10 +33,10 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 from scipy import sparse
 
-from kernels import buffers
+from luxsweep.kernels import buffers
 
 if TYPE_CHECKING:
-    from kernels.coefficients import CoefficientSet
+    from luxsweep.kernels.coefficients import CoefficientSet
 
 __all__ = ["combine", "daylight_factor", "illuminance", "unit_illuminance"]
 

@@ -68,7 +68,7 @@ import numpy as np
 import scipy.linalg
 import scipy.sparse
 
-from kernels.glazing import relative_transmittance
+from luxsweep.kernels.glazing import relative_transmittance
 
 Matrix = np.ndarray | scipy.sparse.csr_matrix
 """A sampled matrix: dense when small and well filled, else CSR (see :class:`_Triplets`)."""
@@ -869,7 +869,7 @@ def transfer_matrix(
     the irradiance from basis entry ``j`` per unit ``L_j Ω_j`` as
     ``π Σ τ / (n Ω_j)``.
     """
-    from kernels.sky import patch_index
+    from luxsweep.kernels.sky import patch_index
 
     n, n_sets = elements.n, len(panes)
     n_basis = scheme.n_patches + 1 if scheme is not None else 0

@@ -34,7 +34,7 @@ from typing import Any
 
 import numpy as np
 
-from sweep.errors import CacheIntegrityError
+from luxsweep.sweep.errors import CacheIntegrityError
 
 _TMP = ".tmp-"
 _TRASH = ".trash-"
@@ -227,7 +227,7 @@ class CoefficientCache:
     # -- coefficient sets ---------------------------------------------------------
     def load(self, key: str) -> Any | None:
         """The :class:`kernels.coefficients.CoefficientSet` of ``key``, or ``None`` on a miss."""
-        from kernels.coefficients import CoefficientSet
+        from luxsweep.kernels.coefficients import CoefficientSet
 
         found = self.load_arrays(key)
         if found is None:

@@ -19,7 +19,7 @@ import warnings
 from collections.abc import Callable
 from typing import Any
 
-from sweep import __version__
+from luxsweep.sweep import __version__
 
 
 def _positive_int(text: str) -> int:
@@ -34,10 +34,10 @@ def _positive_int(text: str) -> int:
 
 def _optional_command(module: str, function: str) -> Callable[..., int] | None:
     """``sweep.<module>.<function>`` when that module exists and defines it."""
-    if importlib.util.find_spec(f"sweep.{module}") is None:
+    if importlib.util.find_spec(f"luxsweep.sweep.{module}") is None:
         return None
     try:
-        mod = importlib.import_module(f"sweep.{module}")
+        mod = importlib.import_module(f"luxsweep.sweep.{module}")
     except ImportError:
         return None
     return getattr(mod, function, None)
@@ -100,9 +100,9 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def cmd_check(args: argparse.Namespace) -> int:
-    from sweep.config import json_schema, load_study
-    from sweep.errors import UserInputError
-    from sweep.plan import make_plan
+    from luxsweep.sweep.config import json_schema, load_study
+    from luxsweep.sweep.errors import UserInputError
+    from luxsweep.sweep.plan import make_plan
 
     if args.schema:
         print(json.dumps(json_schema(), indent=2))
@@ -118,10 +118,10 @@ def cmd_check(args: argparse.Namespace) -> int:
 
 
 def cmd_plan(args: argparse.Namespace) -> int:
-    from sweep.cache import CoefficientCache
-    from sweep.config import load_study
-    from sweep.plan import make_plan
-    from sweep.run import default_cache
+    from luxsweep.sweep.cache import CoefficientCache
+    from luxsweep.sweep.config import load_study
+    from luxsweep.sweep.plan import make_plan
+    from luxsweep.sweep.run import default_cache
 
     loaded = load_study(args.study)
     cache = CoefficientCache(args.cache or default_cache(loaded))
@@ -146,7 +146,7 @@ def cmd_plan(args: argparse.Namespace) -> int:
 
 
 def cmd_run(args: argparse.Namespace) -> int:
-    from sweep.run import format_summary, run_study, terminate_as_interrupt
+    from luxsweep.sweep.run import format_summary, run_study, terminate_as_interrupt
 
     with terminate_as_interrupt():
         summary = run_study(args.study, args.out, workers=args.workers,
@@ -156,7 +156,7 @@ def cmd_run(args: argparse.Namespace) -> int:
 
 
 def cmd_demo(args: argparse.Namespace) -> int:
-    from sweep.demo import run_demo
+    from luxsweep.sweep.demo import run_demo
 
     return run_demo(args.out, workers=args.workers)
 
@@ -201,8 +201,8 @@ def _setup_output(debug: bool) -> None:
 
 
 def main(argv: list[str] | None = None) -> int:
-    from kernels.errors import InputError
-    from sweep.errors import UserInputError
+    from luxsweep.kernels.errors import InputError
+    from luxsweep.sweep.errors import UserInputError
 
     parser = build_parser()
     args = parser.parse_args(argv)

@@ -52,7 +52,7 @@ from pydantic import (
     field_validator,
 )
 
-from sweep.errors import StudyFileError
+from luxsweep.sweep.errors import StudyFileError
 
 # ---------------------------------------------------------------------------
 # helpers shared by the models
@@ -961,7 +961,7 @@ def parse_study(text: str, path: str | Path) -> StudyFile:
         raise _error(path, lines, problems)
     loaded = StudyFile(path=path, text=text, study=study, lines=lines)
     # vary entries are checked here so that `luxsweep check` catches them
-    from sweep.expand import check_vary
+    from luxsweep.sweep.expand import check_vary
 
     check_vary(loaded)
     return loaded

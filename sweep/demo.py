@@ -16,14 +16,15 @@ from pathlib import Path
 
 import pvlib
 
-from sweep.errors import UserInputError
+from luxsweep.sweep.errors import UserInputError
 
 DEMO_CLIMATES = ("723170TYA.CSV", "703165TY.csv")
 
 
 def demo_text() -> str:
-    """The demo study file's text (package data of ``configs``)."""
-    return importlib.resources.files("configs").joinpath("demo.yaml").read_text(encoding="utf-8")
+    """The demo study file's text (package data of ``luxsweep.configs``)."""
+    demo = importlib.resources.files("luxsweep.configs").joinpath("demo.yaml")
+    return demo.read_text(encoding="utf-8")
 
 
 def write_demo(out: str | Path) -> Path:
@@ -46,8 +47,8 @@ def write_demo(out: str | Path) -> Path:
 
 def run_demo(out: str | Path = "luxsweep-demo", *, workers: int | None = None) -> int:
     """Run the demo; returns the exit status."""
-    from sweep.cli import _optional_command
-    from sweep.run import format_summary, run_study, terminate_as_interrupt
+    from luxsweep.sweep.cli import _optional_command
+    from luxsweep.sweep.run import format_summary, run_study, terminate_as_interrupt
 
     study = write_demo(out)
     print(f"demo study written to {study}")

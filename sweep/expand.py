@@ -26,7 +26,7 @@ from typing import Any
 
 from pydantic import ValidationError
 
-from sweep.config import (
+from luxsweep.sweep.config import (
     NOT_VARIABLE,
     Study,
     StudyFile,

@@ -24,11 +24,11 @@ from typing import Any
 
 import numpy as np
 
-from kernels.errors import InputError
-from sweep.cache import CoefficientCache
-from sweep.config import Study, StudyFile, canonical_json
-from sweep.errors import StudyFileError
-from sweep.expand import Variant, axis_names, expand, study_hash
+from luxsweep.kernels.errors import InputError
+from luxsweep.sweep.cache import CoefficientCache
+from luxsweep.sweep.config import Study, StudyFile, canonical_json
+from luxsweep.sweep.errors import StudyFileError
+from luxsweep.sweep.expand import Variant, axis_names, expand, study_hash
 
 BYTES_PER_VALUE = 4  # float32 results
 
@@ -178,7 +178,7 @@ def _n_basis(subdivision: int) -> int:
 
 def _estimate_rays(geometry: Any, sensors: np.ndarray, settings: Any) -> int:
     """Rough ray count of one coefficient set (for the plan's cost line only)."""
-    from kernels.sun import SunPoints
+    from luxsweep.kernels.sun import SunPoints
 
     n_s = sensors.shape[0]
     n_basis = _n_basis(settings.subdivision)
@@ -227,7 +227,7 @@ def _wrap_geometry_error(loaded: StudyFile, variant: Variant | None, exc: InputE
 
 def build_geometry(study: Study) -> tuple[Any, np.ndarray]:
     """The :class:`kernels.geometry.Geometry` and sensors (n, 6) of a resolved study."""
-    from kernels import geometry as kg
+    from luxsweep.kernels import geometry as kg
 
     panes = {name: g.panes for name, g in study.glazings.items()}
     if study.room is not None:
@@ -260,7 +260,7 @@ def build_geometry(study: Study) -> tuple[Any, np.ndarray]:
 
 
 def settings_of(study: Study) -> Any:
-    from kernels.coefficients import Settings
+    from luxsweep.kernels.coefficients import Settings
 
     return Settings(**study.compute.settings_kwargs())
 
@@ -273,7 +273,7 @@ def _series_params(study: Study) -> dict[str, Any]:
 
 def check_climates(loaded: StudyFile, labels: Iterable[str]) -> dict[str, Any]:
     """Read every weather file used; kernel errors (naming file and line) pass through."""
-    from kernels.climate import read_climate
+    from luxsweep.kernels.climate import read_climate
 
     out = {}
     for label in labels:
@@ -290,7 +290,7 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
     StudyFileError, kernels.errors.InputError
         For any bad input (study file, geometry, OBJ, sensors, weather files).
     """
-    from kernels.coefficients import coefficient_key
+    from luxsweep.kernels.coefficients import coefficient_key
 
     variants = expand(loaded)
     built: dict[str, tuple[Any, np.ndarray, str, Any]] = {}
@@ -371,8 +371,8 @@ def occupied_times(loaded: StudyFile, climates: dict[str, Any]) -> Any:
     """
     import pandas as pd
 
-    from kernels.metrics import occupancy_mask
-    from kernels.sun import step_times
+    from luxsweep.kernels.metrics import occupancy_mask
+    from luxsweep.kernels.sun import step_times
 
     study = loaded.study
     found = None

@@ -40,7 +40,7 @@ import pandas as pd
 import xarray as xr
 import yaml
 
-from sweep.errors import ResultsStoreError, StudyFileError
+from luxsweep.sweep.errors import ResultsStoreError, StudyFileError
 
 __all__ = [
     "METRICS",

@@ -44,8 +44,8 @@ from matplotlib import colors
 from matplotlib.figure import Figure
 from matplotlib.patches import Rectangle
 
-from sweep import __version__
-from sweep.rank import (
+from luxsweep.sweep import __version__
+from luxsweep.sweep.rank import (
     METRICS,
     RankSpec,
     axes_of,

@@ -50,16 +50,16 @@ from urllib.parse import urlparse
 
 import numpy as np
 
-from sweep import store as results_store
-from sweep.cache import CoefficientCache
-from sweep.config import StudyFile, load_study
-from sweep.errors import (
+from luxsweep.sweep import store as results_store
+from luxsweep.sweep.cache import CoefficientCache
+from luxsweep.sweep.config import StudyFile, load_study
+from luxsweep.sweep.errors import (
     CacheIntegrityError,
     ResultsStoreError,
     UserInputError,
     VariantFailedError,
 )
-from sweep.plan import CoefficientJob, Plan, SeriesTask, make_plan
+from luxsweep.sweep.plan import CoefficientJob, Plan, SeriesTask, make_plan
 
 log = logging.getLogger("luxsweep")
 
@@ -110,7 +110,7 @@ def store_variables(metrics: list[str]) -> tuple[list[str], list[str]]:
 
 def coefficient_task(job: CoefficientJob, cache_root: str) -> dict[str, Any]:
     """Compute and publish one coefficient set (no-op when already cached)."""
-    from kernels.coefficients import compute_coefficients
+    from luxsweep.kernels.coefficients import compute_coefficients
 
     cache = CoefficientCache(cache_root)
     t0 = time.perf_counter()
@@ -126,7 +126,7 @@ def coefficient_task(job: CoefficientJob, cache_root: str) -> dict[str, Any]:
 
 
 def _metric_params(task: SeriesTask) -> Any:
-    from kernels.metrics import MetricParams
+    from luxsweep.kernels.metrics import MetricParams
 
     study = task.study
     return MetricParams.from_options(study.metric_options.model_dump(), study.timestep)
@@ -156,8 +156,8 @@ def _climate_steps(path: str | os.PathLike, step_minutes: int) -> tuple:
     usually runs several series tasks of the same climate (one per coefficient
     key), and reading, resampling and locating the sun is the same work each time.
     """
-    from kernels.climate import read_climate
-    from kernels.sun import resample, step_sun
+    from luxsweep.kernels.climate import read_climate
+    from luxsweep.kernels.sun import resample, step_sun
 
     stat = os.stat(path)
     key = (os.fspath(path), stat.st_size, stat.st_mtime_ns, step_minutes)
@@ -220,10 +220,10 @@ def _series(
     cache_root: str,
 ) -> dict[str, Any]:
     """Body of :func:`series_task` (same parameters and result)."""
-    from kernels import metrics as km
-    from kernels.sky import overcast_sky_vector, patch_scheme, sky_vectors
-    from kernels.sun import SunPoints
-    from kernels.timeseries import combine, daylight_factor, unit_illuminance
+    from luxsweep.kernels import metrics as km
+    from luxsweep.kernels.sky import overcast_sky_vector, patch_scheme, sky_vectors
+    from luxsweep.kernels.sun import SunPoints
+    from luxsweep.kernels.timeseries import combine, daylight_factor, unit_illuminance
 
     timing = {"load": 0.0, "sky": 0.0, "illuminance": 0.0, "metrics": 0.0, "write": 0.0}
     t0 = time.perf_counter()

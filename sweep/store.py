@@ -55,8 +55,8 @@ import pandas as pd
 import xarray as xr
 import zarr
 
-from sweep import __version__
-from sweep.errors import ResultsStoreError
+from luxsweep.sweep import __version__
+from luxsweep.sweep.errors import ResultsStoreError
 
 # name -> (dtype, units, long name)
 SENSOR_VARIABLES: dict[str, tuple[str, str, str]] = {

@@ -47,14 +47,14 @@ class CliResult:
 
 @pytest.fixture
 def cli(capfd: pytest.CaptureFixture[str]) -> Callable[..., CliResult]:
-    """Run ``sweep.cli.main(argv)`` in this process; capture fd-level output.
+    """Run ``luxsweep.sweep.cli.main(argv)`` in this process; capture fd-level output.
 
     fd-level capture also catches consoles that bound ``sys.stderr`` at import.
     ``SystemExit`` (argparse) is turned into its exit status.
     """
     import time
 
-    from sweep.cli import main
+    from luxsweep.sweep.cli import main
 
     def run(*argv: str) -> CliResult:
         capfd.readouterr()
@@ -83,14 +83,14 @@ def luxsweep_process(
     env: dict[str, str] | None = None,
     new_session: bool = False,
 ) -> subprocess.Popen[str]:
-    """Start ``python -m sweep.cli ARGV`` as a child process (text pipes).
+    """Start ``python -m luxsweep.sweep.cli ARGV`` as a child process (text pipes).
 
     ``new_session`` puts it in its own process group (``os.killpg`` kills it with
     everything it started).
     """
     full_env = {**os.environ, "PYTHONUNBUFFERED": "1", **(env or {})}
     return subprocess.Popen(
-        [sys.executable, "-m", "sweep.cli", *map(str, argv)],
+        [sys.executable, "-m", "luxsweep.sweep.cli", *map(str, argv)],
         cwd=cwd,
         env=full_env,
         stdout=subprocess.PIPE,

@@ -16,7 +16,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from kernels.metrics import (
+from luxsweep.kernels.metrics import (
     MetricParams,
     StepMasks,
     accumulate,

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from kernels import buffers
+from luxsweep.kernels import buffers
 
 
 def test_buffer_in_use_is_not_handed_out_again(monkeypatch):

@@ -12,7 +12,7 @@ import warnings
 import numpy as np
 import pytest
 
-from sweep.cache import CoefficientCache
+from luxsweep.sweep.cache import CoefficientCache
 
 
 def arrays(seed: int = 0) -> dict[str, np.ndarray]:
@@ -138,8 +138,8 @@ def test_real_coefficient_set_round_trip(tmp_path):
     """A CoefficientSet from the kernels survives the cache bit for bit."""
     from conftest import TINY_COMPUTE
 
-    from kernels.coefficients import Settings, compute_coefficients
-    from kernels.geometry import parametric_room, sensor_grid
+    from luxsweep.kernels.coefficients import Settings, compute_coefficients
+    from luxsweep.kernels.geometry import parametric_room, sensor_grid
 
     geometry = parametric_room(
         3.0, 3.0, 2.7, [dict(wall="front", width=1.5, sill=0.9, head=2.1, offset=0.0,

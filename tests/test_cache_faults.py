@@ -22,7 +22,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from sweep.cache import CoefficientCache
+from luxsweep.sweep.cache import CoefficientCache
 
 REPO = Path(__file__).resolve().parent.parent
 KEY = "a3f1" * 16  # a well-formed sha256-like key
@@ -98,7 +98,7 @@ def test_exception_mid_write_leaves_no_entry(tmp_path, exc):
 WRITE_SCRIPT = """
 import sys, time
 import numpy as np
-from sweep.cache import CoefficientCache
+from luxsweep.sweep.cache import CoefficientCache
 from test_cache_faults import payload
 root, key, writer, n = sys.argv[1], sys.argv[2], int(sys.argv[3]), int(sys.argv[4])
 arrays = payload(writer, n)
@@ -169,7 +169,7 @@ SLOT = 1.0  # seconds between rounds
 
 RACE_WRITER = """
 import sys, time
-from sweep.cache import CoefficientCache
+from luxsweep.sweep.cache import CoefficientCache
 from test_cache_faults import payload
 root, keys, writer, start, slot = sys.argv[1], sys.argv[2].split(","), int(sys.argv[3]), \\
     float(sys.argv[4]), float(sys.argv[5])
@@ -184,7 +184,7 @@ print("ok", flush=True)
 
 RACE_READER = """
 import json, sys, time, warnings
-from sweep.cache import CoefficientCache
+from luxsweep.sweep.cache import CoefficientCache
 from test_cache_faults import writer_of
 root, keys, start, slot = sys.argv[1], sys.argv[2].split(","), float(sys.argv[3]), \\
     float(sys.argv[4])
@@ -403,7 +403,7 @@ def test_engine_recomputes_a_corrupted_entry(tmp_path):
     equal those of the first run; afterwards the entry verifies again."""
     from conftest import assert_same_results, write_tiny_study
 
-    from sweep.run import run_study
+    from luxsweep.sweep.run import run_study
 
     study = write_tiny_study(tmp_path / "study", orientations=(180.0,), climates=("coastal",),
                              transmittances=(0.6,))

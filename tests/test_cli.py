@@ -3,12 +3,12 @@
 import subprocess
 import sys
 
-import sweep
+from luxsweep import sweep
 
 
 def test_version_flag_prints_package_version():
     out = subprocess.run(
-        [sys.executable, "-m", "sweep.cli", "--version"], capture_output=True, text=True
+        [sys.executable, "-m", "luxsweep.sweep.cli", "--version"], capture_output=True, text=True
     )
     assert out.returncode == 0
     assert out.stdout.strip() == f"luxsweep {sweep.__version__}"
@@ -16,7 +16,7 @@ def test_version_flag_prints_package_version():
 
 def test_help_lists_program_name():
     out = subprocess.run(
-        [sys.executable, "-m", "sweep.cli", "--help"], capture_output=True, text=True
+        [sys.executable, "-m", "luxsweep.sweep.cli", "--help"], capture_output=True, text=True
     )
     assert out.returncode == 0
     assert "luxsweep" in out.stdout
@@ -78,18 +78,18 @@ def test_bad_worker_count_is_an_argument_error(tmp_path, cli):
 def test_rank_and_report_are_registered_when_present():
     import importlib.util
 
-    from sweep.cli import build_parser
+    from luxsweep.sweep.cli import build_parser
 
     text = build_parser().format_help()
     for command in ("demo", "check", "plan", "run"):
         assert command in text
     for command in ("rank", "report"):
-        present = importlib.util.find_spec(f"sweep.{command}") is not None
+        present = importlib.util.find_spec(f"luxsweep.sweep.{command}") is not None
         assert (command in text) == present
 
 
 def test_demo_study_is_valid(tmp_path, cli):
-    from sweep.demo import write_demo
+    from luxsweep.sweep.demo import write_demo
 
     study = write_demo(tmp_path / "demo")
     result = cli("check", study)

@@ -19,8 +19,8 @@ import pandas as pd
 import pvlib
 import pytest
 
-from kernels.climate import QUANTITIES, REFERENCE_YEAR, read_climate, read_epw, read_tmy3
-from kernels.errors import WeatherFileError
+from luxsweep.kernels.climate import QUANTITIES, REFERENCE_YEAR, read_climate, read_epw, read_tmy3
+from luxsweep.kernels.errors import WeatherFileError
 
 PVLIB_DATA = Path(pvlib.__file__).parent / "data"
 GREENSBORO = PVLIB_DATA / "723170TYA.CSV"

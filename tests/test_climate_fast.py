@@ -19,8 +19,8 @@ import numpy as np
 import pvlib
 import pytest
 
-from kernels import climate as cl
-from kernels.errors import WeatherFileError
+from luxsweep.kernels import climate as cl
+from luxsweep.kernels.errors import WeatherFileError
 
 PVLIB_DATA = Path(pvlib.__file__).parent / "data"
 SAND_POINT = PVLIB_DATA / "703165TY.csv"

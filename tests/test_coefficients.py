@@ -12,14 +12,19 @@ import numpy as np
 import pytest
 from scipy import integrate
 
-from kernels.coefficients import CoefficientSet, Settings, coefficient_key, compute_coefficients
-from kernels.geometry import parametric_room, sensor_grid
-from kernels.glazing import relative_transmittance
-from kernels.raytrace import Scene
-from kernels.sky import luminance_cie, overcast_sky_vector, patch_scheme, sample_directions
-from kernels.sun import SunPoints, direction
-from kernels.timeseries import daylight_factor
-from kernels.transfer import (
+from luxsweep.kernels.coefficients import (
+    CoefficientSet,
+    Settings,
+    coefficient_key,
+    compute_coefficients,
+)
+from luxsweep.kernels.geometry import parametric_room, sensor_grid
+from luxsweep.kernels.glazing import relative_transmittance
+from luxsweep.kernels.raytrace import Scene
+from luxsweep.kernels.sky import luminance_cie, overcast_sky_vector, patch_scheme, sample_directions
+from luxsweep.kernels.sun import SunPoints, direction
+from luxsweep.kernels.timeseries import daylight_factor
+from luxsweep.kernels.transfer import (
     factor_element_parallel_rectangle,
     factor_element_perpendicular_rectangle,
 )
@@ -342,7 +347,7 @@ def test_window_pretest_keeps_every_ray_that_crosses_glazing():
     # The edge-plane pre-test must be conservative: every ray Embree finds crossing
     # glazing (Scene.glazing_crossing, the independent reference) is kept; and it should
     # be tight (rays kept ≈ rays crossing), since each kept ray costs Embree queries.
-    from kernels.coefficients import _window_mask, _window_wedges
+    from luxsweep.kernels.coefficients import _window_mask, _window_wedges
 
     geo = _two_windows()
     scene = Scene(geo)
@@ -364,9 +369,9 @@ def test_patch_culling_gives_the_brute_force_sky_direct():
     # τ_rel n·d for rays crossing glazing and then no opaque surface — evaluated here for
     # every ray with Embree (Scene.exit_glazing), no pre-test. The culled computation must
     # give the same sums; sensors facing up, sideways, tilted and down.
-    from kernels.coefficients import _STREAM_GROUND, _STREAM_SKY, _seed
-    from kernels.sky import sample_ground
-    from kernels.transfer import relative_transmit
+    from luxsweep.kernels.coefficients import _STREAM_GROUND, _STREAM_SKY, _seed
+    from luxsweep.kernels.sky import sample_ground
+    from luxsweep.kernels.transfer import relative_transmit
 
     geo = _two_windows()
     settings = Settings(subdivision=1, sky_rays_per_patch=16, ground_rays=1024,
@@ -420,7 +425,7 @@ def test_sample_directions_of_some_patches_are_rows_of_the_full_call():
 
 def test_sun_points_are_computed_once_and_kept_read_only():
     # the fine/coarse sun points and their interpolation depend on the spacings only
-    from kernels.coefficients import _sun_points
+    from luxsweep.kernels.coefficients import _sun_points
 
     kept = _sun_points(6.0, 12.0)
     assert _sun_points(6.0, 12.0) is kept
@@ -433,7 +438,7 @@ def test_sun_points_are_computed_once_and_kept_read_only():
 def test_direct_sun_in_float32_is_the_float64_result_rounded():
     # sensors' direct sun is written straight into float32: IEEE 754 rounds each value as
     # astype(float32) would; exterior points add one (unglazed) layer
-    from kernels.coefficients import _sun_direct
+    from luxsweep.kernels.coefficients import _sun_direct
 
     geo = _two_windows()
     scene = Scene(geo)

@@ -16,8 +16,8 @@ from pathlib import Path
 import pytest
 from conftest import TMY3_GREENSBORO, TMY3_SAND_POINT
 
-from sweep.config import RANK_METRICS, Study, json_schema, load_study, parse_study
-from sweep.errors import StudyFileError
+from luxsweep.sweep.config import RANK_METRICS, Study, json_schema, load_study, parse_study
+from luxsweep.sweep.errors import StudyFileError
 
 BASE = textwrap.dedent(
     """\
@@ -223,7 +223,7 @@ def test_json_schema_export():
 
 
 def test_rank_metric_table_matches_store():
-    from sweep.store import VARIANT_VARIABLES
+    from luxsweep.sweep.store import VARIANT_VARIABLES
 
     assert set(RANK_METRICS) == set(VARIANT_VARIABLES) - {"done"}
 

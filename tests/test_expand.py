@@ -10,9 +10,9 @@ from pathlib import Path
 import pytest
 from conftest import TMY3_GREENSBORO, TMY3_SAND_POINT
 
-from sweep.config import canonical_json, load_study
-from sweep.errors import StudyFileError
-from sweep.expand import expand, get_path, set_path, split_path, study_hash
+from luxsweep.sweep.config import canonical_json, load_study
+from luxsweep.sweep.errors import StudyFileError
+from luxsweep.sweep.expand import expand, get_path, set_path, split_path, study_hash
 
 STUDY = textwrap.dedent(
     """\

@@ -26,7 +26,7 @@ from conftest import (
     write_tiny_study,
 )
 
-from sweep.run import dask_client, run_study
+from luxsweep.sweep.run import dask_client, run_study
 
 # ------------------------------------------------------------------ the default cluster
 

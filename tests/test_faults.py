@@ -34,8 +34,8 @@ from conftest import (
 )
 from distributed.diagnostics.plugin import WorkerPlugin
 
-from sweep.cache import CoefficientCache
-from sweep.run import run_study
+from luxsweep.sweep.cache import CoefficientCache
+from luxsweep.sweep.run import run_study
 
 N_VARIANTS = 16  # 2 window widths x 2 orientations x 2 climates x 2 transmittances
 
@@ -187,8 +187,8 @@ def test_poison_variant_fails_alone(study, reference, tmp_path):
     """One variant's task kills its worker every time it starts. Asserts: the run
     returns (no hang) within its deadline; exactly that variant is reported failed,
     by its id; every other variant is done and equals the serial run."""
-    from sweep.config import load_study
-    from sweep.expand import expand
+    from luxsweep.sweep.config import load_study
+    from luxsweep.sweep.expand import expand
 
     variants = expand(load_study(study))
     poison = variants[5].variant_id
@@ -324,7 +324,7 @@ def test_duplicate_task_execution_leaves_store_bytes_unchanged(study, reference,
     processes, first as two concurrent copies (as Dask may do when a worker is
     wrongly presumed dead and its task rescheduled), then once more alone.
     Asserts the store's files are byte-identical before and after."""
-    from sweep.run import prepare, series_task
+    from luxsweep.sweep.run import prepare, series_task
 
     out = tmp_path / "results.zarr"
     shutil.copytree(reference[0], out)

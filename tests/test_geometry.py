@@ -12,8 +12,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from kernels.errors import GeometryError
-from kernels.geometry import (
+from luxsweep.kernels.errors import GeometryError
+from luxsweep.kernels.geometry import (
     GLASS_POSITION,
     MAX_SENSORS,
     OVERHANG_SLAB,
@@ -24,7 +24,7 @@ from kernels.geometry import (
     sensor_grid,
     sensor_grid_on,
 )
-from kernels.raytrace import Scene
+from luxsweep.kernels.raytrace import Scene
 
 DATA = Path(__file__).parent / "data" / "geometry"
 REFL = {"floor": 0.2, "walls": 0.5, "ceiling": 0.7}

@@ -10,8 +10,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from kernels.errors import InputError
-from kernels.glazing import (
+from luxsweep.kernels.errors import InputError
+from luxsweep.kernels.glazing import (
     REFERENCE_ABSORPTION,
     fit_absorption,
     fresnel_reflectance,
@@ -145,7 +145,7 @@ def test_transmittance_alone_equals_the_full_optics_bit_for_bit():
     # relative_transmittance runs on every ray that crosses a window, so it evaluates the
     # transmittance path of glazing_optics alone; the same operations in the same order
     # must give the same bits (IEEE 754 arithmetic is deterministic), grazing included.
-    from kernels.glazing import _transmittance
+    from luxsweep.kernels.glazing import _transmittance
 
     rng = np.random.default_rng(4)
     c = np.concatenate([[0.0, 1.0, 1e-300, 1e-9, 0.5, -0.2, 1.3], np.cos(ANGLES),

@@ -13,7 +13,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from kernels.metrics import (
+from luxsweep.kernels.metrics import (
     MetricParams,
     StepMasks,
     accumulate,
@@ -406,7 +406,7 @@ def test_accumulate_equals_the_definitions_evaluated_directly(batch_masks):
 def test_first_passing_level_is_exact(tau, strict):
     # Definition of the level: the smallest float32 u whose rounded product with τ passes
     # the threshold (IEEE 754 rounding is monotone, so everything above passes as well).
-    from kernels.metrics import _first_passing
+    from luxsweep.kernels.metrics import _first_passing
 
     f32 = np.float32
     for x in (100.0, 300.0, 1000.0, 3000.0, 3.3):

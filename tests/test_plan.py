@@ -7,9 +7,9 @@ import json
 import numpy as np
 from conftest import write_tiny_study
 
-from sweep.cache import CoefficientCache
-from sweep.config import load_study
-from sweep.plan import make_plan
+from luxsweep.sweep.cache import CoefficientCache
+from luxsweep.sweep.config import load_study
+from luxsweep.sweep.plan import make_plan
 
 
 def test_two_geometries_give_two_coefficient_sets(tmp_path):
@@ -67,7 +67,7 @@ def test_everything_sent_to_workers_pickles(tmp_path):
 
 
 def test_loopback_detection_for_scheduler_addresses():
-    from sweep.run import is_loopback
+    from luxsweep.sweep.run import is_loopback
 
     assert is_loopback("tcp://127.0.0.1:8786") and is_loopback("tcp://localhost:1")
     assert is_loopback("tcp://[::1]:8786")

@@ -16,8 +16,8 @@ import pytest
 import xarray as xr
 from synthetic_results import AXES, NOT_DONE, write_store
 
-from sweep.errors import ResultsStoreError, StudyFileError
-from sweep.rank import (
+from luxsweep.sweep.errors import ResultsStoreError, StudyFileError
+from luxsweep.sweep.rank import (
     axes_of,
     main_effects,
     metric_names,

@@ -9,8 +9,8 @@ import numpy as np
 import pytest
 from scipy import integrate
 
-from kernels.geometry import parametric_room
-from kernels.raytrace import BLOCKED, NO_GLAZING, Scene
+from luxsweep.kernels.geometry import parametric_room
+from luxsweep.kernels.raytrace import BLOCKED, NO_GLAZING, Scene
 
 REFL = {"floor": 0.2, "walls": 0.5, "ceiling": 0.7}
 W, D, H = 6.0, 8.0, 3.0
@@ -308,7 +308,7 @@ def test_glazing_cosines_with_one_and_with_several_window_normals():
     # against numpy's float64 dot product with the geometry's normals (1e-12: rounding
     # of the float32 directions' products only). With all windows in one plane the
     # normal is broadcast instead of gathered per ray: the same products, the same bits.
-    from kernels.raytrace import _abs_cos
+    from luxsweep.kernels.raytrace import _abs_cos
 
     o, d = _random_rays(40_000, 24)
     d32 = d.astype(np.float32)

@@ -17,9 +17,9 @@ import numpy as np
 import pytest
 from synthetic_results import write_store
 
-from sweep.errors import ResultsStoreError
-from sweep.rank import open_store
-from sweep.report import CAUTION, build_report, report_command
+from luxsweep.sweep.errors import ResultsStoreError
+from luxsweep.sweep.rank import open_store
+from luxsweep.sweep.report import CAUTION, build_report, report_command
 
 SECTIONS = (
     "Study at a glance",
@@ -125,7 +125,7 @@ def test_report_from_a_store_written_by_sweep_store(tmp_path):
     without stored series it says so and skips the hour-by-hour map."""
     from synthetic_results import AXES, make_dataset
 
-    from sweep import store as results_store
+    from luxsweep.sweep import store as results_store
 
     src = make_dataset(series=False)
     sensor_vars = [n for n in results_store.SENSOR_VARIABLES if n in src]

@@ -23,10 +23,10 @@ import xarray as xr
 import zarr
 from conftest import TINY_COMPUTE, luxsweep_process, run_luxsweep, write_tiny_study
 
-from sweep.cache import CoefficientCache
-from sweep.config import load_study
-from sweep.expand import expand
-from sweep.run import run_study
+from luxsweep.sweep.cache import CoefficientCache
+from luxsweep.sweep.config import load_study
+from luxsweep.sweep.expand import expand
+from luxsweep.sweep.run import run_study
 
 SENSOR_VARS = ("daylight_factor", "daylight_autonomy", "udi_low", "udi_supplementary",
                "udi_autonomous", "udi_high", "direct_sun_hours")
@@ -35,13 +35,13 @@ VARIANT_VARS = ("sda", "ase", "udi_useful_mean", "daylight_factor_mean", "en1703
 
 def reference(variant) -> dict[str, np.ndarray]:
     """One variant alone through the kernels (no sweep code but the resolved study)."""
-    from kernels import metrics as km
-    from kernels.climate import read_climate
-    from kernels.coefficients import Settings, compute_coefficients
-    from kernels.geometry import parametric_room, sensor_grid
-    from kernels.sky import overcast_sky_vector, patch_scheme, sky_vectors
-    from kernels.sun import SunPoints
-    from kernels.timeseries import daylight_factor, illuminance
+    from luxsweep.kernels import metrics as km
+    from luxsweep.kernels.climate import read_climate
+    from luxsweep.kernels.coefficients import Settings, compute_coefficients
+    from luxsweep.kernels.geometry import parametric_room, sensor_grid
+    from luxsweep.kernels.sky import overcast_sky_vector, patch_scheme, sky_vectors
+    from luxsweep.kernels.sun import SunPoints
+    from luxsweep.kernels.timeseries import daylight_factor, illuminance
 
     s = variant.study
     room = s.room
@@ -232,7 +232,7 @@ def test_series_task_is_bit_identical_whatever_the_callers_blas_threads(finished
 
     from threadpoolctl import threadpool_limits
 
-    from sweep.run import prepare, series_task
+    from luxsweep.sweep.run import prepare, series_task
 
     study, folder, _, _ = finished
     out = tmp_path / "r.zarr"
@@ -246,7 +246,7 @@ def test_series_task_is_bit_identical_whatever_the_callers_blas_threads(finished
     got, want = zarr.open_group(str(out), mode="r"), zarr.open_group(str(folder / "r.zarr"))
     rows = [vi for vi, _, _ in task.members]
     assert got["done"][:][rows].all()
-    from sweep.store import SENSOR_VARIABLES, VARIANT_VARIABLES
+    from luxsweep.sweep.store import SENSOR_VARIABLES, VARIANT_VARIABLES
 
     names = [n for n in got.array_keys() if n in {**SENSOR_VARIABLES, **VARIANT_VARIABLES}]
     assert {"mean_illuminance", "continuous_daylight_autonomy"} <= set(names)  # sums of lx
@@ -256,7 +256,7 @@ def test_series_task_is_bit_identical_whatever_the_callers_blas_threads(finished
 
 def test_plain_links_to_remote_schedulers_are_recognised():
     """Dask's default scheme is TCP, so a bare host:port is a plain link too."""
-    from sweep.run import is_plain_link
+    from luxsweep.sweep.run import is_plain_link
 
     for address in ("tcp://192.0.2.10:8786", "192.0.2.10:8786", "ws://head.invalid:8786",
                     "head.invalid:8786"):
@@ -272,7 +272,7 @@ def test_damaged_cache_entry_counts_as_missing(tmp_path):
     instead of being read by a series task."""
     import warnings
 
-    from sweep.run import _usable
+    from luxsweep.sweep.run import _usable
 
     cache = CoefficientCache(tmp_path / "cache")
     key = "5e" * 32

@@ -16,8 +16,8 @@ import pvlib
 import pytest
 from scipy import integrate
 
-from kernels import sky
-from kernels.errors import InputError
+from luxsweep.kernels import sky
+from luxsweep.kernels.errors import InputError
 
 PVLIB_DATA = Path(pvlib.__file__).parent / "data"
 GREENSBORO = PVLIB_DATA / "723170TYA.CSV"  # pvlib's bundled TMY3 file, Greensboro NC
@@ -70,7 +70,7 @@ def tmy3_raw():
 
 @pytest.fixture(scope="module")
 def greensboro_climate():
-    from kernels.climate import read_climate
+    from luxsweep.kernels.climate import read_climate
 
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # the file's illuminance columns are in hundreds of lux
@@ -341,7 +341,7 @@ def test_perez1993_vertical_diffuse_against_pvlib_perez1990(greensboro_climate):
     frame or a coefficient typo in the circumsolar terms moves the south/north ratio by
     far more (the south plane gets ~1.5× the north one here).
     """
-    from kernels import sun as sunmod
+    from luxsweep.kernels import sun as sunmod
 
     clim = greensboro_climate
     scheme = sky.patch_scheme(2)
@@ -436,7 +436,7 @@ def test_efficacy_edges():
 
 @pytest.fixture(scope="module")
 def vectors(greensboro_climate):
-    from kernels import sun as sunmod
+    from luxsweep.kernels import sun as sunmod
 
     scheme = sky.patch_scheme(1)
     points = sunmod.SunPoints(3.0)
@@ -472,7 +472,7 @@ def test_unobstructed_horizontal_sensor_gets_the_diffuse_illuminance(vectors):
 
 
 def test_sun_weights(vectors, greensboro_climate):
-    from kernels import sun as sunmod
+    from luxsweep.kernels import sun as sunmod
 
     _, points, sv = vectors
     up = sv.daylight
@@ -510,7 +510,7 @@ def test_patch_luminance_close_to_fine_patch_means(greensboro_climate):
     over each patch (MF1, 300 spring hours). Measured L1 error 0.33 % mean / 0.76 % max at
     MF1 (0.1 % at MF2, 0.03 % at MF4); 1.5 % bounds it with margin (the 256-sample
     reference itself carries ~0.1 % noise)."""
-    from kernels import sun as sunmod
+    from luxsweep.kernels import sun as sunmod
 
     clim = greensboro_climate
     scheme = sky.patch_scheme(1)
@@ -541,7 +541,7 @@ def test_patch_luminance_close_to_fine_patch_means(greensboro_climate):
 
 
 def test_sub_hourly_steps(greensboro_climate):
-    from kernels import sun as sunmod
+    from luxsweep.kernels import sun as sunmod
 
     scheme = sky.patch_scheme(1)
     sv = sky.sky_vectors(greensboro_climate, [180.0], scheme, sunmod.SunPoints(5.0), 15,
@@ -592,7 +592,7 @@ def test_orientations_together_equal_each_alone(greensboro_climate):
     patches: the MF2 band widths 6, 7.5, 10, 15, 30° (Reinhart MF:2 of the Tregenza 1987
     counts) all divide 30°, so 577 distinct patches serve all twelve orientations (one
     class); 17° shares none."""
-    from kernels import sun as sunmod
+    from luxsweep.kernels import sun as sunmod
 
     scheme = sky.patch_scheme(2)
     twelve = np.arange(0.0, 360.0, 30.0)

@@ -8,8 +8,8 @@ import pytest
 import xarray as xr
 import zarr
 
-from sweep import store
-from sweep.errors import ResultsStoreError
+from luxsweep.sweep import store
+from luxsweep.sweep.errors import ResultsStoreError
 
 
 def layout(sensors=None, times=None, **attrs) -> store.StoreLayout:

@@ -24,9 +24,9 @@ import pytest
 import xarray as xr
 import zarr
 
-from sweep import store
-from sweep.errors import ResultsStoreError
-from sweep.run import FAMILIES, store_variables
+from luxsweep.sweep import store
+from luxsweep.sweep.errors import ResultsStoreError
+from luxsweep.sweep.run import FAMILIES, store_variables
 
 SENSOR_VARS, VARIANT_VARS = store_variables(list(FAMILIES))  # every metric family
 
@@ -212,7 +212,7 @@ def test_a_failure_in_the_middle_of_a_batch_sets_no_done_flag(tmp_path):
 KILL_WRITER = textwrap.dedent("""
     import sys
     import numpy as np
-    from sweep import store
+    from luxsweep.sweep import store
     path, n_sensors = sys.argv[1], int(sys.argv[2])
     names = sys.argv[3].split(",")
     print("ready", flush=True)

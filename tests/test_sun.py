@@ -18,8 +18,8 @@ import pvlib
 import pytest
 from scipy.optimize import brentq
 
-from kernels.climate import Site, read_tmy3
-from kernels.sun import (
+from luxsweep.kernels.climate import Site, read_tmy3
+from luxsweep.kernels.sun import (
     DEFAULT_SPACING,
     SunPoints,
     azimuth_altitude,

@@ -15,7 +15,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from kernels.sun import SunPoints, direction
+from luxsweep.kernels.sun import SunPoints, direction
 
 
 def _reference(points: SunPoints, s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

@@ -13,9 +13,9 @@ import pandas as pd
 import pvlib
 import pytest
 
-from kernels import sun
-from kernels.climate import Site
-from kernels.sun import TEMPERATURE, solar_position
+from luxsweep.kernels import sun
+from luxsweep.kernels.climate import Site
+from luxsweep.kernels.sun import TEMPERATURE, solar_position
 
 SITES = [
     Site("mid-latitude, west", 55.317, -160.517, 7.0, -9.0),

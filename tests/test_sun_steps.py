@@ -18,9 +18,9 @@ import pandas as pd
 import pvlib
 import pytest
 
-from kernels import sun
-from kernels.climate import Site, read_tmy3
-from kernels.sun import resample, solar_position, step_sun, step_times
+from luxsweep.kernels import sun
+from luxsweep.kernels.climate import Site, read_tmy3
+from luxsweep.kernels.sun import resample, solar_position, step_sun, step_times
 
 SAND_POINT = Path(pvlib.__file__).parent / "data" / "703165TY.csv"
 SITES = {

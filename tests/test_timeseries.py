@@ -8,12 +8,12 @@ import numpy as np
 import pvlib
 import pytest
 
-from kernels.climate import read_climate
-from kernels.coefficients import Settings, compute_coefficients
-from kernels.geometry import parametric_room, sensor_grid
-from kernels.sky import overcast_sky_vector, patch_scheme, sky_vectors
-from kernels.sun import SunPoints
-from kernels.timeseries import daylight_factor, illuminance
+from luxsweep.kernels.climate import read_climate
+from luxsweep.kernels.coefficients import Settings, compute_coefficients
+from luxsweep.kernels.geometry import parametric_room, sensor_grid
+from luxsweep.kernels.sky import overcast_sky_vector, patch_scheme, sky_vectors
+from luxsweep.kernels.sun import SunPoints
+from luxsweep.kernels.timeseries import daylight_factor, illuminance
 
 TMY3 = Path(pvlib.__file__).parent / "data" / "723170TYA.CSV"  # Greensboro NC, bundled with pvlib
 SETTINGS = Settings(subdivision=1, sun_spacing=5.0, reflected_sun_spacing=10.0,

@@ -10,9 +10,9 @@ import pytest
 import scipy.sparse
 from scipy import integrate
 
-from kernels.geometry import Geometry, Material, parametric_room
-from kernels.raytrace import Scene
-from kernels.transfer import (
+from luxsweep.kernels.geometry import Geometry, Material, parametric_room
+from luxsweep.kernels.raytrace import Scene
+from luxsweep.kernels.transfer import (
     cosine_directions,
     factor_element_parallel_rectangle,
     factor_element_perpendicular_rectangle,
@@ -251,8 +251,8 @@ def test_piece_size_does_not_change_the_sampled_matrices():
     # Pieces only bound the temporary arrays: the same draws, the same rays in the same
     # order, the same sums in the same order, hence the same bits (interior, exterior and
     # through-window transfer, sky sources, sensor gather).
-    from kernels.sky import patch_scheme
-    from kernels.transfer import PIECE
+    from luxsweep.kernels.sky import patch_scheme
+    from luxsweep.kernels.transfer import PIECE
 
     geo = _room_with_outside()
     scene = Scene(geo)
@@ -286,7 +286,7 @@ def test_piece_size_does_not_change_the_sampled_matrices():
 def test_triplet_sums_are_sequential_sums():
     # The dense path adds the values in the order given, as np.add.at does (sequential
     # IEEE additions: the same bits); the sparse path (few values) agrees to rounding.
-    from kernels.transfer import _Triplets
+    from luxsweep.kernels.transfer import _Triplets
 
     rng = np.random.default_rng(5)
     shape = (30, 40)
