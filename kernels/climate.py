@@ -216,6 +216,32 @@ def read_climate(path: str | os.PathLike) -> Climate:
     )
 
 
+def read_site(path: str | os.PathLike) -> Site:
+    """Read only the site (name, latitude, longitude, elevation, time zone) of a weather file.
+
+    Parameters
+    ----------
+    path : str or path-like
+        An EPW or TMY3 CSV file, recognised as in :func:`read_climate`.
+
+    Returns
+    -------
+    Site
+        From the EPW ``LOCATION`` line or the TMY3 metadata line; no records are read.
+    """
+    path = Path(path)
+    try:
+        with path.open("rb") as f:
+            head = f.read(4096)
+    except OSError as exc:
+        raise WeatherFileError(f"cannot be read ({exc.strerror})", file=str(path)) from exc
+    text = head.decode("utf-8-sig", errors="replace")
+    first = text.split("\n", 1)[0].rstrip("\r")
+    if path.suffix.lower() == ".epw" or first.upper().startswith("LOCATION,"):
+        return _epw_site(first, str(path))
+    return _tmy3_site(first, str(path))
+
+
 def read_epw(path_or_buffer: str | os.PathLike | IO[str]) -> Climate:
     """Read an EPW weather file.
 
@@ -887,5 +913,6 @@ __all__ = [
     "Site",
     "read_climate",
     "read_epw",
+    "read_site",
     "read_tmy3",
 ]

@@ -92,6 +92,12 @@ def build_parser() -> argparse.ArgumentParser:
         p = sub.add_parser("report", help="self-contained HTML report of a results store")
         p.add_argument("results", help="results store (.zarr folder)")
         p.add_argument("--html", default=None, help="output file (default beside the store)")
+        p.add_argument("--pdf", nargs="?", const=True, default=False, metavar="FILE",
+                       help="also print the report to PDF with headless Chromium (default "
+                       "file: the HTML file's name ending .pdf)")
+        p.add_argument("--paper", choices=("a4", "letter"), default=None,
+                       help="page size for printing (default A4 with --pdf, else the "
+                       "printer's own)")
     return parser
 
 
@@ -170,7 +176,7 @@ def cmd_rank(args: argparse.Namespace) -> int:
 def cmd_report(args: argparse.Namespace) -> int:
     command = _optional_command("report", "report_command")
     assert command is not None
-    return int(command(args.results, args.html))
+    return int(command(args.results, args.html, pdf=args.pdf, paper=args.paper))
 
 
 COMMANDS: dict[str, Callable[[argparse.Namespace], int]] = {

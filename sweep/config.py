@@ -26,6 +26,10 @@ Extensions to CONTRACT.md §1 (all optional; documented on the models below):
 - ``compute:`` ray-tracing settings passed to :class:`kernels.coefficients.Settings`
   (sky subdivision, sun-point spacing, ray counts, element size, seed); they
   enter the coefficient key.
+- ``labels:`` names for the varied axes in tables and charts
+  (``room.windows.0.width: "window width [m]"``); presentation only.
+- ``project:`` project, client, author and issue date for the report's cover;
+  presentation only.
 - mesh rooms: ``mesh:`` (OBJ), ``materials:`` (group -> reflectance or glazing
   set), ``grid.floors:`` (floor groups for the grid) or ``sensors:`` (CSV).
 """
@@ -62,7 +66,7 @@ BUILT_IN_AXES = ("orientation", "climate")
 # Top-level keys that describe the sweep or the store layout rather than a
 # variant: they cannot be varied.
 NOT_VARIABLE = ("name", "vary", "vary_together", "exclude", "rank", "metrics", "store_series",
-                "climates")
+                "climates", "labels", "project")
 
 _NAME = re.compile(r"^[A-Za-z0-9_-]+$")
 _CLOCK = re.compile(r"^(([01]\d|2[0-3]):[0-5]\d|24:00)$")
@@ -331,6 +335,27 @@ class Occupancy(_Model):
         return v
 
 
+class Project(_Model):
+    """Extension ``project:``: what the report's cover names (presentation only).
+
+    All fields are optional free text; ``issue_date`` is a date such as
+    "2026-12-04" (written as given).
+    """
+
+    project: str | None = Field(None, max_length=200, description="Project name on the cover.")
+    client: str | None = Field(None, max_length=200, description="Client on the cover.")
+    author: str | None = Field(None, max_length=200, description="Author or firm on the cover.")
+    issue_date: str | None = Field(None, max_length=40,
+                                   description="Issue date on the cover, as written.")
+    reference: str | None = Field(None, max_length=80,
+                                  description="Document or revision reference on the cover.")
+
+    @field_validator("issue_date", mode="before")
+    @classmethod
+    def _issue_date(cls, v: Any) -> Any:
+        return v.isoformat() if hasattr(v, "isoformat") else v  # YAML reads 2026-12-04 as a date
+
+
 class MetricOptions(_Model):
     """Extension ``metric_options:``: thresholds of the metrics [lx, h, %].
 
@@ -509,6 +534,8 @@ class Study(_Model):
     compute: Compute = Compute()
     store_series: bool = False
     rank: Rank | None = None
+    labels: dict[str, str] = {}
+    project: Project | None = None
 
     @field_validator("name")
     @classmethod

@@ -17,6 +17,7 @@ contents, so moving a study folder keeps every id.
 from __future__ import annotations
 
 import copy
+import difflib
 import hashlib
 import itertools
 import math
@@ -38,7 +39,7 @@ from luxsweep.sweep.config import (
 
 # Study keys that do not change a variant's results (left out of its hash).
 _PRESENTATION = ("name", "vary", "vary_together", "exclude", "rank", "metrics", "store_series",
-                 "climates")
+                 "climates", "labels", "project")
 
 
 # Study keys holding file paths (resolved to absolute paths in the model).
@@ -190,6 +191,14 @@ def check_vary(loaded: StudyFile) -> None:
             problems = cross_check(resolved)
             if problems:
                 raise loaded.error((*loc, j), f"value {row!r} (item {j}): {problems[0][1]}")
+    for path, text in study.labels.items():
+        if path not in seen:
+            close = difflib.get_close_matches(path, sorted(seen), n=1, cutoff=0.6)
+            hint = f" — did you mean '{close[0]}'?" if close else ""
+            raise loaded.error(("labels", path), f"'{path}' is not a varied axis ('labels' "
+                               f"names keys under 'vary' or 'vary_together'){hint}")
+        if not str(text).strip():
+            raise loaded.error(("labels", path), "give a non-empty label")
     for i, entry in enumerate(study.exclude):
         for path, value in entry.items():
             if path not in seen:

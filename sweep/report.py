@@ -3,19 +3,35 @@
 One HTML file with every image embedded as a base64 PNG (matplotlib, no
 pyplot state, no scripts, no external links), in this order:
 
-1. a caution (a design aid, not a certificate);
-2. the study at a glance: name, variants done / total, axes and their values,
-   climates, room, occupancy, when computed and by which luxsweep version;
-3. the ranking table with each criterion met or missed (:mod:`sweep.rank`);
-4. the trade-off chart of two objectives with the Pareto set;
-5. main effects: the mean of each ranked metric at each value of each axis;
-6. an orientation × climate map of the first objective for the best variant's
+1. a cover: the study, and the optional ``project:`` block of the study file
+   (project, client, author, issue date, reference);
+2. a caution (a design aid, not a certificate);
+3. the summary: the best variant named by its values, how many variants meet
+   the criteria, and the study at a glance;
+4. the ranking table — variants named by their values (:mod:`sweep.labels`),
+   time shares in percent, the EN 17037 level in words with what each level
+   means, each criterion met or missed (:mod:`sweep.rank`);
+5. the inputs: each weather file's site (name, latitude, longitude, time zone
+   from its header), the room or mesh, reflectances, glazing sets, windows,
+   grid, occupancy and the effective ray-tracing settings;
+6. a geometry sketch of the best variant: plan turned to its orientation with a
+   north arrow, and a section through the front window (overhang, obstructions);
+7. the trade-off chart of two objectives with the Pareto set;
+8. main effects: the mean of each ranked metric at each value of each axis;
+9. an orientation × climate map of the first objective for the best variant's
    other choices (glazing, geometry);
-7. room plans coloured by per-sensor daylight autonomy, useful daylight and
-   daylight factor for the top variants, with the room outline and windows;
-8. a day-of-year × hour-of-day map of illuminance at the sensor nearest the
-   room centre for the best variant (only when the series were stored);
-9. notes on the metrics.
+10. room plans coloured by per-sensor daylight autonomy, useful daylight and
+    daylight factor for the top variants, with the room outline and windows;
+11. a day-of-year × hour-of-day map of illuminance at the sensor nearest the
+    room centre for the best variant (only when the series were stored);
+12. notes on the metrics.
+
+Unit convention: shares of time (daylight autonomy, useful daylight, UDI
+bands) are shown in percent of the occupied time, shares of the grid (sDA, ASE)
+in percent of the sensors; the store keeps the units CONTRACT fixes (see the
+variables' ``units`` attributes). A print stylesheet keeps tables and figures
+whole on A4 and Letter pages; :func:`write_pdf` prints through headless
+Chromium when it is installed.
 
 Colour maps are perceptually uniform and stay readable in greyscale
 (matplotlib's ``cividis``); pass/fail is shown by words and symbols, not colour
@@ -33,6 +49,10 @@ import copy
 import datetime as dt
 import html
 import io
+import os
+import shutil
+import subprocess
+import tempfile
 from pathlib import Path
 from typing import Any
 
@@ -45,6 +65,17 @@ from matplotlib.figure import Figure
 from matplotlib.patches import Rectangle
 
 from luxsweep.sweep import __version__
+from luxsweep.sweep.errors import UserInputError
+from luxsweep.sweep.labels import (
+    EN17037_LEVELS,
+    axis_label,
+    en17037_text,
+    format_number,
+    orientation_text,
+    plural,
+    value_text,
+    variant_name,
+)
 from luxsweep.sweep.rank import (
     METRICS,
     RankSpec,
@@ -60,7 +91,7 @@ from luxsweep.sweep.rank import (
     study_from_store,
 )
 
-__all__ = ["build_report", "report_command"]
+__all__ = ["CAUTION", "build_report", "report_command", "write_pdf"]
 
 CMAP = "cividis"
 CAUTION = (
@@ -94,7 +125,8 @@ def _png(fig: Figure, alt: str) -> str:
 
 
 def _label(metric: str) -> str:
-    label, unit = METRICS.get(metric, (metric.replace("_", " "), ""))
+    label = METRICS.get(metric, (metric.replace("_", " "), ""))[0]
+    unit = _display(metric)[1]
     return f"{label} [{unit}]" if unit and unit != "0–3" else label
 
 
@@ -175,48 +207,110 @@ def _per_sensor(ds: xr.Dataset, name: str, variant: int) -> np.ndarray | None:
     return np.asarray(ds[name].isel(variant=variant).values, float)
 
 
-def _variant_caption(row: pd.Series, axes: list[str]) -> str:
-    return ", ".join(f"{a} {_fmt(row[a])}" for a in axes)
+def _variant_caption(row: pd.Series, axes: list[str], labels: dict[str, str] | None = None
+                     ) -> str:
+    return variant_name({a: _plain(row[a]) for a in axes}, axes, labels)
 
 
 # ---------------------------------------------------------------------------
 # sections
 
 
-def _summary(ds: xr.Dataset, study: dict, source: str | None) -> str:
+def _labels(study: dict) -> dict[str, str]:
+    labels = study.get("labels")
+    return {str(k): str(v) for k, v in labels.items()} if isinstance(labels, dict) else {}
+
+
+def _display(metric: str) -> tuple[float, str]:
+    """Scale and unit a metric is shown in: shares of time and of the grid in percent."""
+    unit = METRICS.get(metric, ("", ""))[1]
+    if unit == "fraction":
+        return 100.0, "%"
+    return 1.0, unit
+
+
+def _metric_heading(metric: str) -> str:
+    if metric == "en17037_level":
+        return "EN 17037 level"
+    unit = _display(metric)[1]
+    short = SHORT.get(metric, METRICS.get(metric, (metric.replace("_", " "), ""))[0])
+    short = short.split(" [")[0]
+    return f"{short} [{unit}]" if unit else short
+
+
+def _metric_cell(metric: str, value: Any) -> str:
+    if metric == "en17037_level":
+        return en17037_text(value)
+    scale, _ = _display(metric)
+    try:
+        return format_number(float(value) * scale)
+    except (TypeError, ValueError):
+        return format_number(value)
+
+
+def _row_values(row: pd.Series, axes: list[str]) -> dict[str, Any]:
+    return {a: _plain(row[a]) for a in axes}
+
+
+def _name_of(row: pd.Series, axes: list[str], labels: dict[str, str]) -> str:
+    return variant_name(_row_values(row, axes), axes, labels)
+
+
+def _project_block(study: dict) -> str:
+    project = study.get("project") if isinstance(study.get("project"), dict) else {}
+    fields = (("Project", "project"), ("Client", "client"), ("Prepared by", "author"),
+              ("Issue date", "issue_date"), ("Reference", "reference"))
+    rows = [(k, project[f]) for k, f in fields if project.get(f) not in (None, "")]
+    if not rows:
+        return ""
+    return '<dl class="cover">' + "".join(
+        f"<div><dt>{_esc(k)}</dt><dd>{_esc(v)}</dd></div>" for k, v in rows) + "</dl>"
+
+
+def _summary(ds: xr.Dataset, study: dict, source: str | None, table: pd.DataFrame,
+             spec: RankSpec) -> str:
     done = completed_mask(ds)
     axes = axes_of(ds)
+    labels = _labels(study)
+    ranked = table[table["status"] != "incomplete"]
+    findings = []
+    if ranked.empty:
+        findings.append("No variant has finished yet; run the study to completion.")
+    else:
+        best = ranked.iloc[0]
+        metrics = spec.metrics or [m for m in ("sda", "ase", "udi_useful_mean") if m in table]
+        values = ", ".join(f"{_metric_heading(m).split(' [')[0]} {_metric_cell(m, best[m])}"
+                           + (f" {_display(m)[1]}" if _display(m)[1] and
+                              m != "en17037_level" else "")
+                           for m in metrics if m in best.index)
+        if spec.require:
+            n_pass = int((ranked["status"] == "pass").sum())
+            findings.append(f"{plural(n_pass, 'variant')} of {len(ranked):,} meet every "
+                            "criterion." if n_pass != 1 else
+                            f"1 variant of {len(ranked):,} meets every criterion.")
+            lead = "Best variant" if n_pass else "Closest variant (misses a criterion)"
+        else:
+            findings.append("No criteria were given: variants are ordered by "
+                            + ("their score." if spec.prefer else "their order in the study."))
+            lead = "First variant"
+        findings.append(f"{lead}: <strong>{_esc(_name_of(best, axes, labels))}</strong>"
+                        + (f" — {_esc(values)}." if values else "."))
     rows = [
         ("Study", study.get("name") or ds.attrs.get("study_name", "(unnamed)")),
-        ("Variants", f"{int(done.sum())} of {done.size} computed"
-         + ("" if done.all() else f" ({done.size - int(done.sum())} not finished)")),
+        ("Variants", f"{int(done.sum()):,} of {done.size:,} computed"
+         + ("" if done.all() else f" ({done.size - int(done.sum()):,} not finished)")),
     ]
     for axis in axes:
         values = pd.unique(pd.Series(coord_values(ds, axis)))
-        rows.append((f"Varied: {axis}", ", ".join(_fmt(v) for v in values)))
-    climates = study.get("climates") or {}
-    if climates:
-        rows.append(("Climates", "; ".join(f"{k}: {Path(str(v)).name}"
-                                            for k, v in climates.items())))
-    room = study.get("room")
-    if isinstance(room, dict):
-        size = " × ".join(_fmt(room.get(k, "?")) for k in ("width", "depth", "height"))
-        rows.append(("Room (width × depth × height)", f"{size} m"))
-        rows.append(("Windows", str(len(room.get("windows") or []))))
-    elif study.get("mesh"):
-        rows.append(("Room", f"mesh {Path(str(study['mesh'])).name}"))
-    occ = study.get("occupancy")
-    if isinstance(occ, dict):
-        rows.append(("Occupied", f"{occ.get('start', '?')}–{occ.get('end', '?')}, "
-                                 f"{occ.get('days', '?')}"))
-    if "sensor" in ds.sizes:
-        rows.append(("Sensors per grid", str(ds.sizes["sensor"])))
+        rows.append((f"Varied: {axis_label(axis, labels)}",
+                     ", ".join(value_text(axis, v) for v in values)))
     rows.append(("Computed", _when(ds, source)))
     rows.append(("Computed with", f"luxsweep {ds.attrs.get('luxsweep_version', '?')}"))
     rows.append(("Report made", f"{dt.datetime.now().strftime('%Y-%m-%d %H:%M')} "
                                 f"with luxsweep {__version__}"))
     body = "".join(f"<tr><th>{_esc(k)}</th><td>{_esc(v)}</td></tr>" for k, v in rows)
-    return f'<table class="facts">{body}</table>'
+    return ("".join(f"<p>{f}</p>" for f in findings)
+            + f'<table class="facts">{body}</table>')
 
 
 def _when(ds: xr.Dataset, source: str | None) -> str:
@@ -230,47 +324,400 @@ def _when(ds: xr.Dataset, source: str | None) -> str:
     return "unknown"
 
 
-def _ranking(table: pd.DataFrame, spec: RankSpec, axes: list[str], top: int = 25) -> str:
+def _ranking(table: pd.DataFrame, spec: RankSpec, axes: list[str], labels: dict[str, str],
+             top: int = 25) -> str:
     ranked = table[table["status"] != "incomplete"].head(top)
     incomplete = table[table["status"] == "incomplete"]
     metrics = spec.metrics or [m for m in ("sda", "ase", "udi_useful_mean") if m in table]
-    head = ["Rank", "Variant", *[_breakable(a) for a in axes],
-            *[f'<span title="{_esc(_label(m))}">{_esc(_short(m))}</span>' for m in metrics]]
+    head = ["Rank", "Variant",
+            *[f'<span title="{_esc(_label(m))}">{_esc(_metric_heading(m))}</span>'
+              for m in metrics]]
     if spec.prefer:
         head += ["Score (0–1)", "Pareto set"]
-    head += ["Criteria"]
+    if spec.require:
+        head += ["Criteria"]
     out = ['<table class="rank"><thead><tr>']
     out += [f"<th>{h}</th>" for h in head]
     out.append("</tr></thead><tbody>")
     for _, row in pd.concat([ranked, incomplete]).iterrows():
         status = row["status"]
-        cells = [_fmt(row["rank"]) if status != "incomplete" else "–",
-                 f'<code>{_esc(str(row["variant_id"])[:10])}</code>']
-        cells += [_esc(_fmt(row[a])) for a in axes]
-        cells += [_esc(_fmt(row.get(m, np.nan))) for m in metrics]
+        name = _esc(_name_of(row, axes, labels))
+        cells = [format_number(row["rank"]) if status != "incomplete" else "–",
+                 f'<span title="variant id {_esc(row["variant_id"])}">{name}</span>']
+        cells += [_esc(_metric_cell(m, row.get(m, np.nan))) for m in metrics]
         if spec.prefer:
-            cells += [_esc(_fmt(row["score"])), "◆ yes" if row["pareto"] else ""]
-        if status == "pass":
-            verdict = '<span class="pass">✓ all met</span>'
-        elif status == "fail":
-            verdict = f'<span class="fail">✗ misses {_esc(row["failed"])}</span>'
-        else:
+            cells += [_esc(format_number(row["score"])), "◆ yes" if row["pareto"] else ""]
+        if status == "incomplete":
             verdict = '<span class="incomplete">not finished – not ranked</span>'
-        if not spec.require and status != "incomplete":
-            verdict = "no criteria given"
-        cells.append(verdict)
+        elif status == "pass":
+            verdict = '<span class="pass">✓ all met</span>'
+        else:
+            verdict = f'<span class="fail">✗ misses {_esc(row["failed"])}</span>'
+        if spec.require or status == "incomplete":
+            cells.append(verdict)
         out.append(f'<tr class="{status}">' + "".join(f"<td>{c}</td>" for c in cells) + "</tr>")
     out.append("</tbody></table>")
     n_ranked = int((table["status"] != "incomplete").sum())
     note = []
     if n_ranked > top:
-        note.append(f"Showing the best {top} of {n_ranked} ranked variants; "
-                    "`luxsweep rank --csv FILE` writes them all.")
-    crit = "; ".join(r.label for r in spec.require) or "none"
-    pref = "; ".join(f"{o.metric} ({'higher' if o.goal == 'max' else 'lower'} is better, "
-                     f"weight {o.weight:g})" for o in spec.prefer) or "none"
-    note.append(f"Criteria: {crit}. Objectives: {pref}.")
+        note.append(f"The best {top} of {n_ranked:,} ranked variants are shown; the ranking "
+                    "file beside this report lists them all.")
+    crit = "; ".join(r.label for r in spec.require) or "none given"
+    pref = "; ".join(f"{_metric_heading(o.metric)} ({'higher' if o.goal == 'max' else 'lower'}"
+                     f" is better, weight {o.weight:g})" for o in spec.prefer) or "none given"
+    note.append(f"Criteria: {crit}. Objectives: {pref}. Shares of time and of the grid "
+                "are in percent.")
+    if "en17037_level" in metrics:
+        note.append("EN 17037 daylight provision levels: " + "; ".join(
+            f"{k} {word} – {meaning}" for k, (word, meaning) in EN17037_LEVELS.items()) + ".")
     return "".join(out) + "".join(f'<p class="note">{_esc(n)}</p>' for n in note)
+
+
+# ---------------------------------------------------------------------------
+# inputs and geometry
+
+
+def _table(head: list[str], rows: list[list[Any]], cls: str = "inputs") -> str:
+    out = [f'<table class="{cls}"><thead><tr>']
+    out += [f"<th>{_esc(h)}</th>" for h in head]
+    out.append("</tr></thead><tbody>")
+    for r in rows:
+        out.append("<tr>" + "".join(f"<td>{_esc(c)}</td>" for c in r) + "</tr>")
+    out.append("</tbody></table>")
+    return "".join(out)
+
+
+def _utc(offset: Any) -> str:
+    try:
+        h = float(offset)
+    except (TypeError, ValueError):
+        return "?"
+    sign = "+" if h >= 0 else "−"
+    minutes = round(abs(h) * 60)
+    return f"UTC{sign}{minutes // 60:02d}:{minutes % 60:02d}"
+
+
+def _latlon(value: Any, pos: str, neg: str) -> str:
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        return "?"
+    return f"{abs(v):.3f}° {pos if v >= 0 else neg}"
+
+
+_SUBDIVISION_WORDS = {1: "Tregenza, 145 patches"}
+
+
+def _subdivision(n: Any) -> str:
+    try:
+        k = int(n)
+    except (TypeError, ValueError):
+        return str(n)
+    return _SUBDIVISION_WORDS.get(k, f"Reinhart subdivision {k}, {144 * k * k + 1:,} patches")
+
+
+_COMPUTE_WORDS = (
+    ("subdivision", "sky patches", _subdivision),
+    ("sun_spacing", "sun-point spacing", lambda v: f"{format_number(v)}°"),
+    ("reflected_sun_spacing", "sun-point spacing for reflected sun",
+     lambda v: f"{format_number(v)}°"),
+    ("sky_rays_per_patch", "rays per sky patch and sensor", format_number),
+    ("ground_rays", "rays to the ground per sensor", format_number),
+    ("element_size", "surface element size", lambda v: f"{format_number(v)} m"),
+    ("element_rays", "rays per surface element", format_number),
+    ("sensor_rays", "rays per sensor for reflected light", format_number),
+    ("seed", "random seed", format_number),
+)
+
+
+def _inputs(ds: xr.Dataset, study: dict) -> str:
+    record = ds.attrs.get("inputs") if isinstance(ds.attrs.get("inputs"), dict) else {}
+    parts = []
+    climates = study.get("climates") or {}
+    sites = record.get("climates") or {}
+    rows = []
+    for label, path in climates.items():
+        site = sites.get(label) or {}
+        rows.append([label, site.get("site", "not recorded"),
+                     _latlon(site.get("latitude"), "N", "S"),
+                     _latlon(site.get("longitude"), "E", "W"), _utc(site.get("utc_offset")),
+                     Path(str(path)).name])
+    if rows:
+        parts.append("<h3>Climates</h3>" + _table(
+            ["Label", "Site (weather file header)", "Latitude", "Longitude",
+             "Standard time", "File"], rows))
+    room = study.get("room")
+    if isinstance(room, dict):
+        refl = room.get("reflectance") or {}
+        facts = [
+            ["Room (width × depth × height)", " × ".join(
+                format_number(room.get(k, "?")) for k in ("width", "depth", "height")) + " m"],
+            ["Wall thickness", f"{format_number(room.get('thickness', 0.0))} m"],
+            ["Reflectances", ", ".join(f"{k} {format_number(v)}" for k, v in refl.items())
+             or "defaults"],
+            ["Ground reflectance", format_number(study.get("ground_reflectance", 0.2))],
+        ]
+        if isinstance(room.get("overhang"), dict):
+            oh = room["overhang"]
+            facts.append(["Overhang over the front windows",
+                          f"depth {format_number(oh.get('depth'))} m, "
+                          f"{format_number(oh.get('gap', 0))} m above the window head"])
+        obstructions = study.get("obstructions") or room.get("obstructions") or []
+        for i, ob in enumerate(obstructions):
+            if isinstance(ob, dict):
+                facts.append([f"Obstruction {i + 1}", ", ".join(
+                    f"{k} {format_number(v)} m" for k, v in ob.items())])
+        parts.append("<h3>Room</h3>" + _table(["Item", "Value"], facts))
+        windows = [[i + 1, w.get("wall", "?"), *(
+            format_number(w.get(k)) if w.get(k) is not None else "–"
+            for k in ("width", "sill", "head", "offset")), w.get("glazing", "?")]
+            for i, w in enumerate(room.get("windows") or []) if isinstance(w, dict)]
+        if windows:
+            parts.append("<h3>Windows</h3>" + _table(
+                ["#", "Wall", "Width [m]", "Sill [m]", "Head [m]",
+                 "Offset from wall centre [m]", "Glazing set"], windows))
+    elif study.get("mesh"):
+        mats = study.get("materials") or {}
+        parts.append("<h3>Room (mesh)</h3>" + _table(
+            ["OBJ group", "Material"],
+            [[g, f"glazing set {m['glazing']}" if m.get("glazing") else
+              f"reflectance {format_number(m.get('reflectance'))}"]
+             for g, m in mats.items() if isinstance(m, dict)]))
+    glazings = study.get("glazings") or {}
+    if glazings:
+        parts.append("<h3>Glazing sets</h3>" + _table(
+            ["Set", "Normal transmittance", "Panes", "With shading closed"],
+            [[name, format_number(g.get("transmittance")), format_number(g.get("panes", 1)),
+              format_number(g.get("shaded_transmittance")) if g.get(
+                  "shaded_transmittance") is not None else "no operable shading"]
+             for name, g in glazings.items() if isinstance(g, dict)]))
+    grid = study.get("grid") if isinstance(study.get("grid"), dict) else {}
+    occ = study.get("occupancy") if isinstance(study.get("occupancy"), dict) else {}
+    other = [
+        ["Sensor grid", f"{format_number(grid.get('height', 0.8))} m above the floor, "
+                        f"{format_number(grid.get('spacing', 0.5))} m spacing, "
+                        f"{format_number(grid.get('margin', 0.5))} m from the walls"
+         + (f"; {ds.sizes['sensor']:,} sensors" if "sensor" in ds.sizes else "")],
+        ["Occupied", f"{occ.get('start', '08:00')}–{occ.get('end', '18:00')} local standard "
+                     f"time, {'every day' if occ.get('days') == 'all' else 'weekdays'}"],
+        ["Time step", f"{format_number(study.get('timestep', 60))} min"],
+    ]
+    parts.append("<h3>Grid, occupancy and time</h3>" + _table(["Item", "Value"], other))
+    compute = record.get("compute") or {}
+    if compute:
+        rows = [[words, fmt(compute[key])] for key, words, fmt in _COMPUTE_WORDS
+                if key in compute]
+        rows += [[k.replace("_", " "), format_number(v)] for k, v in compute.items()
+                 if k not in {c[0] for c in _COMPUTE_WORDS}]
+        parts.append("<h3>Ray-tracing settings (as used)</h3>" + _table(["Setting", "Value"],
+                                                                        rows))
+    else:
+        parts.append('<p class="note">This store does not record the ray-tracing settings '
+                     "it was computed with (it predates that record).</p>")
+    return "".join(parts)
+
+
+def _rotate(x: Any, y: Any, orientation: float) -> tuple[np.ndarray, np.ndarray]:
+    """Building-frame plan coordinates turned into the site frame (north up).
+
+    A building azimuth B is site azimuth B + orientation − 180 (DEVELOPERS.md), a
+    clockwise turn by θ = orientation − 180.
+    """
+    t = np.radians(orientation - 180.0)
+    x, y = np.asarray(x, float), np.asarray(y, float)
+    return x * np.cos(t) + y * np.sin(t), -x * np.sin(t) + y * np.cos(t)
+
+
+def _window_segments(room: dict) -> list[tuple[str, float, float, dict]]:
+    """(wall, start, end, window) along each wall for the wall windows of a room."""
+    w, d = float(room["width"]), float(room["depth"])
+    out = []
+    for win in room.get("windows") or []:
+        if not isinstance(win, dict) or win.get("wall") not in ("front", "back", "left",
+                                                                 "right"):
+            continue
+        length = w if win["wall"] in ("front", "back") else d
+        c = length / 2 + float(win.get("offset", 0.0) or 0.0)
+        out.append((win["wall"], c - float(win["width"]) / 2, c + float(win["width"]) / 2, win))
+    return out
+
+
+def _sketch_plan(ax: Any, study: dict, orientation: float) -> None:
+    room = study["room"]
+    w, d = float(room["width"]), float(room["depth"])
+    t = float(room.get("thickness", 0.0) or 0.0)
+
+    def poly(xs: list[float], ys: list[float], **kw: Any) -> None:
+        px, py = _rotate(xs, ys, orientation)
+        ax.fill(px, py, **kw)
+
+    outer = t if t > 0 else 0.12
+    poly([-outer, w + outer, w + outer, -outer], [-outer, -outer, d + outer, d + outer],
+         fc="0.25", ec="black", lw=0.8)
+    poly([0, w, w, 0], [0, 0, d, d], fc="white", ec="black", lw=0.8)
+    for wall, a, b, _ in _window_segments(room):
+        if wall in ("front", "back"):
+            yy = (-outer, 0) if wall == "front" else (d, d + outer)
+            poly([a, b, b, a], [yy[0], yy[0], yy[1], yy[1]], fc="#7fb3e6", ec="#1f5f99", lw=1)
+        else:
+            xx = (-outer, 0) if wall == "left" else (w, w + outer)
+            poly([xx[0], xx[1], xx[1], xx[0]], [a, a, b, b], fc="#7fb3e6", ec="#1f5f99", lw=1)
+    for win in room.get("windows") or []:
+        if isinstance(win, dict) and win.get("wall") == "roof":
+            cx, cy = float(win["x"]), float(win["y"])
+            hw, hl = float(win["width"]) / 2, float(win["length"]) / 2
+            poly([cx - hw, cx + hw, cx + hw, cx - hw], [cy - hl, cy - hl, cy + hl, cy + hl],
+                 fc="none", ec="#1f5f99", lw=1.2, ls="--")
+    if isinstance(room.get("overhang"), dict):
+        depth = float(room["overhang"].get("depth", 0.0))
+        for wall, a, b, _ in _window_segments(room):
+            if wall == "front" and depth > 0:
+                poly([a, b, b, a], [-outer - depth, -outer - depth, -outer, -outer],
+                     fc="none", ec="0.35", lw=1, hatch="///")
+    for ob in study.get("obstructions") or room.get("obstructions") or []:
+        if isinstance(ob, dict):
+            cx, cy = float(ob["x"]), float(ob["y"])
+            hw, hd = float(ob["width"]) / 2, float(ob["depth"]) / 2
+            poly([cx - hw, cx + hw, cx + hw, cx - hw], [cy - hd, cy - hd, cy + hd, cy + hd],
+                 fc="0.8", ec="0.3", lw=1)
+            px, py = _rotate([cx], [cy], orientation)
+            ax.text(px[0], py[0], f"{format_number(ob['height'])} m high", ha="center",
+                    va="center", fontsize=7)
+    fx, fy = _rotate([w / 2], [-outer - 0.9], orientation)
+    ax.text(fx[0], fy[0], "front", ha="center", va="center", fontsize=8)
+    ax.set_aspect("equal")
+    ax.autoscale_view()
+    x0, x1 = ax.get_xlim()
+    y0, y1 = ax.get_ylim()
+    span = max(x1 - x0, y1 - y0)
+    ax.annotate("", xy=(x1 + 0.08 * span, y1), xytext=(x1 + 0.08 * span, y1 - 0.15 * span),
+                arrowprops={"arrowstyle": "-|>", "color": "black", "lw": 1.5},
+                annotation_clip=False)
+    ax.text(x1 + 0.08 * span, y1 + 0.04 * span, "N", ha="center", va="bottom", fontsize=10,
+            fontweight="bold")
+    ax.set_xlim(x0 - 0.05 * span, x1 + 0.15 * span)
+    ax.set_ylim(y0 - 0.05 * span, y1 + 0.12 * span)
+    ax.set_xlabel("east [m]")
+    ax.set_ylabel("north [m]")
+    ax.set_title(f"Plan, north up (front façade faces {orientation_text(orientation)})",
+                 fontsize=10)
+
+
+def _sketch_section(ax: Any, study: dict) -> None:
+    """A section through the room at the middle of the first front window (y, z)."""
+    room = study["room"]
+    d, h = float(room["depth"]), float(room["height"])
+    t = float(room.get("thickness", 0.0) or 0.0)
+    outer = t if t > 0 else 0.12
+    ax.fill([-outer, d + outer, d + outer, -outer], [-outer, -outer, h + outer, h + outer],
+            fc="0.25", ec="black", lw=0.8)
+    ax.fill([0, d, d, 0], [0, 0, h, h], fc="white", ec="black", lw=0.8)
+    segments = _window_segments(room)
+    front = [s for s in segments if s[0] == "front"]
+    cut = (front[0][1] + front[0][2]) / 2 if front else float(room["width"]) / 2
+    for wall, a, b, win in segments:
+        if wall not in ("front", "back") or not (a <= cut <= b):
+            continue
+        sill, head = float(win.get("sill", 0.0)), float(win.get("head", 0.0))
+        yy = (-outer, 0) if wall == "front" else (d, d + outer)
+        ax.fill([yy[0], yy[1], yy[1], yy[0]], [sill, sill, head, head], fc="#7fb3e6",
+                ec="#1f5f99", lw=1)
+        if wall == "front" and isinstance(room.get("overhang"), dict):
+            oh = room["overhang"]
+            z = head + float(oh.get("gap", 0.0))
+            ax.fill([-outer - float(oh.get("depth", 0.0)), -outer, -outer,
+                     -outer - float(oh.get("depth", 0.0))], [z, z, z + 0.05, z + 0.05],
+                    fc="0.35", ec="black", lw=0.8)
+    grid = study.get("grid") if isinstance(study.get("grid"), dict) else {}
+    gz = float(grid.get("height", 0.8))
+    ax.plot([0, d], [gz, gz], ls=":", color="#b35900", lw=1.2)
+    ax.text(d / 2, gz + 0.08, f"sensor grid {format_number(gz)} m", ha="center", fontsize=7,
+            color="#b35900")
+    far = 0.0
+    for ob in study.get("obstructions") or room.get("obstructions") or []:
+        if not isinstance(ob, dict):
+            continue
+        if abs(float(ob["x"]) - cut) <= float(ob["width"]) / 2 and float(ob["y"]) < 0:
+            y0 = float(ob["y"]) - float(ob["depth"]) / 2
+            y1 = float(ob["y"]) + float(ob["depth"]) / 2
+            ax.fill([y0, y1, y1, y0], [0, 0, float(ob["height"]), float(ob["height"])],
+                    fc="0.8", ec="0.3", lw=1)
+            far = min(far, y0)
+    ax.axhline(0.0 - outer, color="0.5", lw=0.8)
+    ax.set_aspect("equal")
+    ax.set_xlim(min(far, -outer - 1.0) - 0.3, d + outer + 0.5)
+    ax.set_xlabel("distance into the room from the front wall [m] (outside is negative)")
+    ax.set_ylabel("height [m]")
+    ax.set_title(f"Section through the front window (x = {format_number(cut)} m)",
+                 fontsize=10)
+
+
+def _mesh_plan(ax: Any, study: dict, folder: Path | None, orientation: float) -> bool:
+    """Outline a mesh room's floor groups and glazing in plan; False if the mesh is unreadable."""
+    from luxsweep.kernels.geometry import read_obj
+
+    mesh = Path(str(study.get("mesh", "")))
+    if not mesh.is_absolute() and folder is not None:
+        mesh = folder / mesh
+    mats = {g: dict(m) for g, m in (study.get("materials") or {}).items() if isinstance(m, dict)}
+    try:
+        geometry = read_obj(mesh, mats)
+    except Exception:  # the sketch is optional: a moved or edited mesh only loses the drawing
+        return False
+    floors = set((study.get("grid") or {}).get("floors") or [])
+    glazing = np.array([m.kind == "glazing" for m in geometry.materials])[geometry.material]
+    floor = np.array([n in floors for n in geometry.group_names])[geometry.group]
+    for k, t in enumerate(geometry.triangles):
+        if floor[k] or glazing[k]:
+            px, py = _rotate(t[:, 0], t[:, 1], orientation)
+            if floor[k]:
+                ax.fill(px, py, fc="0.88", ec="0.6", lw=0.3)
+            else:
+                ax.fill(px, py, fc="none", ec="#1f5f99", lw=1.5)
+    ax.set_aspect("equal")
+    ax.set_title(f"Plan of the mesh, north up (front faces {orientation_text(orientation)}): "
+                 "grey floor groups, blue glazing", fontsize=10)
+    return True
+
+
+def _geometry_sketch(ds: xr.Dataset, table: pd.DataFrame, study: dict,
+                     source: str | None) -> str:
+    done = table[table["status"] != "incomplete"]
+    axes = axes_of(ds)
+    labels = _labels(study)
+    if done.empty:
+        tree, caption = study, "the study as written"
+    else:
+        best = done.iloc[0]
+        tree = resolved_study(study, ds, int(best["variant"]))
+        caption = f"the first-ranked variant ({_name_of(best, axes, labels)})"
+    orientation = float(tree.get("orientation", 180.0) or 0.0)
+    room = tree.get("room")
+    if isinstance(room, dict):
+        try:
+            fig = Figure(figsize=(11.0, 4.6))
+            left, right = fig.subplots(1, 2, gridspec_kw={"width_ratios": [1.0, 1.15]})
+            _sketch_plan(left, tree, orientation)
+            _sketch_section(right, tree)
+            fig.tight_layout()
+        except (KeyError, TypeError, ValueError):
+            return '<p class="note">The room in the study text could not be drawn.</p>'
+    elif tree.get("mesh"):
+        folder = None
+        if ds.attrs.get("study_file"):
+            folder = Path(str(ds.attrs["study_file"])).parent
+        elif source:
+            folder = Path(source).parent
+        fig = Figure(figsize=(7.0, 5.5))
+        if not _mesh_plan(fig.add_subplot(), tree, folder, orientation):
+            return ('<p class="note">The mesh file of this study could not be read from '
+                    "here, so no sketch is drawn.</p>")
+    else:
+        return '<p class="note">No room in the study text: no sketch.</p>'
+    return (_png(fig, "geometry sketch: plan and section")
+            + f'<p class="note">Geometry of {_esc(caption)}. Blue: glazing; hatched: '
+              "overhang; light grey: obstructions with their height; dotted: the sensor "
+              "grid. The arrow points to north.</p>")
 
 
 def _objective_pair(spec: RankSpec, names: list[str]) -> list[tuple[str, str]]:
@@ -290,13 +737,13 @@ def _pareto_chart(ds: xr.Dataset, table: pd.DataFrame, spec: RankSpec) -> str:
     if len(pair) < 2 or done.empty:
         return '<p class="note">Fewer than two metrics to compare: no trade-off chart.</p>'
     (mx, gx), (my, gy) = pair
-    x = np.asarray(ds[mx].values, float)[done["variant"]]
-    y = np.asarray(ds[my].values, float)[done["variant"]]
+    x = np.asarray(ds[mx].values, float)[done["variant"]] * _display(mx)[0]
+    y = np.asarray(ds[my].values, float)[done["variant"]] * _display(my)[0]
     ok = (done["status"] == "pass").to_numpy()
     front = np.zeros(len(done), bool)
     if ok.any():
         front[ok] = pareto_front(np.column_stack([x[ok], y[ok]]), [gx, gy])
-    fig = Figure(figsize=(7.5, 5.0))
+    fig = Figure(figsize=(11.0, 5.6))
     ax = fig.add_subplot()
     ax.scatter(x[~ok], y[~ok], s=36, facecolors="none", edgecolors="0.45",
                label="misses a criterion")
@@ -315,21 +762,28 @@ def _pareto_chart(ds: xr.Dataset, table: pd.DataFrame, spec: RankSpec) -> str:
     ax.set_xlabel(f"{_label(mx)} – {'higher' if gx == 'max' else 'lower'} is better")
     ax.set_ylabel(f"{_label(my)} – {'higher' if gy == 'max' else 'lower'} is better")
     ax.grid(alpha=0.3)
-    ax.legend(loc="best", fontsize=8, frameon=True)
-    return _png(fig, f"trade-off between {mx} and {my}")
+    ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=8, frameon=True)
+    fig.tight_layout()
+    shown = ", ".join(f"#{r}" for r in ranks[:5])
+    return (_png(fig, f"trade-off between {mx} and {my}")
+            + f'<p class="note">Each point is a finished variant; filled points meet every '
+              f"criterion, open ones miss at least one; diamonds joined by a line are the "
+              f"Pareto set. Labels mark the first-ranked variants ({_esc(shown)}).</p>")
 
 
-def _main_effect_plots(ds: xr.Dataset, spec: RankSpec) -> str:
+def _main_effect_plots(ds: xr.Dataset, spec: RankSpec, labels: dict[str, str]) -> str:
     axes = axes_of(ds)
     names = metric_names(ds)
     metrics = spec.metrics or [m for m in ("sda", "ase", "udi_useful_mean") if m in names]
     metrics = metrics[:4]
     if not axes or not metrics or not completed_mask(ds).any():
         return '<p class="note">No varied axes or no finished variants: no main effects.</p>'
-    fig = Figure(figsize=(min(3.2 * len(axes), 16), 2.6 * len(metrics)))
+    fig = Figure(figsize=(11.0, 2.7 * len(metrics) + 0.6))
     grid = fig.subplots(len(metrics), len(axes), squeeze=False, sharey="row")
     for i, metric in enumerate(metrics):
         effects = main_effects(ds, metric)
+        scale = _display(metric)[0]
+        effects = effects.assign(mean=effects["mean"] * scale, effect=effects["effect"] * scale)
         grand = float((effects["mean"] - effects["effect"]).iloc[0]) if len(effects) else 0.0
         for j, axis in enumerate(axes):
             ax = grid[i, j]
@@ -337,20 +791,25 @@ def _main_effect_plots(ds: xr.Dataset, spec: RankSpec) -> str:
             pos = np.arange(len(e))
             ax.axhline(grand, color="0.5", lw=1, ls="--")
             ax.plot(pos, e["mean"], "o-", color="#3b4d6b")
-            ax.set_xticks(pos, [_fmt(v) for v in e["value"]], fontsize=8)
+            ticks = [value_text(axis, v).replace("-", "-\n", 1) if len(str(v)) > 9 else
+                     value_text(axis, v) for v in e["value"]]
+            ax.set_xticks(pos, ticks, fontsize=8)
+            ax.set_xlim(-0.5, len(e) - 0.5)
             ax.tick_params(axis="y", labelsize=8)
             ax.grid(alpha=0.3)
             if i == len(metrics) - 1:
-                ax.set_xlabel(axis, fontsize=9)
+                ax.set_xlabel(axis_label(axis, labels), fontsize=9)
             if j == 0:
-                ax.set_title(_label(metric), fontsize=9, loc="left")
-    fig.suptitle("Mean of each metric at each value of each choice (dashed: mean of all "
-                 "finished variants)", fontsize=10)
+                ax.set_ylabel(_metric_heading(metric), fontsize=8)
     fig.tight_layout()
-    return _png(fig, "main effects")
+    return (_png(fig, "main effects")
+            + '<p class="note">Each row is a metric and each column a varied choice: the '
+              "points are the mean over the finished variants at each value of that choice; "
+              "the dashed line is the mean of all finished variants.</p>")
 
 
-def _orientation_climate_map(ds: xr.Dataset, table: pd.DataFrame, spec: RankSpec) -> str:
+def _orientation_climate_map(ds: xr.Dataset, table: pd.DataFrame, spec: RankSpec,
+                             labels: dict[str, str]) -> str:
     axes = axes_of(ds)
     names = metric_names(ds)
     metric = next((o.metric for o in spec.prefer),
@@ -366,7 +825,7 @@ def _orientation_climate_map(ds: xr.Dataset, table: pd.DataFrame, spec: RankSpec
     sel = done
     for a in others:
         sel = sel[sel[a] == best[a]]
-    values = np.asarray(ds[metric].values, float)
+    values = np.asarray(ds[metric].values, float) * _display(metric)[0]
     sel = sel.assign(value=values[sel["variant"]])
     rows = sorted(pd.unique(sel["orientation"])) if "orientation" in axes else ["(fixed)"]
     cols = list(pd.unique(sel["climate"])) if "climate" in axes else ["(fixed)"]
@@ -375,7 +834,7 @@ def _orientation_climate_map(ds: xr.Dataset, table: pd.DataFrame, spec: RankSpec
         i = rows.index(r["orientation"]) if "orientation" in axes else 0
         j = cols.index(r["climate"]) if "climate" in axes else 0
         grid[i, j] = r["value"]
-    fig = Figure(figsize=(1.6 * len(cols) + 3.0, 0.6 * len(rows) + 1.8))
+    fig = Figure(figsize=(max(6.0, 1.8 * len(cols) + 3.5), 0.55 * len(rows) + 1.8))
     ax = fig.add_subplot()
     im = ax.imshow(grid, cmap=CMAP, aspect="auto")
     span = np.nanmax(grid) - np.nanmin(grid) if np.isfinite(grid).any() else 0
@@ -389,14 +848,17 @@ def _orientation_climate_map(ds: xr.Dataset, table: pd.DataFrame, spec: RankSpec
                 ax.text(j, i, "not finished", ha="center", va="center", fontsize=8,
                         color="0.3")
     ax.set_xticks(range(len(cols)), [str(c) for c in cols])
-    ax.set_yticks(range(len(rows)), [f"{_fmt(r)}°" if r != "(fixed)" else r for r in rows])
+    ax.set_yticks(range(len(rows)), [orientation_text(r) if r != "(fixed)" else r
+                                     for r in rows])
     ax.set_xlabel("climate")
-    ax.set_ylabel("orientation of the front façade (azimuth from north)")
-    fig.colorbar(im, ax=ax, label=_label(metric))
-    fixed = ", ".join(f"{a} = {_fmt(best[a])}" for a in others) or "no other choices varied"
+    ax.set_ylabel("front façade faces")
+    fig.colorbar(im, ax=ax, label=_metric_heading(metric))
+    fig.tight_layout()
+    fixed = ", ".join(f"{axis_label(a, labels)} {value_text(a, best[a])}" for a in others) or (
+        "no other choices varied")
     return (_png(fig, f"{metric} by orientation and climate")
-            + f'<p class="note">{_esc(_label(metric))} with the other choices of the best '
-              f"variant: {_esc(fixed)}.</p>")
+            + f'<p class="note">{_esc(_label(metric))} for each orientation and climate, '
+              f"with the other choices of the first-ranked variant: {_esc(fixed)}.</p>")
 
 
 def _draw_room(ax: Any, room: dict | None) -> None:
@@ -468,6 +930,7 @@ def _field(ax: Any, x: np.ndarray, y: np.ndarray, v: np.ndarray, norm: Any) -> A
 
 
 def _plan_maps(ds: xr.Dataset, table: pd.DataFrame, study: dict, top: int = 3) -> str:
+    labels = _labels(study)
     done = table[table["status"] != "incomplete"].head(top)
     metrics = [(n, t, u) for n, t, u in PLAN_METRICS if _per_sensor(ds, n, 0) is not None]
     if done.empty or not metrics or "x" not in ds or "y" not in ds:
@@ -508,7 +971,7 @@ def _plan_maps(ds: xr.Dataset, table: pd.DataFrame, study: dict, top: int = 3) -
         fig.colorbar(mappable, ax=grid[:, j].tolist(), orientation="horizontal",
                      fraction=0.04, pad=0.06, label=unit)
     captions = "".join(
-        f"<li>#{row['rank']}: {_esc(_variant_caption(row, axes))}</li>"
+        f"<li>#{row['rank']}: {_esc(_variant_caption(row, axes, labels))}</li>"
         for _, row in done.iterrows())
     return (_png(fig, "plan maps of per-sensor results for the top variants")
             + f'<ul class="note">{captions}</ul>'
@@ -520,8 +983,7 @@ def _hourly_map(ds: xr.Dataset, table: pd.DataFrame, study: dict) -> str:
     if "illuminance" not in ds or "time" not in ds.coords:
         return ('<p class="note">The hourly illuminance series were not stored for this '
                 "study (<code>store_series: false</code>), so the hour-by-hour map is not "
-                "shown. Set <code>store_series: true</code> and run the study again to "
-                "include it.</p>")
+                "shown.</p>")
     done = table[table["status"] != "incomplete"]
     if done.empty:
         return '<p class="note">No finished variants: no hour-by-hour map.</p>'
@@ -562,7 +1024,8 @@ def _hourly_map(ds: xr.Dataset, table: pd.DataFrame, study: dict) -> str:
     fig.colorbar(mesh, ax=ax, label="illuminance [lx] (log scale; ≤ 10 lx shown as 10)")
     return (_png(fig, "hour-by-hour illuminance at one sensor")
             + f'<p class="note">Best variant (#{best["rank"]}: '
-              f"{_esc(_variant_caption(best, axes_of(ds)))}), sensor at x = {x[sensor]:.2f} m,"
+              f"{_esc(_variant_caption(best, axes_of(ds), _labels(study)))}), sensor at "
+              f"x = {x[sensor]:.2f} m,"
               f" y = {y[sensor]:.2f} m (nearest the room centre). Light grey: hours outside "
               "the occupied period, which the store does not keep.</p>")
 
@@ -620,10 +1083,34 @@ dt { font-weight: 600; margin-top: 8px; }
 dd { margin-left: 18px; font-size: 14px; }
 footer { font-size: 12px; color: #555; border-top: 1px solid #ccc; margin-top: 40px;
          padding-top: 8px; }
+h3 { font-size: 15px; margin: 18px 0 6px; }
+table.inputs { margin-bottom: 6px; }
+table.inputs th { background: #eef0f4; text-align: left; padding: 4px 8px;
+                  border-bottom: 1px solid #9aa3b5; }
+table.inputs td { padding: 3px 8px; border-bottom: 1px solid #e6e6e6; }
+dl.cover { display: flex; flex-wrap: wrap; gap: 6px 28px; margin: 12px 0 0; }
+dl.cover div { min-width: 140px; }
+dl.cover dt { font-size: 11px; text-transform: uppercase; letter-spacing: 0.06em;
+              opacity: 0.8; margin: 0; font-weight: 400; }
+dl.cover dd { margin: 0; font-size: 15px; }
+header .subtitle { font-size: 15px; }
+@page { margin: 14mm 12mm 16mm; }
+@media print {
+  body { background: #fff; font-size: 10.5pt; }
+  header { -webkit-print-color-adjust: exact; print-color-adjust: exact; padding: 14px 18px; }
+  main { max-width: none; padding: 0 2px; }
+  section { margin-top: 14px; }
+  h2, h3 { break-after: avoid; page-break-after: avoid; }
+  img, table, figure, .caution, dl, tr, .note { break-inside: avoid; page-break-inside: avoid; }
+  img { max-height: 235mm; width: auto; max-width: 100%; }
+  table.rank { font-size: 8.5pt; }
+  thead { display: table-header-group; }
+  section.maps, section.hourly { break-before: page; page-break-before: always; }
+}
 """
 
 
-def build_report(ds: xr.Dataset, source: str | None = None) -> str:
+def build_report(ds: xr.Dataset, source: str | None = None, paper: str | None = None) -> str:
     """The report of a results store as one HTML string.
 
     Parameters
@@ -632,6 +1119,9 @@ def build_report(ds: xr.Dataset, source: str | None = None) -> str:
         A results store (CONTRACT.md §3).
     source : str, optional
         The store's path (shown, and used for the time of the last write).
+    paper : {"a4", "letter"}, optional
+        Page size for printing; without it the printer's own size applies (the
+        layout fits both).
     """
     # per-variant and per-sensor results are small: read them once (series stay lazy)
     small = [n for n in ds.variables if "time" not in ds[n].dims]
@@ -640,30 +1130,41 @@ def build_report(ds: xr.Dataset, source: str | None = None) -> str:
     study = study_from_store(ds)
     spec = rank_spec_from_store(ds)
     table = rank_table(ds, spec)
+    labels = _labels(study)
     name = study.get("name") or ds.attrs.get("study_name") or "daylight study"
+    project = study.get("project") if isinstance(study.get("project"), dict) else {}
+    title = project.get("project") or name
     sections = [
-        ("Study at a glance", _summary(ds, study, source)),
-        ("Ranking of the variants", _ranking(table, spec, axes_of(ds))),
-        ("Trade-off between two objectives", _pareto_chart(ds, table, spec)),
-        ("What each choice changes", _main_effect_plots(ds, spec)),
-        ("Orientation and climate", _orientation_climate_map(ds, table, spec)),
-        ("Daylight across the room for the top variants", _plan_maps(ds, table, study)),
-        ("Hour by hour at one point", _hourly_map(ds, table, study)),
-        ("What the metrics mean", NOTES),
+        ("summary", "Summary", _summary(ds, study, source, table, spec)),
+        ("ranking", "Ranking of the variants", _ranking(table, spec, axes_of(ds), labels)),
+        ("inputs", "Inputs", _inputs(ds, study)),
+        ("geometry", "Geometry", _geometry_sketch(ds, table, study, source)),
+        ("tradeoff", "Trade-off between two objectives", _pareto_chart(ds, table, spec)),
+        ("effects", "What each choice changes", _main_effect_plots(ds, spec, labels)),
+        ("orientation", "Orientation and climate",
+         _orientation_climate_map(ds, table, spec, labels)),
+        ("maps", "Daylight across the room for the top variants", _plan_maps(ds, table, study)),
+        ("hourly", "Hour by hour at one point", _hourly_map(ds, table, study)),
+        ("notes", "What the metrics mean", NOTES),
     ]
-    body = "".join(f"<section><h2>{_esc(t)}</h2>{c}</section>" for t, c in sections)
+    body = "".join(f'<section class="{k}"><h2>{_esc(t)}</h2>{c}</section>'
+                   for k, t, c in sections)
+    page = {"a4": "@page { size: A4; }", "letter": "@page { size: letter; }"}.get(
+        (paper or "").lower(), "")
+    n_done, n_all = int(completed_mask(ds).sum()), ds.sizes["variant"]
     return f"""<!DOCTYPE html>
 <html lang="en">
 <head>
 <meta charset="utf-8">
 <meta name="viewport" content="width=device-width, initial-scale=1">
-<title>{_esc(name)} – daylight option study</title>
-<style>{CSS}</style>
+<title>{_esc(title)} – daylight option study</title>
+<style>{CSS}{page}</style>
 </head>
 <body>
-<header><h1>Daylight option study: {_esc(name)}</h1>
-<p>{int(completed_mask(ds).sum())} of {ds.sizes["variant"]} variants computed ·
-luxsweep {_esc(ds.attrs.get("luxsweep_version", __version__))}</p></header>
+<header><h1>Daylight option study: {_esc(title)}</h1>
+<p class="subtitle">Study {_esc(name)} · {n_done:,} of {plural(n_all, 'variant')} computed ·
+luxsweep {_esc(ds.attrs.get("luxsweep_version", __version__))}</p>
+{_project_block(study)}</header>
 <main>
 <div class="caution" role="note"><strong>Please read first</strong>{_esc(CAUTION)}</div>
 {body}
@@ -675,18 +1176,68 @@ luxsweep {_esc(ds.attrs.get("luxsweep_version", __version__))}</p></header>
 """
 
 
-def report_command(results: str, html: str | None = None) -> int:
-    """``luxsweep report RESULTS [--html FILE]``: write the HTML report.
+_CHROMIUM_NAMES = ("chromium", "chromium-browser", "google-chrome", "google-chrome-stable")
 
-    The default file is ``<RESULTS without .zarr>-report.html`` beside the store.
-    Returns the exit status (0); a missing or unreadable store raises
-    :class:`~sweep.errors.ResultsStoreError` (exit status 2 in the CLI).
+
+def find_chromium() -> str | None:
+    """Path of a headless-capable Chromium (``$LUXSWEEP_CHROMIUM`` first), or None."""
+    env = os.environ.get("LUXSWEEP_CHROMIUM")
+    if env:
+        return env if Path(env).is_file() else shutil.which(env)
+    return next((p for p in map(shutil.which, _CHROMIUM_NAMES) if p), None)
+
+
+def write_pdf(html_file: Path, pdf_file: Path, timeout: float = 180.0) -> None:
+    """Print an HTML report to PDF with headless Chromium.
+
+    Raises
+    ------
+    UserInputError
+        When no Chromium is installed (the message says how to get one) or
+        printing fails.
+    """
+    browser = find_chromium()
+    if browser is None:
+        raise UserInputError(
+            "a PDF needs headless Chromium, which is not installed here; install it (for "
+            "example `apt-get install chromium`) or set LUXSWEEP_CHROMIUM to its path, or "
+            "print the HTML report from a browser")
+    with tempfile.TemporaryDirectory(prefix="luxsweep-pdf-") as profile:
+        cmd = [browser, "--headless", "--no-sandbox", "--disable-gpu", "--no-first-run",
+               "--disable-background-networking", "--disable-component-update",
+               "--disable-sync", f"--user-data-dir={profile}", "--no-pdf-header-footer",
+               f"--print-to-pdf={pdf_file}", Path(html_file).resolve().as_uri()]
+        try:
+            done = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout)
+        except subprocess.TimeoutExpired as exc:
+            raise UserInputError(f"Chromium did not finish printing {pdf_file} within "
+                                 f"{timeout:.0f} s") from exc
+    if done.returncode != 0 or not Path(pdf_file).is_file():
+        raise UserInputError(f"Chromium could not print {pdf_file} (exit {done.returncode}): "
+                             + (done.stderr.strip().splitlines() or ["no message"])[-1])
+
+
+def report_command(results: str, html: str | None = None, pdf: bool | str = False,
+                   paper: str | None = None) -> int:
+    """``luxsweep report RESULTS [--html FILE] [--pdf [FILE]] [--paper a4|letter]``.
+
+    The default file is ``<RESULTS without .zarr>-report.html`` beside the store;
+    with ``pdf`` the same name ending ``.pdf`` (or the given file) is printed
+    from it through headless Chromium. Returns the exit status (0); a missing or
+    unreadable store raises :class:`~sweep.errors.ResultsStoreError` and a
+    missing Chromium :class:`~sweep.errors.UserInputError` (exit status 2).
     """
     ds = open_store(results)
     store = Path(results)
     target = Path(html) if html else store.with_name(
         (store.name[:-5] if store.name.endswith(".zarr") else store.name) + "-report.html")
-    text = build_report(ds, source=str(store))
+    if pdf and find_chromium() is None:
+        write_pdf(target, target.with_suffix(".pdf"))  # raises the clear message first
+    text = build_report(ds, source=str(store), paper=paper or ("a4" if pdf else None))
     target.write_text(text, encoding="utf-8")
     print(f"report written to {target}")
+    if pdf:
+        pdf_file = Path(pdf) if isinstance(pdf, str) else target.with_suffix(".pdf")
+        write_pdf(target, pdf_file)
+        print(f"PDF written to {pdf_file}")
     return 0

@@ -33,6 +33,7 @@ bit-identical wherever they run.
 from __future__ import annotations
 
 import contextlib
+import dataclasses
 import importlib.util
 import ipaddress
 import itertools
@@ -386,7 +387,26 @@ def _attrs(plan: Plan) -> dict[str, Any]:
         "study_file": str(plan.loaded.path),
         "axes": plan.axes,
         "metrics": list(plan.loaded.study.metrics),
+        "inputs": _inputs_record(plan),
     }
+
+
+def _inputs_record(plan: Plan) -> dict[str, Any]:
+    """What the report's inputs section shows that the study text does not hold:
+    each weather file's site (read from its header) and the effective ray-tracing
+    settings (defaults filled in)."""
+    from luxsweep.kernels.climate import read_site
+
+    climates = {}
+    for label, path in plan.loaded.study.climates.items():
+        site = read_site(path)
+        climates[label] = {"file": Path(path).name, "site": site.name,
+                           "latitude": site.latitude, "longitude": site.longitude,
+                           "elevation": site.elevation, "utc_offset": site.utc_offset}
+    settings = next(iter(plan.jobs.values())).settings if plan.jobs else None
+    compute = ({k: (list(v) if isinstance(v, tuple) else v)
+                for k, v in dataclasses.asdict(settings).items()} if settings else {})
+    return {"climates": climates, "compute": compute}
 
 
 def is_loopback(address: str) -> bool:

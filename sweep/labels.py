@@ -1,0 +1,181 @@
+"""How variants, axes, orientations and numbers are written for people.
+
+The ranking table, its CSV, the command line and the report all name a variant
+the same way — by its values, not its hash: ``south · humid-piedmont · τ 0.55 ·
+window width 5.5 m``. Axis names come from the study's optional ``labels:``
+section (``room.windows.0.width: "window width [m]"``) or, without one, from a
+short automatic name (the last words of the dotted path, a unit where the key
+has one).
+
+Conventions (written once here, used everywhere):
+
+- orientation is the site azimuth of the front façade's outward normal, in
+  degrees clockwise from north; the eight compass points are written as words
+  (0 north, 90 east, 180 south, 270 west; 45 north-east ...), other angles as
+  ``125°``;
+- numbers keep up to three significant digits, integers without a decimal
+  point; lengths carry ``m``;
+- time shares are shown in percent of the occupied (or daylight) time in
+  human-facing text; the results store keeps fractions 0–1 where CONTRACT fixes
+  them (see :mod:`sweep.store`).
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from collections.abc import Mapping, Sequence
+from typing import Any
+
+import numpy as np
+
+__all__ = [
+    "EN17037_LEVELS",
+    "axis_label",
+    "axis_short",
+    "en17037_text",
+    "format_number",
+    "orientation_text",
+    "plural",
+    "value_text",
+    "variant_name",
+]
+
+_COMPASS = {0: "north", 45: "north-east", 90: "east", 135: "south-east", 180: "south",
+            225: "south-west", 270: "west", 315: "north-west"}
+
+EN17037_LEVELS = {
+    0: ("none", "the minimum level is not reached"),
+    1: ("minimum", "target 300 lx over half of the plane and 100 lx over 95 % of it, "
+                   "each for half of the daylight hours"),
+    2: ("medium", "target 500 lx over half of the plane and 300 lx over 95 % of it"),
+    3: ("high", "target 750 lx over half of the plane and 500 lx over 95 % of it"),
+}
+"""EN 17037:2018 daylight provision levels (Table A.1; values from memory)."""
+
+# keys (last path component) that hold a length in metres
+_LENGTHS = {"width", "depth", "height", "sill", "head", "offset", "thickness", "length",
+            "x", "y", "gap", "spacing", "margin", "overhang"}
+
+
+def plural(count: int, one: str, many: str | None = None) -> str:
+    """``1 variant``, ``2 variants`` (``many`` for irregular plurals)."""
+    word = one if count == 1 else (many or one + "s")
+    return f"{count:,} {word}"
+
+
+def format_number(value: Any) -> str:
+    """A number with up to three significant digits (integers as integers).
+
+    NaN is written as an en dash; non-numbers as ``str``.
+    """
+    if isinstance(value, bool | np.bool_):
+        return "yes" if value else "no"
+    if isinstance(value, int | np.integer):
+        return f"{int(value):,}" if abs(int(value)) >= 10_000 else str(int(value))
+    if isinstance(value, float | np.floating):
+        v = float(value)
+        if math.isnan(v):
+            return "–"
+        if v.is_integer() and abs(v) < 1e6:
+            return str(int(v))
+        if abs(v) >= 100:
+            return f"{v:.0f}"
+        return f"{v:.3g}"
+    return str(value)
+
+
+def orientation_text(azimuth: Any) -> str:
+    """A front-façade orientation [deg from north] as a word or ``125°``."""
+    try:
+        a = float(azimuth) % 360.0
+    except (TypeError, ValueError):
+        return str(azimuth)
+    if math.isclose(a, round(a)) and round(a) % 360 in _COMPASS:
+        return _COMPASS[round(a) % 360]
+    return f"{format_number(a)}°"
+
+
+def _auto_label(axis: str) -> str:
+    """Short automatic name of a dotted path: ``room.windows.0.width`` -> ``window width``."""
+    if axis == "orientation":
+        return "orientation"
+    if axis == "climate":
+        return "climate"
+    parts = axis.split(".")
+    last = parts[-1]
+    if parts[0] == "glazings" and len(parts) == 3:
+        return f"glazing {parts[1]} {last.replace('_', ' ')}"
+    owner = next((p for p in reversed(parts[:-1]) if not p.isdigit()), "")
+    owner = {"windows": "window", "obstructions": "obstruction", "reflectance": "reflectance",
+             "room": "room", "spaces": "space"}.get(owner, owner.replace("_", " "))
+    word = last.replace("_", " ")
+    if owner == "reflectance":
+        return f"{word} reflectance"
+    if owner in ("", "room"):
+        return f"room {word}" if owner else word
+    return f"{owner} {word}"
+
+
+def _unit(axis: str) -> str:
+    return "m" if axis.split(".")[-1] in _LENGTHS else ""
+
+
+def axis_label(axis: str, labels: Mapping[str, str] | None = None) -> str:
+    """The heading of an axis: the study's ``labels:`` entry, else an automatic name
+    with its unit in brackets (``window width [m]``)."""
+    if labels and axis in labels:
+        return str(labels[axis])
+    unit = _unit(axis)
+    if axis == "orientation":
+        return "orientation (front façade)"
+    return f"{_auto_label(axis)} [{unit}]" if unit else _auto_label(axis)
+
+
+def axis_short(axis: str, labels: Mapping[str, str] | None = None) -> str:
+    """The axis name used inside a variant name (``labels:`` entry without a unit in
+    brackets, else the automatic name)."""
+    if labels and axis in labels:
+        return re.sub(r"\s*\[[^\]]*\]\s*$", "", str(labels[axis]))
+    return _auto_label(axis)
+
+
+def value_text(axis: str, value: Any) -> str:
+    """One axis value as written in tables: orientation as a word, lengths with ``m``."""
+    if axis == "orientation":
+        return orientation_text(value)
+    text = format_number(value)
+    unit = _unit(axis)
+    return f"{text} {unit}" if unit and text != "–" else text
+
+
+def variant_name(values: Mapping[str, Any], axes: Sequence[str],
+                 labels: Mapping[str, str] | None = None) -> str:
+    """A variant named by its values, axes in study order, joined by `` · ``.
+
+    Orientation and climate appear as their values alone (``south``,
+    ``humid-piedmont``); a glazing transmittance as ``τ 0.55`` (with the set's
+    name when the study has several sets); any other axis as ``name value``.
+    """
+    sets = {a.split(".")[1] for a in axes if a.startswith("glazings.")}
+    parts = []
+    for axis in axes:
+        value = values[axis]
+        if axis in ("orientation", "climate") and not (labels and axis in labels):
+            parts.append(value_text(axis, value))
+        elif axis.startswith("glazings.") and axis.endswith(".transmittance") and not (
+                labels and axis in labels):
+            name = axis.split(".")[1]
+            parts.append(f"τ {format_number(value)}" + (f" ({name})" if len(sets) > 1 else ""))
+        else:
+            parts.append(f"{axis_short(axis, labels)} {value_text(axis, value)}")
+    return " · ".join(parts) if parts else "the study as written"
+
+
+def en17037_text(level: Any) -> str:
+    """``2 medium`` for an EN 17037 daylight provision level (``–`` when missing)."""
+    try:
+        k = int(level)
+    except (TypeError, ValueError):  # None, NaN
+        return "–"
+    return f"{k} {EN17037_LEVELS.get(k, ('?', ''))[0]}"
