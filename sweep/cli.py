@@ -88,6 +88,8 @@ def build_parser() -> argparse.ArgumentParser:
         p.add_argument("results", help="results store (.zarr folder)")
         p.add_argument("--top", type=_positive_int, default=None, help="show the best N")
         p.add_argument("--csv", default=None, help="also write the table to this CSV file")
+        p.add_argument("--wide", action="store_true",
+                       help="show every column (variant id, each axis, Pareto set)")
     if _optional_command("report", "report_command"):
         p = sub.add_parser("report", help="self-contained HTML report of a results store")
         p.add_argument("results", help="results store (.zarr folder)")
@@ -170,7 +172,7 @@ def cmd_demo(args: argparse.Namespace) -> int:
 def cmd_rank(args: argparse.Namespace) -> int:
     command = _optional_command("rank", "rank_command")
     assert command is not None
-    return int(command(args.results, args.top, args.csv))
+    return int(command(args.results, args.top, args.csv, wide=args.wide))
 
 
 def cmd_report(args: argparse.Namespace) -> int:

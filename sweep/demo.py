@@ -9,6 +9,7 @@ demo study is invented; the weather is real.
 
 from __future__ import annotations
 
+import hashlib
 import importlib.resources
 import shutil
 import time
@@ -19,6 +20,9 @@ import pvlib
 from luxsweep.sweep.errors import UserInputError
 
 DEMO_CLIMATES = ("723170TYA.CSV", "703165TY.csv")
+WRITTEN_RECORD = ".luxsweep-demo-study.sha256"
+"""Beside the demo study: the hash of the text luxsweep last wrote there, so a rerun
+can tell a study the user edited (kept) from an earlier version's demo (replaced)."""
 
 
 def demo_text() -> str:
@@ -40,9 +44,24 @@ def write_demo(out: str | Path) -> Path:
             shutil.copyfile(data / name, target)
     study = folder / "study.yaml"
     text = demo_text()
-    if not study.exists() or study.read_text(encoding="utf-8") != text:
-        study.write_text(text, encoding="utf-8")
+    record = folder / WRITTEN_RECORD
+    if study.exists():
+        current = study.read_text(encoding="utf-8")
+        if current == text:
+            return study
+        ours = record.exists() and record.read_text().strip() == _sha256(current)
+        if not ours:  # the user edited it: never overwrite their work
+            print(f"{study} differs from the bundled demo study (edited?); running it as "
+                  "it is. Delete it, or give another --out, to run the bundled demo.")
+            return study
+        print(f"{study} is an earlier version's demo study; replaced by this version's")
+    study.write_text(text, encoding="utf-8")
+    record.write_text(_sha256(text) + "\n")
     return study
+
+
+def _sha256(text: str) -> str:
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
 def run_demo(out: str | Path = "luxsweep-demo", *, workers: int | None = None) -> int:

@@ -33,8 +33,11 @@ __all__ = [
     "EN17037_LEVELS",
     "axis_label",
     "axis_short",
+    "display_unit",
     "en17037_text",
     "format_number",
+    "metric_heading",
+    "metric_text",
     "orientation_text",
     "plural",
     "value_text",
@@ -179,3 +182,48 @@ def en17037_text(level: Any) -> str:
     except (TypeError, ValueError):  # None, NaN
         return "–"
     return f"{k} {EN17037_LEVELS.get(k, ('?', ''))[0]}"
+
+
+_SHORT = {
+    "sda": "sDA",
+    "ase": "ASE",
+    "udi_useful_mean": "useful daylight, mean",
+    "daylight_factor_mean": "daylight factor, mean",
+    "daylight_autonomy_mean": "daylight autonomy, mean",
+    "en17037_level": "EN 17037 level",
+}
+
+
+def _metric_entry(metric: str) -> tuple[str, str]:
+    from luxsweep.sweep.rank import METRICS  # the metric table (label, store unit)
+
+    return METRICS.get(metric, (metric.replace("_", " "), ""))
+
+
+def display_unit(metric: str) -> tuple[float, str]:
+    """Scale and unit a metric is shown in: shares of time and of the grid in percent.
+
+    Store values times the scale give the shown value (a fraction 0–1 is shown ×100
+    in %); other units are shown as stored.
+    """
+    unit = _metric_entry(metric)[1]
+    if unit == "fraction":
+        return 100.0, "%"
+    return 1.0, "" if unit == "0–3" else unit
+
+
+def metric_heading(metric: str) -> str:
+    """Short column heading with the shown unit: ``sDA [%]``, ``EN 17037 level``."""
+    short = _SHORT.get(metric, _metric_entry(metric)[0])
+    unit = display_unit(metric)[1]
+    return f"{short} [{unit}]" if unit else short
+
+
+def metric_text(metric: str, value: Any) -> str:
+    """A stored metric value as shown (percent for shares, EN 17037 level in words)."""
+    if metric == "en17037_level":
+        return en17037_text(value)
+    try:
+        return format_number(float(value) * display_unit(metric)[0])
+    except (TypeError, ValueError):
+        return format_number(value)

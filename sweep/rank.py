@@ -43,17 +43,21 @@ import yaml
 from luxsweep.sweep.errors import ResultsStoreError, StudyFileError
 
 __all__ = [
+    "MAIN_METRICS",
     "METRICS",
     "RankSpec",
     "axes_of",
     "completed_mask",
+    "criterion_text",
     "main_effects",
     "metric_names",
     "pareto_front",
     "rank_command",
     "rank_spec_from_store",
     "rank_table",
+    "shown_metrics",
     "study_from_store",
+    "variant_names",
 ]
 
 #: Display label and unit of the metrics luxsweep writes (name -> (label, unit)).
@@ -338,7 +342,8 @@ def rank_table(ds: xr.Dataset, rank_spec: RankSpec | dict | None = None) -> pd.D
         ones. Columns: ``rank`` (1… for completed variants, NA for incomplete),
         ``variant_id``, one column per varied axis, ``status`` (``pass`` /
         ``fail`` / ``incomplete``), ``failed`` (the criteria missed), one column
-        per metric named in the rank section, ``margin: <criterion>`` per
+        per metric named in the rank section (without one: the main metrics,
+        :data:`MAIN_METRICS`), ``margin: <criterion>`` per
         criterion, ``score`` (0–1), ``pareto`` (bool), ``variant`` (store index).
     """
     if rank_spec is None:
@@ -352,7 +357,8 @@ def rank_table(ds: xr.Dataset, rank_spec: RankSpec | dict | None = None) -> pd.D
     table = pd.DataFrame({"variant": np.arange(n), "variant_id": _variant_ids(ds)})
     for axis in axes_of(ds):
         table[axis] = coord_values(ds, axis)
-    values = {m: np.asarray(ds[m].values, dtype=float) for m in spec.metrics}
+    shown = shown_metrics(spec, metric_names(ds))
+    values = {m: np.asarray(ds[m].values, dtype=float) for m in shown}
     for m, v in values.items():
         table[m] = np.where(done, v, np.nan)
 
@@ -391,7 +397,7 @@ def rank_table(ds: xr.Dataset, rank_spec: RankSpec | dict | None = None) -> pd.D
     ranked = (table["status"] != "incomplete").to_numpy()
     table.insert(0, "rank", pd.array(np.where(ranked, np.cumsum(ranked), 0), dtype="Int64"))
     table.loc[~ranked, "rank"] = pd.NA
-    first = ["rank", "variant_id", *axes_of(ds), "status", "failed", *spec.metrics]
+    first = ["rank", "variant_id", *axes_of(ds), "status", "failed", *shown]
     return table[first + [c for c in table.columns if c not in first]]
 
 
@@ -462,58 +468,135 @@ def open_store(results: str | Path) -> xr.Dataset:
     return ds
 
 
-def _fmt(value: Any) -> str:
-    if isinstance(value, bool | np.bool_):
-        return "yes" if value else ""
-    if isinstance(value, float | np.floating):
-        if np.isnan(value):
-            return "–"
-        return f"{value:.3g}" if abs(value) < 1 else f"{value:.1f}"
-    if value is pd.NA:
-        return "–"
-    return str(value)
+MAIN_METRICS = ("sda", "ase", "udi_useful_mean", "daylight_factor_mean", "en17037_level")
+"""What ``luxsweep rank`` shows when the study's rank section names no metric."""
+
+
+def shown_metrics(spec: RankSpec, names: list[str] | pd.Index) -> list[str]:
+    """The metrics of a ranking table: those the criteria and objectives name, else the
+    main ones the store holds."""
+    return list(spec.metrics) or [m for m in MAIN_METRICS if m in names]
+
+
+def variant_names(table: pd.DataFrame, ds: xr.Dataset) -> list[str]:
+    """Each row's variant named by its values (:func:`sweep.labels.variant_name`)."""
+    from luxsweep.sweep.labels import variant_name
+
+    axes = axes_of(ds)
+    labels = study_from_store(ds).get("labels")
+    labels = labels if isinstance(labels, dict) else None
+    values = {a: table[a].tolist() for a in axes}
+    return [variant_name({a: values[a][i] for a in axes}, axes, labels)
+            for i in range(len(table))]
+
+
+def criterion_text(req: Requirement) -> str:
+    """``sDA ≥ 55 %`` — a criterion in the shown units."""
+    from luxsweep.sweep.labels import display_unit, format_number, metric_heading
+
+    scale, unit = display_unit(req.metric)
+    bound = format_number(req.bound * scale)
+    name = metric_heading(req.metric).split(" [")[0]
+    return f"{name} {'≥' if req.at_least else '≤'} {bound}" + (f" {unit}" if unit else "")
 
 
 def print_table(table: pd.DataFrame, ds: xr.Dataset, spec: RankSpec, top: int | None,
-                file: Any = None) -> None:
-    """Print the ranking as a terminal table (rich)."""
+                file: Any = None, wide: bool = False) -> None:
+    """Print the ranking as a terminal table (rich).
+
+    The narrow table (default) fits a 100-column terminal: rank, the variant named
+    by its values, the shown metrics (shares in percent), the score when there
+    are objectives and the verdict when there are criteria. ``wide`` adds the
+    variant id, every axis as its own column and the Pareto flag.
+    """
+    from rich import box
     from rich.console import Console
     from rich.table import Table
 
+    from luxsweep.sweep.labels import (
+        axis_label,
+        format_number,
+        metric_heading,
+        metric_text,
+        plural,
+        value_text,
+    )
+
     out = file or sys.stdout
-    console = Console(file=out, width=None if out.isatty() else 200)
+    width = None if out.isatty() else (200 if wide else 100)
+    console = Console(file=out, width=width, highlight=False)
     ranked = table[table["status"] != "incomplete"]
     incomplete = table[table["status"] == "incomplete"]
     shown = ranked if top is None else ranked.head(top)
-    name = study_from_store(ds).get("name", "")
-    title = f"Ranking of {name}" if name else "Ranking"
-    grid = Table(title=title, title_justify="left", header_style="bold")
-    columns = ["rank", "variant_id", *axes_of(ds), *spec.metrics, "score", "pareto",
-               "status", "failed"]
-    for col in columns:
-        unit = METRICS.get(col, ("", ""))[1]
-        header = f"{col} [{unit}]" if unit and unit not in ("0–3",) else col
-        grid.add_column(header, overflow="fold", justify="right" if col in spec.metrics or col in (
-            "rank", "score") else "left")
-    for _, row in pd.concat([shown, incomplete]).iterrows():
-        style = "dim" if row["status"] == "incomplete" else (
-            None if row["status"] == "pass" else "yellow")
-        cells = [_fmt(row[c]) for c in columns]
-        cells[1] = str(row["variant_id"])[:10]
+    rows = pd.concat([shown, incomplete])
+    names = variant_names(rows, ds)
+    metrics = shown_metrics(spec, table.columns)
+    study = study_from_store(ds)
+    labels = study.get("labels") if isinstance(study.get("labels"), dict) else None
+    name = study.get("name", "")
+    grid = Table(title=f"Ranking of {name}" if name else "Ranking", title_justify="left",
+                 header_style="bold", pad_edge=False, box=box.SIMPLE_HEAD)
+    grid.add_column("#", justify="right")
+    if wide:
+        grid.add_column("variant id")
+        for axis in axes_of(ds):
+            grid.add_column(axis_label(axis, labels), overflow="fold")
+    else:
+        grid.add_column("variant", overflow="fold", min_width=26)
+    for m in metrics:
+        grid.add_column(metric_heading(m), justify="right", overflow="fold", max_width=10)
+    if spec.prefer:
+        grid.add_column("score", justify="right")
+        if wide:
+            grid.add_column("Pareto")
+    if spec.require:
+        grid.add_column("criteria", overflow="fold", min_width=8, max_width=24)
+    for (_, row), label in zip(rows.iterrows(), names, strict=True):
+        status = row["status"]
+        style = "dim" if status == "incomplete" else (None if status == "pass" else "yellow")
+        cells = [format_number(row["rank"]) if status != "incomplete" else "–"]
+        if wide:
+            cells.append(str(row["variant_id"])[:10])
+            cells += [value_text(a, row[a]) for a in axes_of(ds)]
+        else:
+            cells.append(label)
+        cells += [metric_text(m, row.get(m, np.nan)) for m in metrics]
+        if spec.prefer:
+            cells.append(format_number(row["score"]))
+            if wide:
+                cells.append("yes" if row["pareto"] else "")
+        if spec.require:
+            missed = [r.metric for r in spec.require if r.label in str(row["failed"]).split("; ")]
+            cells.append("not finished" if status == "incomplete" else
+                         "all met" if status == "pass" else "misses " + ", ".join(
+                             metric_heading(m).split(" [")[0] for m in missed))
+        elif status == "incomplete":
+            cells[1] += " (not finished)"
         grid.add_row(*cells, style=style)
     console.print(grid)
-    n_pass = int((table["status"] == "pass").sum())
-    console.print(
-        f"{len(ranked)} of {len(table)} variants complete; {n_pass} meet every criterion"
-        + (f"; {len(incomplete)} incomplete (not ranked)" if len(incomplete) else "")
-        + (f"; showing the top {len(shown)}" if top is not None else "")
-    )
+    parts = [f"{len(ranked):,} of {plural(len(table), 'variant')} complete"]
+    if spec.require:
+        n_pass = int((table["status"] == "pass").sum())
+        parts.append(f"{n_pass:,} meet{'s' if n_pass == 1 else ''} every criterion ("
+                     + "; ".join(criterion_text(r) for r in spec.require) + ")")
+    else:
+        parts.append("no criteria given (the study has no 'require' list)")
+    if len(incomplete):
+        parts.append(f"{len(incomplete):,} not finished (not ranked)")
+    if top is not None and len(shown) < len(ranked):
+        parts.append(f"showing the best {len(shown):,}")
+    console.print("; ".join(parts))
     if not spec.prefer:
-        console.print("No 'prefer' objectives in the study's rank section: no scores.")
+        console.print("No objectives to prefer ('prefer' list): variants keep the study's "
+                      "order and have no score.")
+    console.print("Shares of time and of the grid are in percent.")
 
 
-def rank_command(results: str, top: int | None = None, csv: str | None = None) -> int:
-    """``luxsweep rank RESULTS [--top N] [--csv FILE]``: print the ranking, optionally save it.
+def rank_command(results: str, top: int | None = None, csv: str | None = None,
+                 wide: bool = False) -> int:
+    """``luxsweep rank RESULTS [--top N] [--csv FILE] [--wide]``: print the ranking,
+    optionally save it (the CSV holds every column, the variant's name first, values in
+    the store's units).
 
     Returns the exit status (0). Bad input raises :class:`~sweep.errors.ResultsStoreError`
     or :class:`~sweep.errors.StudyFileError` (exit status 2 in the CLI).
@@ -523,8 +606,10 @@ def rank_command(results: str, top: int | None = None, csv: str | None = None) -
     ds = open_store(results)
     spec = rank_spec_from_store(ds)
     table = rank_table(ds, spec)
-    print_table(table, ds, spec, top)
+    print_table(table, ds, spec, top, wide=wide)
     if csv is not None:
-        table.drop(columns=["variant"]).to_csv(csv, index=False, float_format="%.6g")
+        rows = table.drop(columns=["variant"])
+        rows.insert(1, "name", variant_names(table, ds))
+        rows.to_csv(csv, index=False, float_format="%.6g")
         print(f"ranking written to {csv}")
     return 0

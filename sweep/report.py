@@ -69,8 +69,10 @@ from luxsweep.sweep.errors import UserInputError
 from luxsweep.sweep.labels import (
     EN17037_LEVELS,
     axis_label,
-    en17037_text,
+    display_unit,
     format_number,
+    metric_heading,
+    metric_text,
     orientation_text,
     plural,
     value_text,
@@ -82,6 +84,7 @@ from luxsweep.sweep.rank import (
     axes_of,
     completed_mask,
     coord_values,
+    criterion_text,
     main_effects,
     metric_names,
     open_store,
@@ -126,27 +129,8 @@ def _png(fig: Figure, alt: str) -> str:
 
 def _label(metric: str) -> str:
     label = METRICS.get(metric, (metric.replace("_", " "), ""))[0]
-    unit = _display(metric)[1]
-    return f"{label} [{unit}]" if unit and unit != "0–3" else label
-
-
-SHORT = {
-    "sda": "sDA [%]",
-    "ase": "ASE [%]",
-    "udi_useful_mean": "useful daylight, mean [0–1]",
-    "daylight_factor_mean": "daylight factor, mean [%]",
-    "daylight_autonomy_mean": "daylight autonomy, mean [0–1]",
-    "en17037_level": "EN 17037 level [0–3]",
-}
-
-
-def _short(metric: str) -> str:
-    return SHORT.get(metric, _label(metric))
-
-
-def _breakable(name: str) -> str:
-    """Escaped text that may wrap after the dots of a dotted path."""
-    return "<wbr>.".join(_esc(part) for part in name.split("."))
+    unit = display_unit(metric)[1]
+    return f"{label} [{unit}]" if unit else label
 
 
 def _fmt(value: Any) -> str:
@@ -221,33 +205,6 @@ def _labels(study: dict) -> dict[str, str]:
     return {str(k): str(v) for k, v in labels.items()} if isinstance(labels, dict) else {}
 
 
-def _display(metric: str) -> tuple[float, str]:
-    """Scale and unit a metric is shown in: shares of time and of the grid in percent."""
-    unit = METRICS.get(metric, ("", ""))[1]
-    if unit == "fraction":
-        return 100.0, "%"
-    return 1.0, unit
-
-
-def _metric_heading(metric: str) -> str:
-    if metric == "en17037_level":
-        return "EN 17037 level"
-    unit = _display(metric)[1]
-    short = SHORT.get(metric, METRICS.get(metric, (metric.replace("_", " "), ""))[0])
-    short = short.split(" [")[0]
-    return f"{short} [{unit}]" if unit else short
-
-
-def _metric_cell(metric: str, value: Any) -> str:
-    if metric == "en17037_level":
-        return en17037_text(value)
-    scale, _ = _display(metric)
-    try:
-        return format_number(float(value) * scale)
-    except (TypeError, ValueError):
-        return format_number(value)
-
-
 def _row_values(row: pd.Series, axes: list[str]) -> dict[str, Any]:
     return {a: _plain(row[a]) for a in axes}
 
@@ -279,8 +236,8 @@ def _summary(ds: xr.Dataset, study: dict, source: str | None, table: pd.DataFram
     else:
         best = ranked.iloc[0]
         metrics = spec.metrics or [m for m in ("sda", "ase", "udi_useful_mean") if m in table]
-        values = ", ".join(f"{_metric_heading(m).split(' [')[0]} {_metric_cell(m, best[m])}"
-                           + (f" {_display(m)[1]}" if _display(m)[1] and
+        values = ", ".join(f"{metric_heading(m).split(' [')[0]} {metric_text(m, best[m])}"
+                           + (f" {display_unit(m)[1]}" if display_unit(m)[1] and
                               m != "en17037_level" else "")
                            for m in metrics if m in best.index)
         if spec.require:
@@ -330,7 +287,7 @@ def _ranking(table: pd.DataFrame, spec: RankSpec, axes: list[str], labels: dict[
     incomplete = table[table["status"] == "incomplete"]
     metrics = spec.metrics or [m for m in ("sda", "ase", "udi_useful_mean") if m in table]
     head = ["Rank", "Variant",
-            *[f'<span title="{_esc(_label(m))}">{_esc(_metric_heading(m))}</span>'
+            *[f'<span title="{_esc(_label(m))}">{_esc(metric_heading(m))}</span>'
               for m in metrics]]
     if spec.prefer:
         head += ["Score (0–1)", "Pareto set"]
@@ -344,7 +301,7 @@ def _ranking(table: pd.DataFrame, spec: RankSpec, axes: list[str], labels: dict[
         name = _esc(_name_of(row, axes, labels))
         cells = [format_number(row["rank"]) if status != "incomplete" else "–",
                  f'<span title="variant id {_esc(row["variant_id"])}">{name}</span>']
-        cells += [_esc(_metric_cell(m, row.get(m, np.nan))) for m in metrics]
+        cells += [_esc(metric_text(m, row.get(m, np.nan))) for m in metrics]
         if spec.prefer:
             cells += [_esc(format_number(row["score"])), "◆ yes" if row["pareto"] else ""]
         if status == "incomplete":
@@ -352,7 +309,9 @@ def _ranking(table: pd.DataFrame, spec: RankSpec, axes: list[str], labels: dict[
         elif status == "pass":
             verdict = '<span class="pass">✓ all met</span>'
         else:
-            verdict = f'<span class="fail">✗ misses {_esc(row["failed"])}</span>'
+            missed = [criterion_text(r) for r in spec.require
+                      if r.label in str(row["failed"]).split("; ")]
+            verdict = f'<span class="fail">✗ misses {_esc("; ".join(missed))}</span>'
         if spec.require or status == "incomplete":
             cells.append(verdict)
         out.append(f'<tr class="{status}">' + "".join(f"<td>{c}</td>" for c in cells) + "</tr>")
@@ -362,8 +321,8 @@ def _ranking(table: pd.DataFrame, spec: RankSpec, axes: list[str], labels: dict[
     if n_ranked > top:
         note.append(f"The best {top} of {n_ranked:,} ranked variants are shown; the ranking "
                     "file beside this report lists them all.")
-    crit = "; ".join(r.label for r in spec.require) or "none given"
-    pref = "; ".join(f"{_metric_heading(o.metric)} ({'higher' if o.goal == 'max' else 'lower'}"
+    crit = "; ".join(criterion_text(r) for r in spec.require) or "none given"
+    pref = "; ".join(f"{metric_heading(o.metric)} ({'higher' if o.goal == 'max' else 'lower'}"
                      f" is better, weight {o.weight:g})" for o in spec.prefer) or "none given"
     note.append(f"Criteria: {crit}. Objectives: {pref}. Shares of time and of the grid "
                 "are in percent.")
@@ -737,8 +696,8 @@ def _pareto_chart(ds: xr.Dataset, table: pd.DataFrame, spec: RankSpec) -> str:
     if len(pair) < 2 or done.empty:
         return '<p class="note">Fewer than two metrics to compare: no trade-off chart.</p>'
     (mx, gx), (my, gy) = pair
-    x = np.asarray(ds[mx].values, float)[done["variant"]] * _display(mx)[0]
-    y = np.asarray(ds[my].values, float)[done["variant"]] * _display(my)[0]
+    x = np.asarray(ds[mx].values, float)[done["variant"]] * display_unit(mx)[0]
+    y = np.asarray(ds[my].values, float)[done["variant"]] * display_unit(my)[0]
     ok = (done["status"] == "pass").to_numpy()
     front = np.zeros(len(done), bool)
     if ok.any():
@@ -782,7 +741,7 @@ def _main_effect_plots(ds: xr.Dataset, spec: RankSpec, labels: dict[str, str]) -
     grid = fig.subplots(len(metrics), len(axes), squeeze=False, sharey="row")
     for i, metric in enumerate(metrics):
         effects = main_effects(ds, metric)
-        scale = _display(metric)[0]
+        scale = display_unit(metric)[0]
         effects = effects.assign(mean=effects["mean"] * scale, effect=effects["effect"] * scale)
         grand = float((effects["mean"] - effects["effect"]).iloc[0]) if len(effects) else 0.0
         for j, axis in enumerate(axes):
@@ -800,7 +759,7 @@ def _main_effect_plots(ds: xr.Dataset, spec: RankSpec, labels: dict[str, str]) -
             if i == len(metrics) - 1:
                 ax.set_xlabel(axis_label(axis, labels), fontsize=9)
             if j == 0:
-                ax.set_ylabel(_metric_heading(metric), fontsize=8)
+                ax.set_ylabel(metric_heading(metric), fontsize=8)
     fig.tight_layout()
     return (_png(fig, "main effects")
             + '<p class="note">Each row is a metric and each column a varied choice: the '
@@ -825,7 +784,7 @@ def _orientation_climate_map(ds: xr.Dataset, table: pd.DataFrame, spec: RankSpec
     sel = done
     for a in others:
         sel = sel[sel[a] == best[a]]
-    values = np.asarray(ds[metric].values, float) * _display(metric)[0]
+    values = np.asarray(ds[metric].values, float) * display_unit(metric)[0]
     sel = sel.assign(value=values[sel["variant"]])
     rows = sorted(pd.unique(sel["orientation"])) if "orientation" in axes else ["(fixed)"]
     cols = list(pd.unique(sel["climate"])) if "climate" in axes else ["(fixed)"]
@@ -852,7 +811,7 @@ def _orientation_climate_map(ds: xr.Dataset, table: pd.DataFrame, spec: RankSpec
                                      for r in rows])
     ax.set_xlabel("climate")
     ax.set_ylabel("front façade faces")
-    fig.colorbar(im, ax=ax, label=_metric_heading(metric))
+    fig.colorbar(im, ax=ax, label=metric_heading(metric))
     fig.tight_layout()
     fixed = ", ".join(f"{axis_label(a, labels)} {value_text(a, best[a])}" for a in others) or (
         "no other choices varied")

@@ -1,5 +1,6 @@
 """The command line answers --version and --help (CONTRACT.md §2)."""
 
+import hashlib
 import subprocess
 import sys
 
@@ -95,6 +96,25 @@ def test_demo_study_is_valid(tmp_path, cli):
     result = cli("check", study)
     assert result.code == 0, result.err
     assert "96 variants" in result.out and "4 distinct geometries" in result.out
+
+
+def test_demo_never_overwrites_an_edited_study(tmp_path, capsys):
+    from luxsweep.sweep.demo import WRITTEN_RECORD, demo_text, write_demo
+
+    study = write_demo(tmp_path / "demo")
+    assert study.read_text() == demo_text()
+    edited = study.read_text().replace("spacing: 0.75", "spacing: 0.6")
+    assert edited != demo_text()
+    study.write_text(edited)
+    assert write_demo(tmp_path / "demo") == study
+    assert study.read_text() == edited  # kept, and said so
+    assert "differs from the bundled demo" in capsys.readouterr().out
+    # a study luxsweep itself wrote (an earlier version's demo) is brought up to date
+    older = demo_text().replace("alderwick-east-annex", "alderwick-east-annex-old")
+    study.write_text(older)
+    (study.parent / WRITTEN_RECORD).write_text(hashlib.sha256(older.encode()).hexdigest())
+    write_demo(tmp_path / "demo")
+    assert study.read_text() == demo_text()
 
 
 def test_example_studies_are_valid(tmp_path, cli):

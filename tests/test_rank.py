@@ -10,6 +10,8 @@ Def. 2.5 — from memory) and main effects as level mean minus grand mean
 
 from __future__ import annotations
 
+import re
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -19,6 +21,7 @@ from synthetic_results import AXES, NOT_DONE, write_store
 from luxsweep.sweep.errors import ResultsStoreError, StudyFileError
 from luxsweep.sweep.rank import (
     axes_of,
+    coord_values,
     main_effects,
     metric_names,
     open_store,
@@ -175,7 +178,7 @@ def test_rank_command_on_a_zarr_store(store, tmp_path, capsys):
     assert rank_command(str(store), top=3, csv=str(csv)) == 0
     out = capsys.readouterr().out
     assert "harbour-lane-studios" in out
-    assert "22 of 24 variants complete" in out and "2 incomplete" in out
+    assert "22 of 24 variants complete" in out and "2 not finished" in out
     table = pd.read_csv(csv)
     assert len(table) == 24
     assert (table["status"] == "incomplete").sum() == len(NOT_DONE)
@@ -186,9 +189,43 @@ def test_rank_command_on_a_zarr_store(store, tmp_path, capsys):
     meets = (table["sda"] >= 40) & (table["ase"] <= 10)
     assert ((table["status"] == "pass") == (meets & done)).all()
     assert table.loc[done, "rank"].tolist() == list(range(1, done.sum() + 1))
-    # --top 3 shows three ranked rows (plus the incomplete ones)
-    shown = [line for line in out.splitlines() if line.startswith("│")]
+    # --top 3 shows three ranked rows (plus the incomplete ones); wrapped lines of a
+    # row are indented past the rank column
+    shown = [line for line in out.splitlines() if re.match(r"^\s{0,2}(\d+|–)\s{2,}", line)]
     assert len(shown) == 3 + len(NOT_DONE)
+    # the narrow table fits a 100-column terminal (output here is not a terminal)
+    assert max(len(line.rstrip()) for line in out.splitlines()) <= 100
+    assert "misses" in out or "all met" in out
+    # the CSV names each variant by its values (orientation 90 = east, CONTRACT §1)
+    assert table["name"].str.match(r"^(east|south|west) · (coastal|inland) · τ ").all()
+
+
+def test_rank_wide_shows_ids_and_axes(store, capsys):
+    assert rank_command(str(store), top=2, wide=True) == 0
+    out = capsys.readouterr().out
+    ids = [str(v)[:10] for v in pd.Series(coord_values(open_store(store), "variant_id"))]
+    assert sum(i in out for i in ids) >= 2
+    assert "window width" in out and "Pareto" in out
+
+
+def test_rank_without_criteria_makes_no_claim(store, tmp_path, capsys):
+    import shutil
+
+    import zarr
+
+    bare = tmp_path / "bare.zarr"
+    shutil.copytree(store, bare)
+    group = zarr.open_group(str(bare), mode="r+")
+    text = group.attrs["study"]
+    group.attrs["study"] = text[:text.index("rank:")]
+    zarr.consolidate_metadata(str(bare))
+    assert rank_command(str(bare)) == 0
+    out = capsys.readouterr().out
+    assert "every criterion" not in out and "no criteria given" in out
+    # the main metrics are shown instead (CONTRACT §3 per-variant variables)
+    for heading in ("sDA [%]", "ASE [%]", "EN 17037"):
+        assert heading in out
+    assert re.search(r"\d (none|minimum|medium|high)\b", out)
 
 
 def test_rank_command_missing_store_is_a_clear_error(tmp_path):
