@@ -14,6 +14,7 @@ import importlib
 import importlib.util
 import json
 import logging
+import os
 import sys
 import warnings
 from collections.abc import Callable
@@ -70,6 +71,8 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("plan", help="variants, coefficient sets, cache hits, estimated cost")
     p.add_argument("study", help="study file (YAML)")
     p.add_argument("--json", action="store_true", help="print the plan as JSON")
+    p.add_argument("--workers", type=_positive_int, default=None,
+                   help="workers to estimate the time for (default: number of cores)")
     p.add_argument("--cache", default=None, help="coefficient cache folder")
 
     p = sub.add_parser("run", help="compute a study (resumes an interrupted run)")
@@ -128,16 +131,26 @@ def cmd_check(args: argparse.Namespace) -> int:
 def cmd_plan(args: argparse.Namespace) -> int:
     from luxsweep.sweep.cache import CoefficientCache
     from luxsweep.sweep.config import load_study
+    from luxsweep.sweep.costs import estimated_seconds, format_duration, measure_rates
+    from luxsweep.sweep.labels import plural
     from luxsweep.sweep.plan import make_plan
     from luxsweep.sweep.run import default_cache
 
     loaded = load_study(args.study)
     cache = CoefficientCache(args.cache or default_cache(loaded))
     plan = make_plan(loaded, cache)
-    if args.json:
-        print(json.dumps(plan.to_dict(), indent=1, default=str))
-        return 0
     est = plan.estimate()
+    missing = next((j for j in plan.jobs.values() if not j.cached), None)
+    rates = measure_rates(missing.geometry if missing else None,
+                          missing.sensors if missing else None)
+    seconds = estimated_seconds(est, rates, args.workers)
+    if args.json:
+        out = plan.to_dict()
+        out["estimate"]["seconds"] = seconds
+        out["estimate"]["measured_rates"] = {"rays_per_second": rates.rays_per_second,
+                                             "flops_per_second": rates.flops_per_second}
+        print(json.dumps(out, indent=1, default=str))
+        return 0
     print(f"study {loaded.study.name} ({loaded.path})")
     print(f"  variants: {est['variants']} over axes {', '.join(plan.axes) or '(none)'}")
     print(f"  coefficient sets: {est['coefficient_sets']} ({est['cache_hits']} in the cache "
@@ -150,6 +163,13 @@ def cmd_plan(args: argparse.Namespace) -> int:
     print(f"  estimated work: {est['rays'] / 1e6:.1f} M rays, "
           f"{est['gemm_flops'] / 1e9:.1f} GFLOP of matrix products, "
           f"{est['bytes_written'] / 2**20:.1f} MiB written")
+    workers = args.workers or os.cpu_count() or 1
+    measured = f"{rates.flops_per_second / 1e9:.0f} GFLOP/s matrix products"
+    if missing is not None:
+        measured = f"{rates.rays_per_second / 1e6:.0f} M rays/s and " + measured
+    print(f"  estimated time: about {format_duration(seconds['wall'])} on "
+          f"{plural(workers, 'worker')} (from {measured} measured on this machine; "
+          "a guide, not a promise)")
     return 0
 
 

@@ -1037,7 +1037,7 @@ tr.incomplete td { color: #888; font-style: italic; }
 .pass { font-weight: 600; }
 .fail { font-weight: 400; }
 .note { font-size: 13px; color: #444; }
-img { max-width: 100%; height: auto; display: block; margin: 8px 0; }
+img { width: 100%; height: auto; display: block; margin: 8px 0; }
 dt { font-weight: 600; margin-top: 8px; }
 dd { margin-left: 18px; font-size: 14px; }
 footer { font-size: 12px; color: #555; border-top: 1px solid #ccc; margin-top: 40px;

@@ -64,6 +64,18 @@ def test_plan_json_lists_keys_and_estimate(tmp_path, cli):
     assert len({v["variant_id"] for v in plan["variants"]}) == 16
     text = cli("plan", study, "--cache", tmp_path / "cache")
     assert text.code == 0 and "coefficient sets: 2" in text.out
+    # an estimated time from rates measured here: more workers, less time
+    seconds = plan["estimate"]["seconds"]
+    rates = plan["estimate"]["measured_rates"]
+    assert rates["rays_per_second"] > 0 and rates["flops_per_second"] > 0
+    assert seconds["wall"] > seconds["coefficients"] / 2 > 0
+    assert "estimated time: about" in text.out and "on 2 workers" in cli(
+        "plan", study, "--cache", tmp_path / "cache", "--workers", "2").out
+    more = json.loads(cli("plan", study, "--json", "--cache", tmp_path / "cache",
+                          "--workers", "8").out)["estimate"]["seconds"]
+    one = json.loads(cli("plan", study, "--json", "--cache", tmp_path / "cache",
+                         "--workers", "1").out)["estimate"]["seconds"]
+    assert more["wall"] < one["wall"]
 
 
 def test_missing_study_file_is_exit_2(tmp_path, cli):
