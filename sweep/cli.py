@@ -189,15 +189,44 @@ def cmd_demo(args: argparse.Namespace) -> int:
     return run_demo(args.out, workers=args.workers)
 
 
+def output_file(path: str | None, option: str) -> None:
+    """Refuse an output file whose folder is missing or not writable (before any work).
+
+    Raises
+    ------
+    UserInputError
+        Naming the option and the folder.
+    """
+    from pathlib import Path
+
+    from luxsweep.sweep.errors import UserInputError
+
+    if path is None or isinstance(path, bool):
+        return
+    target = Path(path).expanduser()
+    folder = target.parent if str(target.parent) else Path(".")
+    if target.is_dir():
+        raise UserInputError(f"{option} {path}: is a folder; give a file name")
+    if not folder.is_dir():
+        raise UserInputError(f"{option} {path}: the folder {folder} does not exist; create "
+                             "it or choose another path")
+    if not os.access(folder, os.W_OK):
+        raise UserInputError(f"{option} {path}: the folder {folder} is not writable; choose "
+                             "another path")
+
+
 def cmd_rank(args: argparse.Namespace) -> int:
     command = _optional_command("rank", "rank_command")
     assert command is not None
+    output_file(args.csv, "--csv")
     return int(command(args.results, args.top, args.csv, wide=args.wide))
 
 
 def cmd_report(args: argparse.Namespace) -> int:
     command = _optional_command("report", "report_command")
     assert command is not None
+    output_file(args.html, "--html")
+    output_file(args.pdf, "--pdf")
     return int(command(args.results, args.html, pdf=args.pdf, paper=args.paper))
 
 

@@ -451,15 +451,18 @@ def open_store(results: str | Path) -> xr.Dataset:
             f"results store '{results}' not found; give the folder written by "
             "`luxsweep run` (by default <study folder>/<name>.zarr)"
         )
+    if path.is_file():
+        raise ResultsStoreError(f"'{results}' is a file; a results store is the folder "
+                                "written by `luxsweep run`")
     try:
         try:
             ds = xr.open_zarr(path, consolidated=True)
         except (KeyError, FileNotFoundError, ValueError):
             ds = xr.open_zarr(path, consolidated=False)  # an unfinished run: not consolidated
-    except Exception as exc:  # zarr raises several types for a damaged store
+    except Exception as exc:  # zarr raises several types for a damaged or foreign folder
         raise ResultsStoreError(
-            f"'{results}' cannot be read as a results store ({type(exc).__name__}: {exc}); "
-            "check the path or re-run `luxsweep run`"
+            f"'{results}' is not a readable luxsweep results store (no Zarr group with "
+            "luxsweep results in it); check the path, or run the study again to rewrite it"
         ) from exc
     if "variant" not in ds.dims:
         raise ResultsStoreError(

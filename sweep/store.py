@@ -287,13 +287,16 @@ def check_alignment(path: str | Path, *, series_chunk: int | None = None) -> Non
 
 def read_attrs(path: str | Path) -> dict[str, Any]:
     """Group attributes of an existing store (raises ResultsStoreError if it is not one)."""
+    if Path(path).is_file():
+        raise ResultsStoreError(f"{path} is a file, not a results store folder; choose "
+                                "another path with --out")
     try:
         group = zarr.open_group(str(path), mode="r")
-    except Exception as exc:
+    except Exception as exc:  # zarr raises several types for a folder that is not a store
         raise ResultsStoreError(
-            f"{path}: not a luxsweep results store ({type(exc).__name__}); delete the folder "
-            "or choose another with --out"
-        ) from None
+            f"{path} exists but is not a luxsweep results store (it holds no readable Zarr "
+            "group); delete the folder or choose another with --out"
+        ) from exc
     return dict(group.attrs)
 
 

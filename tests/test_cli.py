@@ -1,6 +1,7 @@
 """The command line answers --version and --help (CONTRACT.md §2)."""
 
 import hashlib
+import re
 import subprocess
 import sys
 
@@ -143,3 +144,24 @@ def test_example_studies_are_valid(tmp_path, cli):
     for study in (examples / "shaded-office.yaml", examples / "mesh-studio" / "study.yaml"):
         result = cli("check", study)
         assert result.code == 0, result.err
+
+
+def test_output_and_store_paths_are_refused_in_plain_sentences(tmp_path, cli):
+    missing = tmp_path / "no-such-folder"
+    for argv, words in (
+        (("rank", tmp_path / "r.zarr", "--csv", missing / "r.csv"), "does not exist"),
+        (("report", tmp_path / "r.zarr", "--html", missing / "r.html"), "does not exist"),
+        (("report", tmp_path / "r.zarr", "--html", tmp_path), "is a folder"),
+        (("rank", tmp_path / "absent.zarr"), "not found"),
+    ):
+        result = cli(*argv)
+        assert result.code == 2, argv
+        assert words in result.err and "Traceback" not in result.err
+        assert not re.search(r"\b[A-Z][a-z]+(Error|Exception)\b", result.err), result.err
+    (tmp_path / "afile").write_text("x")
+    (tmp_path / "empty.zarr").mkdir()
+    for store, words in ((tmp_path / "afile", "is a file"),
+                         (tmp_path / "empty.zarr", "not a readable luxsweep results store")):
+        result = cli("rank", store)
+        assert result.code == 2 and words in result.err
+        assert not re.search(r"\b[A-Z][a-z]+(Error|Exception)\b", result.err), result.err
