@@ -75,7 +75,8 @@ class CoefficientCache:
     """
 
     def __init__(self, root: str | Path) -> None:
-        self.root = Path(root).expanduser().resolve()
+        # absolute, symlinks kept: workers find the cache under the name given
+        self.root = Path(os.path.abspath(Path(root).expanduser()))
 
     def __repr__(self) -> str:
         return f"CoefficientCache({str(self.root)!r})"

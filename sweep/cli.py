@@ -33,6 +33,16 @@ def _positive_int(text: str) -> int:
     return value
 
 
+def _positive_float(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number of seconds, got {text!r}") from None
+    if not value > 0 or value == float("inf"):
+        raise argparse.ArgumentTypeError(f"must be a positive number of seconds, got {text}")
+    return value
+
+
 def _optional_command(module: str, function: str) -> Callable[..., int] | None:
     """``sweep.<module>.<function>`` when that module exists and defines it."""
     if importlib.util.find_spec(f"luxsweep.sweep.{module}") is None:
@@ -85,6 +95,17 @@ def build_parser() -> argparse.ArgumentParser:
                    help="join the Dask cluster at this address or scheduler file")
     p.add_argument("--cache", default=None, help="coefficient cache folder (default "
                    "$LUXSWEEP_CACHE or <study folder>/.luxsweep-cache)")
+    p.add_argument("--connect-timeout", type=_positive_float, default=10.0, metavar="SECONDS",
+                   help="how long to wait for --scheduler to answer (default 10)")
+    p.add_argument("--tls-ca-file", default=None, metavar="FILE",
+                   help="CA certificate (PEM) of a tls:// scheduler")
+    p.add_argument("--tls-cert", default=None, metavar="FILE",
+                   help="this client's certificate (PEM) for a tls:// scheduler")
+    p.add_argument("--tls-key", default=None, metavar="FILE",
+                   help="the key of --tls-cert (PEM), unless that file holds it")
+    p.add_argument("--progress-every", type=_positive_float, default=15.0, metavar="SECONDS",
+                   help="interval of the progress lines when stderr is not a terminal "
+                   "(default 15)")
 
     if _optional_command("rank", "rank_command"):
         p = sub.add_parser("rank", help="criteria, scores and ranking of a results store")
@@ -174,11 +195,24 @@ def cmd_plan(args: argparse.Namespace) -> int:
 
 
 def cmd_run(args: argparse.Namespace) -> int:
+    from luxsweep.sweep.cluster import TlsFiles
+    from luxsweep.sweep.errors import UserInputError
     from luxsweep.sweep.run import format_summary, run_study, terminate_as_interrupt
 
+    tls = None
+    if args.tls_ca_file or args.tls_cert or args.tls_key:
+        if not args.tls_ca_file:
+            raise UserInputError("--tls-cert and --tls-key need --tls-ca-file (the CA that "
+                                 "signed the scheduler's certificate)")
+        if not args.scheduler:
+            raise UserInputError("the --tls-* options are for joining a tls:// scheduler; "
+                                 "give --scheduler too")
+        tls = TlsFiles(args.tls_ca_file, args.tls_cert, args.tls_key)
     with terminate_as_interrupt():
         summary = run_study(args.study, args.out, workers=args.workers,
-                            scheduler=args.scheduler, cache_dir=args.cache)
+                            scheduler=args.scheduler, cache_dir=args.cache,
+                            connect_timeout=args.connect_timeout, tls=tls,
+                            progress_every=args.progress_every)
     print(format_summary(summary))
     return 0 if summary.ok else 1
 

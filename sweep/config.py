@@ -39,6 +39,7 @@ from __future__ import annotations
 import difflib
 import hashlib
 import json
+import os
 import re
 import typing
 from dataclasses import dataclass, field
@@ -82,7 +83,7 @@ def _resolve_file(value: str, info: ValidationInfo, what: str) -> str:
     path = Path(value).expanduser()
     if not path.is_absolute() and base is not None:
         path = Path(base) / path
-    path = path.resolve()
+    path = Path(os.path.abspath(path))  # as given: symlinks kept (workers see the same name)
     if not path.is_file():
         raise ValueError(
             f"{what} '{value}' does not exist (looked for {path}); give a path relative to "
@@ -946,7 +947,7 @@ def parse_study(text: str, path: str | Path) -> StudyFile:
         types or values, and bad ``vary`` entries; the message
         names the file, the line and the dotted key path.
     """
-    path = Path(path).resolve()
+    path = Path(os.path.abspath(path))
     try:
         loader = _AliasRecordingLoader(text)
         try:

@@ -31,3 +31,9 @@ class CacheIntegrityError(LuxsweepError, OSError):
 
 class VariantFailedError(LuxsweepError, RuntimeError):
     """One or more variants failed; the message names their ids."""
+
+
+class SchedulerError(UserInputError):
+    """The Dask scheduler given cannot be used: a missing or malformed scheduler
+    file, an address that is not one, no answer within the time-out, or missing
+    TLS files (a plain sentence; exit status 2 on the command line)."""

@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import os
 from collections.abc import Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -212,7 +213,7 @@ def _wrap_geometry_error(loaded: StudyFile, variant: Variant | None, exc: InputE
     named as context.
     """
     loc = tuple(int(p) if p.isdigit() else p for p in (exc.field or "").split(".") if p)
-    elsewhere = bool(exc.file) and Path(str(exc.file)).resolve() != loaded.path
+    elsewhere = bool(exc.file) and Path(os.path.abspath(str(exc.file))) != loaded.path
     if elsewhere and not (exc.field or "").startswith(("materials.", "grid.")):
         return exc
     where = ""

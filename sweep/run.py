@@ -17,25 +17,22 @@ Task keys are explicit (``coefficients-<key>``, ``series-<key>-<hash>``), so a
 failure names its coefficient key and its variant ids; the other tasks finish
 and the run ends with exit status 1. A failed series task is retried member by
 member, and members that failed only because workers died run once more alone
-at the end (:func:`_collect`), so one poison variant fails alone. A rerun of the
+at the end (:class:`Collector`), so one poison variant fails alone. A rerun of the
 same study skips every variant whose ``done`` flag is set (resume). The store is
 created under a temporary sibling name and renamed into place
 (:func:`sweep.store.create_store`); a damaged cache entry is recomputed.
 
-The default cluster is a ``distributed.LocalCluster`` of single-threaded worker
-processes bound to 127.0.0.1, where a task fails after killing its worker
-``ALLOWED_FAILURES + 1`` = 3 times; ``--scheduler`` joins an existing cluster
-instead (an address or a scheduler file; a plain-TCP link to a host other than
-loopback is warned about). Series tasks run BLAS on one thread so results are
-bit-identical wherever they run.
+The cluster (a loopback ``LocalCluster``, or one joined by address or
+scheduler file, over TLS if asked) comes from :mod:`sweep.cluster`; it is
+joined after validation and before the store is created. Progress (task by
+task, both phases) is :mod:`sweep.progress`. Series tasks run BLAS on one
+thread so results are bit-identical wherever they run.
 """
 
 from __future__ import annotations
 
 import contextlib
 import dataclasses
-import importlib.util
-import ipaddress
 import itertools
 import logging
 import os
@@ -47,12 +44,19 @@ from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
-from urllib.parse import urlparse
 
 import numpy as np
 
 from luxsweep.sweep import store as results_store
 from luxsweep.sweep.cache import CoefficientCache
+from luxsweep.sweep.cluster import (
+    ALLOWED_FAILURES,
+    CONNECT_TIMEOUT,
+    TlsFiles,
+    dask_client,
+    is_loopback,
+    is_plain_link,
+)
 from luxsweep.sweep.config import StudyFile, load_study
 from luxsweep.sweep.errors import (
     CacheIntegrityError,
@@ -61,6 +65,7 @@ from luxsweep.sweep.errors import (
     VariantFailedError,
 )
 from luxsweep.sweep.plan import CoefficientJob, Plan, SeriesTask, make_plan
+from luxsweep.sweep.progress import PLAIN_EVERY, Progress
 
 log = logging.getLogger("luxsweep")
 
@@ -69,17 +74,6 @@ SERIES_CHUNK = 512
 
 BLOCK_BYTES = 192 * 2**20
 """Memory budget of one time block of a series task [bytes]."""
-
-ALLOWED_FAILURES = 2
-"""Worker deaths a task may cause before it fails, on the run's own LocalCluster.
-
-A task whose worker dies three times (e.g. out of memory) is almost surely the
-cause rather than a bystander; failing it sooner than Dask's default (3 allowed,
-4 deaths) keeps a poison variant from costing many worker restarts. A failed
-series task is retried member by member (see :func:`_collect`), so a bystander
-gets a second chance there.
-A joined cluster (``--scheduler``) keeps its own setting.
-"""
 
 # metric family -> (per-sensor variables, per-variant variables)
 FAMILIES: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
@@ -348,8 +342,8 @@ class RunSummary:
 
 def default_results(loaded: StudyFile) -> Path:
     """``<study folder>/<name>.zarr`` (the name is checked to hold no path separators)."""
-    folder = loaded.folder.resolve()
-    path = (folder / f"{loaded.study.name}.zarr").resolve()
+    folder = Path(os.path.abspath(loaded.folder))
+    path = Path(os.path.abspath(folder / f"{loaded.study.name}.zarr"))
     if path.parent != folder:
         raise UserInputError(f"{loaded.path}: study name '{loaded.study.name}' would place the "
                              "results outside the study folder; use a plain name")
@@ -409,80 +403,6 @@ def _inputs_record(plan: Plan) -> dict[str, Any]:
     return {"climates": climates, "compute": compute}
 
 
-def is_loopback(address: str) -> bool:
-    host = urlparse(address if "://" in address else f"tcp://{address}").hostname or ""
-    if host == "localhost":
-        return True
-    try:
-        return ipaddress.ip_address(host).is_loopback
-    except ValueError:
-        return False
-
-
-def is_plain_link(address: str) -> bool:
-    """Whether ``address`` joins a remote scheduler unencrypted and unauthenticated.
-
-    True for ``tcp://`` and ``ws://`` addresses and for bare ``host:port`` (Dask's
-    default scheme is TCP) whose host is not loopback.
-    """
-    scheme = address.split("://", 1)[0].lower() if "://" in address else ""
-    return scheme in ("", "tcp", "ws") and not is_loopback(address)
-
-
-@contextlib.contextmanager
-def dask_client(workers: int | None, scheduler: str | None) -> Iterator[Any]:
-    """A Client on a loopback LocalCluster, or on the cluster at ``scheduler``."""
-    import dask
-    from distributed import Client, LocalCluster
-
-    if scheduler:
-        if Path(scheduler).is_file():
-            with Client(scheduler_file=scheduler, timeout="30s") as client:
-                yield client
-            return
-        if is_plain_link(scheduler):
-            log.warning("the link to %s is plain TCP: it is neither authenticated nor "
-                        "encrypted. Prefer a tls:// address with certificates (Dask "
-                        "Security) or an SSH tunnel to a loopback port.", scheduler)
-        with Client(scheduler, timeout="30s") as client:
-            yield client
-        return
-    n = workers or os.cpu_count() or 1
-    # loopback only, on a free port (the HTTP endpoints serve the dashboard when
-    # bokeh is installed, and health/metrics pages otherwise); a task that kills
-    # its worker ALLOWED_FAILURES + 1 times fails (Dask's default is 3); and a
-    # worker that is being restarted by its nanny when the lost-worker check
-    # fires (15 s by default) must not have its nanny closed for good, which
-    # a task killing fresh workers in a row could otherwise do to every worker
-    settings = {"distributed.scheduler.allowed-failures": ALLOWED_FAILURES,
-                "distributed.deploy.lost-worker-timeout": "1h"}
-    with dask.config.set(settings), \
-            LocalCluster(n_workers=n, threads_per_worker=1, processes=True, host="127.0.0.1",
-                         dashboard_address="127.0.0.1:0",
-                         silence_logs=logging.CRITICAL) as cluster, \
-            Client(cluster) as client:
-        yield client
-
-
-def _progress(console_stderr: bool = True) -> Any:
-    from rich.console import Console
-    from rich.progress import (
-        BarColumn,
-        MofNCompleteColumn,
-        Progress,
-        TextColumn,
-        TimeElapsedColumn,
-        TimeRemainingColumn,
-    )
-
-    return Progress(
-        TextColumn("[bold]variants"), BarColumn(), MofNCompleteColumn(),
-        TextColumn("{task.fields[rate]}"), TimeElapsedColumn(), TextColumn("left"),
-        TimeRemainingColumn(), console=Console(stderr=console_stderr),
-        transient=False,
-    )
-
-
 def prepare(study_path: str | Path, out: str | Path | None, cache_dir: str | Path | None
             ) -> tuple[Plan, Path, CoefficientCache, np.ndarray | None]:
     """Validate everything and open the store (no cluster yet).
@@ -493,7 +413,8 @@ def prepare(study_path: str | Path, out: str | Path | None, cache_dir: str | Pat
     loaded = load_study(study_path)
     cache = CoefficientCache(cache_dir if cache_dir else default_cache(loaded))
     plan = make_plan(loaded, cache)
-    results = Path(out).resolve() if out else default_results(loaded)
+    # absolute but as given (no symlink resolution): workers open the same name
+    results = Path(os.path.abspath(Path(out).expanduser())) if out else default_results(loaded)
     done = None
     if results.exists():
         sensor_vars, variant_vars = store_variables(list(plan.loaded.study.metrics))
@@ -529,8 +450,32 @@ def run_study(
     scheduler: str | None = None,
     cache_dir: str | Path | None = None,
     show_progress: bool = True,
+    connect_timeout: float = CONNECT_TIMEOUT,
+    tls: TlsFiles | None = None,
+    progress_every: float = PLAIN_EVERY,
 ) -> RunSummary:
     """Validate, plan and compute a study; resume an interrupted run of the same study.
+
+    Everything is validated before the cluster is joined or started, and the
+    results store is created only once the cluster answers, so neither bad input
+    nor an unreachable scheduler leaves a store behind.
+
+    Parameters
+    ----------
+    study_path, out, cache_dir
+        Study file, results store (default beside the study) and coefficient cache.
+    workers : int, optional
+        Worker processes of the local cluster.
+    scheduler : str, optional
+        Address or scheduler file of a cluster to join (:func:`sweep.cluster.dask_client`).
+    show_progress : bool
+        Show progress on stderr (a bar in a terminal, plain lines otherwise).
+    connect_timeout : float
+        Wait for a joined scheduler [s].
+    tls : sweep.cluster.TlsFiles, optional
+        CA, certificate and key for a ``tls://`` scheduler.
+    progress_every : float
+        Interval of the plain progress lines [s].
 
     Raises
     ------
@@ -538,62 +483,48 @@ def run_study(
         Bad input, found before any cluster starts.
     ResultsStoreError
         ``out`` holds a store of a different study.
+    SchedulerError
+        The scheduler cannot be found or reached (no store is created).
     """
-    from distributed import as_completed
-
     t_start = time.perf_counter()
     plan, results, cache, done = prepare(study_path, out, cache_dir)
     n = len(plan.variants)
     for stale in results_store.remove_unfinished(results):
         log.info("removed %s, left by a run killed while creating the store", stale)
-    if done is None:
-        results_store.create_store(results, _layout(plan))
-        done = np.zeros(n, dtype=bool)
-    else:
+    if done is not None:
         results_store.check_alignment(results, series_chunk=SERIES_CHUNK)
         # the rank section may have changed: keep the store's study text current
         results_store.update_attrs(results, _attrs(plan))
-    skipped = int(done.sum())
+    done_before = done if done is not None else np.zeros(n, dtype=bool)
+    skipped = int(done_before.sum())
     summary = RunSummary(total=n, skipped=skipped, results=results)
     if skipped:
         log.info("resuming %s: %d of %d variants already done, skipped", results, skipped, n)
-    pending = [t for t in plan.tasks if any(not done[vi] for vi, _, _ in t.members)]
-    if not pending:
+    pending = [t for t in plan.tasks if any(not done_before[vi] for vi, _, _ in t.members)]
+    if not pending and done is not None:
         results_store.consolidate(results)
         summary.seconds = time.perf_counter() - t_start
         return summary
-    cache.root.mkdir(parents=True, exist_ok=True)
-    cache.clean_temporary(older_than=3600.0)
     needed = {t.key for t in pending}
     missing = sorted((plan.jobs[k] for k in needed if not _usable(cache, k)),
                      key=lambda j: -j.rays)
 
-    with dask_client(workers, scheduler) as client:
-        link = getattr(client, "dashboard_link", None)
-        if link and importlib.util.find_spec("bokeh") is not None:
+    with dask_client(workers, scheduler, connect_timeout=connect_timeout, tls=tls) as client:
+        if done is None:  # only now that the cluster answers
+            results_store.create_store(results, _layout(plan))
+        link = getattr(client, "luxsweep_dashboard", None)
+        if link:
             log.info("dashboard: %s", link)
-        coefficient_futures = {}
-        for rank, job in enumerate(missing):
-            coefficient_futures[job.key] = client.submit(
-                coefficient_task, job, str(cache.root), key=f"coefficients-{job.key[:24]}",
-                priority=100 + len(missing) - rank, pure=False, retries=0,
-            )
-        n_store = max(len(s) for s in plan.sensors)
-
-        def submit(task: SeriesTask, todo: list[tuple[int, int, int]], key: str) -> Any:
-            # depend on the coefficient task only while it runs: once its set is
-            # cached, its future is released (see _collect)
-            return client.submit(
-                series_task, task, todo, str(results), str(cache.root), n_store,
-                coefficient_futures.get(task.key), key=key, priority=0, pure=False, retries=0,
-            )
-
-        futures = {}
+        cache.root.mkdir(parents=True, exist_ok=True)
+        cache.clean_temporary(older_than=3600.0)
+        collector = Collector(client, plan, results, cache, summary)
+        collector.submit_coefficients(missing)
         for task in pending:
-            todo = [m for m in task.members if not done[m[0]]]
-            futures[submit(task, todo, task.task_id)] = (task, todo)
-        summary = _collect(futures, submit, coefficient_futures, summary, show_progress,
-                           as_completed)
+            collector.submit_series(task, [m for m in task.members if not done_before[m[0]]])
+        progress = (Progress(len(missing), collector.total_todo, every=progress_every)
+                    if show_progress else None)
+        with progress if progress is not None else contextlib.nullcontext():
+            collector.collect(progress)
     results_store.consolidate(results)
     summary.seconds = time.perf_counter() - t_start
     return summary
@@ -604,12 +535,13 @@ def _variant_ids(task: SeriesTask, todo: list[tuple[int, int, int]]) -> list[str
     return [ids[vi] for vi, _, _ in todo]
 
 
-def _collect(futures: dict, submit: Any, coefficient_futures: dict, summary: RunSummary,
-             show_progress: bool, as_completed: Any) -> RunSummary:
-    """Gather the series tasks; retry the members of a failed group one by one.
+class Collector:
+    """Submits a run's tasks and gathers them; retries the members of a failed group.
 
-    When a group's task raises, each of its pending members is submitted again as
-    its own task (key ``<task_id>-<variant_id>``), so that one bad variant cannot
+    Coefficient tasks and series tasks are gathered together as they finish
+    (a coefficient set finishing moves the progress at once). When a group's
+    series task raises, each of its pending members is submitted again as its
+    own task (key ``<task_id>-<variant_id>``), so that one bad variant cannot
     take the others down with it; only members whose own task fails too are
     reported. When a task failed because workers died (``KilledWorker``), the
     cause may be any task that shared those workers, so its members run again
@@ -622,84 +554,138 @@ def _collect(futures: dict, submit: Any, coefficient_futures: dict, summary: Run
     Finished futures are released as soon as they are read, so that a worker
     dying later does not make Dask recompute them (and count them as suspects).
     """
-    from distributed import KilledWorker
 
-    total_todo = sum(len(todo) for _, todo in futures.values())
-    timing: dict[str, float] = {"coefficients": 0.0}
-    progress = _progress() if show_progress else contextlib.nullcontext()
-    t0 = time.perf_counter()
-    suspects: list[tuple[SeriesTask, tuple[int, int, int], str]] = []
-    failed_sets: set[str] = set()
+    def __init__(self, client: Any, plan: Plan, results: Path, cache: CoefficientCache,
+                 summary: RunSummary) -> None:
+        self.client = client
+        self.results, self.cache_root = str(results), str(cache.root)
+        self.n_store = max(len(s) for s in plan.sensors)
+        self.summary = summary
+        self.timing: dict[str, float] = {"coefficients": 0.0}
+        self.coefficients: dict[str, Any] = {}  # set key -> future, until it finishes
+        self.coefficient_keys: dict[Any, str] = {}  # future -> set key
+        self.series: dict[Any, tuple[SeriesTask, list[tuple[int, int, int]]]] = {}
+        self.failed_sets: set[str] = set()
+        self.suspects: list[tuple[SeriesTask, tuple[int, int, int], str]] = []
+        self.total_todo = 0
+        self.progress: Progress | None = None
 
-    def harvest() -> None:
-        """Record and release the finished coefficient tasks."""
-        for key, fut in list(coefficient_futures.items()):
-            if fut.status == "finished":
-                res = fut.result()
-                summary.coefficient_sets_computed += int(res["computed"])
-                timing["coefficients"] += res["seconds"]
-                del coefficient_futures[key]
+    # -- submitting
+
+    def submit_coefficients(self, missing: list[CoefficientJob]) -> None:
+        """One task per missing set, largest first, ahead of every series task."""
+        for rank, job in enumerate(missing):
+            fut = self.client.submit(
+                coefficient_task, job, self.cache_root, key=f"coefficients-{job.key[:24]}",
+                priority=100 + len(missing) - rank, pure=False, retries=0,
+            )
+            self.coefficients[job.key] = fut
+            self.coefficient_keys[fut] = job.key
+
+    def _submit(self, task: SeriesTask, todo: list[tuple[int, int, int]], key: str) -> Any:
+        # depend on the coefficient task only while it runs: once its set is
+        # cached, its future is released
+        return self.client.submit(
+            series_task, task, todo, self.results, self.cache_root, self.n_store,
+            self.coefficients.get(task.key), key=key, priority=0, pure=False, retries=0,
+        )
+
+    def submit_series(self, task: SeriesTask, todo: list[tuple[int, int, int]],
+                      key: str | None = None) -> Any:
+        """Submit the members ``todo`` of ``task`` (key: the task id)."""
+        fut = self._submit(task, todo, key or task.task_id)
+        self.series[fut] = (task, todo)
+        if key is None:
+            self.total_todo += len(todo)
+        return fut
+
+    # -- gathering
+
+    def collect(self, progress: Progress | None = None) -> RunSummary:
+        """Gather every task (blocks until all are done or failed); the run's summary."""
+        from distributed import as_completed
+
+        self.progress = progress
+        pending = as_completed([*self.coefficients.values(), *self.series])
+        for fut in pending:
+            if fut in self.coefficient_keys:
+                self._coefficient_finished(fut)
+            else:
+                for retry in self._series_finished(fut):
+                    pending.add(retry)
+        for task, member, vid in self.suspects:
+            fut = self._submit(task, [member], f"{task.task_id}-{vid}-alone")
+            try:
+                self._written(fut.result())
+            except Exception as exc:
+                self._report(fut.key, task, [vid], exc)
+            finally:
                 fut.release()
-            elif fut.status == "error":
-                failed_sets.add(key)
+        self.summary.timing = self.timing
+        return self.summary
 
-    def report(key: str, task: SeriesTask, ids: list[str], exc: Exception) -> None:
-        summary.failed.setdefault(task.task_id, []).extend(ids)
+    def _coefficient_finished(self, fut: Any) -> None:
+        key = self.coefficient_keys.pop(fut)
+        if fut.status == "finished":
+            res = fut.result()
+            self.summary.coefficient_sets_computed += int(res["computed"])
+            self.timing["coefficients"] += res["seconds"]
+            if self.progress is not None:
+                self.progress.set_done()
+            del self.coefficients[key]
+            fut.release()
+        else:  # its series tasks fail with it and are reported at once
+            self.failed_sets.add(key)
+
+    def _series_finished(self, fut: Any) -> list[Any]:
+        """Record one series task; the retries it needs (to be gathered too)."""
+        from distributed import KilledWorker
+
+        task, todo = self.series.pop(fut)
+        ids = _variant_ids(task, todo)
+        retries: list[Any] = []
+        try:
+            result = fut.result()
+        except Exception as exc:
+            if self._set_failed(task.key):
+                self._report(fut.key, task, ids, exc)
+            elif isinstance(exc, KilledWorker):
+                log.warning("task %s failed (%s); its variants %s will run again one at "
+                            "a time at the end", fut.key, exc, ", ".join(ids))
+                self.suspects += [(task, m, vid) for m, vid in zip(todo, ids, strict=True)]
+            elif len(todo) > 1:
+                log.warning("task %s (coefficient key %s, climate %s) failed (%s: %s); "
+                            "retrying its variants %s one by one", task.task_id,
+                            task.key[:16], task.climate, type(exc).__name__, exc,
+                            ", ".join(ids))
+                retries = [self.submit_series(task, [member], f"{task.task_id}-{vid}")
+                           for member, vid in zip(todo, ids, strict=True)]
+            else:
+                self._report(fut.key, task, ids, exc)
+            return retries
+        finally:
+            fut.release()
+        self._written(result)
+        return retries
+
+    def _set_failed(self, key: str) -> bool:
+        """Whether the coefficient task of set ``key`` failed (seen or not yet gathered)."""
+        fut = self.coefficients.get(key)
+        if fut is not None and fut.status == "error":
+            self.failed_sets.add(key)
+        return key in self.failed_sets
+
+    def _written(self, result: dict[str, Any]) -> None:
+        self.summary.written += result["variants"]
+        for k, v in result["timing"].items():
+            self.timing[k] = self.timing.get(k, 0.0) + v
+        if self.progress is not None:
+            self.progress.variants_done(result["variants"])
+
+    def _report(self, key: str, task: SeriesTask, ids: list[str], exc: Exception) -> None:
+        self.summary.failed.setdefault(task.task_id, []).extend(ids)
         log.error("task %s (coefficient key %s, climate %s) failed for variants %s: %s: %s",
                   key, task.key[:16], task.climate, ", ".join(ids), type(exc).__name__, exc)
-
-    with progress as bar:
-        bar_task = bar.add_task("run", total=total_todo, rate="") if show_progress else None
-
-        def done(result: dict[str, Any]) -> None:
-            summary.written += result["variants"]
-            for k, v in result["timing"].items():
-                timing[k] = timing.get(k, 0.0) + v
-            if show_progress:
-                elapsed = time.perf_counter() - t0
-                bar.update(bar_task, advance=result["variants"],
-                           rate=f"{summary.written / max(elapsed, 1e-9):.2f}/s")
-
-        pending = as_completed(list(futures))
-        for fut in pending:
-            task, todo = futures.pop(fut)
-            ids = _variant_ids(task, todo)
-            harvest()
-            try:
-                result = fut.result()
-            except Exception as exc:
-                if task.key in failed_sets:
-                    report(fut.key, task, ids, exc)
-                elif isinstance(exc, KilledWorker):
-                    log.warning("task %s failed (%s); its variants %s will run again one at "
-                                "a time at the end", fut.key, exc, ", ".join(ids))
-                    suspects += [(task, m, vid) for m, vid in zip(todo, ids, strict=True)]
-                elif len(todo) > 1:
-                    log.warning("task %s (coefficient key %s, climate %s) failed (%s: %s); "
-                                "retrying its variants %s one by one", task.task_id,
-                                task.key[:16], task.climate, type(exc).__name__, exc,
-                                ", ".join(ids))
-                    for member, vid in zip(todo, ids, strict=True):
-                        retry = submit(task, [member], f"{task.task_id}-{vid}")
-                        futures[retry] = (task, [member])
-                        pending.add(retry)
-                else:
-                    report(fut.key, task, ids, exc)
-                continue
-            finally:
-                fut.release()
-            done(result)
-        harvest()
-        for task, member, vid in suspects:
-            fut = submit(task, [member], f"{task.task_id}-{vid}-alone")
-            try:
-                done(fut.result())
-            except Exception as exc:
-                report(fut.key, task, [vid], exc)
-            finally:
-                fut.release()
-    summary.timing = timing
-    return summary
 
 
 def format_summary(summary: RunSummary) -> str:
@@ -744,7 +730,8 @@ def terminate_as_interrupt() -> Iterator[None]:
 
 
 __all__ = [
-    "FAMILIES", "ResultsStoreError", "RunSummary", "VariantFailedError", "coefficient_task",
-    "default_cache", "default_results", "format_summary", "prepare", "run_study",
-    "series_task", "store_variables",
+    "ALLOWED_FAILURES", "FAMILIES", "Collector", "ResultsStoreError", "RunSummary",
+    "VariantFailedError", "coefficient_task", "dask_client", "default_cache", "default_results",
+    "format_summary", "is_loopback", "is_plain_link", "prepare", "run_study", "series_task",
+    "store_variables",
 ]
