@@ -25,6 +25,7 @@ import json
 import logging
 import os
 import signal
+import time
 from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
@@ -122,12 +123,14 @@ def _parse_address(text: str) -> str | None:
     return text
 
 
-def scheduler_address(scheduler: str) -> tuple[str, str]:
+def scheduler_address(scheduler: str, wait: float = 0.0) -> tuple[str, str]:
     """The address to join and where it came from (``"address"`` or the file's path).
 
     ``scheduler`` is a scheduler file when a file of that name exists or when it
     looks like a path (holds a path separator or ends in ``.json``) — then a
-    missing file is reported as such rather than as a malformed address.
+    missing file is reported as such rather than as a malformed address. A
+    missing file is waited for up to ``wait`` seconds (a batch job may start the
+    scheduler and the run together).
 
     Raises
     ------
@@ -139,9 +142,13 @@ def scheduler_address(scheduler: str) -> tuple[str, str]:
     looks_like_file = (os.sep in scheduler or scheduler.endswith(".json")) \
         and "://" not in scheduler
     if path.is_file() or looks_like_file:
+        deadline = time.monotonic() + wait
+        while not path.is_file() and time.monotonic() < deadline:
+            time.sleep(0.2)
         if not path.is_file():
-            raise SchedulerError(f"the scheduler file {scheduler} does not exist (a running "
-                                 "'dask scheduler --scheduler-file FILE' writes it)")
+            waited = f" after {wait:g} s" if wait else ""
+            raise SchedulerError(f"the scheduler file {scheduler} does not exist{waited} (a "
+                                 "running 'dask scheduler --scheduler-file FILE' writes it)")
         try:
             info = json.loads(path.read_text(encoding="utf-8"))
         except OSError as exc:
@@ -159,6 +166,24 @@ def scheduler_address(scheduler: str) -> tuple[str, str]:
         raise SchedulerError(f"--scheduler {scheduler}: neither a scheduler file nor an address "
                              "such as tcp://host:8786 or tls://host:8786")
     return scheduler, "address"
+
+
+def check_target(scheduler: str | None, tls: TlsFiles | None) -> None:
+    """Check ``--scheduler`` and the TLS files without connecting (fail before any work).
+
+    A scheduler file that does not exist yet passes: :func:`dask_client` waits
+    for it up to its time-out.
+    """
+    if tls is not None:
+        tls.check()
+    if not scheduler:
+        return
+    path = Path(scheduler).expanduser()
+    if not path.is_file() and (os.sep in scheduler or scheduler.endswith(".json")) \
+            and "://" not in scheduler:
+        return
+    address, _ = scheduler_address(scheduler)
+    _security(address, tls)
 
 
 def _security(address: str, tls: TlsFiles | None) -> Any:
@@ -219,6 +244,16 @@ def _children_ignore_sigint() -> Iterator[None]:
         signal.signal(signal.SIGINT, previous)
 
 
+def dask_setup(worker: Any) -> None:
+    """Worker preload of the local cluster: ignore SIGINT (see :func:`_children_ignore_sigint`).
+
+    Covers worker processes a nanny starts again later (after a worker died),
+    when the client process no longer ignores SIGINT.
+    """
+    with contextlib.suppress(ValueError):  # not the main thread: nothing to do
+        signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+
 @contextlib.contextmanager
 def dask_client(workers: int | None, scheduler: str | None, *,
                 connect_timeout: float = CONNECT_TIMEOUT,
@@ -245,7 +280,7 @@ def dask_client(workers: int | None, scheduler: str | None, *,
     from distributed import Client, LocalCluster
 
     if scheduler:
-        address, source = scheduler_address(scheduler)
+        address, source = scheduler_address(scheduler, wait=connect_timeout)
         security = _security(address, tls)
         if is_plain_link(address):
             origin = "" if source == "address" else f" (from the scheduler file {source})"
@@ -254,8 +289,7 @@ def dask_client(workers: int | None, scheduler: str | None, *,
                         "--tls-cert, --tls-key) or an SSH tunnel to a loopback port.",
                         address, origin)
         try:
-            client = Client(address, timeout=f"{connect_timeout}s", security=security,
-                            set_as_default=False)
+            client = Client(address, timeout=f"{connect_timeout}s", security=security)
         except (OSError, TimeoutError) as exc:
             text = str(exc).lower()
             hint = (" The TLS handshake failed: check the CA file and the client "
@@ -281,13 +315,14 @@ def dask_client(workers: int | None, scheduler: str | None, *,
         with _children_ignore_sigint():
             cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
                                    host="127.0.0.1", dashboard_address="127.0.0.1:0",
-                                   silence_logs=logging.CRITICAL)
-        with cluster, Client(cluster, set_as_default=False) as client:
+                                   silence_logs=logging.CRITICAL,
+                                   preload=["luxsweep.sweep.cluster"])
+        with cluster, Client(cluster) as client:
             client.luxsweep_dashboard = dashboard_link(client, local=True)
             yield client
 
 
 __all__ = [
-    "ALLOWED_FAILURES", "CONNECT_TIMEOUT", "TlsFiles", "dashboard_link", "dask_client",
-    "is_loopback", "is_plain_link", "scheduler_address",
+    "ALLOWED_FAILURES", "CONNECT_TIMEOUT", "TlsFiles", "check_target", "dashboard_link",
+    "dask_client", "is_loopback", "is_plain_link", "scheduler_address",
 ]

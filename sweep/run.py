@@ -53,6 +53,7 @@ from luxsweep.sweep.cluster import (
     ALLOWED_FAILURES,
     CONNECT_TIMEOUT,
     TlsFiles,
+    check_target,
     dask_client,
     is_loopback,
     is_plain_link,
@@ -487,6 +488,7 @@ def run_study(
         The scheduler cannot be found or reached (no store is created).
     """
     t_start = time.perf_counter()
+    check_target(scheduler, tls)
     plan, results, cache, done = prepare(study_path, out, cache_dir)
     n = len(plan.variants)
     for stale in results_store.remove_unfinished(results):
