@@ -271,3 +271,20 @@ def test_ctrl_c_prints_one_line_and_a_rerun_resumes(tmp_path):
     again = run_luxsweep(*argv, timeout=180)
     assert again.code == 0, again.text
     assert _done(tmp_path / "r.zarr").all()
+
+
+@pytest.mark.slow
+def test_dashboard_link_is_printed_when_the_scheduler_serves_one(tmp_path):
+    """With bokeh (the ``dashboard`` extra) the local cluster's scheduler serves the
+    dashboard and ``run`` prints its loopback link, which answers over HTTP."""
+    pytest.importorskip("bokeh")
+    import re
+    import urllib.request
+
+    from luxsweep.sweep.cluster import dask_client
+
+    with dask_client(1, None) as client:
+        link = client.luxsweep_dashboard
+        assert link and re.match(r"http://127\.0\.0\.1:\d+/status", link), link
+        with urllib.request.urlopen(link, timeout=30) as page:
+            assert page.status == 200
