@@ -207,20 +207,26 @@ def _security(address: str, tls: TlsFiles | None) -> Any:
     return None
 
 
-def _scheduler_has_bokeh() -> bool:
-    """Runs on the scheduler: whether it can serve its dashboard pages."""
-    return importlib.util.find_spec("bokeh") is not None
-
-
 def dashboard_link(client: Any, local: bool) -> str | None:
-    """The scheduler's dashboard address when it serves the dashboard, else None."""
+    """The scheduler's dashboard address when its page answers, else None.
+
+    A scheduler always runs an HTTP server (health and metrics pages) but serves
+    the dashboard only with bokeh installed there (otherwise its page is an
+    install hint) and without ``--no-dashboard``; the page itself is asked for
+    (3 s at most), so a link is printed only when it works from here.
+    """
+    import urllib.request
+
+    if local and importlib.util.find_spec("bokeh") is None:
+        return None
     try:
-        services = client.scheduler_info().get("services", {})
-        if "dashboard" not in services:
+        if "dashboard" not in client.scheduler_info().get("services", {}):
             return None
-        served = _scheduler_has_bokeh() if local else client.run_on_scheduler(
-            _scheduler_has_bokeh)
-        return client.dashboard_link if served else None
+        link = client.dashboard_link
+        with urllib.request.urlopen(link, timeout=3) as page:
+            # without bokeh the scheduler answers with an install hint instead
+            served = page.status == 200 and b"for the dashboard" not in page.read(4096)
+        return link if served else None
     except Exception:  # the link is a courtesy: never fail a run over it
         return None
 
@@ -292,14 +298,15 @@ def dask_client(workers: int | None, scheduler: str | None, *,
             client = Client(address, timeout=f"{connect_timeout}s", security=security)
         except (OSError, TimeoutError) as exc:
             text = str(exc).lower()
-            hint = (" The TLS handshake failed: check the CA file and the client "
-                    "certificate." if ("ssl" in text or "certificate" in text) else
-                    " Check that the scheduler is running and the address is right "
-                    "(--connect-timeout sets the wait).")
+            if "ssl" in text or "certificate" in text:
+                raise SchedulerError(f"the TLS handshake with the scheduler at {address} "
+                                     "failed: check the CA file and the client certificate "
+                                     "and key") from None
             raise SchedulerError(f"could not reach the scheduler at {address} within "
-                                 f"{connect_timeout:g} s.{hint}") from None
+                                 f"{connect_timeout:g} s. Check that the scheduler is running "
+                                 "and the address is right (--connect-timeout sets the "
+                                 "wait).") from None
         with client:
-            client.luxsweep_dashboard = dashboard_link(client, local=False)
             yield client
         return
     n = workers or os.cpu_count() or 1
@@ -318,7 +325,6 @@ def dask_client(workers: int | None, scheduler: str | None, *,
                                    silence_logs=logging.CRITICAL,
                                    preload=["luxsweep.sweep.cluster"])
         with cluster, Client(cluster) as client:
-            client.luxsweep_dashboard = dashboard_link(client, local=True)
             yield client
 
 

@@ -54,6 +54,7 @@ from luxsweep.sweep.cluster import (
     CONNECT_TIMEOUT,
     TlsFiles,
     check_target,
+    dashboard_link,
     dask_client,
     is_loopback,
     is_plain_link,
@@ -514,7 +515,7 @@ def run_study(
     with dask_client(workers, scheduler, connect_timeout=connect_timeout, tls=tls) as client:
         if done is None:  # only now that the cluster answers
             results_store.create_store(results, _layout(plan))
-        link = getattr(client, "luxsweep_dashboard", None)
+        link = dashboard_link(client, local=not scheduler)
         if link:
             log.info("dashboard: %s", link)
         cache.root.mkdir(parents=True, exist_ok=True)

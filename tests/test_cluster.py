@@ -45,7 +45,8 @@ def _tls_files(folder: Path) -> dict[str, Path]:
 
 
 @contextmanager
-def dask_cluster(folder: Path, tls: dict[str, Path] | None = None) -> Iterator[Path]:
+def dask_cluster(folder: Path, tls: dict[str, Path] | None = None,
+                 dashboard: bool = False) -> Iterator[Path]:
     """``dask scheduler`` and one ``dask worker --nthreads 1`` as processes on loopback;
     yields the scheduler file once the worker has joined."""
     sched_file = folder / "scheduler.json"
@@ -56,7 +57,9 @@ def dask_cluster(folder: Path, tls: dict[str, Path] | None = None) -> Iterator[P
     env = {**os.environ, "DASK_DISTRIBUTED__WORKER__DAEMON": "True"}
     scheduler = subprocess.Popen(
         [str(DASK), "scheduler", "--scheduler-file", str(sched_file), "--host", "127.0.0.1",
-         "--port", "0", "--no-dashboard", *(["--protocol", "tls"] if tls else []), *sec],
+         "--port", "0", *(["--dashboard-address", "127.0.0.1:0"] if dashboard else
+                          ["--no-dashboard"]),
+         *(["--protocol", "tls"] if tls else []), *sec],
         stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, env=env, start_new_session=True)
     procs = [scheduler]
     try:
@@ -219,11 +222,18 @@ def test_tls_cluster_runs_and_logs_progress(tmp_path):
     """A TLS scheduler and worker (processes): ``run --scheduler FILE --tls-*`` with
     stderr redirected completes every variant, prints paced plain progress lines
     and no plain-TCP warning; without the TLS options it stops with exit 2 and
-    no store."""
+    no store; certificates from another CA fail the handshake with a plain sentence."""
+    from luxsweep.sweep.cluster import dask_client
+
     files = _tls_files(tmp_path / "tls")
+    other = _tls_files(tmp_path / "other")
     study = write_tiny_study(tmp_path / "study", orientations=(180.0,), transmittances=(0.6,))
     with dask_cluster(tmp_path, files) as sched:
         assert json.loads(sched.read_text())["address"].startswith("tls://127.0.0.1:")
+        with pytest.raises(SchedulerError, match=r"TLS handshake .* failed"), \
+                dask_client(None, str(sched), connect_timeout=5,
+                            tls=TlsFiles(*(str(other[k]) for k in ("ca", "cert", "key")))):
+            pass
         res = run_luxsweep("run", study, "--out", tmp_path / "plain.zarr", "--cache",
                            tmp_path / "cache", "--scheduler", sched, "--connect-timeout", "2")
         assert res.code == 2 and "--tls-ca-file" in res.err, res.text
@@ -239,6 +249,7 @@ def test_tls_cluster_runs_and_logs_progress(tmp_path):
     assert len(lines) >= 2, res.err
     assert lines[-1].startswith("progress: coefficient sets 1/1, variants 2/2 (100 %)")
     assert "plain TCP" not in res.err
+    assert "dashboard:" not in res.err  # the scheduler ran with --no-dashboard
 
 
 @pytest.mark.slow
@@ -275,16 +286,21 @@ def test_ctrl_c_prints_one_line_and_a_rerun_resumes(tmp_path):
 
 @pytest.mark.slow
 def test_dashboard_link_is_printed_when_the_scheduler_serves_one(tmp_path):
-    """With bokeh (the ``dashboard`` extra) the local cluster's scheduler serves the
-    dashboard and ``run`` prints its loopback link, which answers over HTTP."""
+    """With bokeh (the ``dashboard`` extra) the local cluster's scheduler and a
+    ``dask scheduler`` process serve the dashboard: the link is found, and it
+    answers over HTTP."""
     pytest.importorskip("bokeh")
     import re
     import urllib.request
 
-    from luxsweep.sweep.cluster import dask_client
+    from luxsweep.sweep.cluster import dashboard_link, dask_client
 
     with dask_client(1, None) as client:
-        link = client.luxsweep_dashboard
+        link = dashboard_link(client, local=True)
         assert link and re.match(r"http://127\.0\.0\.1:\d+/status", link), link
         with urllib.request.urlopen(link, timeout=30) as page:
             assert page.status == 200
+    with dask_cluster(tmp_path, dashboard=True) as sched, \
+            dask_client(None, str(sched), connect_timeout=10) as client:
+        link = dashboard_link(client, local=False)
+        assert link and re.match(r"http://127\.0\.0\.1:\d+/status", link), link
