@@ -304,3 +304,23 @@ def test_dashboard_link_is_printed_when_the_scheduler_serves_one(tmp_path):
             dask_client(None, str(sched), connect_timeout=10) as client:
         link = dashboard_link(client, local=False)
         assert link and re.match(r"http://127\.0\.0\.1:\d+/status", link), link
+
+
+def test_paths_go_to_workers_as_given(tmp_path):
+    """A study folder, results store and cache reached through a symbolic link keep
+    the link's name (absolute, not resolved): a share mounted under that name on
+    the workers is found there."""
+    from luxsweep.sweep.run import prepare
+
+    real = tmp_path / "real"
+    write_tiny_study(real / "study")
+    link = tmp_path / "share"
+    link.symlink_to(real, target_is_directory=True)
+    plan, results, cache, done = prepare(link / "study" / "study.yaml", link / "r.zarr",
+                                         link / "cache")
+    assert done is None
+    assert results == link / "r.zarr" and cache.root == link / "cache"
+    assert plan.loaded.path == link / "study" / "study.yaml"
+    for path in plan.loaded.study.climates.values():
+        assert str(path).startswith(str(link / "study")), path
+    assert all(str(t.climate_file).startswith(str(link)) for t in plan.tasks)
