@@ -95,6 +95,9 @@ def build_parser() -> argparse.ArgumentParser:
                    help="join the Dask cluster at this address or scheduler file")
     p.add_argument("--cache", default=None, help="coefficient cache folder (default "
                    "$LUXSWEEP_CACHE or <study folder>/.luxsweep-cache)")
+    p.add_argument("--fresh", action="store_true",
+                   help="discard the existing results store (e.g. of an edited study) and "
+                   "start over")
     p.add_argument("--connect-timeout", type=_positive_float, default=10.0, metavar="SECONDS",
                    help="how long to wait for --scheduler to answer (default 10)")
     p.add_argument("--tls-ca-file", default=None, metavar="FILE",
@@ -212,7 +215,7 @@ def cmd_run(args: argparse.Namespace) -> int:
         summary = run_study(args.study, args.out, workers=args.workers,
                             scheduler=args.scheduler, cache_dir=args.cache,
                             connect_timeout=args.connect_timeout, tls=tls,
-                            progress_every=args.progress_every)
+                            progress_every=args.progress_every, fresh=args.fresh)
     print(format_summary(summary))
     return 0 if summary.ok else 1
 

@@ -36,6 +36,7 @@ import dataclasses
 import itertools
 import logging
 import os
+import shutil
 import signal
 import threading
 import time
@@ -405,12 +406,13 @@ def _inputs_record(plan: Plan) -> dict[str, Any]:
     return {"climates": climates, "compute": compute}
 
 
-def prepare(study_path: str | Path, out: str | Path | None, cache_dir: str | Path | None
-            ) -> tuple[Plan, Path, CoefficientCache, np.ndarray | None]:
+def prepare(study_path: str | Path, out: str | Path | None, cache_dir: str | Path | None,
+            *, fresh: bool = False) -> tuple[Plan, Path, CoefficientCache, np.ndarray | None]:
     """Validate everything and open the store (no cluster yet).
 
     Returns the plan, results path, cache and the ``done`` flags of an existing
-    store of this study (None for a new store).
+    store of this study (None for a new store, and with ``fresh``: the existing
+    store, which must be a luxsweep store, is then replaced by :func:`run_study`).
     """
     loaded = load_study(study_path)
     cache = CoefficientCache(cache_dir if cache_dir else default_cache(loaded))
@@ -418,7 +420,9 @@ def prepare(study_path: str | Path, out: str | Path | None, cache_dir: str | Pat
     # absolute but as given (no symlink resolution): workers open the same name
     results = Path(os.path.abspath(Path(out).expanduser())) if out else default_results(loaded)
     done = None
-    if results.exists():
+    if results.exists() and fresh:
+        results_store.read_attrs(results)  # refuses a folder that is not a results store
+    elif results.exists():
         sensor_vars, variant_vars = store_variables(list(plan.loaded.study.metrics))
         series = list(results_store.SERIES_VARIABLES) if plan.times is not None else []
         done = results_store.open_existing(results, plan.study_hash,
@@ -455,6 +459,7 @@ def run_study(
     connect_timeout: float = CONNECT_TIMEOUT,
     tls: TlsFiles | None = None,
     progress_every: float = PLAIN_EVERY,
+    fresh: bool = False,
 ) -> RunSummary:
     """Validate, plan and compute a study; resume an interrupted run of the same study.
 
@@ -478,6 +483,10 @@ def run_study(
         CA, certificate and key for a ``tls://`` scheduler.
     progress_every : float
         Interval of the plain progress lines [s].
+    fresh : bool
+        Discard an existing results store at ``out`` (saying so) and start over;
+        it must be a luxsweep results store. It is removed only once the cluster
+        answers, moved aside first so a run killed meanwhile leaves no half store.
 
     Raises
     ------
@@ -490,7 +499,8 @@ def run_study(
     """
     t_start = time.perf_counter()
     check_target(scheduler, tls)
-    plan, results, cache, done = prepare(study_path, out, cache_dir)
+    plan, results, cache, done = prepare(study_path, out, cache_dir, fresh=fresh)
+    discard = fresh and results.exists()
     n = len(plan.variants)
     for stale in results_store.remove_unfinished(results):
         log.info("removed %s, left by a run killed while creating the store", stale)
@@ -513,6 +523,8 @@ def run_study(
                      key=lambda j: -j.rays)
 
     with dask_client(workers, scheduler, connect_timeout=connect_timeout, tls=tls) as client:
+        if discard:
+            _discard_store(results, plan)
         if done is None:  # only now that the cluster answers
             results_store.create_store(results, _layout(plan))
         link = dashboard_link(client, local=not scheduler)
@@ -531,6 +543,18 @@ def run_study(
     results_store.consolidate(results)
     summary.seconds = time.perf_counter() - t_start
     return summary
+
+
+def _discard_store(results: Path, plan: Plan) -> None:
+    """Say why, then move the store aside (atomically) and delete it."""
+    same = results_store.read_attrs(results).get("study_hash") == plan.study_hash
+    why = ("it holds results of this study; starting over as asked" if same else
+           "it holds results of an earlier version of this study (or another study)")
+    log.warning("discarding the results store %s: %s", results, why)
+    aside = results.with_name(f"{results.name}{results_store.CREATING}discarded-"
+                              f"{os.getpid()}")
+    os.rename(results, aside)
+    shutil.rmtree(aside, ignore_errors=True)
 
 
 def _variant_ids(task: SeriesTask, todo: list[tuple[int, int, int]]) -> list[str]:

@@ -165,3 +165,28 @@ def test_output_and_store_paths_are_refused_in_plain_sentences(tmp_path, cli):
         result = cli("rank", store)
         assert result.code == 2 and words in result.err
         assert not re.search(r"\b[A-Z][a-z]+(Error|Exception)\b", result.err), result.err
+
+
+def test_run_fresh_discards_the_store_of_an_edited_study(tmp_path, cli):
+    import xarray as xr
+
+    study = write_tiny_study(tmp_path, orientations=(180.0,), climates=("coastal",),
+                             transmittances=(0.7,))
+    out, cache = tmp_path / "r.zarr", tmp_path / "cache"
+    assert cli("run", study, "--out", out, "--cache", cache, "--workers", "1").code == 0
+    study.write_text(study.read_text().replace("transmittance: [0.7]",
+                                               "transmittance: [0.7, 0.4]"))
+    refused = cli("run", study, "--out", out, "--cache", cache, "--workers", "1")
+    assert refused.code == 2 and "different study" in refused.err
+    fresh = cli("run", study, "--out", out, "--cache", cache, "--workers", "1", "--fresh")
+    assert fresh.code == 0, fresh.err
+    assert "discarding the results store" in fresh.err and "earlier version" in fresh.err
+    ds = xr.open_zarr(out)
+    assert ds.sizes["variant"] == 2 and bool(ds["done"].all())
+    assert not list(tmp_path.glob("r.zarr.creating-*"))
+    # never a folder that is not a results store
+    other = tmp_path / "photos"
+    other.mkdir()
+    (other / "keep.txt").write_text("mine")
+    result = cli("run", study, "--out", other, "--cache", cache, "--workers", "1", "--fresh")
+    assert result.code == 2 and (other / "keep.txt").read_text() == "mine"
