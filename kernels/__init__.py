@@ -4,4 +4,4 @@ Modules: climate, sun, sky, geometry, raytrace, glazing, transfer, coefficients,
 timeseries, metrics.
 """
 
-KERNEL_VERSION = "2"
+KERNEL_VERSION = "3"

@@ -68,32 +68,52 @@ from __future__ import annotations
 import functools
 import hashlib
 import json
-from dataclasses import asdict, dataclass, fields
+import math
+from dataclasses import asdict, dataclass, fields, replace
 from typing import Any
 
 import numpy as np
+import scipy.linalg
 
 from luxsweep import kernels
 from luxsweep.kernels.errors import GeometryError, InputError
-from luxsweep.kernels.sky import patch_scheme, sample_directions, sample_ground
+from luxsweep.kernels.sky import (
+    overcast_sky_vector,
+    patch_scheme,
+    sample_directions,
+    sample_ground,
+)
 from luxsweep.kernels.sun import DEFAULT_SPACING, SunPoints
 from luxsweep.kernels.transfer import (
+    factor_radiosity,
     gather_matrix,
-    gather_radiosity,
     mesh_elements,
     points_in_triangles,
     relative_transmit,
+    solve_factored,
     solve_radiosity,
     transfer_matrix,
 )
 
-__all__ = ["CoefficientSet", "Settings", "coefficient_key", "compute_coefficients"]
+__all__ = [
+    "CoefficientSet",
+    "Settings",
+    "coefficient_key",
+    "compute_coefficients",
+    "daylight_factor_error",
+]
 
 _RAYS_PER_BATCH = 1 << 20  # rays per ray-casting batch (bounds temporary memory)
 _INTERPOLATE_SENSORS = 16  # sensors per block of the sun_reflected interpolation
 MAX_EXTERIOR_ELEMENTS = 1500
 """Rough upper bound on the number of exterior elements (see ``_element_sizes``)."""
 _SENSOR_DECIMALS = 6  # sensor coordinates rounded to 1 µm in the key
+REPLICAS = 4
+"""Independent sub-samples (batch means) of every per-sensor Monte Carlo estimate."""
+_SENSOR_BLOCK = 256  # sensors gathered together by the reflected part (at most)
+_BASE_BYTES = 350 * 2**20  # interpreter, modules, scene, sun points: outside the budget
+_MIN_ELEMENTS = 64  # fewer interior elements than this cannot resolve a room
+_MAX_RAY_FACTOR = 64  # target_error never multiplies the ray counts by more
 
 # seed streams of the stages (fixed: changing them changes every result)
 _STREAM_SKY, _STREAM_GROUND, _STREAM_ELEMENT, _STREAM_SUNPOINT, _STREAM_SENSOR = range(5)
@@ -126,6 +146,21 @@ class Settings:
         computed before interpolation to the fine points (see module notes).
     seed : int
         Seed of every random draw.
+    max_elements : int
+        Element budget of the reflected part: when the room's surfaces at
+        ``element_size`` would give more elements, the interior element size
+        grows until they fit (see :func:`_element_sizes`). It bounds the time
+        and memory of the radiosity solve whatever the model.
+    memory_limit : float [GiB]
+        Bound on the peak memory of one computation: the element budget is
+        lowered until the working arrays fit beside the result arrays; a grid
+        whose result arrays alone do not fit is refused (split it).
+    target_error : float [-]
+        0 (off), or a target relative standard error of the daylight factor:
+        a first computation estimates the per-sensor error (see
+        :attr:`CoefficientSet.overcast_error`) and, when the 95th percentile
+        over the sensors exceeds the target, the sensor ray counts are scaled
+        by ``(error / target)²`` (at most 64×) and the set computed again.
 
     Notes
     -----
@@ -143,19 +178,26 @@ class Settings:
     sensor_rays: int = 4096
     reflected_sun_spacing: float = 3.0
     seed: int = 0
+    max_elements: int = 3000
+    memory_limit: float = 2.0
+    target_error: float = 0.0
 
     def __post_init__(self) -> None:
         for name in ("subdivision", "sky_rays_per_patch", "ground_rays", "element_rays",
-                     "sensor_rays"):
+                     "sensor_rays", "max_elements"):
             value = getattr(self, name)
             if not isinstance(value, int | np.integer) or value < 1:
                 raise InputError(f"{name} must be a positive integer, got {value!r}",
                                  field=f"settings.{name}")
-        for name in ("sun_spacing", "element_size", "reflected_sun_spacing"):
+        for name in ("sun_spacing", "element_size", "reflected_sun_spacing", "memory_limit"):
             value = getattr(self, name)
             if not np.isfinite(value) or value <= 0:
                 raise InputError(f"{name} must be a positive number, got {value!r}",
                                  field=f"settings.{name}")
+        if not (np.isfinite(self.target_error) and 0.0 <= self.target_error < 1.0):
+            raise InputError(
+                f"target_error must be a relative standard error in [0, 1) (0: off), got "
+                f"{self.target_error!r}", field="settings.target_error")
 
     def canonical(self) -> dict[str, Any]:
         """JSON-able dict of the settings (for keys and metadata)."""
@@ -187,6 +229,18 @@ class CoefficientSet:
         ``E = Σ_k C_k w_k E_dn`` [lx per lx].
     settings : Settings
     kernel_version : str
+    overcast_error : ndarray (n_sets, n_sensors, 3) float32
+        Sampling error of the CIE overcast sky's coefficient sums, from
+        :data:`REPLICAS` independent sub-samples of every sensor's rays (sky
+        and ground rays of ``sky_direct``, gather rays of the reflected part):
+        with ``a = C · v₀`` (``v₀`` = :func:`kernels.sky.overcast_sky_vector`
+        with a black ground) and ``b = C_ground · 2`` (the ground entry per unit
+        ground reflectance), the variances and covariance of their estimates,
+        ``(Var a, Cov(a, b), Var b)`` [(lx/lx)²]; the daylight factor's
+        standard error is ``100 τ sqrt(Var a + 2 ρ_g Cov + ρ_g² Var b)``
+        (:func:`kernels.timeseries.daylight_factor_error`). The element
+        transfer's own noise (shared by neighbouring sensors) is not in it.
+        NaN where a ray count is not a multiple of 2 (no sub-samples).
     """
 
     key: str
@@ -200,9 +254,10 @@ class CoefficientSet:
     sun_reflected: np.ndarray
     settings: Settings
     kernel_version: str
+    overcast_error: np.ndarray
 
     _ARRAYS = ("sensors", "sun_directions", "sky_direct", "sky_reflected", "sun_direct",
-               "sun_reflected")
+               "sun_reflected", "overcast_error")
 
     def to_arrays(self) -> dict[str, np.ndarray]:
         """The arrays, by name (what a cache stores next to :meth:`metadata`)."""
@@ -249,6 +304,7 @@ class CoefficientSet:
             sun_reflected=np.asarray(arrays["sun_reflected"], dtype=np.float32),
             settings=Settings(**metadata["settings"]),
             kernel_version=str(metadata["kernel_version"]),
+            overcast_error=np.asarray(arrays["overcast_error"], dtype=np.float32),
         )
 
     @property
@@ -389,15 +445,21 @@ def _patch_reach(scheme: Any) -> np.ndarray:
     return np.sqrt(np.clip(1.0 - cos_r * cos_r, 0.0, 1.0)) + 1e-9
 
 
-def _sky_blocks(scene: Any, sensors: np.ndarray, owner: np.ndarray, basis: np.ndarray,
-                blocks: np.ndarray, wedges: np.ndarray | None, panes: tuple[int, ...],
-                shape: tuple[int, int, int]) -> np.ndarray:
-    """Sum of τ_rel n·d over rays that reach the sky through glazing, (n_sets, n_s, n_basis).
+def _replicas(rays: int) -> int:
+    """Sub-samples of a ray count: :data:`REPLICAS`, or fewer when it does not divide it."""
+    return math.gcd(int(rays), REPLICAS)
+
+
+def _sky_blocks(scene: Any, sensors: np.ndarray, owner: np.ndarray, rows: np.ndarray,
+                basis: np.ndarray, blocks: np.ndarray, wedges: np.ndarray | None,
+                panes: tuple[int, ...], shape: tuple[int, int, int]) -> np.ndarray:
+    """Sums of τ_rel n·d over rays reaching the sky through glazing, (n_sets, rows, n_basis).
 
     ``blocks`` (k, m, 3) holds m unit directions from sensor ``owner[k]`` into
-    basis entry ``basis[k]``; ``wedges`` the window wedges of the owners.
-    Rays with ``n·d <= 0`` or outside every window are settled here; the
-    others go to :meth:`kernels.raytrace.Scene.exit_glazing`.
+    basis entry ``basis[k]``, summed into output row ``rows[k]``; ``wedges``
+    the window wedges of the owners. Rays with ``n·d <= 0`` or outside every
+    window are settled here; the others go to
+    :meth:`kernels.raytrace.Scene.exit_glazing`.
     """
     cos = np.matmul(blocks, sensors[owner, 3:, None])[..., 0]
     may = _window_mask(wedges, lambda a: np.matmul(blocks, a[:, :, None])[..., 0])
@@ -407,29 +469,42 @@ def _sky_blocks(scene: Any, sensors: np.ndarray, owner: np.ndarray, basis: np.nd
     ok = np.flatnonzero(gset >= 0)
     b, r, g = b[ok], r[ok], gset[ok]
     tau = relative_transmit(cos_w[ok], g, panes)
-    flat = (g.astype(np.int64) * shape[1] + owner[b]) * shape[2] + basis[b]
+    flat = (g.astype(np.int64) * shape[1] + rows[b]) * shape[2] + basis[b]
     return np.bincount(flat, weights=tau * cos[b, r], minlength=int(np.prod(shape))
                        ).reshape(shape)
 
 
 def _sensor_sky_direct(scene: Any, sensors: np.ndarray, scheme: Any, settings: Settings,
-                       panes: tuple[int, ...]) -> np.ndarray:
-    """``sky_direct`` (n_sets, n_sensors, n_basis) float64.
+                       panes: tuple[int, ...]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """``sky_direct`` (n_sets, n_sensors, n_basis) float64 and its sub-sample scatter.
 
-    Whole patches that face away from a sensor or lie outside every window
+    Every sensor's rays of a patch (and of the ground) are drawn as
+    :func:`_replicas` independent stratified sub-samples (seeds
+    ``(seed, stream, sensor, replica)``); the coefficient is their mean. Whole
+    patches that face away from a sensor or lie outside every window
     (:func:`_patch_reach`, :func:`_window_mask`) are settled without looking
     at their rays; the rays of the other patches and of the ground go to
     :func:`_sky_blocks`.
+
+    Returns
+    -------
+    sky_direct : ndarray (n_sets, n_sensors, n_basis)
+    var_sky, var_ground : ndarray (n_sets, n_sensors)
+        Variance of the estimates of ``C_sky · v₀`` and of the ground entry
+        (batch means: sample variance of the sub-sample values / their number;
+        NaN with a single sub-sample).
     """
     n_s, n_sets, n_p = sensors.shape[0], len(panes), scheme.n_patches
-    rpp = settings.sky_rays_per_patch
-    shape = (n_sets, n_s, n_p + 1)
-    out = np.zeros(shape)
+    k_sky, k_ground = _replicas(settings.sky_rays_per_patch), _replicas(settings.ground_rays)
+    rpp, n_ground = settings.sky_rays_per_patch // k_sky, settings.ground_rays // k_ground
+    v0 = overcast_sky_vector(scheme, 0.0)[:n_p]
+    out = np.zeros((n_sets, n_s, n_p + 1))
+    var_sky, var_ground = np.zeros((n_sets, n_s)), np.zeros((n_sets, n_s))
     # sup of n·d over the upper (lower) hemisphere is |n_horizontal| unless n_z > 0 (< 0)
     tilt = np.hypot(sensors[:, 3], sensors[:, 4]) > 0.0
     sees_sky, sees_ground = tilt | (sensors[:, 5] > 0.0), tilt | (sensors[:, 5] < 0.0)
     reach = _patch_reach(scheme)
-    chunk = max(1, _RAYS_PER_BATCH // (n_p * rpp + settings.ground_rays))
+    chunk = max(1, _RAYS_PER_BATCH // (n_p * settings.sky_rays_per_patch + settings.ground_rays))
     for start in range(0, n_s, chunk):
         idx = np.arange(start, min(start + chunk, n_s))
         wedges = _window_wedges(scene, sensors[idx, :3])
@@ -437,26 +512,45 @@ def _sensor_sky_direct(scene: Any, sensors: np.ndarray, scheme: Any, settings: S
         may = _window_mask(wedges, lambda a: a @ scheme.centres.T, reach)
         if may is not None:
             keep &= may
-        owner, patch, parts = [], [], []
+        owner, row, patch, parts = [], [], [], []
         for i in np.flatnonzero(keep.any(axis=1)):
             s = idx[i]
             kept = np.flatnonzero(keep[i])
-            parts.append(sample_directions(scheme, rpp, _seed(settings, _STREAM_SKY, s),
-                                           patches=kept))
-            owner.append(np.full(kept.size, s))
-            patch.append(kept)
+            for r in range(k_sky):
+                parts.append(sample_directions(scheme, rpp, _seed(settings, _STREAM_SKY, s, r),
+                                               patches=kept))
+                owner.append(np.full(kept.size, s))
+                row.append(np.full(kept.size, i * k_sky + r))
+                patch.append(kept)
         if parts:
             c = np.concatenate(owner)
-            out += _sky_blocks(scene, sensors, c, np.concatenate(patch), np.concatenate(parts),
-                               None if wedges is None else wedges[c - start], panes, shape)
+            sums = _sky_blocks(scene, sensors, c, np.concatenate(row), np.concatenate(patch),
+                               np.concatenate(parts), None if wedges is None else wedges[c - start],
+                               panes, (n_sets, idx.size * k_sky, n_p + 1))
+            sub = sums.reshape(n_sets, idx.size, k_sky, n_p + 1) / rpp
+            out[:, idx] += sub.mean(axis=2)
+            var_sky[:, idx] = _mean_variance(sub[..., :n_p] @ v0)
         ground = idx[sees_ground[idx]]
         if ground.size:
-            blocks = np.stack([sample_ground(settings.ground_rays,
-                                             _seed(settings, _STREAM_GROUND, s)) for s in ground])
-            out += _sky_blocks(scene, sensors, ground, np.full(ground.size, n_p), blocks,
-                               None if wedges is None else wedges[ground - start], panes, shape)
-    counts = np.append(np.full(n_p, float(rpp)), float(settings.ground_rays))
-    return out / counts
+            blocks = np.stack([sample_ground(n_ground, _seed(settings, _STREAM_GROUND, s, r))
+                               for s in ground for r in range(k_ground)])
+            owner = np.repeat(ground, k_ground)
+            sums = _sky_blocks(scene, sensors, owner, np.arange(owner.size),
+                               np.full(owner.size, n_p), blocks,
+                               None if wedges is None else wedges[owner - start], panes,
+                               (n_sets, owner.size, n_p + 1))
+            sub = sums[..., n_p].reshape(n_sets, ground.size, k_ground) / n_ground
+            out[:, ground, n_p] = sub.mean(axis=2)
+            var_ground[:, ground] = _mean_variance(sub)
+    return out, var_sky, var_ground
+
+
+def _mean_variance(sub: np.ndarray) -> np.ndarray:
+    """Variance of the mean of sub-samples along the last axis (NaN for one sub-sample)."""
+    k = sub.shape[-1]
+    if k < 2:
+        return np.full(sub.shape[:-1], np.nan)
+    return sub.var(axis=-1, ddof=1) / k
 
 
 def _sun_direct(scene: Any, points: np.ndarray, normals: np.ndarray, exterior: np.ndarray,
@@ -499,61 +593,191 @@ def _sun_direct(scene: Any, points: np.ndarray, normals: np.ndarray, exterior: n
     return out
 
 
-def _element_sizes(geometry: Any, active: np.ndarray, element_size: float) -> np.ndarray:
-    """Element size of every triangle: ``element_size`` inside, coarser outside.
+def _triangle_sizes(geometry: Any) -> np.ndarray:
+    """The size :func:`kernels.transfer.mesh_elements` divides by ``element_size`` [m]."""
+    tri = geometry.triangles
+    edges = np.linalg.norm(tri - np.roll(tri, -1, axis=1), axis=2).max(axis=1)
+    return np.maximum(np.sqrt(2.0 * geometry.areas), 0.5 * edges)
+
+
+def _element_count(sizes: np.ndarray, element_size: float) -> int:
+    """Elements :func:`kernels.transfer.mesh_elements` cuts from triangles of these sizes."""
+    m = np.maximum(np.ceil(sizes / element_size - 1e-9), 1)
+    return int((m * m).sum())
+
+
+def _element_budget(settings: Settings, n_sources: int, n_sets: int, n_sensors: int,
+                    n_fine_sun: int, n_basis: int) -> int:
+    """Most elements whose working arrays fit in ``settings.memory_limit`` beside the results.
+
+    Working memory in bytes for ``N`` elements: ``8 N² (3 + n_sets)`` (dense
+    transfer, LU factors, one more copy, the through-window matrices) plus
+    ``N (8 n_src (2 n_sets + 3) + 32 element_rays)`` (sources, radiosities,
+    ray tallies); the result arrays (float32) and :data:`_BASE_BYTES` come off
+    the limit first. At most ``settings.max_elements``.
+
+    Raises
+    ------
+    InputError
+        When the result arrays alone leave no room for :data:`_MIN_ELEMENTS`.
+    """
+    results = 4 * n_sets * n_sensors * (2 * n_basis + 2 * n_fine_sun)
+    results += 16 * n_sets * n_sensors * n_basis  # sky_direct in float64 and its sums
+    blocks = 8 * _SENSOR_BLOCK * REPLICAS * (n_sources + settings.max_elements) * (1 + n_sets)
+    avail = settings.memory_limit * 2**30 - results - _BASE_BYTES - blocks
+    q = 8.0 * (3 + n_sets)
+    lin = 8.0 * n_sources * (2 * n_sets + 3) + 32.0 * settings.element_rays
+    n_max = int((-lin + np.sqrt(lin * lin + 4.0 * q * max(avail, 0.0))) / (2.0 * q))
+    if n_max < _MIN_ELEMENTS:
+        raise InputError(
+            f"memory_limit {settings.memory_limit} GiB is too small for {n_sensors} sensors: "
+            f"their coefficient arrays alone take {results / 2**30:.2f} GiB; split the sensor "
+            f"grid or raise memory_limit", field="settings.memory_limit")
+    return min(settings.max_elements, n_max)
+
+
+def _element_sizes(geometry: Any, active: np.ndarray, element_size: float,
+                   budget: int | None = None) -> np.ndarray:
+    """Element size of every triangle: ``element_size`` inside (within a budget), coarser outside.
 
     Exterior surfaces (obstructions, overhangs, outer faces) light the room only
     through its windows, from a distance, so they are meshed at twice the
     interior size, and coarser still when they are large, so that there are
     about :data:`MAX_EXTERIOR_ELEMENTS` of them at most (a 40 m neighbour would
     otherwise bring tens of thousands of elements and a dense solve of that size).
+    With a ``budget`` of elements, the interior size grows from ``element_size``
+    until the interior and exterior elements together fit in it (the exterior
+    ones counted first): the element size is chosen from the accuracy it buys
+    (module notes), which bounds the solve's time and memory whatever the model.
     """
     outside = active & geometry.exterior
+    inside = active & ~geometry.exterior
     area = float(geometry.areas[outside].sum())
     coarse = max(2.0 * element_size, float(np.sqrt(2.0 * area / MAX_EXTERIOR_ELEMENTS)))
+    if budget is not None:
+        sizes = _triangle_sizes(geometry)
+        n_out = _element_count(sizes[outside], coarse)
+        room = max(budget - n_out, _MIN_ELEMENTS)
+        count = _element_count(sizes[inside], element_size)
+        while count > room:
+            element_size *= max(float(np.sqrt(count / room)), 1.001)
+            count = _element_count(sizes[inside], element_size)
     return np.where(geometry.exterior, coarse, element_size)
 
 
+def _interpolate_sun(coarse: np.ndarray, index: np.ndarray, weight: np.ndarray,
+                     out: np.ndarray) -> None:
+    """Barycentric interpolation of (…, n_sensors, n_coarse) onto the fine sun points, in blocks."""
+    for first in range(0, coarse.shape[-2], _INTERPOLATE_SENSORS):
+        part = slice(first, first + _INTERPOLATE_SENSORS)
+        out[..., part, :] = sum(coarse[..., part, :][..., index[:, m]] * weight[:, m]
+                                for m in range(3))
+
+
 def _reflected(scene: Any, geometry: Any, sensors: np.ndarray, settings: Settings,
-               scheme: Any, coarse_sun: np.ndarray, panes: tuple[int, ...]) -> np.ndarray:
-    """Reflected coefficients (n_sets, n_sensors, n_basis + n_coarse_sun) float64."""
-    n_sets, n_basis = len(panes), scheme.n_patches + 1
-    out = np.zeros((n_sets, sensors.shape[0], n_basis + coarse_sun.shape[0]))
+               scheme: Any, sun: tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray],
+               panes: tuple[int, ...]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Reflected coefficients and the sub-sample scatter of their gather.
+
+    Radiosity on an element budget (module notes): the elements' transfer
+    ``F`` and first-hit sources ``S`` are sampled, the system
+    ``(I - diag(ρ) F) B = diag(ρ) S`` is factored once (dense LU of at most
+    ``max_elements`` unknowns) and solved for every source column of every
+    glazing set; the sensors then gather ``E = G B`` block by block
+    (:data:`_SENSOR_BLOCK` sensors, each with :data:`REPLICAS` sub-samples of
+    its gather rays), so the sensor part costs a fixed amount per sensor.
+
+    Returns
+    -------
+    sky_reflected : ndarray (n_sets, n_sensors, n_basis) float32
+    sun_reflected : ndarray (n_sets, n_sensors, n_fine_sun) float32
+    scatter : ndarray (n_sets, n_sensors, 3) float64
+        ``(Var a, Cov(a, b), Var b)`` of the gather's estimates of the
+        overcast sums (:attr:`CoefficientSet.overcast_error`).
+    """
+    fine, coarse_sun, index, weight = sun
+    n_s, n_sets, n_basis = sensors.shape[0], len(panes), scheme.n_patches + 1
+    sky_out = np.zeros((n_sets, n_s, n_basis), dtype=np.float32)
+    sun_out = np.zeros((n_sets, n_s, fine.shape[0]), dtype=np.float32)
+    scatter = np.zeros((n_sets, n_s, 3))
     active = ~geometry.is_glazing & (geometry.reflectance > 0.0)
     if n_sets == 0 or not np.any(active):
-        return out
+        return sky_out, sun_out, scatter
+    n_src = n_basis + coarse_sun.shape[0]
+    budget = _element_budget(settings, n_src, n_sets, n_s, fine.shape[0], n_basis)
     el = mesh_elements(geometry.triangles, geometry.reflectance, geometry.exterior,
-                       _element_sizes(geometry, active, settings.element_size), mask=active)
+                       _element_sizes(geometry, active, settings.element_size, budget),
+                       mask=active)
     tr = transfer_matrix(scene, el, settings.element_rays, _rng(settings, _STREAM_ELEMENT),
                          panes, scheme, batch=_RAYS_PER_BATCH)
     r1, r2 = _rng(settings, _STREAM_SUNPOINT).random((2, el.n, 1))
     points = scene.lift(points_in_triangles(el.vertices, r1, r2)[:, 0], el.normal)
     s_sun = _sun_direct(scene, points, el.normal, el.exterior, coarse_sun, panes)
-    g_same, g_through = gather_matrix(scene, el, sensors[:, :3], sensors[:, 3:],
-                                      settings.sensor_rays, _rng(settings, _STREAM_SENSOR),
-                                      panes)
-    f_same, f_through, s_sky_int, s_sky_ext = tr.same, tr.through, tr.sky_interior, tr.sky_exterior
 
     inner, outer = np.flatnonzero(~el.exterior), np.flatnonzero(el.exterior)
     rho = el.reflectance
-    if outer.size:
-        source_ext = np.concatenate([s_sky_ext[outer], s_sun[n_sets][outer]], axis=1)
-        b_ext = solve_radiosity(f_same[outer][:, outer], rho[outer], source_ext)
     everything = inner.size == el.n  # no exterior elements: no selections to copy
-    if everything:
-        response = gather_radiosity(g_same, f_same, rho)
-    else:
-        response = gather_radiosity(g_same[:, inner], f_same[inner][:, inner], rho[inner])
+    f_same = np.asarray(tr.same.toarray() if hasattr(tr.same, "toarray") else tr.same)
+    b_ext = None
+    if outer.size:
+        source_ext = np.concatenate([tr.sky_exterior[outer], s_sun[n_sets][outer]], axis=1)
+        b_ext = solve_radiosity(f_same[outer][:, outer], rho[outer], source_ext)
+    lu = factor_radiosity(f_same if everything else f_same[inner][:, inner], rho[inner])
+    del f_same
+    overcast = np.stack([overcast_sky_vector(scheme, 0.0),
+                         overcast_sky_vector(scheme, 1.0) - overcast_sky_vector(scheme, 0.0)],
+                        axis=1)  # (n_basis, 2): black-ground sky and ground per unit ρ_g
+    # forward (B = M⁻¹ ρ S, then G B) costs N² n_src once; adjoint (G M⁻¹ ρ, then times S)
+    # N² per sensor: whichever is smaller (both a fixed cost per sensor on the budget)
+    adjoint = n_s < n_src
+    solved, solved_overcast = [], []
     for g in range(n_sets):
-        through = f_through[g][inner][:, outer] @ b_ext if outer.size else None
-        for cols, first in ((slice(0, n_basis), s_sky_int[g]), (slice(n_basis, None), s_sun[g])):
-            source = first if everything else first[inner]
-            if through is not None:
-                source = source + through[:, cols]
-            out[g][:, cols] = response @ source
-        if outer.size:
-            out[g] += g_through[g][:, outer] @ b_ext
-    return out
+        source = np.concatenate([tr.sky_interior[g], s_sun[g]], axis=1)
+        source = source if everything else source[inner]
+        if b_ext is not None:
+            source += tr.through[g][inner][:, outer] @ b_ext
+        solved_overcast.append(solve_factored(lu, rho[inner], source[:, :n_basis] @ overcast))
+        solved.append(source if adjoint else solve_factored(lu, rho[inner], source))
+    del tr, s_sun, source
+    ext_overcast = None if b_ext is None else b_ext[:, :n_basis] @ overcast
+    k = _replicas(settings.sensor_rays)
+    for block, first in enumerate(range(0, n_s, _SENSOR_BLOCK)):
+        part = slice(first, min(first + _SENSOR_BLOCK, n_s))
+        b = part.stop - part.start
+        g_same, g_through = gather_matrix(scene, el, sensors[part, :3], sensors[part, 3:],
+                                          settings.sensor_rays,
+                                          _rng(settings, _STREAM_SENSOR, block), panes,
+                                          replicas=k)
+        sub = _dense(g_same).reshape(b, k, el.n)[:, :, inner]
+        gather = sub.mean(axis=1)
+        if adjoint:  # G M⁻¹ ρ = (M⁻ᵀ Gᵀ)ᵀ ρ
+            gather = scipy.linalg.lu_solve(lu, np.ascontiguousarray(gather.T), trans=1,
+                                           check_finite=False).T * rho[inner]
+        for g in range(n_sets):
+            values = gather @ solved[g]
+            proj = sub @ solved_overcast[g]  # (b, k, 2)
+            if b_ext is not None:
+                seen = _dense(g_through[g]).reshape(b, k, el.n)[:, :, outer]
+                values += seen.mean(axis=1) @ b_ext
+                proj += seen @ ext_overcast
+            sky_out[g, part] = values[:, :n_basis]
+            _interpolate_sun(values[:, n_basis:], index, weight, sun_out[g, part])
+            scatter[g, part] = _covariance(proj)
+    return sky_out, sun_out, scatter
+
+
+def _dense(matrix: Any) -> np.ndarray:
+    return np.asarray(matrix.toarray() if hasattr(matrix, "toarray") else matrix)
+
+
+def _covariance(proj: np.ndarray) -> np.ndarray:
+    """``(Var a, Cov(a, b), Var b)`` of the means of sub-samples ``proj`` (…, k, 2)."""
+    k = proj.shape[-2]
+    if k < 2:
+        return np.full((*proj.shape[:-2], 3), np.nan)
+    d = proj - proj.mean(axis=-2, keepdims=True)
+    c = np.einsum("...ki,...kj->...ij", d, d) / ((k - 1) * k)
+    return np.stack([c[..., 0, 0], c[..., 0, 1], c[..., 1, 1]], axis=-1)
 
 
 # ---------------------------------------------------------------------------
@@ -609,46 +833,116 @@ def compute_coefficients(geometry: Any, sensors: np.ndarray,
     sensors : ndarray (n, 6)
         x, y, z [m], nx, ny, nz (normals need not be unit length).
     settings : Settings, optional
+        With ``target_error`` > 0 the sensor ray counts are chosen from a first
+        computation's error estimate (:class:`Settings`); the set keeps the
+        requested settings (and key).
 
     Returns
     -------
     CoefficientSet
     """
-    from luxsweep.kernels.raytrace import Scene
-
     settings = settings or Settings()
     sensors = _check_sensors(sensors)
     key = coefficient_key(geometry, sensors, settings)
+    coeffs = _compute(geometry, sensors, settings, key, settings)
+    if settings.target_error > 0.0:
+        factor = _ray_factor(coeffs, settings.target_error)
+        if factor > 1.0:
+            coeffs = _compute(geometry, sensors, _scaled_rays(settings, factor), key, settings)
+    return coeffs
+
+
+def _ray_factor(coeffs: CoefficientSet, target: float) -> float:
+    """Ray-count multiplier that brings the 95th-percentile relative error to ``target``.
+
+    Relative error of the daylight factor under the CIE overcast sky with a
+    ground reflectance of 0.2 (common practice), one glazing set at a time;
+    sensors with no daylight at all are left out. Batch-mean variances fall
+    as 1 / rays, so the standard error falls as 1 / sqrt(rays).
+    """
+    v = overcast_sky_vector(patch_scheme(coeffs.subdivision), 0.2)
+    value = np.einsum("gsj,j->gs", coeffs.sky_direct.astype(np.float64)
+                      + coeffs.sky_reflected.astype(np.float64), v)
+    error = daylight_factor_error(coeffs, 0.2, np.eye(len(coeffs.glazing_sets)))
+    lit = value > 0.0
+    if not np.any(lit):
+        return 1.0
+    relative = error[lit] / (100.0 * value[lit])
+    if np.any(np.isnan(relative)):
+        raise InputError("target_error needs ray counts that are multiples of 2 (sub-samples)",
+                         field="settings.target_error")
+    worst = float(np.percentile(relative, 95.0))
+    return min(float((worst / target) ** 2), float(_MAX_RAY_FACTOR))
+
+
+def _scaled_rays(settings: Settings, factor: float) -> Settings:
+    """Settings with the per-sensor ray counts multiplied by ``factor`` (multiples of REPLICAS)."""
+    def scaled(n: int) -> int:
+        return int(REPLICAS * math.ceil(n * factor / REPLICAS))
+    return replace(settings, sky_rays_per_patch=scaled(settings.sky_rays_per_patch),
+                   ground_rays=scaled(settings.ground_rays),
+                   sensor_rays=scaled(settings.sensor_rays))
+
+
+def _compute(geometry: Any, sensors: np.ndarray, settings: Settings, key: str,
+             requested: Settings) -> CoefficientSet:
+    """The four families with these settings (``requested`` is recorded in the set)."""
+    from luxsweep.kernels.raytrace import Scene
+
     scheme = patch_scheme(settings.subdivision)
-    fine, coarse, index, weight = _sun_points(
-        float(settings.sun_spacing),
-        float(max(settings.reflected_sun_spacing, settings.sun_spacing)))
+    sun = _sun_points(float(settings.sun_spacing),
+                      float(max(settings.reflected_sun_spacing, settings.sun_spacing)))
     scene = Scene(geometry)
     panes = tuple(int(p) for p in geometry.set_panes)
-    n_sets, n_basis = len(panes), scheme.n_patches + 1
 
-    sky_direct = _sensor_sky_direct(scene, sensors, scheme, settings, panes)
+    sky_direct, var_sky, var_ground = _sensor_sky_direct(scene, sensors, scheme, settings, panes)
     inside = np.zeros(sensors.shape[0], dtype=bool)
-    sun_direct = _sun_direct(scene, sensors[:, :3], sensors[:, 3:], inside, fine, panes,
+    sun_direct = _sun_direct(scene, sensors[:, :3], sensors[:, 3:], inside, sun[0], panes,
                              np.float32)
-    reflected = _reflected(scene, geometry, sensors, settings, scheme, coarse, panes)
-    # barycentric interpolation onto the fine sun points, a few sensors at a time
-    sun_coarse = reflected[:, :, n_basis:]
-    sun_reflected = np.empty((n_sets, sensors.shape[0], index.shape[0]), dtype=np.float32)
-    for first in range(0, sensors.shape[0], _INTERPOLATE_SENSORS):
-        part = slice(first, first + _INTERPOLATE_SENSORS)
-        sun_reflected[:, part] = sum(sun_coarse[:, part][:, :, index[:, m]] * weight[:, m]
-                                     for m in range(3))
+    sky_reflected, sun_reflected, scatter = _reflected(scene, geometry, sensors, settings,
+                                                       scheme, sun, panes)
+    # direct sky, direct ground and gather rays are independent: variances add
+    ground_unit = overcast_sky_vector(scheme, 1.0)[-1]
+    scatter[..., 0] += var_sky
+    scatter[..., 2] += var_ground * ground_unit**2
     return CoefficientSet(
         key=key,
         glazing_sets=tuple(geometry.glazing_sets),
         sensors=sensors,
         subdivision=scheme.subdivision,
-        sun_directions=fine.copy(),
+        sun_directions=sun[0].copy(),
         sky_direct=sky_direct.astype(np.float32),
-        sky_reflected=reflected[:, :, :n_basis].astype(np.float32),
+        sky_reflected=sky_reflected,
         sun_direct=sun_direct,
         sun_reflected=sun_reflected,
-        settings=settings,
+        settings=requested,
         kernel_version=kernels.KERNEL_VERSION,
+        overcast_error=scatter.astype(np.float32),
     )
+
+
+def daylight_factor_error(coeffs: CoefficientSet, ground_reflectance: float,
+                          transmittances: np.ndarray) -> np.ndarray:
+    """Standard error of the daylight factor from the sampling of the sensors' rays.
+
+    Parameters
+    ----------
+    coeffs : CoefficientSet
+    ground_reflectance : float [-]
+        ρ_g of the uniform ground (as in :func:`kernels.sky.overcast_sky_vector`).
+    transmittances : ndarray (n_glazing_variants, n_sets)
+        Normal transmittance of each glazing set per variant.
+
+    Returns
+    -------
+    ndarray (n_glazing_variants, n_sensors) [%]
+        ``100 Σ_g τ_g sqrt(Var a_g + 2 ρ_g Cov(a_g, b_g) + ρ_g² Var b_g)``
+        (:attr:`CoefficientSet.overcast_error`): exact for one glazing set; for
+        several, whose estimates share the sensors' rays, the sum of the
+        per-set errors is an upper bound (Minkowski's inequality), never an
+        underestimate. NaN where it was not estimated.
+    """
+    c = coeffs.overcast_error.astype(np.float64)
+    rho = float(ground_reflectance)
+    per_set = np.sqrt(np.maximum(c[..., 0] + 2.0 * rho * c[..., 1] + rho * rho * c[..., 2], 0.0))
+    return 100.0 * np.asarray(transmittances, dtype=np.float64) @ per_set
