@@ -676,7 +676,7 @@ def _interpolate_sun(coarse: np.ndarray, index: np.ndarray, weight: np.ndarray,
 
 def _reflected(scene: Any, geometry: Any, sensors: np.ndarray, settings: Settings,
                scheme: Any, sun: tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray],
-               panes: tuple[int, ...]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+               panes: tuple[int, ...], budget: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Reflected coefficients and the sub-sample scatter of their gather.
 
     Radiosity on an element budget (module notes): the elements' transfer
@@ -704,7 +704,6 @@ def _reflected(scene: Any, geometry: Any, sensors: np.ndarray, settings: Setting
     if n_sets == 0 or not np.any(active):
         return sky_out, sun_out, scatter
     n_src = n_basis + coarse_sun.shape[0]
-    budget = _element_budget(settings, n_src, n_sets, n_s, fine.shape[0], n_basis)
     el = mesh_elements(geometry.triangles, geometry.reflectance, geometry.exterior,
                        _element_sizes(geometry, active, settings.element_size, budget),
                        mask=active)
@@ -894,13 +893,16 @@ def _compute(geometry: Any, sensors: np.ndarray, settings: Settings, key: str,
                       float(max(settings.reflected_sun_spacing, settings.sun_spacing)))
     scene = Scene(geometry)
     panes = tuple(int(p) for p in geometry.set_panes)
+    n_basis = scheme.n_patches + 1
+    budget = _element_budget(settings, n_basis + sun[1].shape[0], len(panes), sensors.shape[0],
+                             sun[0].shape[0], n_basis)  # refuses before any ray is traced
 
     sky_direct, var_sky, var_ground = _sensor_sky_direct(scene, sensors, scheme, settings, panes)
     inside = np.zeros(sensors.shape[0], dtype=bool)
     sun_direct = _sun_direct(scene, sensors[:, :3], sensors[:, 3:], inside, sun[0], panes,
                              np.float32)
     sky_reflected, sun_reflected, scatter = _reflected(scene, geometry, sensors, settings,
-                                                       scheme, sun, panes)
+                                                       scheme, sun, panes, budget)
     # direct sky, direct ground and gather rays are independent: variances add
     ground_unit = overcast_sky_vector(scheme, 1.0)[-1]
     scatter[..., 0] += var_sky

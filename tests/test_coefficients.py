@@ -369,7 +369,7 @@ def test_patch_culling_gives_the_brute_force_sky_direct():
     # τ_rel n·d for rays crossing glazing and then no opaque surface — evaluated here for
     # every ray with Embree (Scene.exit_glazing), no pre-test. The culled computation must
     # give the same sums; sensors facing up, sideways, tilted and down.
-    from luxsweep.kernels.coefficients import _STREAM_GROUND, _STREAM_SKY, _seed
+    from luxsweep.kernels.coefficients import _STREAM_GROUND, _STREAM_SKY, REPLICAS, _seed
     from luxsweep.kernels.sky import sample_ground
     from luxsweep.kernels.transfer import relative_transmit
 
@@ -385,15 +385,17 @@ def test_patch_culling_gives_the_brute_force_sky_direct():
     scene = Scene(geo)
     sch = patch_scheme(1)
     ref = np.zeros((sensors.shape[0], sch.n_patches + 1))
+    # REPLICAS (4) independent sub-samples per sensor: 4 patch rays and 256 ground rays each
     for s in range(sensors.shape[0]):
-        sky = sample_directions(sch, 16, _seed(settings, _STREAM_SKY, s)).reshape(-1, 3)
-        ground = sample_ground(1024, _seed(settings, _STREAM_GROUND, s))
-        dirs = np.concatenate([sky, ground])
-        basis = np.append(np.repeat(np.arange(sch.n_patches), 16), np.full(1024, sch.n_patches))
-        cos = dirs @ sensors[s, 3:]
-        gset, cos_w = scene.exit_glazing(np.broadcast_to(pts[s], dirs.shape), dirs)
-        w = np.where((gset >= 0) & (cos > 0), relative_transmit(cos_w, gset, (2,)) * cos, 0.0)
-        ref[s] = np.bincount(basis, weights=w, minlength=sch.n_patches + 1)
+        for r in range(REPLICAS):
+            sky = sample_directions(sch, 4, _seed(settings, _STREAM_SKY, s, r)).reshape(-1, 3)
+            ground = sample_ground(256, _seed(settings, _STREAM_GROUND, s, r))
+            dirs = np.concatenate([sky, ground])
+            basis = np.append(np.repeat(np.arange(sch.n_patches), 4), np.full(256, sch.n_patches))
+            cos = dirs @ sensors[s, 3:]
+            gset, cos_w = scene.exit_glazing(np.broadcast_to(pts[s], dirs.shape), dirs)
+            w = np.where((gset >= 0) & (cos > 0), relative_transmit(cos_w, gset, (2,)) * cos, 0.0)
+            ref[s] += np.bincount(basis, weights=w, minlength=sch.n_patches + 1)
     ref /= np.append(np.full(sch.n_patches, 16.0), 1024.0)
     assert np.all(ref.sum(axis=1) > 0)  # every sensor sees some sky through the windows
     assert ref[3, -1] > 0 and ref[0, -1] == 0  # facing down sees the ground; facing up never
