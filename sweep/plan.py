@@ -185,7 +185,7 @@ def _estimate_rays(geometry: Any, sensors: np.ndarray, settings: Any) -> int:
     n_basis = _n_basis(settings.subdivision)
     n_sun = SunPoints(settings.sun_spacing).n
     area = float(np.sum(geometry.areas[~geometry.is_glazing]))
-    n_elements = max(1, int(area / settings.element_size**2))
+    n_elements = max(1, min(int(area / settings.element_size**2), settings.max_elements))
     rays = n_s * ((n_basis - 1) * settings.sky_rays_per_patch + settings.ground_rays + n_sun)
     rays += n_s * settings.sensor_rays + n_elements * settings.element_rays
     rays += n_elements * (n_basis + SunPoints(settings.reflected_sun_spacing).n)
