@@ -750,7 +750,7 @@ def _reflected(scene: Any, geometry: Any, sensors: np.ndarray, settings: Setting
     inner, outer = np.flatnonzero(~el.exterior), np.flatnonzero(el.exterior)
     rho = el.reflectance
     everything = inner.size == el.n  # no exterior elements: no selections to copy
-    f_same = np.asarray(tr.same.toarray() if hasattr(tr.same, "toarray") else tr.same)
+    f_same = _dense(tr.same)
     b_ext = None
     if outer.size:
         source_ext = np.concatenate([tr.sky_exterior[outer], s_sun[n_sets][outer]], axis=1)
@@ -800,6 +800,7 @@ def _reflected(scene: Any, geometry: Any, sensors: np.ndarray, settings: Setting
 
 
 def _dense(matrix: Any) -> np.ndarray:
+    """A sampled matrix (:data:`kernels.transfer.Matrix`) as an ndarray."""
     return np.asarray(matrix.toarray() if hasattr(matrix, "toarray") else matrix)
 
 
