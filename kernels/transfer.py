@@ -575,8 +575,9 @@ def solve_radiosity(
     an iteration. Its ``n³`` cost is bounded by the element budget of
     :mod:`kernels.coefficients` (``Settings.max_elements``), which coarsens
     the elements of large models instead of growing the system. Measured on
-    the reference classroom (1,916 elements, 195 sensors, one core): ``F`` is 24 % filled (1,024 rays per element reach a
-    large share of the room), so it is not sparse; the adjoint solve of
+    the reference classroom (1,916 elements, 195 sensors, one core): ``F``
+    is 24 % filled (1,024 rays per element reach a large share of the room),
+    so it is not sparse; the adjoint solve of
     :func:`gather_radiosity` takes 0.15 s by LU, while the fixed-point
     iteration ``H ← Gᵀ + (ρF)ᵀ H`` needs 16 iterations to 1e-7 (spectral
     radius ~ ρ up to 0.7) and 0.76 s as dense products, 1.17 s as sparse ones.
