@@ -77,10 +77,13 @@ Metrics (per sensor unless noted; "grid" = per batch element)
     E ≥ minimum target over ≥ 95 % of the grid; (target, minimum) =
     (300, 100) minimum, (500, 300) medium, (750, 500) high [lx]. Result 0 (none),
     1, 2 or 3: the highest level met together with every lower level.
-    *Daylight hours* are the steps whose sun is above the horizon at the step's
-    representative time (``StepMasks.daylight``, supplied by the engine; about
-    4380 h a year at any latitude — half the year, which is how EN 17037 counts
-    them, common practice). Shading is open (EN 17037 assesses the openings).
+    *Daylight hours* are the steps whose sun (apparent altitude of its centre)
+    is above the horizon at the geometric middle of the step
+    (``StepMasks.daylight``, supplied by the engine from
+    ``kernels.sun.daylight_steps``; about 4380 h a year outside the polar
+    circles — half the year, which is how EN 17037 counts them, common
+    practice). Each step counts whole or not at all, so the counts are exact
+    integers. Shading is open (EN 17037 assesses the openings).
 
 References
 ----------
@@ -212,7 +215,8 @@ class StepMasks:
     analysis : ndarray of bool
         IES LM-83-12 analysis steps, 08:00–18:00 every day (:func:`lm83_analysis_mask`).
     daylight : ndarray of bool
-        Steps with the sun above the horizon at the representative time (EN 17037).
+        EN 17037 daylight hours: steps with the sun above the horizon at their
+        middle (``kernels.sun.daylight_steps``).
     """
 
     occupied: np.ndarray

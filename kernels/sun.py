@@ -427,6 +427,47 @@ def step_sun(climate: Climate) -> tuple[np.ndarray, np.ndarray]:
     return altitude.copy(), azimuth.copy()
 
 
+def daylight_steps(climate: Climate) -> np.ndarray:
+    """The steps that count as EN 17037 daylight hours: sun up at the middle of the step.
+
+    Parameters
+    ----------
+    climate : Climate
+        Hourly or resampled (:func:`resample`); its own interval is the step.
+
+    Returns
+    -------
+    ndarray of bool (n_steps,)
+        True where the apparent altitude of the sun's centre is above 0° at the
+        geometric middle of the step (11:30 for the hourly record stamped 12:00).
+
+    Notes
+    -----
+    EN 17037:2018 sets its illuminance targets "for half of the daylight
+    hours" (wording from memory). A step is one whole daylight hour (or step)
+    or none, decided by the sun at its middle, so the counts stay whole numbers
+    and the 50 % test stays an exact ratio. Rounding each sunrise and sunset to
+    the nearest step middle errs by less than half a step either way, and the
+    errors cancel over a year as the sunrise time drifts through the hour: 4,445
+    hourly steps at pvlib's Greensboro TMY3 site against 4,448.5 sunlit hours
+    from pvlib's own sunrise and sunset times (``tests/test_sun.py``).
+
+    This is *not* the test of :func:`step_sun`'s representative time, which at
+    sunrise and sunset is the middle of the sunlit part: there every step with
+    any sun is above the horizon (it must get its sky and sun), which counted
+    4,788 daylight steps at Greensboro and diluted every EN 17037 time share by
+    about 8 %.
+    """
+    stamps, sun_times = step_times(climate, climate.interval)
+    altitude, _ = step_sun(climate)
+    middle = stamps - pd.Timedelta(minutes=climate.interval) / 2
+    up = altitude > 0.0
+    moved = np.flatnonzero(np.asarray(sun_times != middle))  # sunrise and sunset steps
+    if moved.size:
+        up[moved] = solar_position(middle[moved], climate.site)[0] > 0.0
+    return up
+
+
 def _step_key(climate: Climate, step_minutes: int) -> tuple[Site, pd.Timestamp, int, int]:
     _check_step(climate.interval, step_minutes)
     start = climate.time[0] - pd.Timedelta(minutes=climate.interval)
@@ -1022,6 +1063,7 @@ __all__ = [
     "TEMPERATURE",
     "SunPoints",
     "azimuth_altitude",
+    "daylight_steps",
     "direction",
     "resample",
     "solar_position",

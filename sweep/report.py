@@ -1004,7 +1004,8 @@ share of points with more than 1000 lx of direct sun for more than 250 hours, sh
 open.</dd>
 <dt>EN 17037 daylight provision</dt><dd>Levels 1–3 (minimum, medium, high): a target
 illuminance (300/500/750 lx) over half of the working plane and a minimum (100/300/500 lx)
-over 95 % of it, each for at least half of the daylight hours (sun above the horizon).
+over 95 % of it, each for at least half of the daylight hours (the hours with the sun
+above the horizon at their middle, about half of the year).
 The check here covers the daylight provision part only.</dd>
 <dt>Daylight factor</dt><dd>Indoor illuminance as a percentage of the simultaneous
 outdoor horizontal illuminance under the CIE standard overcast sky.</dd>

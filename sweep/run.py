@@ -146,16 +146,17 @@ _CLIMATE_STEPS_LOCK = threading.Lock()
 
 
 def _climate_steps(path: str | os.PathLike, step_minutes: int) -> tuple:
-    """The climate resampled to ``step_minutes`` and the sun's apparent altitude
+    """The climate resampled to ``step_minutes``, the sun's apparent altitude
     and azimuth [deg] at every step's representative time (the step stamps are
-    the climate's own ``time``).
+    the climate's own ``time``) and the EN 17037 daylight steps (sun up at
+    mid-step, :func:`kernels.sun.daylight_steps`).
 
     Kept per worker process for the last few (file, size, mtime, step): one worker
     usually runs several series tasks of the same climate (one per coefficient
     key), and reading, resampling and locating the sun is the same work each time.
     """
     from luxsweep.kernels.climate import read_climate
-    from luxsweep.kernels.sun import resample, step_sun
+    from luxsweep.kernels.sun import daylight_steps, resample, step_sun
 
     stat = os.stat(path)
     key = (os.fspath(path), stat.st_size, stat.st_mtime_ns, step_minutes)
@@ -166,7 +167,7 @@ def _climate_steps(path: str | os.PathLike, step_minutes: int) -> tuple:
         warnings.simplefilter("ignore")  # reported once by the client's check
         climate = resample(read_climate(path), step_minutes)
     altitude, azimuth = step_sun(climate)
-    entry = (climate, altitude, azimuth)
+    entry = (climate, altitude, azimuth, daylight_steps(climate))
     with _CLIMATE_STEPS_LOCK:
         if len(_CLIMATE_STEPS) >= _CLIMATE_STEPS_MAX:
             _CLIMATE_STEPS.pop(next(iter(_CLIMATE_STEPS)))
@@ -229,11 +230,11 @@ def _series(
     if coeffs is None:
         raise RuntimeError(f"coefficient set {task.key} is missing from the cache {cache_root}")
     study = task.study
-    climate, altitude, azimuth = _climate_steps(task.climate_file, study.timestep)
+    climate, altitude, azimuth, daylight = _climate_steps(task.climate_file, study.timestep)
     stamps = climate.time
     scheme = patch_scheme(coeffs.subdivision)
     sun_points = SunPoints(coeffs.settings.sun_spacing)
-    daylight = altitude > 0.0
+    sunlit = altitude > 0.0  # any sun in the step: its sky and sun are computed
     occ = study.occupancy
     occupied = km.occupancy_mask(stamps, occ.start, occ.end, occ.days, study.timestep)
     analysis = km.lm83_analysis_mask(stamps, study.timestep)
@@ -257,8 +258,8 @@ def _series(
     counts = None
     occ_done = 0
     for a, b in _blocks(len(stamps), occupied, series, block):
-        lit = a + np.flatnonzero(daylight[a:b])
-        dark = a + np.flatnonzero(~daylight[a:b])
+        lit = a + np.flatnonzero(sunlit[a:b])
+        dark = a + np.flatnonzero(~sunlit[a:b])
         t1 = time.perf_counter()
         if dark.size:
             masks = km.StepMasks(occupied[dark], analysis[dark], daylight[dark])

@@ -8,9 +8,11 @@ checks are exact; float results carry the tolerance stated beside them.
 from __future__ import annotations
 
 import itertools
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
+import pvlib
 import pytest
 
 from luxsweep.kernels.metrics import (
@@ -260,6 +262,46 @@ def test_en17037_only_daylight_steps_count_and_fractions():
     target, minimum = en17037_time_fractions(c, p)
     np.testing.assert_array_equal(target, [0.5, 0.0, 0.0])
     np.testing.assert_array_equal(minimum, [0.5, 0.0, 0.0])
+
+
+def test_en17037_level_on_a_real_day_counts_daylight_steps_by_the_sun_at_mid_step():
+    # Greensboro (pvlib's TMY3 file), 5 December: pvlib's sun_rise_set_transit_spa puts
+    # sunrise at 07:15 and sunset at 17:05 local standard time (hand count, independent
+    # of our code). Step middles 07:30 ... 16:30 are sunlit: 10 daylight hours (stamps
+    # 08:00 ... 17:00). The step 17:00-18:00 holds 5 min of sun but its middle is dark.
+    from luxsweep.kernels.climate import read_tmy3
+    from luxsweep.kernels.sun import daylight_steps, step_sun
+
+    path = Path(pvlib.__file__).parent / "data" / "723170TYA.CSV"
+    with pytest.warns(UserWarning):  # its illuminance columns are in 100 lx units
+        climate = read_tmy3(path)
+    day = slice(338 * 24, 339 * 24)  # stamps 5 Dec 01:00 ... 6 Dec 00:00
+    stamps = climate.time[day]
+    assert stamps[0] == pd.Timestamp("2023-12-05 01:00", tz=stamps.tz)
+    rst = pvlib.solarposition.sun_rise_set_transit_spa(
+        pd.DatetimeIndex([stamps[0].normalize()]), climate.site.latitude,
+        climate.site.longitude)
+    middles = stamps - pd.Timedelta(minutes=30)
+    hand = np.asarray((middles > rst["sunrise"].iloc[0]) & (middles < rst["sunset"].iloc[0]))
+    assert hand.sum() == 10
+    daylight = daylight_steps(climate)[day]
+    np.testing.assert_array_equal(daylight, hand)
+    any_sun = step_sun(climate)[0][day] > 0.0  # the old count: any sun in the step
+    assert any_sun.sum() == 11
+
+    # 4 sensors at 600 lx in the 5 steps stamped 10:00-14:00, 50 lx in every other
+    # daylight step: EN 17037:2018 Table A.1 medium level (500 lx over >= 50 % of the
+    # grid and 300 lx over >= 95 %) for 5 of 10 daylight hours = 50 % -> level 2. Counting
+    # the sunset step as a daylight hour gives 5 of 11 < 50 % -> no level at all.
+    e = np.where(daylight, 50.0, 0.0)[None].repeat(4, axis=0).astype(np.float32)
+    e[:, 9:14] = 600.0
+    assert daylight[9:14].all()
+    levels = {}
+    for name, mask in (("mid-step", daylight), ("any sun", any_sun)):
+        m = masks(24, daylight=mask)
+        levels[name] = int(finalize(accumulate(None, e, np.zeros_like(e), m, P), P)
+                           ["en17037_level"])
+    assert levels == {"mid-step": 2, "any sun": 0}
 
 
 # --------------------------------------------------------------------------- additivity

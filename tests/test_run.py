@@ -40,7 +40,7 @@ def reference(variant) -> dict[str, np.ndarray]:
     from luxsweep.kernels.coefficients import Settings, compute_coefficients
     from luxsweep.kernels.geometry import parametric_room, sensor_grid
     from luxsweep.kernels.sky import overcast_sky_vector, patch_scheme, sky_vectors
-    from luxsweep.kernels.sun import SunPoints
+    from luxsweep.kernels.sun import SunPoints, daylight_steps
     from luxsweep.kernels.timeseries import daylight_factor, illuminance
 
     s = variant.study
@@ -58,7 +58,7 @@ def reference(variant) -> dict[str, np.ndarray]:
     tau = [[s.glazings["main"].transmittance]]
     total, direct = illuminance(coeffs, sky, tau)
     masks = km.StepMasks(km.occupancy_mask(sky.time, "08:00", "18:00", "weekdays", 60),
-                         km.lm83_analysis_mask(sky.time, 60), sky.daylight)
+                         km.lm83_analysis_mask(sky.time, 60), daylight_steps(climate))
     params = km.MetricParams(step_hours=1.0)
     out = km.finalize(km.accumulate(None, total[0], direct[0], masks, params), params)
     df = daylight_factor(coeffs, overcast_sky_vector(scheme, s.ground_reflectance), tau)

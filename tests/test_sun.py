@@ -21,8 +21,10 @@ from scipy.optimize import brentq
 from luxsweep.kernels.climate import Site, read_tmy3
 from luxsweep.kernels.sun import (
     DEFAULT_SPACING,
+    TEMPERATURE,
     SunPoints,
     azimuth_altitude,
+    daylight_steps,
     direction,
     resample,
     solar_position,
@@ -178,6 +180,53 @@ def test_sun_is_up_about_half_the_hours(which, request):
     # with the sunrise rule, every hour with a sunlit part has its sun above the horizon
     rep_altitude, _ = step_sun(climate)
     assert (rep_altitude > 0).sum() > hours_up
+
+
+def _sunlit_hours_pvlib(site: Site) -> float:
+    """Hours between pvlib's own sunrise and sunset over the reference year (SPA)."""
+    days = pd.date_range("2023-01-01", periods=365, freq="D",
+                         tz=f"Etc/GMT{-int(site.utc_offset):+d}")
+    rst = pvlib.solarposition.sun_rise_set_transit_spa(days, site.latitude, site.longitude)
+    return float((rst["sunset"] - rst["sunrise"]).dt.total_seconds().sum() / 3600.0)
+
+
+@pytest.mark.parametrize("which", ["greensboro", "sand_point"])
+def test_daylight_steps_count_the_sunlit_hours(which, request):
+    # Hand count, independent of our code: the hours between sunrise and sunset from
+    # pvlib.solarposition.sun_rise_set_transit_spa, summed over the year (Greensboro
+    # 4,448.5 h, Sand Point 4,494.3 h). Tolerance 1 % (about 45 h): pvlib's sunrise is
+    # the sun's upper limb at the horizon (-0.833 deg), ours its centre (apparent altitude
+    # 0, about -0.57 deg airless), 0.27 deg later at each end, i.e. 1.3-2.5 min a day at
+    # 36-55 deg N (16-30 h a year, geometry of the sun's path, from memory); rounding each
+    # sunrise and sunset to the nearest step middle errs < 0.5 h per event, errors that
+    # cancel over the year as the event drifts through the hour.
+    climate = request.getfixturevalue(which)
+    hours = _sunlit_hours_pvlib(climate.site)
+    steps = int(daylight_steps(climate).sum())
+    assert steps == pytest.approx(hours, rel=0.01)
+    assert steps <= hours  # the centre rises after the upper limb
+    # the representative-time rule (any sun in the step) overcounts by ~8 %: 4,788 steps
+    # at Greensboro; the tolerance above tells the two apart
+    altitude, _ = step_sun(climate)
+    assert (altitude > 0).sum() > 1.05 * hours
+
+
+def test_daylight_steps_mid_step_against_pvlib_minutes(greensboro):
+    # Each step is a daylight step exactly when pvlib's SPA puts the sun's centre above
+    # the horizon (apparent elevation > 0) at the step's middle; 15-min steps, one week
+    # around the winter solstice, where sunrise and sunset steps are many (pvlib is the
+    # reference; exact agreement, same algorithm, except within 1 s of a crossing).
+    r = resample(greensboro, 15)
+    up = daylight_steps(r)
+    sl = slice(350 * 96, 357 * 96)
+    middles = r.time[sl] - pd.Timedelta(minutes=7.5)
+    ref = pvlib.solarposition.get_solarposition(
+        middles, greensboro.site.latitude, greensboro.site.longitude,
+        altitude=greensboro.site.elevation, method="nrel_numpy",
+        pressure=pvlib.atmosphere.alt2pres(greensboro.site.elevation),
+        temperature=TEMPERATURE)["apparent_elevation"]
+    np.testing.assert_array_equal(up[sl], ref.to_numpy() > 0)
+    assert 0 < up[sl].sum() < up[sl].size
 
 
 def test_sub_hourly_stamps(sand_point):
