@@ -45,6 +45,13 @@ Conventions (shared by both readers)
   outside 50–250 lm/W is marked invalid as a whole, with a warning; downstream
   the Perez et al. (1990) efficacy model then converts irradiance. Daylight
   efficacies lie near 90–130 lm/W (common practice; Perez et al. 1990).
+* **Illuminance in the wrong unit on some days.** A file may change unit
+  within a column (pvlib's Sand Point TMY3 year holds 2–31 January in hundreds
+  of lux). Every day of every column still valid is judged on its own
+  (:func:`_judge_days`): a day whose median efficacy over records above
+  20 W/m² lies outside 10–1000 lm/W is marked invalid as a whole, dim records
+  included (alone, 21 cannot be told from 21 hundred lux), and modelled; one
+  warning per file says which columns and days.
 
 References
 ----------
@@ -95,6 +102,10 @@ ILLUMINANCE = ("global_illuminance", "direct_illuminance", "diffuse_illuminance"
 # efficacy bounds [lm/W] for the whole-column plausibility check (see module docstring)
 _EFFICACY_RANGE = (50.0, 250.0)
 _EFFICACY_MIN_IRRADIANCE = 50.0  # [W/m2]
+_EFFICACY_JUDGED_IRRADIANCE = 20.0  # [W/m2]: records that judge a day's unit (see _judge_days)
+# [lm/W] a day (or a lone dim record) is in lux when its median efficacy lies here: a
+# factor-of-100 unit error gives 0.3-2.6, real days of pvlib's Sand Point year 35-262
+_UNIT_RANGE = (10.0, 1000.0)
 _ROUNDING = 1.0  # [W/m2] files store whole W/m2; allowance above the extraterrestrial bound
 
 ACCEPTED_FORMATS = (
@@ -847,6 +858,20 @@ def _build_climate(
             "values); these columns are ignored and illuminance is modelled from irradiance",
             stacklevel=4,
         )
+    wrong = _judge_days(values, valid)
+    if wrong:
+        n_days = len(set().union(*(days for days, _, _ in wrong.values())))
+        n_lit = sum(n for _, n, _ in wrong.values())
+        parts = ", ".join(f"'{field_names[name]}' on {len(days)} days ({_day_span(days)}, "
+                          f"median efficacy {eff:.3g} lm/W)"
+                          for name, (days, _, eff) in wrong.items())
+        warnings.warn(
+            f"{source}: illuminance not in lux (hundreds of lux or placeholder values, judged "
+            f"day by day): {parts}. These {n_lit} values with daylight (on {n_days} days) are "
+            "ignored and modelled from irradiance (Perez et al. 1990); the other days are "
+            "read as lux",
+            stacklevel=4,
+        )
 
     tz = site.tz
     time = pd.date_range(
@@ -860,6 +885,72 @@ def _build_climate(
         valid={k: valid[k].copy() for k in QUANTITIES},
         source=source,
     )
+
+
+def _judge_days(values: dict[str, np.ndarray],
+                valid: dict[str, np.ndarray]) -> dict[str, tuple[list[int], int, float]]:
+    """Mark invalid, day by day, illuminance records that are not in lux.
+
+    A file may change unit within a column (pvlib's Sand Point TMY3 year holds
+    January in hundreds of lux and the other months in lux), so every day of
+    every illuminance column still valid is judged on its own: by the median
+    luminous efficacy of its records with more than
+    :data:`_EFFICACY_JUDGED_IRRADIANCE` W/m² (outside :data:`_UNIT_RANGE`:
+    the whole day is not in lux, dim records included, which alone cannot
+    tell 21 lx from 21 hundred lux); a day without such a record is judged
+    record by record, a positive value being in lux when its efficacy lies in
+    :data:`_UNIT_RANGE` give or take the file's whole-W/m² rounding. The range
+    is wide on purpose: it tells units apart (a factor of 100), while single
+    real days reach 35 lm/W (direct, low sun) and 262 lm/W (diffuse, dark
+    overcast) in pvlib's Sand Point year; records outside the narrower
+    plausible range are still modelled one by one where the sky is built.
+    ``valid`` and ``values`` are changed in place (NaN, invalid).
+
+    Returns
+    -------
+    dict
+        Column name -> (days of the year re-judged, 0-based; their records
+        with irradiance > 0; the median efficacy [lm/W] of those days).
+    """
+    lo, hi = _UNIT_RANGE
+    out = {}
+    for lux, watt in zip(ILLUMINANCE, IRRADIANCE, strict=True):
+        if values[lux].size % 24 or not valid[lux].any():
+            continue
+        e = values[lux].reshape(-1, 24)
+        w = values[watt].reshape(-1, 24)
+        both = (valid[lux] & valid[watt]).reshape(-1, 24)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            k = np.where(both & (w > _EFFICACY_JUDGED_IRRADIANCE), e / w, np.nan)
+        judged = np.isfinite(k).any(axis=1)
+        median = np.full(len(k), np.nan)
+        median[judged] = np.nanmedian(k[judged], axis=1)
+        bad = np.zeros(e.shape, dtype=bool)
+        bad[judged & ~((median >= lo) & (median <= hi))] = True
+        alone = both & ~judged[:, None] & (e > 0)  # dim days: each record on its own
+        bad |= alone & ((e < lo * (w - _ROUNDING / 2)) | (e > hi * (w + _ROUNDING / 2)))
+        bad &= both
+        if bad.any():
+            days = np.flatnonzero(bad.any(axis=1))
+            lit = int(np.count_nonzero(bad & (w > 0)))
+            eff = float(np.nanmedian(k[days])) if np.isfinite(k[days]).any() else float("nan")
+            out[lux] = (days.tolist(), lit, eff)
+            flat = bad.reshape(-1)
+            valid[lux] = valid[lux] & ~flat
+            values[lux] = np.where(flat, np.nan, values[lux])
+    return out
+
+
+def _day_span(days: list[int]) -> str:
+    """Days of the reference year (0-based) as 'd Mon – d Mon' runs."""
+    base = pd.Timestamp(year=REFERENCE_YEAR, month=1, day=1)
+    runs, start = [], days[0]
+    for a, b in zip(days, [*days[1:], None], strict=True):
+        if b != a + 1:
+            first, last = (base + pd.Timedelta(days=d) for d in (start, a))
+            runs.append(f"{first:%-d %b}" if start == a else f"{first:%-d %b} – {last:%-d %b}")
+            start = b
+    return ", ".join(runs[:3]) + (", ..." if len(runs) > 3 else "")
 
 
 # --------------------------------------------------------------------------- file access

@@ -110,17 +110,78 @@ def test_time_axis_is_hour_ending_local_standard_time_on_reference_year():
 
 
 def test_illuminance_columns_kept_when_plausible_and_dropped_when_not():
-    sand = read_tmy3(SAND_POINT)
-    day = sand.ghi > 50
+    with pytest.warns(UserWarning, match="judged day by day"):  # its January: see below
+        sand = read_tmy3(SAND_POINT)
+    day = (sand.ghi > 50) & sand.valid["global_illuminance"]
     # Sand Point's efficacy is near 110 lm/W (daylight efficacy 90-130 lm/W, Perez et al. 1990)
     assert 90 < np.median(sand.global_illuminance[day] / sand.ghi[day]) < 130
-    assert sand.valid["global_illuminance"].all()
+    # hour-ending stamps: the file's day of a record is that of its stamp minus an hour
+    assert sand.valid["global_illuminance"][(sand.time - pd.Timedelta(hours=1)).month > 1].all()
     # Greensboro's bundled illuminance is in units of 100 lx (efficacy ~1): ignored, warned
     with pytest.warns(UserWarning, match="GH illum"):
         gso = read_tmy3(GREENSBORO)
     assert not gso.valid["global_illuminance"].any()
     assert np.isnan(gso.global_illuminance).all()
     assert gso.valid["ghi"].all()
+
+
+def test_illuminance_unit_judged_day_by_day_on_sand_point():
+    # pvlib's Sand Point TMY3 year holds 2-31 January in hundreds of lux (median
+    # efficacy 0.3-1.6 lm/W; daylight efficacy is 90-130 lm/W, Perez et al. 1990) and
+    # every other day in lux. Hand count from the raw file with pandas (independent of
+    # our reader): per day and column, the median of lux / W over records above 20 W/m2,
+    # outside 10-1000 lm/W (a unit error of a factor of 100; real days span 35-262).
+    raw = pd.read_csv(SAND_POINT, skiprows=1)
+    day = raw["Date (MM/DD/YYYY)"].str[:5]
+    columns = {"direct_illuminance": ("DN illum (lx)", "DNI (W/m^2)"),
+               "diffuse_illuminance": ("DH illum (lx)", "DHI (W/m^2)"),
+               "global_illuminance": ("GH illum (lx)", "GHI (W/m^2)")}
+    with pytest.warns(UserWarning) as caught:
+        c = read_tmy3(SAND_POINT)
+    notes = [str(w.message) for w in caught if "judged day by day" in str(w.message)]
+    assert len(notes) == 1  # one warning for the file, naming what was done
+    assert "modelled from irradiance" in notes[0] and "2 Jan – 31 Jan" in notes[0]
+    january = {f"01/{d:02d}" for d in range(2, 32)}
+    for name, (lux, watt) in columns.items():
+        bright = raw[watt] > 20
+        median = (raw[lux][bright] / raw[watt][bright]).groupby(day[bright]).median()
+        wrong_days = set(median.index[(median < 10) | (median > 1000)])
+        assert wrong_days == january & set(day[bright]), name
+        hand_wrong = day.isin(wrong_days).to_numpy()
+        # days with no record above 20 W/m2 (direct, 10-12 Jan): each positive value alone
+        lone = (day.isin(january) & ~day.isin(wrong_days) & (raw[lux] > 0)).to_numpy()
+        hand_wrong = hand_wrong | lone
+        np.testing.assert_array_equal(~c.valid[name], hand_wrong, err_msg=name)
+        assert np.isnan(getattr(c, name)[hand_wrong]).all()
+        np.testing.assert_array_equal(getattr(c, name)[~hand_wrong],
+                                      raw[lux].to_numpy(float)[~hand_wrong])
+    # records judged each way (irradiance > 0): counts of the same hand judgement
+    lit = (raw["DHI (W/m^2)"] > 0).to_numpy()
+    assert (lit & ~c.valid["diffuse_illuminance"]).sum() == (lit & day.isin(january)
+                                                              .to_numpy()).sum()
+    # the 78 dim hours (direct or diffuse irradiance at most 20 W/m2) of those days were
+    # read as lux before; one of them, 12 Jan 17:00, reads DHI 18 W/m2 and 21 (hundred) lx
+    dim = ((raw["DNI (W/m^2)"].between(1, 20)) | (raw["DHI (W/m^2)"].between(1, 20))) \
+        & day.isin(january)
+    assert dim.sum() == 78
+    assert (~c.valid["diffuse_illuminance"][dim.to_numpy()]).all()
+
+
+def test_dim_record_in_hundreds_of_lux_comes_out_near_2100_lx():
+    # The record above (DHI 18 W/m2, file value 21) through the sky kernel: modelled with
+    # Perez et al. (1990) efficacy, 18 W/m2 x 90-150 lm/W (diffuse efficacy of dim skies,
+    # Perez et al. 1990 Fig. 5, from memory) = 1,620-2,700 lx, not 21 lx.
+    from luxsweep.kernels.sky import patch_scheme, sky_vectors
+    from luxsweep.kernels.sun import SunPoints
+
+    raw = pd.read_csv(SAND_POINT, skiprows=1)
+    row = raw.index[(raw["Date (MM/DD/YYYY)"].str[:5] == "01/12")
+                    & (raw["DHI (W/m^2)"] == 18) & (raw["DH illum (lx)"] == 21)]
+    assert len(row) == 1
+    with pytest.warns(UserWarning, match="judged day by day"):
+        c = read_tmy3(SAND_POINT)
+    sky = sky_vectors(c, [180.0], patch_scheme(1), SunPoints(6.0), steps=[int(row[0])])
+    assert 1620 <= sky.diffuse_horizontal_illuminance[0] <= 2700
 
 
 def test_climate_pickles():

@@ -172,6 +172,9 @@ def test_separate_scheduler_and_workers_give_identical_results(finished, tmp_pat
         result = run_luxsweep("run", study, "--out", out, "--cache", tmp_path / "cache",
                               "--scheduler", address, timeout=300)
         assert result.code == 0, result.err
+        # Sand Point ('inland') holds 2-31 January in hundreds of lux: the reader's unit
+        # warning is printed once for the run, not once per worker or task
+        assert result.err.count("judged day by day") == 1, result.err
     finally:
         for p in procs:
             p.terminate()
