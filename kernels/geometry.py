@@ -891,11 +891,18 @@ def _axis_points(length: float, spacing: float, margin: float) -> np.ndarray:
     return start + spacing * np.arange(n)
 
 
+MIN_SENSORS = 4
+"""Fewest grid points a room may have: shares of the grid (sDA, EN 17037's 50 % and
+95 % of the plane) mean little over fewer points (common practice)."""
+
+
 def _check_count(n: int, what: str) -> None:
-    if n == 0:
+    if n < MIN_SENSORS:
+        found = "no points" if n == 0 else f"only {n} point{'s' if n > 1 else ''}"
         raise GeometryError(
-            f"the sensor grid {what} has no points: the margin leaves no room for them; "
-            "reduce 'margin' (or 'spacing')", field="grid.margin",
+            f"the sensor grid {what} has {found}; at least {MIN_SENSORS} are needed for "
+            "shares of the grid (sDA, EN 17037) to mean anything: reduce 'margin' or "
+            "'spacing'", field="grid.margin" if n == 0 else "grid.spacing",
         )
     if n > MAX_SENSORS:
         raise GeometryError(

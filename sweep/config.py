@@ -681,6 +681,11 @@ def cross_check(study: Study) -> list[tuple[tuple, str]]:
         if study.grid.floors is not None:
             problems.append((("grid", "floors"), "'floors' names OBJ groups of a mesh room; "
                              "remove it for a parametric room"))
+        if study.grid.height >= study.room.height:
+            problems.append((("grid", "height"),
+                             f"the working plane at {study.grid.height:g} m lies at or above the "
+                             f"ceiling (room height {study.room.height:g} m), where every sensor "
+                             "would read 0 lx; give a height between 0 and the room height"))
         for i, w in enumerate(study.room.windows):
             if w.glazing not in study.glazings:
                 problems.append(
@@ -978,7 +983,8 @@ def parse_study(text: str, path: str | Path) -> StudyFile:
         ) from None
     if not isinstance(data, dict):
         raise StudyFileError(f"{path}: line 1: a study file is a YAML mapping of keys "
-                             "(name, climates, room, ...); see CONTRACT.md §1.")
+                             "(name, climates, room, ...); configs/demo.yaml is a complete "
+                             "example (`luxsweep check --schema` lists every key).")
     context = {"base": str(path.parent)}
     try:
         study = Study.model_validate(data, context=context)

@@ -190,7 +190,8 @@ def check_vary(loaded: StudyFile) -> None:
                 ) from None
             problems = cross_check(resolved)
             if problems:
-                raise loaded.error((*loc, j), f"value {row!r} (item {j}): {problems[0][1]}")
+                shown = row if len(row) > 1 else row[0]
+                raise loaded.error((*loc, j), f"value {shown!r} (item {j}): {problems[0][1]}")
     for path, text in study.labels.items():
         if path not in seen:
             close = difflib.get_close_matches(path, sorted(seen), n=1, cutoff=0.6)

@@ -218,12 +218,27 @@ def _wrap_geometry_error(loaded: StudyFile, variant: Variant | None, exc: InputE
         return exc
     where = ""
     if variant is not None and variant.axes:
-        where = f" (in variant '{variant.label}', from 'vary')"
+        key = ".".join(str(p) for p in loc)
+        varied = [path for path in variant.axes
+                  if key == path or key.startswith(path + ".") or path.startswith(key + ".")]
+        if varied:
+            where = f" (in variant '{variant.label}', from 'vary')"
+        elif not _fails_without_vary(loaded):  # else the mistake is in every variant
+            where = f" (in variant '{variant.label}')"
     line = loaded.line_of(loc)
     line_text = f"line {line}, " if line is not None else ""
     key = ".".join(str(p) for p in loc) or "room"
     source = f" (in {exc.file})" if elsewhere else ""
     return StudyFileError(f"{loaded.path}: {line_text}key '{key}'{where}: {exc.message}{source}")
+
+
+def _fails_without_vary(loaded: StudyFile) -> bool:
+    """Whether the study's room, with the values written in the file, fails to build."""
+    try:
+        build_geometry(loaded.study)
+    except InputError:
+        return True
+    return False
 
 
 def build_geometry(study: Study) -> tuple[Any, np.ndarray]:

@@ -87,6 +87,8 @@ def assert_clean_refusal(result, spec: dict, what: str) -> None:
     assert not missing, (
         f"{what}: the message lacks {missing} (mistake: {spec['mistake']})\nstderr:\n{result.err}"
     )
+    wrong = [f for f in spec.get("absent", []) if _contains(result.err, str(f))]
+    assert not wrong, f"{what}: the message should not say {wrong}\nstderr:\n{result.err}"
 
 
 def test_corpus_is_large_enough_and_described():
