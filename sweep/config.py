@@ -392,7 +392,7 @@ class Compute(_Model):
 
     Every key left out takes the kernel's default. All of them change the
     coefficient matrices and so enter the coefficient key.
-    ``subdivision`` 1 = Tregenza 145 patches, n = Reinhart MF:n (144 n² + 1);
+    ``subdivision`` 1 = Tregenza 145 patches, n = Reinhart subdivision n (144 n² + 1 patches);
     ``sun_spacing`` [deg] between sun points; ray counts per patch / element /
     sensor; ``element_size`` [m] of the reflected-light mesh;
     ``reflected_sun_spacing`` [deg] of the coarse sun points of the reflected
@@ -1013,9 +1013,301 @@ def load_study(path: str | Path) -> StudyFile:
     return parse_study(text, p)
 
 
+# ---------------------------------------------------------------------------
+# JSON Schema text: plain sentences for editors and users (no markup, no code paths)
+
+_SCHEMA_TEXT: dict[str, tuple[str, dict[str, str]]] = {
+    "Study": (
+        "A luxsweep study: one room (a parametric box or an OBJ mesh), its glazing, the "
+        "weather files, the sensor grid, the occupancy and what to vary. Building axes: the "
+        "origin is the interior floor corner where the front and left walls meet; x runs "
+        "along the front wall, y into the room (0 at the front wall), z up from the floor; "
+        "the front facade faces minus y. Lengths are in metres, angles in degrees, "
+        "illuminance in lux, times in local standard time.",
+        {
+            "name": "Name of the study: letters, digits, '-' and '_'. It names the results "
+                    "store.",
+            "climates": "Weather files by label: each value is the path of an EPW or TMY3 CSV "
+                        "file, relative to the study file's folder or absolute.",
+            "room": "A parametric box room. Give either room or mesh.",
+            "mesh": "Path of an OBJ file holding the room as triangles, as an alternative to "
+                    "room; its coordinates are in the building axes, in metres.",
+            "materials": "For a mesh room: each OBJ group name mapped to an opaque surface "
+                         "(reflectance) or a window (glazing set).",
+            "sensors": "For a mesh room: path of a CSV file of sensor points, one per line "
+                       "as x, y, z, nx, ny, nz (position in metres and facing direction), "
+                       "instead of a grid.",
+            "glazings": "Glazing sets by name; each window names one set.",
+            "ground_reflectance": "Diffuse reflectance of the ground outside, from 0 to "
+                                  "below 1.",
+            "grid": "The sensor grid on the working plane.",
+            "occupancy": "When the room is in use: the period of the day and the days of "
+                         "the week.",
+            "timestep": "Length of a time step in minutes; it must divide 60 (60, 30, 20, "
+                        "15, 10, 5).",
+            "orientation": "Orientation of the building when it is not varied: the compass "
+                           "direction, in degrees clockwise from north, that the front "
+                           "facade faces (the direction of its outward normal). 0 means the "
+                           "front facade faces north, 90 east, 180 south and 270 west.",
+            "climate": "Label of the climate used when the climate is not varied. Default: "
+                       "the first label under climates.",
+            "vary": "The options to sweep: each key is a dotted path into this file (for "
+                    "example room.windows.0.width or glazings.main.transmittance) or one of "
+                    "the axes orientation and climate, with the list of values to try. "
+                    "Every combination of the lists is one variant.",
+            "vary_together": "Groups of paths whose value lists have equal lengths and "
+                             "change in step (the first values together, then the second "
+                             "values, and so on) instead of in every combination.",
+            "exclude": "Partial assignments of varied paths to values; a variant that "
+                       "matches every entry of one of them is left out.",
+            "metrics": "Metric families to compute: daylight_factor, daylight_autonomy, "
+                       "udi, sda_ase and en17037.",
+            "metric_options": "Thresholds of the metrics.",
+            "compute": "Ray-tracing settings; they change the daylight coefficients, so a "
+                       "change recomputes them.",
+            "store_series": "Also keep the annual illuminance of every sensor and occupied "
+                            "time step in the results store (large).",
+            "rank": "Criteria and objectives for ranking the variants.",
+        },
+    ),
+    "Room": (
+        "A parametric box room. Its interior spans x from 0 to width along the front wall, "
+        "y from 0 (front wall) to depth (back wall) and z from 0 (floor) to height. Seen "
+        "from outside facing the front facade, the left wall is at x = 0 and the right "
+        "wall at x = width.",
+        {
+            "width": "Interior size along the front wall (building x), in metres.",
+            "depth": "Interior size from the front wall to the back wall (building y), in "
+                     "metres.",
+            "height": "Interior height from floor to ceiling, in metres.",
+            "thickness": "Thickness of the walls and roof in metres; they grow outwards and "
+                         "give the windows reveals, with the glass in the middle of the "
+                         "wall.",
+            "reflectance": "Diffuse reflectances of the floor, walls and ceiling.",
+            "windows": "The windows, at least one.",
+            "overhang": "An optional horizontal slab above every front window.",
+            "obstructions": "Optional boxes standing on the ground outside, such as "
+                            "neighbouring buildings.",
+        },
+    ),
+    "Reflectance": (
+        "Diffuse reflectances of the interior surfaces, each from 0 to below 1.",
+        {
+            "floor": "Reflectance of the floor.",
+            "walls": "Reflectance of the walls.",
+            "ceiling": "Reflectance of the ceiling.",
+        },
+    ),
+    "Window": (
+        "A window. Wall windows (front, back, left, right) take width, sill, head and "
+        "offset; roof windows take width, length, x and y. Every window must fit its wall.",
+        {
+            "wall": "The wall that holds the window: front, back, left, right or roof.",
+            "width": "Width of the window in metres: along the wall, or along x for a roof "
+                     "window.",
+            "sill": "Height of the bottom of the window above the floor, in metres. "
+                    "Required for wall windows.",
+            "head": "Height of the top of the window above the floor, in metres, above "
+                    "the sill. Required for wall windows.",
+            "offset": "Shift of the window's centre from the centre of its wall, in "
+                      "metres: towards plus x (to the right, seen from outside the front "
+                      "facade) on the front and back walls, towards plus y (away from the "
+                      "front wall) on the left and right walls. 0 centres the window.",
+            "length": "Length of a roof window along y, in metres. Required for roof "
+                      "windows.",
+            "x": "Building x of the centre of a roof window, in metres. Required for roof "
+                 "windows.",
+            "y": "Building y of the centre of a roof window, in metres. Required for roof "
+                 "windows.",
+            "glazing": "Name of the glazing set of this window (a key under glazings).",
+        },
+    ),
+    "Overhang": (
+        "A horizontal slab above each front window, as wide as the window.",
+        {
+            "depth": "How far the slab projects from the facade, in metres.",
+            "gap": "Height of the slab's underside above the window head, in metres.",
+        },
+    ),
+    "Obstruction": (
+        "A box standing on the ground outside the room, in the building axes.",
+        {
+            "x": "Building x of the centre of the box's footprint, in metres.",
+            "y": "Building y of the centre of the box's footprint, in metres (negative "
+                 "values lie in front of the front facade).",
+            "width": "Size of the box along x, in metres.",
+            "depth": "Size of the box along y, in metres.",
+            "height": "Height of the box above the ground, in metres.",
+        },
+    ),
+    "MeshMaterial": (
+        "What an OBJ group is: an opaque surface with a reflectance, or a window of a "
+        "glazing set. Give one of the two.",
+        {
+            "reflectance": "Diffuse reflectance of the surface, from 0 to below 1.",
+            "glazing": "Name of the glazing set when the group is a window.",
+        },
+    ),
+    "Glazing": (
+        "A glazing product: its light transmittance at normal incidence, the number of "
+        "panes (which sets how transmittance falls at oblique angles) and optionally the "
+        "transmittance with its blinds closed.",
+        {
+            "transmittance": "Visible light transmittance at normal incidence, above 0 "
+                             "and at most 1.",
+            "panes": "Number of panes, 1 to 4, or 0 for an unglazed opening (which "
+                     "transmits everything at every angle).",
+            "shaded_transmittance": "Transmittance at normal incidence with the operable "
+                                    "shading closed, at most transmittance. When given, "
+                                    "the sDA count closes the shading in the hours when "
+                                    "more than 2 % of the sensors get more than 1000 lx of "
+                                    "direct sun (IES LM-83-12).",
+        },
+    ),
+    "Grid": (
+        "Upward-facing sensors on a regular grid on the working plane. Every room must "
+        "get at least 4 sensors, on a plane between the floor and the ceiling.",
+        {
+            "height": "Height of the working plane above the floor, in metres; it must be "
+                      "below the ceiling.",
+            "spacing": "Distance between neighbouring sensors, in metres.",
+            "margin": "Distance kept free along the walls, in metres; the grid is centred "
+                      "in what is left.",
+            "floors": "For a mesh room: the OBJ groups that form the floor under the grid.",
+        },
+    ),
+    "Occupancy": (
+        "The occupied period, in local standard time. A time step counts as occupied when "
+        "it lies wholly inside the period.",
+        {
+            "start": "Start of the occupied period, \"HH:MM\" (quoted).",
+            "end": "End of the occupied period, \"HH:MM\" (quoted), after the start.",
+            "days": "weekdays (Monday to Friday) or all.",
+        },
+    ),
+    "MetricOptions": (
+        "Thresholds of the metrics.",
+        {
+            "daylight_autonomy": "Illuminance in lux that daylight autonomy counts "
+                                 "(daylight alone reaching at least this much).",
+            "udi_edges": "The three edges in lux of the useful daylight illuminance bands: "
+                         "too dark below the first, supplementary up to the second, "
+                         "autonomous up to the third, too bright above it.",
+            "sda_illuminance": "Illuminance in lux of spatial daylight autonomy (sDA).",
+            "sda_time_fraction": "Share of the analysis hours, in percent, for which a "
+                                 "sensor must reach the sDA illuminance.",
+            "ase_illuminance": "Direct-sun illuminance in lux of annual sunlight exposure "
+                               "(ASE).",
+            "ase_hours": "Number of analysis hours above the ASE illuminance that makes a "
+                         "sensor count as over-exposed.",
+        },
+    ),
+    "Compute": (
+        "Ray-tracing settings. Every key left out takes its default; all of them change "
+        "the daylight coefficients.",
+        {
+            "subdivision": "Sky subdivision: 1 is the Tregenza sky of 145 patches; n from 2 "
+                           "to 8 is the Reinhart subdivision n, with 144 n² + 1 patches "
+                           "(577 for n = 2).",
+            "sun_spacing": "Angular spacing in degrees between the sun points that the "
+                           "direct sun is interpolated from.",
+            "sky_rays_per_patch": "Rays traced per sky patch and sensor for the direct "
+                                  "sky light.",
+            "ground_rays": "Rays traced per sensor towards the ground.",
+            "element_size": "Size in metres of the surface elements used for reflected "
+                            "light.",
+            "element_rays": "Rays traced per surface element for reflected light.",
+            "sensor_rays": "Rays traced per sensor to gather reflected light.",
+            "reflected_sun_spacing": "Angular spacing in degrees of the coarser sun points "
+                                     "used for reflected sunlight.",
+            "seed": "Seed of the random ray directions (the same seed gives the same "
+                    "results).",
+        },
+    ),
+    "Rank": (
+        "Criteria that a variant must meet (require) and objectives to score the variants "
+        "that meet them (prefer).",
+        {
+            "require": "Criteria, each a metric with at_least or at_most.",
+            "prefer": "Objectives, each a metric with a goal (max or min) and a weight.",
+        },
+    ),
+    "Requirement": (
+        "A criterion: a per-variant metric and a bound.",
+        {
+            "metric": "The metric: sda, ase, udi_useful_mean, daylight_autonomy_mean, "
+                      "daylight_factor_mean, en17037_level or shading_hours.",
+            "at_least": "Lowest acceptable value (give this or at_most).",
+            "at_most": "Highest acceptable value (give this or at_least).",
+        },
+    ),
+    "Preference": (
+        "An objective for the score of the variants.",
+        {
+            "metric": "The metric: sda, ase, udi_useful_mean, daylight_autonomy_mean, "
+                      "daylight_factor_mean, en17037_level or shading_hours.",
+            "goal": "max to prefer high values, min to prefer low ones.",
+            "weight": "Weight of this objective in the score, 0 or more.",
+        },
+    ),
+}
+
+
+def _schema_default(model: str, name: str, prop: dict[str, Any]) -> Any:
+    """The default a left-out key takes (the kernel's for the ray-tracing settings)."""
+    if model == "Compute":
+        import dataclasses
+
+        from luxsweep.kernels.coefficients import Settings
+
+        return {f.name: f.default for f in dataclasses.fields(Settings)}[name]
+    return prop.get("default")
+
+
+def _plain(value: Any) -> str:
+    if isinstance(value, list | tuple):
+        return ", ".join(_plain(v) for v in value)
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, float) and value.is_integer():
+        return f"{value:g}"
+    if isinstance(value, str):
+        return f"\"{value}\""
+    return str(value)
+
+
 def json_schema() -> dict[str, Any]:
-    """JSON Schema of the study file (``luxsweep check --schema``)."""
+    """JSON Schema of the study file (``luxsweep check --schema``).
+
+    Titles and descriptions come from :data:`_SCHEMA_TEXT` (plain sentences);
+    every key with a default says it ("Default: ...") and carries it as
+    ``default`` (the ray-tracing settings with the kernel's values).
+    """
     schema = Study.model_json_schema()
+    models = {"Study": schema, **schema.get("$defs", {})}
+    for model, body in models.items():
+        text, fields = _SCHEMA_TEXT[model]
+        body["description"] = text
+        for name, prop in body.get("properties", {}).items():
+            description = fields[name]
+            default = _schema_default(model, name, prop)
+            if "Default:" in description or "Required for" in description:
+                pass
+            elif name in body.get("required", []):
+                description += " Required."
+            elif default is None:
+                description += " Optional; no default."
+            elif default in ({}, []):
+                description += " Default: none."
+            elif not isinstance(default, dict):
+                description += f" Default: {_plain(default)}."
+                prop["default"] = default
+            else:
+                description += " Default: every key at its own default."
+                if model == "Study" and name == "compute":
+                    prop["default"] = {k: _schema_default("Compute", k, {})
+                                       for k in default}
+            prop["description"] = description
     schema["title"] = "luxsweep study file"
     schema["$schema"] = "https://json-schema.org/draft/2020-12/schema"
     return schema

@@ -222,6 +222,66 @@ def test_json_schema_export():
     assert set(schema["required"]) >= {"name", "climates", "glazings"}
 
 
+def _schema_models(schema):
+    return {"Study": schema, **schema["$defs"]}
+
+
+def test_json_schema_describes_every_key_in_plain_sentences_with_its_default():
+    import dataclasses
+
+    from luxsweep.kernels.coefficients import Settings
+
+    schema = json_schema()
+    models = _schema_models(schema)
+    assert set(models) >= {"Study", "Room", "Window", "Grid", "Compute", "Glazing"}
+    texts = []
+    for model, body in models.items():
+        assert body.get("description"), model
+        texts.append(body["description"])
+        required = set(body.get("required", []))
+        for name, prop in body["properties"].items():
+            where = f"{model}.{name}"
+            text = prop.get("description", "")
+            assert text.endswith("."), where
+            texts.append(text)
+            default = prop.get("default")
+            # every key says whether it is required or what it defaults to
+            if name in required:
+                assert "Required" in text, where
+            elif default not in (None, [], {}) and not isinstance(default, dict):
+                shown = (f"{default:g}" if isinstance(default, float)
+                         else str(default).lower() if isinstance(default, bool)
+                         else ", ".join(f"{v:g}" for v in default)
+                         if isinstance(default, list) and isinstance(default[0], float)
+                         else None)
+                assert "Default:" in text, where
+                if shown is not None:
+                    assert f"Default: {shown}." in text, where
+            else:
+                assert ("Default:" in text or "Optional" in text
+                        or "Required for" in text), where
+    # plain sentences: no markup, no code paths, no files users do not have
+    for text in texts:
+        for bad in ("`", "**", ":class:", ":func:", "CONTRACT", "sweep.", "kernels.", "§",
+                    "MF:", "MF2", "<", "[deg]"):
+            assert bad not in text, (bad, text)
+    # the ray-tracing defaults are the kernel's own
+    kernel = {f.name: f.default for f in dataclasses.fields(Settings)}
+    for name, prop in models["Compute"]["properties"].items():
+        assert prop["default"] == kernel[name], name
+    assert schema["properties"]["compute"]["default"] == kernel
+    # conventions stated in words (README "Conventions and defaults")
+    orientation = schema["properties"]["orientation"]["description"]
+    for fragment in ("clockwise from north", "0 means the front facade faces north",
+                     "90 east", "180 south", "Default: 180."):
+        assert fragment in orientation
+    offset = models["Window"]["properties"]["offset"]["description"]
+    assert "centre of its wall" in offset and "plus x" in offset and "plus y" in offset
+    assert "x runs along the front wall" in schema["description"]
+    assert "Reinhart subdivision n, with 144 n² + 1 patches" in (
+        models["Compute"]["properties"]["subdivision"]["description"])
+
+
 def test_rank_metric_table_matches_store():
     from luxsweep.sweep.store import VARIANT_VARIABLES
 
