@@ -257,8 +257,10 @@ def test_resample_keeps_each_hours_mean_and_is_dark_at_night(sand_point):
         # file's hourly mean (the file's definition of the value); tolerance 1e-9
         # relative (float rounding only). TMY3 Sand Point has no all-dark sunlit hour.
         np.testing.assert_allclose(sub.reshape(-1, 4).mean(axis=1), hourly, rtol=1e-9, atol=1e-9)
-        assert (sub[altitude <= 0] == 0).all()
-        assert (sub >= 0).all()
+        known = np.isfinite(sub)  # Sand Point's 2-31 Jan illuminance is invalid (its unit)
+        assert known.sum() >= 0.9 * sub.size
+        assert (sub[known & (altitude <= 0)] == 0).all()
+        assert (sub[known] >= 0).all()
     assert resample(sand_point, 60) is sand_point
 
 
