@@ -1060,8 +1060,7 @@ _SCHEMA_TEXT: dict[str, tuple[str, dict[str, str]]] = {
                              "values, and so on) instead of in every combination.",
             "exclude": "Partial assignments of varied paths to values; a variant that "
                        "matches every entry of one of them is left out.",
-            "metrics": "Metric families to compute: daylight_factor, daylight_autonomy, "
-                       "udi, sda_ase and en17037.",
+            "metrics": f"Metric families to compute: {', '.join(METRIC_FAMILIES)}.",
             "metric_options": "Thresholds of the metrics.",
             "compute": "Ray-tracing settings; they change the daylight coefficients, so a "
                        "change recomputes them.",
@@ -1235,8 +1234,7 @@ _SCHEMA_TEXT: dict[str, tuple[str, dict[str, str]]] = {
     "Requirement": (
         "A criterion: a per-variant metric and a bound.",
         {
-            "metric": "The metric: sda, ase, udi_useful_mean, daylight_autonomy_mean, "
-                      "daylight_factor_mean, en17037_level or shading_hours.",
+            "metric": f"The metric, one of: {', '.join(RANK_METRICS)}.",
             "at_least": "Lowest acceptable value (give this or at_most).",
             "at_most": "Highest acceptable value (give this or at_least).",
         },
@@ -1244,8 +1242,7 @@ _SCHEMA_TEXT: dict[str, tuple[str, dict[str, str]]] = {
     "Preference": (
         "An objective for the score of the variants.",
         {
-            "metric": "The metric: sda, ase, udi_useful_mean, daylight_autonomy_mean, "
-                      "daylight_factor_mean, en17037_level or shading_hours.",
+            "metric": f"The metric, one of: {', '.join(RANK_METRICS)}.",
             "goal": "max to prefer high values, min to prefer low ones.",
             "weight": "Weight of this objective in the score, 0 or more.",
         },
