@@ -1067,7 +1067,15 @@ _SCHEMA_TEXT: dict[str, tuple[str, dict[str, str]]] = {
             "store_series": "Also keep the annual illuminance of every sensor and occupied "
                             "time step in the results store (large).",
             "rank": "Criteria and objectives for ranking the variants.",
+            "labels": "Names for the varied axes in tables and charts, by vary key (for "
+                      "example room.windows.0.width: window width [m]); presentation only.",
+            "project": "What the report's cover names: project, client, author, issue "
+                       "date and reference; presentation only.",
         },
+    ),
+    "Project": (
+        "What the report's cover names. Every field is optional free text.",
+        {},
     ),
     "Room": (
         "A parametric box room. Its interior spans x from 0 to width along the front wall, "
@@ -1286,7 +1294,10 @@ def json_schema() -> dict[str, Any]:
         text, fields = _SCHEMA_TEXT[model]
         body["description"] = text
         for name, prop in body.get("properties", {}).items():
-            description = fields[name]
+            description = fields.get(name) or prop.get("description")
+            if not description:
+                raise KeyError(f"no schema description for '{model}.{name}'; add it to "
+                               "_SCHEMA_TEXT")
             default = _schema_default(model, name, prop)
             if "Default:" in description or "Required for" in description:
                 pass
