@@ -207,8 +207,7 @@ def run_series(plan: Any, task: Any, results: Path, cache_root: Path) -> dict[st
     """Run the engine's own series task (sky → illuminance → metrics → store) in-process."""
     from luxsweep.sweep.run import series_task
 
-    n_store = max(len(s) for s in plan.sensors)
-    return series_task(task, list(task.members), str(results), str(cache_root), n_store)
+    return series_task(task, list(task.members), str(results), str(cache_root))
 
 
 # ---------------------------------------------------------------------------

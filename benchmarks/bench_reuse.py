@@ -40,13 +40,11 @@ TRANSMITTANCES = [0.7, 0.65, 0.6, 0.55, 0.5, 0.45, 0.4, 0.35, 0.3]
 def _forget_climates() -> None:
     """Drop what this process keeps per climate (a worker meeting a climate for the first
     time): the resampled records and step sun positions. The per-instant solar ephemeris
-    (``kernels.sun``) stays: every climate sits on the same reference year, so a worker
-    shares it between climates in a real sweep too."""
-    from luxsweep.kernels import sun
+    (``run.CLIMATE_STEPS.ephemeris``) stays: every climate sits on the same reference
+    year, so a worker shares it between climates in a real sweep too."""
     from luxsweep.sweep import run
 
-    run._CLIMATE_STEPS.clear()
-    sun._step_sun.cache_clear()
+    run.CLIMATE_STEPS.clear(ephemeris=False)
 
 
 def _task_seconds(folder: Path, cache: Path, name: str, vary: dict[str, list[Any]],

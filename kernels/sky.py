@@ -36,7 +36,6 @@ import numpy as np
 import pandas as pd
 import pvlib
 
-from luxsweep.kernels import buffers
 from luxsweep.kernels.errors import InputError
 
 # --------------------------------------------------------------------------------------
@@ -1171,8 +1170,14 @@ def sky_vectors(
     seed: int = 0,
     chunk: int = 64,
     sun_position: tuple[np.ndarray, np.ndarray] | None = None,
+    out: np.ndarray | None = None,
 ) -> SkyVectors:
     """Sky vectors (patch L Ω, ground) and sun weights of many orientations at once.
+
+    Four stages: the chosen steps and their sun (here), the sky's
+    illuminance and Perez coefficients (:func:`_sky_conditions`), the patch
+    values per orientation class (:func:`_fill_basis_sky`) and the sun points
+    with their weights (:func:`_sun_weights`).
 
     Parameters
     ----------
@@ -1203,6 +1208,11 @@ def sky_vectors(
         of ``kernels.sun.step_times(climate, step_minutes)[1]``). Callers that build
         the year in many ``steps`` chunks pass it to skip finding the sun times
         again on every call.
+    out : ndarray float32 (n_classes, n_patches + 1, n_steps), optional
+        Array that becomes ``basis_sky`` (every element is written), with
+        n_classes = :func:`orientation_class_count`; a fresh one when omitted.
+        Callers that run many blocks pass memory of their own to skip mapping
+        fresh pages each time.
 
     Returns
     -------
@@ -1239,8 +1249,7 @@ def sky_vectors(
     * Cost: pass a climate already resampled to ``step_minutes``
       (``kernels.sun.resample``) and ``sun_position`` when calling repeatedly
       with ``steps``; otherwise each call resamples and finds the year's
-      representative sun times again (about 1 s). The ``basis_sky`` array comes
-      from :func:`kernels.buffers.empty` (reused memory). Locating the sun
+      representative sun times again (about 1 s). Locating the sun
       among the sun points for every orientation is what remains per
       orientation (benchmarks/bench_series.py, docs/performance.md).
     """
@@ -1249,12 +1258,87 @@ def sky_vectors(
     clim = sunmod.resample(climate, step_minutes)
     idx = np.atleast_1d(np.arange(len(clim.time))[steps if steps is not None else slice(None)])
     if sun_position is None:
-        stamps = clim.time
         altitude, azimuth = (v[idx] for v in sunmod.step_sun(clim))
     else:
-        stamps = clim.time
         altitude, azimuth = (np.asarray(v, dtype=float)[idx] for v in sun_position)
-    stamps = stamps[idx]
+    stamps = clim.time[idx]
+    cond = _sky_conditions(clim, idx, stamps, altitude)
+    phi = np.atleast_1d(np.asarray(orientations, dtype=float))
+    sun_site = _direction(azimuth, altitude)
+    site_centres, site_band, site_az, site_of = _site_basis(scheme, phi)
+    klass, class_rows, basis_index = _orientation_classes(site_of)
+    shape = (len(class_rows), scheme.n_patches + 1, idx.size)
+    if out is None:
+        basis_sky = np.empty(shape, np.float32)
+    elif out.shape != shape or out.dtype != np.float32 or not out.flags.c_contiguous:
+        raise ValueError(f"out must be a C-contiguous float32 array of shape {shape}, "
+                         f"got {out.dtype} {out.shape}")
+    else:
+        basis_sky = out
+    _fill_basis_sky(basis_sky, scheme, cond, sun_site, site_centres, site_band, site_az,
+                    class_rows, refine_samples, seed, chunk)
+    basis_sky[:, scheme.n_patches, :] = (2.0 * ground_reflectance * cond.e_gh).astype(np.float32)
+    sun_index, sun_weight = _sun_weights(sun_points, sun_site, phi, cond.daylight, cond.e_dn)
+    return SkyVectors(
+        orientations=phi,
+        time=stamps,
+        sun_altitude=altitude,
+        daylight=cond.daylight,
+        basis_sky=basis_sky,
+        basis_index=basis_index,
+        orientation_class=klass,
+        sun_index=sun_index,
+        sun_weight=sun_weight,
+        global_horizontal_illuminance=cond.e_gh,
+        diffuse_horizontal_illuminance=cond.e_dh,
+        direct_normal_illuminance=cond.e_dn,
+    )
+
+
+def orientation_class_count(scheme: PatchScheme, orientations: Any) -> int:
+    """Number of orientation classes (first axis of ``SkyVectors.basis_sky``).
+
+    Parameters
+    ----------
+    scheme : PatchScheme
+    orientations : array_like (k,) [deg]
+
+    Returns
+    -------
+    int
+        Orientations whose patches land on the same site-frame directions
+        share one class (:class:`SkyVectors`).
+    """
+    phi = np.atleast_1d(np.asarray(orientations, dtype=float))
+    return len(_orientation_classes(_site_basis(scheme, phi)[3])[1])
+
+
+@dataclass(frozen=True, eq=False)
+class _Conditions:
+    """The sky of the chosen steps: what :func:`_fill_basis_sky` and the sun need.
+
+    ``e_dn``, ``e_dh``, ``e_gh`` [lx] are zero while the sun is down;
+    ``active`` marks the steps with a sky to fill (daylight and E_dh > 0);
+    ``coef`` float32 (5, n) are the Perez (1993) a…e of each step.
+    """
+
+    daylight: np.ndarray
+    active: np.ndarray
+    e_dn: np.ndarray
+    e_dh: np.ndarray
+    e_gh: np.ndarray
+    coef: np.ndarray
+
+
+def _sky_conditions(clim: Any, idx: np.ndarray, stamps: pd.DatetimeIndex,
+                    altitude: np.ndarray) -> _Conditions:
+    """Illuminance and Perez (1993) coefficients of the steps ``idx`` of a climate.
+
+    Illuminance from :func:`_illuminance_inputs`; ε and Δ from irradiance
+    (Perez et al. 1990). Where the irradiance is missing but illuminance exists,
+    the step takes the overcast bin with a mid-range brightness (ε = 1, Δ = 0.2;
+    a documented choice).
+    """
     zenith = 90.0 - altitude
     extra = np.asarray(pvlib.irradiance.get_extra_radiation(stamps), dtype=float)
     e_dn, e_dh = _illuminance_inputs(clim, idx, zenith, extra)
@@ -1265,23 +1349,28 @@ def sky_vectors(
     e_dn = np.where(daylight, e_dn, 0.0)
     e_dh = np.where(daylight, e_dh, 0.0)
     e_gh = e_dh + e_dn * np.sin(np.radians(np.maximum(altitude, 0.0)))
-
-    # ε, Δ from irradiance; where the irradiance is missing but illuminance exists,
-    # fall back to the overcast bin with a mid-range brightness (documented choice)
     eps = sky_clearness(dhi, dni, zenith)
     delta = sky_brightness(dhi, zenith, extra)
     missing = ~np.isfinite(eps) | ~np.isfinite(delta)
     eps = np.where(missing, 1.0, eps)
     delta = np.where(missing, 0.2, delta)
     coef = perez1993_coefficients(eps, delta, zenith).astype(np.float32)  # (5, n)
+    return _Conditions(daylight, active, e_dn, e_dh, e_gh, coef)
 
-    phi = np.atleast_1d(np.asarray(orientations, dtype=float))
-    n_k, n_t, n_p = phi.size, idx.size, scheme.n_patches
-    sun_site = _direction(azimuth, altitude)
 
-    # the sky on the distinct site-frame patches, then per orientation class
-    site_centres, site_band, site_az, site_of = _site_basis(scheme, phi)
-    klass, class_rows, basis_index = _orientation_classes(site_of)
+def _fill_basis_sky(
+    basis_sky: np.ndarray, scheme: PatchScheme, cond: _Conditions, sun_site: np.ndarray,
+    site_centres: np.ndarray, site_band: np.ndarray, site_az: np.ndarray,
+    class_rows: list[np.ndarray], refine_samples: int, seed: int, chunk: int,
+) -> None:
+    """Write L_j Ω_j [lx] of every patch of every orientation class into ``basis_sky``.
+
+    Evaluated once per distinct site-frame patch (``site_centres``), in chunks
+    of active steps; inactive steps get zeros. The ground row is left to the
+    caller. Normalised per step so that Σ_j C_j L_j Ω_j = E_dh with C_j the mean
+    sin(altitude) of patch j (see :func:`sky_vectors`, Notes).
+    """
+    n_p = scheme.n_patches
     band_start = scheme.band_start
     omega = scheme.solid_angle[band_start][site_band].astype(np.float32)
     mean_sin = patch_mean_sin_altitude(scheme)[band_start][site_band].astype(np.float32)
@@ -1290,10 +1379,10 @@ def sky_vectors(
     node_cos, node_w = _band_quadrature(scheme, 6)
     cos_radius = np.float32(np.cos(np.radians(REFINE_BANDS * scheme.band_edges[1])))
     sun_site32 = sun_site.astype(np.float32)
+    e_dh, coef = cond.e_dh, cond.coef
 
-    basis_sky = buffers.empty((len(class_rows), n_p + 1, n_t), np.float32)
-    basis_sky[:, :n_p, np.flatnonzero(~active)] = 0.0  # active steps are all written below
-    for t, runs in _active_chunks(active, chunk):
+    basis_sky[:, :n_p, np.flatnonzero(~cond.active)] = 0.0  # active steps are all written below
+    for t, runs in _active_chunks(cond.active, chunk):
         a, b, c, d, e = coef[:, t]
         # gradation: exact mean over each band (altitude only), times Ω
         grad_band = (_perez_gradation(node_cos[:, :, None], a, b) * node_w[:, :, None]).sum(1)
@@ -1321,8 +1410,16 @@ def sky_vectors(
             for lo, hi, first in runs:
                 np.multiply(part[:, lo:hi], scale[lo:hi],
                             out=basis_sky[cls, :n_p, first : first + hi - lo])
-    basis_sky[:, n_p, :] = (2.0 * ground_reflectance * e_gh).astype(np.float32)
 
+
+def _sun_weights(sun_points: Any, sun_site: np.ndarray, phi: np.ndarray, daylight: np.ndarray,
+                 e_dn: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Sun points and weights × E_dn [lx] of every orientation (building frame).
+
+    Returns ``sun_index`` int32 and ``sun_weight`` float32 (k, n, 3); zero where
+    the sun is down. Building azimuth = site azimuth − φ + 180 (DEVELOPERS.md).
+    """
+    n_k, n_t = phi.size, daylight.size
     rot = np.radians(180.0 - phi)  # building azimuth = site azimuth − φ + 180
     c_r, s_r = np.cos(rot)[:, None], np.sin(rot)[:, None]
     sun_b = np.stack(
@@ -1340,20 +1437,7 @@ def sky_vectors(
         si, sw = sun_points.weights(sun_b[:, day].reshape(-1, 3))
         sun_index[:, day] = si.reshape(n_k, day.size, 3)
         sun_weight[:, day] = (sw.reshape(n_k, day.size, 3) * e_dn[day, None]).astype(np.float32)
-    return SkyVectors(
-        orientations=phi,
-        time=stamps,
-        sun_altitude=altitude,
-        daylight=daylight,
-        basis_sky=basis_sky,
-        basis_index=basis_index,
-        orientation_class=klass,
-        sun_index=sun_index,
-        sun_weight=sun_weight,
-        global_horizontal_illuminance=e_gh,
-        diffuse_horizontal_illuminance=e_dh,
-        direct_normal_illuminance=e_dn,
-    )
+    return sun_index, sun_weight
 
 
 def overcast_sky_vector(scheme: PatchScheme, ground_reflectance: float = 0.2) -> np.ndarray:

@@ -24,13 +24,16 @@ Interface notes: ``to_building_azimuth`` (azimuths) and ``to_building_frame``
 every record of a (possibly resampled) climate; ``resample`` returns a
 :class:`~kernels.climate.Climate` with ``interval = step_minutes``.
 
-Cost: the steps, sun times and sun positions of a (site, year, step) are worked
-out once per process and shared by ``step_times``, ``step_sun`` and
-``resample``; ``step_sun(resample(c, step))`` is the cheapest way to the
-positions (equal to ``solar_position`` of the sun times). ``solar_position``
-keeps the site-free part of the SPA per instant, so a second climate at a
-whole-hour UTC offset pays about a tenth for its regular steps. All of it is
-exact: the numbers are those of the direct computation, bit for bit.
+Cost: the module keeps no state. :func:`sun_steps` works out the stamps, sun
+times and sun positions of a (site, year, step) once; pass its result to
+``resample(..., steps=)`` instead of letting ``resample`` work them out again
+(``step_times`` and ``step_sun`` are its two halves). A caller that locates the
+sun for several climates may own an :class:`Ephemeris` and pass it to
+``sun_steps``/``solar_position``: it keeps the site-free part of the SPA per
+instant, so a second climate at a whole-hour UTC offset pays about a tenth for
+its regular steps (the engine keeps one per worker process, beside its
+climate entries). All of it is exact: the numbers are those of the direct
+computation, bit for bit.
 
 References
 ----------
@@ -47,6 +50,7 @@ from __future__ import annotations
 import dataclasses
 import functools
 import threading
+from dataclasses import dataclass
 from functools import cached_property
 
 import numpy as np
@@ -157,6 +161,7 @@ def solar_position(
     pressure: float | None = None,
     temperature: float = TEMPERATURE,
     delta_t: float | None = None,
+    ephemeris: Ephemeris | None = None,
 ) -> tuple[np.ndarray, np.ndarray]:
     """Apparent solar altitude and azimuth by the NREL SPA (through pvlib).
 
@@ -172,6 +177,9 @@ def solar_position(
         Air temperature for the refraction correction.
     delta_t : float [s], optional
         TT - UT1; default computed by pvlib from the year and month.
+    ephemeris : Ephemeris, optional
+        A caller-owned memo of the site-free part (used with the default ΔT
+        only); it never changes a number.
 
     Returns
     -------
@@ -188,12 +196,13 @@ def solar_position(
     pvlib's order, in two parts — the sun's geocentric place at an instant
     (sidereal time, right ascension, declination, parallax; nine tenths of the
     work, the same for every site) and its topocentric altitude and azimuth at
-    the site. The first part is kept per instant (:data:`_EPHEMERIS`), so
+    the site. With an ``ephemeris`` the first part is kept per instant, so
     climates whose steps fall on the same instants (sites with whole-hour UTC
     offsets) share it.
     """
     altitude, azimuth, _ = _solar_position(
-        _local(times, site), site, pressure=pressure, temperature=temperature, delta_t=delta_t
+        _local(times, site), site, pressure=pressure, temperature=temperature, delta_t=delta_t,
+        ephemeris=ephemeris,
     )
     return altitude, azimuth
 
@@ -234,18 +243,19 @@ def _solar_position(
     pressure: float | None = None,
     temperature: float = TEMPERATURE,
     delta_t: float | None = None,
-    keep: bool = True,
+    ephemeris: Ephemeris | None = None,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Apparent altitude, azimuth and airless altitude [deg] at tz-aware instants.
 
-    ``keep=False`` for one-off instants (probes of the sunlit test): their
-    places are not stored.
+    ``ephemeris`` (default ΔT only) looks up and keeps the site-free part.
     """
     if pressure is None:
         pressure = float(pvlib.atmosphere.alt2pres(site.elevation))
     unixtime = _unixtime(times)
-    if delta_t is None:
-        place = _EPHEMERIS(unixtime, _delta_t(times), keep)
+    if delta_t is None and ephemeris is not None:
+        place = ephemeris(unixtime, _delta_t(times))
+    elif delta_t is None:
+        place = _ephemeris(unixtime, _delta_t(times))
     else:
         place = _ephemeris(unixtime, delta_t)
     return _topocentric(place, site, pressure / 100.0, temperature)
@@ -309,13 +319,22 @@ def _topocentric(
     return e, spa.topocentric_azimuth_angle(gamma), e0
 
 
-class _EphemerisStore:
-    """:func:`_ephemeris` at pvlib's default ΔT, kept per instant (exact lookup, bounded).
+class Ephemeris:
+    """The sun's geocentric place at pvlib's default ΔT, kept per instant (exact, bounded).
 
-    Keys are the float unix times (sorted, unique); a stored place is used only
-    where both the unix time and the ΔT match exactly, so the store never
-    changes a number. Every climate is placed on the reference year, so sites
-    whose UTC offsets differ by whole steps evaluate the sun at the same instants.
+    A memo its owner creates and passes to :func:`solar_position` or
+    :func:`sun_steps` (the kernels keep none of their own; the engine owns one
+    per worker process). Keys are the float unix times (sorted, unique); a
+    stored place is used only where both the unix time and the ΔT match
+    exactly, so it never changes a number. Every climate is placed on the
+    reference year, so sites whose UTC offsets differ by whole steps evaluate
+    the sun at the same instants. Thread-safe (the arrays are replaced, never
+    changed in place).
+
+    Parameters
+    ----------
+    max_size : int
+        Instants kept; when full, the memo starts afresh.
     """
 
     def __init__(self, max_size: int = 400_000) -> None:
@@ -324,14 +343,15 @@ class _EphemerisStore:
         self.clear()
 
     def clear(self) -> None:
+        """Forget every stored place."""
         with self._lock:
             self._time, self._delta_t, self._place = np.empty(0), np.empty(0), np.empty((4, 0))
 
     def __len__(self) -> int:
         return self._time.size
 
-    def __call__(self, unixtime: np.ndarray, delta_t: np.ndarray, keep: bool = True) -> np.ndarray:
-        """The place (see :func:`_ephemeris`) at each instant; ``keep`` stores new ones."""
+    def __call__(self, unixtime: np.ndarray, delta_t: np.ndarray) -> np.ndarray:
+        """The place (see :func:`_ephemeris`) at each instant; new ones are stored."""
         with self._lock:  # the arrays are replaced, never changed in place
             time, stored_dt, stored = self._time, self._delta_t, self._place
         place = np.empty((4, unixtime.size))
@@ -343,8 +363,7 @@ class _EphemerisStore:
             miss = np.flatnonzero(~hit)
         if miss.size:
             place[:, miss] = _ephemeris(unixtime[miss], delta_t[miss])
-            if keep:
-                self._add(unixtime[miss], delta_t[miss], place[:, miss])
+            self._add(unixtime[miss], delta_t[miss], place[:, miss])
         return place
 
     def _add(self, unixtime: np.ndarray, delta_t: np.ndarray, place: np.ndarray) -> None:
@@ -362,9 +381,6 @@ class _EphemerisStore:
             self._place = np.insert(self._place, at, place[:, first], axis=1)
 
 
-_EPHEMERIS = _EphemerisStore()
-
-
 # --------------------------------------------------------------------------- time steps
 
 
@@ -378,6 +394,51 @@ def _check_step(interval: int, step_minutes: int) -> None:
             f"time step {step_minutes!r} min must be a whole number of minutes that divides "
             f"the weather records' interval of {interval} min (e.g. 60, 30, 20, 15, 10, 5)"
         )
+
+
+@dataclass(frozen=True, eq=False)
+class SunSteps:
+    """The time steps of a climate's year and the sun at each (:func:`sun_steps`).
+
+    Attributes
+    ----------
+    step_minutes : int [min]
+    stamps : pandas.DatetimeIndex
+        Step-ending stamps, local standard time.
+    sun_times : pandas.DatetimeIndex
+        Representative sun time of each step (see :func:`step_times`).
+    altitude, azimuth : ndarray [deg]
+        Apparent solar altitude and azimuth at the sun times.
+    """
+
+    step_minutes: int
+    stamps: pd.DatetimeIndex
+    sun_times: pd.DatetimeIndex
+    altitude: np.ndarray
+    azimuth: np.ndarray
+
+
+def sun_steps(climate: Climate, step_minutes: int, *,
+              ephemeris: Ephemeris | None = None) -> SunSteps:
+    """Stamps, representative sun times and sun positions of every step of the year.
+
+    Parameters
+    ----------
+    climate : Climate
+    step_minutes : int [min]
+        Must divide ``climate.interval``.
+    ephemeris : Ephemeris, optional
+        Caller-owned memo (see :class:`Ephemeris`).
+
+    Returns
+    -------
+    SunSteps
+        The rule of :func:`step_times`; positions equal
+        ``solar_position(sun_times, climate.site)`` bit for bit.
+    """
+    stamps, sun_times, altitude, azimuth = _step_sun(
+        *_step_key(climate, step_minutes), ephemeris=ephemeris)
+    return SunSteps(step_minutes, stamps, sun_times, altitude, azimuth)
 
 
 def step_times(climate: Climate, step_minutes: int) -> tuple[pd.DatetimeIndex, pd.DatetimeIndex]:
@@ -402,11 +463,10 @@ def step_times(climate: Climate, step_minutes: int) -> tuple[pd.DatetimeIndex, p
     -----
     With hourly steps the record stamped 12:00 (average over 11:00-12:00) takes
     the sun at 11:30 local standard time (common practice; DESIGN §2.4).
-    The steps, sun times and sun positions of a (site, year, step) are worked
-    out once per process (:func:`_step_sun`).
+    Computes the positions too (:func:`sun_steps` returns all of it).
     """
-    stamps, sun_times, _, _ = _step_sun(*_step_key(climate, step_minutes))
-    return stamps, sun_times
+    steps = sun_steps(climate, step_minutes)
+    return steps.stamps, steps.sun_times
 
 
 def step_sun(climate: Climate) -> tuple[np.ndarray, np.ndarray]:
@@ -423,17 +483,19 @@ def step_sun(climate: Climate) -> tuple[np.ndarray, np.ndarray]:
         One per record (see :func:`step_times`); equal to
         ``solar_position(step_times(climate, climate.interval)[1], climate.site)``.
     """
-    _, _, altitude, azimuth = _step_sun(*_step_key(climate, climate.interval))
-    return altitude.copy(), azimuth.copy()
+    steps = sun_steps(climate, climate.interval)
+    return steps.altitude, steps.azimuth
 
 
-def daylight_steps(climate: Climate) -> np.ndarray:
+def daylight_steps(climate: Climate, steps: SunSteps | None = None) -> np.ndarray:
     """The steps that count as EN 17037 daylight hours: sun up at the middle of the step.
 
     Parameters
     ----------
     climate : Climate
         Hourly or resampled (:func:`resample`); its own interval is the step.
+    steps : SunSteps, optional
+        ``sun_steps(climate, climate.interval)`` when the caller has it already.
 
     Returns
     -------
@@ -458,11 +520,11 @@ def daylight_steps(climate: Climate) -> np.ndarray:
     4,788 daylight steps at Greensboro and diluted every EN 17037 time share by
     about 8 %.
     """
-    stamps, sun_times = step_times(climate, climate.interval)
-    altitude, _ = step_sun(climate)
-    middle = stamps - pd.Timedelta(minutes=climate.interval) / 2
-    up = altitude > 0.0
-    moved = np.flatnonzero(np.asarray(sun_times != middle))  # sunrise and sunset steps
+    if steps is None:
+        steps = sun_steps(climate, climate.interval)
+    middle = steps.stamps - pd.Timedelta(minutes=climate.interval) / 2
+    up = steps.altitude > 0.0
+    moved = np.flatnonzero(np.asarray(steps.sun_times != middle))  # sunrise and sunset steps
     if moved.size:
         up[moved] = solar_position(middle[moved], climate.site)[0] > 0.0
     return up
@@ -480,13 +542,13 @@ _HOUR_ANGLE_RATE = 7.3e-5
 plus the drift of the equation of time (< 1e-3 of it) and margin."""
 
 
-@functools.lru_cache(maxsize=8)
 def _step_sun(
-    site: Site, start: pd.Timestamp, n: int, step_minutes: int
+    site: Site, start: pd.Timestamp, n: int, step_minutes: int, *,
+    ephemeris: Ephemeris | None = None,
 ) -> tuple[pd.DatetimeIndex, pd.DatetimeIndex, np.ndarray, np.ndarray]:
     """Stamps, sun times, apparent altitude and azimuth [deg] of ``n`` steps from ``start``.
 
-    The rule of :func:`step_times`, worked out with four savings that leave
+    The rule of :func:`step_times`, worked out with three savings that leave
     every number as the direct computation (SPA at every step boundary, 14
     bisections per sunrise and sunset step, SPA at every sun time) gives it:
 
@@ -513,8 +575,9 @@ def _step_sun(
        computed. Unconfirmed steps (a poor estimate) are bisected as before.
     3. The sun at a mid-step is the same whether or not the step holds sunrise;
        only the sunrise and sunset steps are recomputed.
-    4. Results are kept per (site, start, n, step): resampling and the sun
-       positions of a resampled climate ask for the same steps.
+
+    Nothing is kept: callers that need the steps again keep the result
+    (:func:`sun_steps`, ``resample(..., steps=)``).
     """
     step = pd.Timedelta(minutes=step_minutes)
     width = 60.0 * step_minutes  # [s]
@@ -522,7 +585,8 @@ def _step_sun(
     t0 = np.arange(n) * width  # [s] from start
     t1 = t0 + width
     mid = 0.5 * (t0 + t1)
-    altitude, azimuth, airless = _solar_position(_sun_times(start, mid), site)
+    altitude, azimuth, airless = _solar_position(_sun_times(start, mid), site,
+                                                 ephemeris=ephemeris)
     z = np.sin(np.radians(airless))
 
     lit = _lit_boundaries(start, site, width, z)
@@ -534,7 +598,8 @@ def _step_sun(
         mid[cross] = np.where(rising, 0.5 * (t_cross + t1[cross]), 0.5 * (t0[cross] + t_cross))
     sun_times = _sun_times(start, mid)
     if cross.size:
-        altitude[cross], azimuth[cross], _ = _solar_position(sun_times[cross], site)
+        altitude[cross], azimuth[cross], _ = _solar_position(sun_times[cross], site,
+                                                             ephemeris=ephemeris)
     return stamps, sun_times, altitude, azimuth
 
 
@@ -546,7 +611,7 @@ def _sun_times(start: pd.Timestamp, seconds: np.ndarray) -> pd.DatetimeIndex:
 def _apparent(start: pd.Timestamp, site: Site, seconds: np.ndarray) -> np.ndarray:
     """Apparent altitude [deg] at instants ``seconds`` after ``start`` (one-off probes)."""
     times = pd.DatetimeIndex(start + pd.to_timedelta(seconds, unit="s"))
-    return _solar_position(times, site, keep=False)[0]
+    return _solar_position(times, site)[0]
 
 
 def _lit_boundaries(start: pd.Timestamp, site: Site, width: float, z: np.ndarray) -> np.ndarray:
@@ -693,7 +758,7 @@ def _bisect(
     return a, b
 
 
-def resample(climate: Climate, step_minutes: int) -> Climate:
+def resample(climate: Climate, step_minutes: int, *, steps: SunSteps | None = None) -> Climate:
     """Sub-hourly climate records by time interpolation.
 
     Parameters
@@ -702,6 +767,9 @@ def resample(climate: Climate, step_minutes: int) -> Climate:
         Records averaged over the interval ending at their stamp.
     step_minutes : int [min]
         Must divide ``climate.interval``; equal to it returns ``climate`` itself.
+    steps : SunSteps, optional
+        ``sun_steps(climate, step_minutes)`` when the caller has it already
+        (otherwise worked out here).
 
     Returns
     -------
@@ -725,7 +793,12 @@ def resample(climate: Climate, step_minutes: int) -> Climate:
         return climate
     k = climate.interval // step_minutes
     n_rec = len(climate)
-    stamps, _, altitude, _ = _step_sun(*_step_key(climate, step_minutes))
+    if steps is None:
+        steps = sun_steps(climate, step_minutes)
+    elif steps.step_minutes != step_minutes or len(steps.stamps) != len(climate) * k:
+        raise ValueError(f"steps were worked out for {len(steps.stamps)} steps of "
+                         f"{steps.step_minutes} min, not this climate at {step_minutes} min")
+    stamps, altitude = steps.stamps, steps.altitude
     dark = altitude <= 0
     x_rec = (np.arange(n_rec) + 0.5) * climate.interval  # [min] from the year's start
     x_step = (np.arange(n_rec * k) + 0.5) * step_minutes
@@ -1061,7 +1134,9 @@ def _stereographic(v: np.ndarray) -> np.ndarray:
 __all__ = [
     "DEFAULT_SPACING",
     "TEMPERATURE",
+    "Ephemeris",
     "SunPoints",
+    "SunSteps",
     "azimuth_altitude",
     "daylight_steps",
     "direction",
@@ -1069,6 +1144,7 @@ __all__ = [
     "solar_position",
     "step_sun",
     "step_times",
+    "sun_steps",
     "to_building_azimuth",
     "to_building_frame",
 ]

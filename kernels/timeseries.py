@@ -33,8 +33,6 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 from scipy import sparse
 
-from luxsweep.kernels import buffers
-
 if TYPE_CHECKING:
     from luxsweep.kernels.coefficients import CoefficientSet
 
@@ -124,7 +122,8 @@ def _sun_part(index: np.ndarray, weight: np.ndarray, live: np.ndarray, n_sun: in
     return steps, matrix
 
 
-def unit_illuminance(coeffs: CoefficientSet, sky: Any) -> tuple[np.ndarray, np.ndarray]:
+def unit_illuminance(coeffs: CoefficientSet, sky: Any, *,
+                     out: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Illuminance of every glazing set at unit normal transmittance, time-major.
 
     Parameters
@@ -133,6 +132,10 @@ def unit_illuminance(coeffs: CoefficientSet, sky: Any) -> tuple[np.ndarray, np.n
         Daylight coefficients (unit normal transmittance) of one geometry.
     sky : kernels.sky.SkyVectors
         Sky vectors of the same patch scheme and sun points as ``coeffs``.
+    out : ndarray float32 (n_orient, n_sets, n_steps, n_sensors), optional
+        Array to write ``total`` into (every element is written); a fresh one
+        when omitted. Callers that run many blocks pass memory of their own to
+        skip mapping fresh pages each time.
 
     Returns
     -------
@@ -149,9 +152,9 @@ def unit_illuminance(coeffs: CoefficientSet, sky: Any) -> tuple[np.ndarray, np.n
     the orientation's rows gathered from its class's sky
     (:class:`kernels.sky.SkyVectors`); the sun is one sparse product over the
     steps whose sun points reach the room (three weights per step). Time-major
-    output keeps both products free of transposes; ``total`` comes from
-    :func:`kernels.buffers.empty`, ``direct_sun`` is freshly zeroed (untouched
-    zero pages are free, and most steps light no sensor directly).
+    output keeps both products free of transposes; ``direct_sun`` is freshly
+    zeroed (untouched zero pages are free, and most steps light no sensor
+    directly).
     """
     n_sets, n_sensors, n_basis = coeffs.sky_direct.shape
     basis_index = np.asarray(sky.basis_index)
@@ -164,7 +167,7 @@ def unit_illuminance(coeffs: CoefficientSet, sky: Any) -> tuple[np.ndarray, np.n
     basis_sky = sky.basis_sky
     n_orient, n_steps = basis_index.shape[0], basis_sky.shape[2]
     n_sun = arranged.sun_t.shape[1]
-    total = buffers.empty((n_orient, n_sets, n_steps, n_sensors), np.float32)
+    total = _out(out, (n_orient, n_sets, n_steps, n_sensors))
     # zero pages cost nothing until written: most steps have no direct sun in the room
     direct = np.zeros((n_orient, n_sets, n_steps, n_sensors), np.float32)
     rows = np.empty((arranged.columns.size, n_steps), dtype=np.float32)
@@ -181,6 +184,16 @@ def unit_illuminance(coeffs: CoefficientSet, sky: Any) -> tuple[np.ndarray, np.n
                 total[o, g, steps] += matrix @ arranged.sun_t[g]
                 direct[o, g, steps] = matrix @ arranged.direct_t[g]
     return total, direct
+
+
+def _out(out: np.ndarray | None, shape: tuple[int, ...]) -> np.ndarray:
+    """A fresh float32 array of ``shape``, or ``out`` checked to be one (C order)."""
+    if out is None:
+        return np.empty(shape, np.float32)
+    if out.shape != shape or out.dtype != np.float32 or not out.flags.c_contiguous:
+        raise ValueError(f"out must be a C-contiguous float32 array of shape {shape}, "
+                         f"got {out.dtype} {out.shape}")
+    return out
 
 
 def combine(unit: np.ndarray, transmittances: np.ndarray) -> np.ndarray:

@@ -244,8 +244,7 @@ def test_series_task_is_bit_identical_whatever_the_callers_blas_threads(finished
     zarr.open_group(str(out), mode="r+")["done"][:] = False
     task = max(plan.tasks, key=lambda t: len(t.members))
     with threadpool_limits(limits=2, user_api="blas"):
-        series_task(task, list(task.members), str(results), str(cache.root),
-                    max(len(s) for s in plan.sensors))
+        series_task(task, list(task.members), str(results), str(cache.root))
     got, want = zarr.open_group(str(out), mode="r"), zarr.open_group(str(folder / "r.zarr"))
     rows = [vi for vi, _, _ in task.members]
     assert got["done"][:][rows].all()

@@ -41,9 +41,8 @@ def _pvlib(times, site, pressure=None, temperature=TEMPERATURE, delta_t=None):
 
 @pytest.fixture
 def fresh_store():
-    sun._EPHEMERIS.clear()
-    yield sun._EPHEMERIS
-    sun._EPHEMERIS.clear()
+    """An ephemeris memo of the test's own (the kernels keep none)."""
+    return sun.Ephemeris()
 
 
 UNITS = ["s", "us", "ns"]
@@ -61,7 +60,7 @@ def test_bit_identical_to_pvlib_fresh_and_stored(site, unit, fresh_store):
     ).as_unit(unit)
     ref_alt, ref_az = _pvlib(times, site)
     for _ in range(2):  # fresh, then every instant from the store
-        altitude, azimuth = solar_position(times, site)
+        altitude, azimuth = solar_position(times, site, ephemeris=fresh_store)
         np.testing.assert_array_equal(altitude, ref_alt)
         np.testing.assert_array_equal(azimuth, ref_az)
     assert len(fresh_store) == len(np.unique(times))
@@ -72,8 +71,10 @@ def test_options_and_naive_times_match_pvlib(fresh_store):
     # straight to the SPA (the SPA report's example values: 820 mbar, 11 degC, 67 s)
     site = SITES[0]
     times = pd.date_range("2023-06-01 00:30", periods=500, freq="37min")
-    for kwargs in ({}, {"delta_t": 67.0}, {"pressure": 82000.0, "temperature": 11.0}):
+    for kwargs in ({}, {"delta_t": 67.0}, {"pressure": 82000.0, "temperature": 11.0},
+                   {"ephemeris": fresh_store}):
         altitude, azimuth = solar_position(times, site, **kwargs)
+        kwargs.pop("ephemeris", None)
         ref_alt, ref_az = _pvlib(times, site, **kwargs)
         np.testing.assert_array_equal(altitude, ref_alt)
         np.testing.assert_array_equal(azimuth, ref_az)
@@ -86,15 +87,16 @@ def test_store_is_shared_by_sites_and_bounded(fresh_store):
     hours = np.arange(2000) * 3600.0 + 1800.0
     times_a = pd.Timestamp("2023-01-01", tz=a.tz) + pd.to_timedelta(hours, unit="s")
     times_b = pd.Timestamp("2023-01-01 04:00", tz=b.tz) + pd.to_timedelta(hours, unit="s")
-    solar_position(times_a, a)
+    solar_position(times_a, a, ephemeris=fresh_store)
     stored = len(fresh_store)
-    altitude, azimuth = solar_position(times_b, b)
+    assert stored == 2000
+    altitude, azimuth = solar_position(times_b, b, ephemeris=fresh_store)
     assert len(fresh_store) == stored  # same UTC instants: nothing new
     ref_alt, ref_az = _pvlib(times_b, b)
     np.testing.assert_array_equal(altitude, ref_alt)
     np.testing.assert_array_equal(azimuth, ref_az)
     # bounded: a small store starts afresh instead of growing, and stays exact
-    small = sun._EphemerisStore(max_size=1000)
+    small = sun.Ephemeris(max_size=1000)
     unixtime = sun._unixtime(times_a)
     delta_t = sun._delta_t(times_a)
     for lo in range(0, 2000, 700):

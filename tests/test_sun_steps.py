@@ -86,8 +86,6 @@ def _direct(climate, step_minutes):
 )  # fmt: skip
 def test_same_sun_times_and_positions_as_the_direct_rule(where, step, sand_point):
     climate = _at(SITES[where], sand_point)
-    sun._step_sun.cache_clear()
-    sun._EPHEMERIS.clear()
     stamps, sun_times = step_times(climate, step)
     altitude, azimuth = step_sun(resample(climate, step))
     ref_stamps, ref_times, ref_alt, ref_az = _direct(climate, step)
@@ -129,18 +127,22 @@ def test_boundary_interpolation_within_its_bound(where, step, sand_point):
     assert np.abs(linear - z_edge[1:-1]).max() <= w**2 / 8.0
 
 
-def test_steps_are_worked_out_once(sand_point):
-    # resampling and the positions of the resampled climate ask for the same steps
-    sun._step_sun.cache_clear()
-    r = resample(sand_point, 15)
-    step_sun(r)
-    step_times(r, 15)
-    info = sun._step_sun.cache_info()
-    assert (info.misses, info.hits) == (1, 2)
-    # callers get their own arrays: changing them leaves the kept ones intact
-    altitude, _ = step_sun(r)
-    altitude[:] = -1.0
-    assert (step_sun(r)[0] != -1.0).any()
+def test_steps_worked_out_once_serve_resampling_and_positions(sand_point):
+    # the caller keeps sun_steps and hands it to resample: the same climate as letting
+    # resample work the steps out itself, and the same positions as step_sun of it;
+    # an ephemeris memo changes no number
+    steps = sun.sun_steps(sand_point, 15, ephemeris=sun.Ephemeris())
+    r = resample(sand_point, 15, steps=steps)
+    alone = resample(sand_point, 15)
+    for name in ("ghi", "dni", "dhi", "direct_illuminance", "diffuse_illuminance"):
+        np.testing.assert_array_equal(getattr(r, name), getattr(alone, name), err_msg=name)
+    assert r.time.equals(alone.time) and steps.stamps.equals(r.time)
+    altitude, azimuth = step_sun(r)
+    np.testing.assert_array_equal(steps.altitude, altitude)
+    np.testing.assert_array_equal(steps.azimuth, azimuth)
+    # steps of another step length are refused, not silently used
+    with pytest.raises(ValueError, match="steps were worked out"):
+        resample(sand_point, 30, steps=steps)
 
 
 def test_a_poor_estimate_costs_time_not_results(sand_point, monkeypatch):
@@ -157,8 +159,6 @@ def test_a_poor_estimate_costs_time_not_results(sand_point, monkeypatch):
     bisected = []
     real_bisect = sun._bisect
     monkeypatch.setattr(sun, "_bisect", lambda *a: bisected.append(a[2].size) or real_bisect(*a))
-    sun._step_sun.cache_clear()
     _, sun_times = step_times(climate, 60)
-    sun._step_sun.cache_clear()
     assert sum(bisected) > 100  # the fallback did run
     assert sun_times.equals(_direct(climate, 60)[1])
