@@ -64,12 +64,12 @@ class ShapeRecorder:
 
         self._original = ts.unit_illuminance
 
-        def wrapper(coeffs: Any, sky: Any) -> Any:
+        def wrapper(coeffs: Any, sky: Any, **kwargs: Any) -> Any:
             n_o, n_b = np.shape(sky.basis_index)
             n_t = np.shape(sky.basis_sky)[2]
             self.calls.append((coeffs.n_sensors, n_b, n_o, n_t, len(coeffs.glazing_sets)))
             t0 = time.perf_counter()
-            out = self._original(coeffs, sky)
+            out = self._original(coeffs, sky, **kwargs)
             self.seconds += time.perf_counter() - t0
             return out
 
