@@ -41,8 +41,9 @@ Conventions (shared by both readers)
 * **Implausible illuminance columns.** Some files carry illuminance columns
   filled with zeros or in the wrong unit (pvlib's bundled Greensboro TMY3 file
   holds them in units of 100 lx). A column whose median luminous efficacy
-  (illuminance / irradiance, over records with irradiance > 50 W/m²) lies
-  outside 50–250 lm/W is marked invalid as a whole, with a warning; downstream
+  (illuminance / irradiance, over records with irradiance > 20 W/m²,
+  :data:`EFFICACY_MIN_IRRADIANCE`) lies outside 50–250 lm/W
+  (:data:`PLAUSIBLE_EFFICACY`) is marked invalid as a whole, with a warning; downstream
   the Perez et al. (1990) efficacy model then converts irradiance. Daylight
   efficacies lie near 90–130 lm/W (common practice; Perez et al. 1990).
 * **Illuminance in the wrong unit on some days.** A file may change unit
@@ -99,12 +100,22 @@ QUANTITIES = (
 IRRADIANCE = ("ghi", "dni", "dhi")
 ILLUMINANCE = ("global_illuminance", "direct_illuminance", "diffuse_illuminance")
 
-# efficacy bounds [lm/W] for the whole-column plausibility check (see module docstring)
-_EFFICACY_RANGE = (50.0, 250.0)
-_EFFICACY_MIN_IRRADIANCE = 50.0  # [W/m2]
-_EFFICACY_JUDGED_IRRADIANCE = 20.0  # [W/m2]: records that judge a day's unit (see _judge_days)
+PLAUSIBLE_EFFICACY = (50.0, 250.0)
+"""Luminous efficacy [lm/W] within which a weather file's illuminance is believed.
+
+The one definition for both checks: a whole illuminance column whose median
+efficacy lies outside is ignored (here), and a single step's value outside it
+is replaced by the Perez et al. (1990) model (:func:`kernels.sky.sky_vectors`).
+Daylight efficacies lie near 90–150 lm/W (common practice); the bundled TMY3
+file of Sand Point AK stores about a tenth of its records in hundreds of lux."""
+
+EFFICACY_MIN_IRRADIANCE = 20.0
+"""Irradiance [W/m²] above which efficacy is judged (both checks); below it the
+ratio of whole-W/m² irradiance and illuminance is too coarse to judge."""
+
 # [lm/W] a day (or a lone dim record) is in lux when its median efficacy lies here: a
 # factor-of-100 unit error gives 0.3-2.6, real days of pvlib's Sand Point year 35-262
+# (see _judge_days; the day's records above EFFICACY_MIN_IRRADIANCE judge it)
 _UNIT_RANGE = (10.0, 1000.0)
 _ROUNDING = 1.0  # [W/m2] files store whole W/m2; allowance above the extraterrestrial bound
 
@@ -843,18 +854,18 @@ def _build_climate(
 
     dropped = []
     for lux, watt in zip(ILLUMINANCE, IRRADIANCE, strict=True):
-        ok = valid[lux] & valid[watt] & (values[watt] > _EFFICACY_MIN_IRRADIANCE)
+        ok = valid[lux] & valid[watt] & (values[watt] > EFFICACY_MIN_IRRADIANCE)
         if not ok.any():
             continue
         efficacy = float(np.median(values[lux][ok] / values[watt][ok]))
-        if not _EFFICACY_RANGE[0] <= efficacy <= _EFFICACY_RANGE[1]:
+        if not PLAUSIBLE_EFFICACY[0] <= efficacy <= PLAUSIBLE_EFFICACY[1]:
             dropped.append(f"'{field_names[lux]}' ({efficacy:.3g} lm/W)")
             valid[lux] = np.zeros_like(valid[lux])
             values[lux] = np.full_like(values[lux], np.nan)
     if dropped:
         warnings.warn(
             f"{source}: median luminous efficacy of {', '.join(dropped)} is outside "
-            f"{_EFFICACY_RANGE[0]:g}-{_EFFICACY_RANGE[1]:g} lm/W (wrong unit or placeholder "
+            f"{PLAUSIBLE_EFFICACY[0]:g}-{PLAUSIBLE_EFFICACY[1]:g} lm/W (wrong unit or placeholder "
             "values); these columns are ignored and illuminance is modelled from irradiance",
             stacklevel=4,
         )
@@ -895,7 +906,7 @@ def _judge_days(values: dict[str, np.ndarray],
     January in hundreds of lux and the other months in lux), so every day of
     every illuminance column still valid is judged on its own: by the median
     luminous efficacy of its records with more than
-    :data:`_EFFICACY_JUDGED_IRRADIANCE` W/m² (outside :data:`_UNIT_RANGE`:
+    :data:`EFFICACY_MIN_IRRADIANCE` W/m² (outside :data:`_UNIT_RANGE`:
     the whole day is not in lux, dim records included, which alone cannot
     tell 21 lx from 21 hundred lux); a day without such a record is judged
     record by record, a positive value being in lux when its efficacy lies in
@@ -921,7 +932,7 @@ def _judge_days(values: dict[str, np.ndarray],
         w = values[watt].reshape(-1, 24)
         both = (valid[lux] & valid[watt]).reshape(-1, 24)
         with np.errstate(divide="ignore", invalid="ignore"):
-            k = np.where(both & (w > _EFFICACY_JUDGED_IRRADIANCE), e / w, np.nan)
+            k = np.where(both & (w > EFFICACY_MIN_IRRADIANCE), e / w, np.nan)
         judged = np.isfinite(k).any(axis=1)
         median = np.full(len(k), np.nan)
         median[judged] = np.nanmedian(k[judged], axis=1)
@@ -997,7 +1008,9 @@ def _text_and_source(path_or_buffer: str | os.PathLike | IO[str]) -> tuple[str, 
 
 __all__ = [
     "ACCEPTED_FORMATS",
+    "EFFICACY_MIN_IRRADIANCE",
     "EPW_FIELDS",
+    "PLAUSIBLE_EFFICACY",
     "QUANTITIES",
     "REFERENCE_YEAR",
     "Climate",

@@ -273,3 +273,14 @@ def relative_transmittance(cos_incidence: np.ndarray, panes: int) -> np.ndarray:
     if panes == 0:
         return np.ones_like(c)
     return _transmittance(c, panes) / _transmittance(1.0, panes)
+
+
+__all__ = [
+    "REFERENCE_ABSORPTION",
+    "REFRACTIVE_INDEX",
+    "fit_absorption",
+    "fresnel_reflectance",
+    "glazing_optics",
+    "relative_transmittance",
+    "transmittance_fresnel",
+]

@@ -19,7 +19,8 @@ Contents
 * luminous efficacy: :func:`sky_clearness`, :func:`sky_brightness`,
   :func:`clearness_bin`, :func:`precipitable_water`, :func:`efficacy_perez1990`;
 * sky luminance: :func:`luminance_perez1993`, :func:`perez1993_coefficients`,
-  :func:`luminance_cie`, :func:`luminance_cie_overcast`, :func:`sky_luminance`;
+  :func:`luminance_cie`, :func:`luminance_cie_overcast` (sky vectors use
+  Perez 1993; the CIE models are called directly — the sweep offers no choice);
 * sky vectors: :class:`SkyVectors`, :func:`sky_vectors`,
   :func:`overcast_sky_vector`.
 """
@@ -36,6 +37,7 @@ import numpy as np
 import pandas as pd
 import pvlib
 
+from luxsweep.kernels.climate import EFFICACY_MIN_IRRADIANCE, PLAUSIBLE_EFFICACY
 from luxsweep.kernels.errors import InputError
 
 # --------------------------------------------------------------------------------------
@@ -47,10 +49,6 @@ TREGENZA_BAND_COUNTS = (30, 30, 24, 24, 18, 12, 6)
 
 TREGENZA_BAND_WIDTH = 12.0
 """Altitude width of a Tregenza band [deg]; the polar cap has a 6° radius."""
-
-GROUND_SOLID_ANGLE = 2.0 * math.pi
-"""Solid angle of the ground basis (the lower hemisphere) [sr]."""
-
 
 @dataclass(frozen=True, eq=False)
 class PatchScheme:
@@ -866,51 +864,9 @@ def luminance_cie_overcast(directions: np.ndarray) -> np.ndarray:
     return (1.0 + 2.0 * np.asarray(directions, dtype=float)[..., 2]) / 3.0
 
 
-SKY_MODELS = ("perez1993", "cie", "cie_overcast")
-"""Names accepted by :func:`sky_luminance`."""
-
-
-def sky_luminance(model: str, directions: np.ndarray, **params: Any) -> np.ndarray:
-    """Dispatch to a sky luminance model by name.
-
-    Parameters
-    ----------
-    model : str
-        ``"perez1993"`` (params: sun_direction, epsilon, delta, zenith,
-        optional diffuse_illuminance), ``"cie"`` (sky_type, sun_direction) or
-        ``"cie_overcast"`` (none).
-    directions : ndarray (n, 3)
-    **params
-        The model's parameters.
-
-    Returns
-    -------
-    ndarray
-        The model's luminance (see each function).
-    """
-    if model == "perez1993":
-        return luminance_perez1993(directions, **params)
-    if model == "cie":
-        return luminance_cie(params.pop("sky_type"), directions, **params)
-    if model == "cie_overcast":
-        return luminance_cie_overcast(directions, **params)
-    raise InputError(
-        f"unknown sky model {model!r}; valid models are: {', '.join(SKY_MODELS)}",
-        field="sky model",
-    )
-
-
 # --------------------------------------------------------------------------------------
 # Sky vectors
 # --------------------------------------------------------------------------------------
-
-PLAUSIBLE_EFFICACY = (50.0, 250.0)
-"""Range [lm/W] of luminous efficacy within which a weather file's illuminance is
-used for a step (where the irradiance exceeds 20 W/m²); outside it the step's
-illuminance is modelled (Perez 1990). Daylight efficacies lie near 90–150 lm/W
-(common practice); the bundled TMY3 file of Sand Point AK stores about a tenth
-of its records in hundreds of lux, which this guard catches."""
-
 
 @dataclass(frozen=True, eq=False)
 class SkyVectors:
@@ -1151,7 +1107,7 @@ def _illuminance_inputs(
         ok = np.asarray(climate.valid.get(lux_name, np.isfinite(lux)))[idx] & np.isfinite(lux)
         with np.errstate(divide="ignore", invalid="ignore"):
             k = lux / watt
-        judged = watt > 20.0
+        judged = watt > EFFICACY_MIN_IRRADIANCE
         ok &= ~judged | ((k >= PLAUSIBLE_EFFICACY[0]) & (k <= PLAUSIBLE_EFFICACY[1]))
         out.append(np.where(ok, lux, model))
     return out[0], out[1]
@@ -1243,7 +1199,8 @@ def sky_vectors(
       representative sun of a step is the middle of its sunlit part, so only
       fully dark steps; twilight light is dropped, common practice).
     * Illuminance: the file's direct normal and diffuse horizontal values where
-      valid and plausible (:data:`PLAUSIBLE_EFFICACY`), else
+      valid and plausible (``kernels.climate.PLAUSIBLE_EFFICACY`` above
+      ``EFFICACY_MIN_IRRADIANCE``), else
       :func:`efficacy_perez1990`. Where the irradiance needed for ε and Δ is
       missing, the step's sky takes the overcast bin (ε = 1, Δ = 0.2).
     * Cost: pass a climate already resampled to ``step_minutes``
@@ -1472,3 +1429,34 @@ def overcast_sky_vector(scheme: PatchScheme, ground_reflectance: float = 0.2) ->
     vec[:-1] = lo / (lo @ mean_sin)
     vec[-1] = 2.0 * ground_reflectance
     return vec
+
+
+__all__ = [
+    "CIE_GRADATION",
+    "CIE_INDICATRIX",
+    "CIE_SKY_TYPES",
+    "CLEARNESS_BIN_EDGES",
+    "REFINE_BANDS",
+    "TREGENZA_BAND_COUNTS",
+    "TREGENZA_BAND_WIDTH",
+    "PatchScheme",
+    "SkyVectors",
+    "clearness_bin",
+    "efficacy_perez1990",
+    "ground_index",
+    "luminance_cie",
+    "luminance_cie_overcast",
+    "luminance_perez1993",
+    "orientation_class_count",
+    "overcast_sky_vector",
+    "patch_index",
+    "patch_mean_sin_altitude",
+    "patch_scheme",
+    "perez1993_coefficients",
+    "precipitable_water",
+    "sample_directions",
+    "sample_ground",
+    "sky_brightness",
+    "sky_clearness",
+    "sky_vectors",
+]

@@ -63,7 +63,6 @@ from luxsweep.sweep.errors import StudyFileError
 # helpers shared by the models
 
 METRIC_FAMILIES = ("daylight_factor", "daylight_autonomy", "udi", "sda_ase", "en17037")
-BUILT_IN_AXES = ("orientation", "climate")
 # Top-level keys that describe the sweep or the store layout rather than a
 # variant: they cannot be varied.
 NOT_VARIABLE = ("name", "vary", "vary_together", "exclude", "rank", "metrics", "store_series",
