@@ -454,7 +454,7 @@ def _validate_windows(
 ) -> list[_Window]:
     out: list[_Window] = []
     for i, win in enumerate(windows):
-        path = f"room.windows.{i}"
+        path = f"windows.{i}"
         try:
             wall = _get(win, "wall")
         except KeyError:
@@ -528,7 +528,7 @@ def _validate_windows(
                 raise GeometryError(
                     f"window {a.index} overlaps window {b.index} on the {a.wall} wall; "
                     "move or resize one of them",
-                    field=f"room.windows.{a.index}",
+                    field=f"windows.{a.index}",
                 )
     return out
 
@@ -577,22 +577,52 @@ def parametric_room(
     Raises
     ------
     GeometryError
-        With a dotted ``field`` such as ``room.windows.1.sill`` and a fix.
+        With a dotted ``field`` naming this function's parameter, such as
+        ``windows.1.sill`` or ``glazing_panes.main``, and a fix (the engine
+        maps these to study-file keys).
+
+    Notes
+    -----
+    Stages: the inputs are checked (:func:`_room_materials`,
+    :func:`_validate_windows`), then the floor, each wall with its windows and
+    reveals (:func:`_add_wall`), the overhang slabs (:func:`_add_overhang`) and
+    the obstruction boxes (:func:`_add_obstructions`) are added in that order.
     """
-    width = _positive({"w": width}, "w", "room.width")
-    depth = _positive({"d": depth}, "d", "room.depth")
-    height = _positive({"h": height}, "h", "room.height")
-    t = _number({"t": thickness}, "t", "room.thickness")
+    width = _positive({"width": width}, "width", "width")
+    depth = _positive({"depth": depth}, "depth", "depth")
+    height = _positive({"height": height}, "height", "height")
+    t = _number({"thickness": thickness}, "thickness", "thickness")
     if t < 0:
-        raise GeometryError(f"thickness {t:g} m is negative; use 0 or more",
-                            field="room.thickness")
+        raise GeometryError(f"thickness {t:g} m is negative; use 0 or more", field="thickness")
+    materials = _room_materials(reflectance, glazing_panes, exterior_reflectance)
+    wins = _validate_windows(windows, width, depth, height, glazing_panes)
+
+    b = _Builder()
+    b.add(_quad(np.array([[0, 0, 0], [width, 0, 0], [width, depth, 0], [0, depth, 0]], float),
+                np.array([0.0, 0, 1])), materials["floor"], "floor")
+    for wall in ("front", "back", "left", "right", "roof"):
+        _add_wall(b, wall, [w for w in wins if w.wall == wall], (width, depth, height), t,
+                  materials)
+    slabs = [] if overhang is None else _add_overhang(b, overhang, wins, height, t,
+                                                      materials["exterior"])
+    _add_obstructions(b, obstructions, slabs, width, depth, t, materials["exterior"])
+    return b.build(room=(width, depth, height), source=None)
+
+
+def _room_materials(reflectance: Mapping[str, float] | Any, glazing_panes: Mapping[str, int],
+                    exterior_reflectance: float) -> dict[str, Any]:
+    """Checked materials of a parametric room.
+
+    Returns ``{"floor", "walls", "ceiling", "exterior": Material, "glazing": {set:
+    Material}}``; reflectances must lie in [0, 1) and panes be whole numbers ≥ 0.
+    """
     refl = {}
     for part in ("floor", "walls", "ceiling"):
-        r = _number(reflectance, part, f"room.reflectance.{part}")
+        r = _number(reflectance, part, f"reflectance.{part}")
         if not 0 <= r < 1:
             raise GeometryError(
                 f"reflectance {r:g} is outside [0, 1); give a fraction such as 0.5",
-                field=f"room.reflectance.{part}",
+                field=f"reflectance.{part}",
             )
         refl[part] = r
     if not 0 <= exterior_reflectance < 1:
@@ -603,105 +633,140 @@ def parametric_room(
     for name, panes in glazing_panes.items():
         if int(panes) != panes or panes < 0:
             raise GeometryError(
-                f"panes {panes} must be a whole number ≥ 0", field=f"glazings.{name}.panes"
+                f"panes {panes} must be a whole number ≥ 0", field=f"glazing_panes.{name}"
             )
-    wins = _validate_windows(windows, width, depth, height, glazing_panes)
-
-    m_floor = Material("floor", "opaque", refl["floor"])
-    m_ceiling = Material("ceiling", "opaque", refl["ceiling"])
-    m_walls = Material("walls", "opaque", refl["walls"])
-    m_ext = Material("exterior", "opaque", exterior_reflectance, exterior=True)
-    glass = {
-        s: Material(f"glazing {s}", "glazing", 0.0, glazing_set=s, panes=int(p))
-        for s, p in glazing_panes.items()
+    return {
+        "floor": Material("floor", "opaque", refl["floor"]),
+        "ceiling": Material("ceiling", "opaque", refl["ceiling"]),
+        "walls": Material("walls", "opaque", refl["walls"]),
+        "exterior": Material("exterior", "opaque", exterior_reflectance, exterior=True),
+        "glazing": {
+            s: Material(f"glazing {s}", "glazing", 0.0, glazing_set=s, panes=int(p))
+            for s, p in glazing_panes.items()
+        },
     }
 
-    b = _Builder()
-    b.add(_quad(np.array([[0, 0, 0], [width, 0, 0], [width, depth, 0], [0, depth, 0]], float),
-                np.array([0.0, 0, 1])), m_floor, "floor")
+
+@dataclass(frozen=True)
+class _WallPlane:
+    """Coordinates ``(u, v)`` in a wall's plane and ``w`` along its outward normal ``ew``."""
+
+    origin: np.ndarray
+    eu: np.ndarray
+    ev: np.ndarray
+    ew: np.ndarray
+
+    def point(self, u: float, v: float, w: float) -> np.ndarray:
+        return self.origin + u * self.eu + v * self.ev + w * self.ew
+
+    def rect(self, u0: float, u1: float, v0: float, v1: float, w: float,
+             normal: np.ndarray) -> np.ndarray:
+        """Two triangles of the rectangle [u0, u1] × [v0, v1] at depth ``w``, facing ``normal``."""
+        pt = self.point
+        return _quad(np.array([pt(u0, v0, w), pt(u1, v0, w), pt(u1, v1, w), pt(u0, v1, w)]),
+                     normal)
+
+
+def _add_wall(b: _Builder, wall: str, mine: list[_Window], room: tuple[float, float, float],
+              t: float, materials: dict[str, Any]) -> None:
+    """Add one wall (or the roof) with its windows; with ``t`` > 0 its outer face and reveals.
+
+    The inner face is the wall minus its window holes; glass sits at
+    ``GLASS_POSITION × t`` into the wall. The outer face grows by ``t`` beyond the
+    interior box on every side but the ground; each window gets four reveal
+    strips, inner part wall material up to the glass, outer part exterior.
+    """
+    o, eu, ev, ew, lu, lv = _wall_frame(wall, *room)
+    plane = _WallPlane(o, eu, ev, ew)
+    holes = [(w.u0, w.u1, w.v0, w.v1) for w in mine]
     wg = GLASS_POSITION * t
-    for wall in ("front", "back", "left", "right", "roof"):
-        o, eu, ev, ew, lu, lv = _wall_frame(wall, width, depth, height)
-        mine = [w for w in wins if w.wall == wall]
-        holes = [(w.u0, w.u1, w.v0, w.v1) for w in mine]
+    inner_mat = materials["ceiling"] if wall == "roof" else materials["walls"]
+    group = "ceiling" if wall == "roof" else f"wall_{wall}"
+    for r in _rect_minus_holes(0.0, lu, 0.0, lv, holes):
+        b.add(plane.rect(*r, 0.0, -ew), inner_mat, group)
+    for w in mine:
+        b.add(plane.rect(w.u0, w.u1, w.v0, w.v1, wg, ew), materials["glazing"][w.glazing],
+              f"window_{w.index}")
+    if t == 0:
+        return
+    ou0, ou1 = -t, lu + t
+    ov0, ov1 = (-t, lv + t) if wall == "roof" else (0.0, lv + t)
+    for r in _rect_minus_holes(ou0, ou1, ov0, ov1, holes):
+        b.add(plane.rect(*r, t, ew), materials["exterior"], "facade")
+    for w in mine:
+        _add_reveals(b, plane, w, wg, t, materials)
 
-        def pt(u: float, v: float, w: float, o=o, eu=eu, ev=ev, ew=ew) -> np.ndarray:
-            return o + u * eu + v * ev + w * ew
 
-        def rect(u0: float, u1: float, v0: float, v1: float, w: float, normal: np.ndarray,
-                 pt=pt) -> np.ndarray:
-            return _quad(np.array([pt(u0, v0, w), pt(u1, v0, w), pt(u1, v1, w), pt(u0, v1, w)]),
-                         normal)
+def _add_reveals(b: _Builder, plane: _WallPlane, w: _Window, wg: float, t: float,
+                 materials: dict[str, Any]) -> None:
+    """The four reveal strips of window ``w``, facing the window's centre."""
+    pt = plane.point
+    uc, vc = 0.5 * (w.u0 + w.u1), 0.5 * (w.v0 + w.v1)
+    sides = [  # (u0, u1, v0, v1) of a reveal strip in the wall plane, collapsed
+        (w.u0, w.u0, w.v0, w.v1),
+        (w.u1, w.u1, w.v0, w.v1),
+        (w.u0, w.u1, w.v0, w.v0),
+        (w.u0, w.u1, w.v1, w.v1),
+    ]
+    for su0, su1, sv0, sv1 in sides:
+        normal = pt(uc, vc, 0) - pt(0.5 * (su0 + su1), 0.5 * (sv0 + sv1), 0)
+        normal /= np.linalg.norm(normal)
+        for wa, wb, mat in ((0.0, wg, materials["walls"]), (wg, t, materials["exterior"])):
+            if wb <= wa:
+                continue
+            corners = np.array([pt(su0, sv0, wa), pt(su1, sv1, wa),
+                                pt(su1, sv1, wb), pt(su0, sv0, wb)])
+            b.add(_quad(corners, normal), mat, f"reveal_{w.index}")
 
-        inner_mat = m_ceiling if wall == "roof" else m_walls
-        group = "ceiling" if wall == "roof" else f"wall_{wall}"
-        for r in _rect_minus_holes(0.0, lu, 0.0, lv, holes):
-            b.add(rect(*r, 0.0, -ew), inner_mat, group)
-        for w in mine:
-            b.add(rect(w.u0, w.u1, w.v0, w.v1, wg, ew), glass[w.glazing], f"window_{w.index}")
-        if t == 0:
-            continue
-        # outer face: grows by t beyond the interior box on every side but the ground
-        ou0, ou1 = -t, lu + t
-        ov0, ov1 = (-t, lv + t) if wall == "roof" else (0.0, lv + t)
-        for r in _rect_minus_holes(ou0, ou1, ov0, ov1, holes):
-            b.add(rect(*r, t, ew), m_ext, "facade")
-        for w in mine:
-            uc, vc = 0.5 * (w.u0 + w.u1), 0.5 * (w.v0 + w.v1)
-            sides = [  # (u0, u1, v0, v1) of a reveal strip in the wall plane, collapsed
-                (w.u0, w.u0, w.v0, w.v1),
-                (w.u1, w.u1, w.v0, w.v1),
-                (w.u0, w.u1, w.v0, w.v0),
-                (w.u0, w.u1, w.v1, w.v1),
-            ]
-            for su0, su1, sv0, sv1 in sides:
-                normal = pt(uc, vc, 0) - pt(0.5 * (su0 + su1), 0.5 * (sv0 + sv1), 0)
-                normal /= np.linalg.norm(normal)
-                for wa, wb, mat in ((0.0, wg, m_walls), (wg, t, m_ext)):
-                    if wb <= wa:
-                        continue
-                    corners = np.array([pt(su0, sv0, wa), pt(su1, sv1, wa),
-                                        pt(su1, sv1, wb), pt(su0, sv0, wb)])
-                    b.add(_quad(corners, normal), mat, f"reveal_{w.index}")
 
+def _add_overhang(b: _Builder, overhang: Mapping[str, float] | Any, wins: list[_Window],
+                  height: float, t: float, exterior: Material) -> list[tuple]:
+    """One 0.05 m slab above every front window; returns the slabs' (lo, hi) corners [m].
+
+    Checked: depth > 0, gap ≥ 0, a front window exists, no slab rises above the
+    roof or crosses another front window.
+    """
+    od = _positive(overhang, "depth", "overhang.depth")
+    gap = _number(overhang, "gap", "overhang.gap", 0.0)
+    if gap < 0:
+        raise GeometryError(f"gap {gap:g} m is negative; use 0 or more", field="overhang.gap")
+    front = [w for w in wins if w.wall == "front"]
+    if not front:
+        raise GeometryError(
+            "there is no front window to shade; add a front window or remove 'overhang'",
+            field="overhang",
+        )
     slabs = []
-    if overhang is not None:
-        od = _positive(overhang, "depth", "room.overhang.depth")
-        gap = _number(overhang, "gap", "room.overhang.gap", 0.0)
-        if gap < 0:
-            raise GeometryError(f"gap {gap:g} m is negative; use 0 or more",
-                                field="room.overhang.gap")
-        front = [w for w in wins if w.wall == "front"]
-        if not front:
+    for w in front:
+        z0 = w.head + gap
+        z1 = z0 + OVERHANG_SLAB
+        if z1 > height + t + 1e-9:
             raise GeometryError(
-                "there is no front window to shade; add a front window or remove 'overhang'",
-                field="room.overhang",
+                f"the overhang above window {w.index} (z = {z0:g} … {z1:g} m) rises "
+                f"above the roof ({height + t:g} m); reduce 'gap'",
+                field="overhang.gap",
             )
-        for w in front:
-            z0 = w.head + gap
-            z1 = z0 + OVERHANG_SLAB
-            if z1 > height + t + 1e-9:
+        for other in front:
+            if other is not w and min(other.u1, w.u1) > max(other.u0, w.u0) and min(
+                other.v1, z1
+            ) > max(other.v0, z0):
                 raise GeometryError(
-                    f"the overhang above window {w.index} (z = {z0:g} … {z1:g} m) rises "
-                    f"above the roof ({height + t:g} m); reduce 'gap'",
-                    field="room.overhang.gap",
+                    f"the overhang above window {w.index} crosses window {other.index}; "
+                    "change 'gap' or the windows' heights",
+                    field="overhang.gap",
                 )
-            for other in front:
-                if other is not w and min(other.u1, w.u1) > max(other.u0, w.u0) and min(
-                    other.v1, z1
-                ) > max(other.v0, z0):
-                    raise GeometryError(
-                        f"the overhang above window {w.index} crosses window {other.index}; "
-                        "change 'gap' or the windows' heights",
-                        field="room.overhang.gap",
-                    )
-            lo = np.array([w.u0, -t - od, z0])
-            hi = np.array([w.u1, -t, z1])
-            slabs.append((lo, hi))
-            b.add(_box_faces(lo, hi, skip=("+y",)), m_ext, "overhang")
+        lo = np.array([w.u0, -t - od, z0])
+        hi = np.array([w.u1, -t, z1])
+        slabs.append((lo, hi))
+        b.add(_box_faces(lo, hi, skip=("+y",)), exterior, "overhang")
+    return slabs
 
+
+def _add_obstructions(b: _Builder, obstructions: Sequence[Any], slabs: list[tuple],
+                      width: float, depth: float, t: float, exterior: Material) -> None:
+    """Exterior boxes standing on z = 0, outside the building and clear of the overhang."""
     for i, ob in enumerate(obstructions):
-        path = f"room.obstructions.{i}"
+        path = f"obstructions.{i}"
         x = _number(ob, "x", f"{path}.x")
         y = _number(ob, "y", f"{path}.y")
         bw = _positive(ob, "width", f"{path}.width")
@@ -722,9 +787,7 @@ def parametric_room(
                     "the box intersects the overhang; move it away from the façade",
                     field=path,
                 )
-        b.add(_box_faces(lo, hi, skip=("-z",)), m_ext, f"obstruction_{i}")
-
-    return b.build(room=(width, depth, height), source=None)
+        b.add(_box_faces(lo, hi, skip=("-z",)), exterior, f"obstruction_{i}")
 
 
 # ----------------------------------------------------------------------- OBJ
@@ -1111,3 +1174,18 @@ def read_sensors(path: str | Path) -> np.ndarray:
     out = np.array(rows, dtype=np.float64)
     out[:, 3:] /= np.linalg.norm(out[:, 3:], axis=1, keepdims=True)
     return out
+
+
+__all__ = [
+    "GLASS_POSITION",
+    "MAX_SENSORS",
+    "OVERHANG_SLAB",
+    "WALLS",
+    "Geometry",
+    "Material",
+    "parametric_room",
+    "read_obj",
+    "read_sensors",
+    "sensor_grid",
+    "sensor_grid_on",
+]

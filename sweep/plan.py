@@ -241,15 +241,36 @@ def _fails_without_vary(loaded: StudyFile) -> bool:
     return False
 
 
-def build_geometry(study: Study) -> tuple[Any, np.ndarray]:
-    """The :class:`kernels.geometry.Geometry` and sensors (n, 6) of a resolved study."""
+ROOM_PARAMETERS = ("width", "depth", "height", "thickness", "reflectance", "windows",
+                   "overhang", "obstructions")
+"""Parameters of :func:`kernels.geometry.parametric_room` that are keys under ``room``."""
+
+
+def room_key(parameter: str | None) -> str | None:
+    """The study-file key path of a ``parametric_room`` parameter path.
+
+    The kernel names its own parameters in errors (``windows.1.sill``,
+    ``glazing_panes.main``); the study file holds them at ``room.windows.1.sill``
+    and ``glazings.main.panes``. Other names pass through unchanged.
+    """
+    if not parameter:
+        return parameter
+    head, _, rest = parameter.partition(".")
+    if head == "glazing_panes" and rest:
+        return f"glazings.{rest}.panes"
+    if head in ROOM_PARAMETERS:
+        return f"room.{parameter}"
+    return parameter
+
+
+def _parametric_room(study: Study, panes: dict[str, int]) -> Any:
+    """``kernels.geometry.parametric_room`` of the study's ``room``; errors name study keys."""
     from luxsweep.kernels import geometry as kg
 
-    panes = {name: g.panes for name, g in study.glazings.items()}
-    if study.room is not None:
-        room = study.room
-        used = {w.glazing for w in room.windows}
-        geometry = kg.parametric_room(
+    room = study.room
+    used = {w.glazing for w in room.windows}
+    try:
+        return kg.parametric_room(
             width=room.width, depth=room.depth, height=room.height,
             windows=[w.model_dump() for w in room.windows],
             reflectance=room.reflectance.model_dump(),
@@ -258,6 +279,19 @@ def build_geometry(study: Study) -> tuple[Any, np.ndarray]:
             overhang=room.overhang.model_dump() if room.overhang else None,
             obstructions=[o.model_dump() for o in room.obstructions],
         )
+    except InputError as exc:
+        raise type(exc)(exc.message, file=exc.file, line=exc.line,
+                        field=room_key(exc.field)) from exc
+
+
+def build_geometry(study: Study) -> tuple[Any, np.ndarray]:
+    """The :class:`kernels.geometry.Geometry` and sensors (n, 6) of a resolved study."""
+    from luxsweep.kernels import geometry as kg
+
+    panes = {name: g.panes for name, g in study.glazings.items()}
+    if study.room is not None:
+        room = study.room
+        geometry = _parametric_room(study, panes)
         sensors = kg.sensor_grid(room.width, room.depth, study.grid.height, study.grid.spacing,
                                  study.grid.margin)
     else:

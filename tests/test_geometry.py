@@ -25,6 +25,7 @@ from luxsweep.kernels.geometry import (
     sensor_grid_on,
 )
 from luxsweep.kernels.raytrace import Scene
+from luxsweep.sweep.plan import room_key
 
 DATA = Path(__file__).parent / "data" / "geometry"
 REFL = {"floor": 0.2, "walls": 0.5, "ceiling": 0.7}
@@ -150,38 +151,43 @@ def test_reveal_normals_point_into_the_opening():
 
 
 BAD_ROOMS = [
-    ({"windows": [{**WINDOWS[0], "width": 8.0}]}, "room.windows.0.width"),
-    ({"windows": [{**WINDOWS[0], "offset": 1.5}]}, "room.windows.0.offset"),
-    ({"windows": [WINDOWS[0], {**WINDOWS[2], "sill": 2.5, "head": 2.0}]}, "room.windows.1.sill"),
-    ({"windows": [{**WINDOWS[0], "sill": 1.0, "head": 1.0}]}, "room.windows.0.sill"),
-    ({"windows": [{**WINDOWS[0], "head": 3.5}]}, "room.windows.0.head"),
-    ({"windows": [{**WINDOWS[0], "wall": "north"}]}, "room.windows.0.wall"),
-    ({"windows": [{**WINDOWS[0], "glazing": "tinted"}]}, "room.windows.0.glazing"),
-    ({"windows": [WINDOWS[0], {**WINDOWS[0], "width": 1.0, "offset": 2.0}]}, "room.windows.1"),
-    ({"windows": [{**WINDOWS[3], "x": 6.9}]}, "room.windows.0.x"),
-    ({"windows": [{**WINDOWS[3], "length": -1.0}]}, "room.windows.0.length"),
-    ({"reflectance": {**REFL, "walls": 1.0}}, "room.reflectance.walls"),
-    ({"reflectance": {**REFL, "floor": -0.1}}, "room.reflectance.floor"),
-    ({"thickness": -0.1}, "room.thickness"),
-    ({"overhang": {"depth": 0.0, "gap": 0.1}}, "room.overhang.depth"),
-    ({"windows": [WINDOWS[1]], "overhang": {"depth": 0.5, "gap": 0.1}}, "room.overhang"),
+    ({"windows": [{**WINDOWS[0], "width": 8.0}]}, "windows.0.width"),
+    ({"windows": [{**WINDOWS[0], "offset": 1.5}]}, "windows.0.offset"),
+    ({"windows": [WINDOWS[0], {**WINDOWS[2], "sill": 2.5, "head": 2.0}]}, "windows.1.sill"),
+    ({"windows": [{**WINDOWS[0], "sill": 1.0, "head": 1.0}]}, "windows.0.sill"),
+    ({"windows": [{**WINDOWS[0], "head": 3.5}]}, "windows.0.head"),
+    ({"windows": [{**WINDOWS[0], "wall": "north"}]}, "windows.0.wall"),
+    ({"windows": [{**WINDOWS[0], "glazing": "tinted"}]}, "windows.0.glazing"),
+    ({"windows": [WINDOWS[0], {**WINDOWS[0], "width": 1.0, "offset": 2.0}]}, "windows.1"),
+    ({"windows": [{**WINDOWS[3], "x": 6.9}]}, "windows.0.x"),
+    ({"windows": [{**WINDOWS[3], "length": -1.0}]}, "windows.0.length"),
+    ({"reflectance": {**REFL, "walls": 1.0}}, "reflectance.walls"),
+    ({"reflectance": {**REFL, "floor": -0.1}}, "reflectance.floor"),
+    ({"thickness": -0.1}, "thickness"),
+    ({"overhang": {"depth": 0.0, "gap": 0.1}}, "overhang.depth"),
+    ({"windows": [WINDOWS[1]], "overhang": {"depth": 0.5, "gap": 0.1}}, "overhang"),
     ({"obstructions": [{"x": 3.0, "y": 1.0, "width": 2, "depth": 2, "height": 2}]},
-     "room.obstructions.0"),
+     "obstructions.0"),
     ({"obstructions": [{"x": 3.0, "y": -9.0, "width": 2, "depth": 0, "height": 2}]},
-     "room.obstructions.0.depth"),
+     "obstructions.0.depth"),
+    ({"glazing_panes": {"main": 1.5}}, "glazing_panes.main"),
 ]
 
 
 @pytest.mark.parametrize(("change", "field"), BAD_ROOMS)
 def test_validation_names_the_item(change, field):
+    # the kernel names its own parameter; the engine maps it to the study-file key
     with pytest.raises(GeometryError) as err:
         room(**change)
     assert err.value.field == field
     assert field in str(err.value)
+    key = room_key(field)
+    assert key == (f"room.{field}" if not field.startswith("glazing_panes") else
+                   "glazings.main.panes")
 
 
 def test_bad_dimensions_and_wall_list_in_message():
-    with pytest.raises(GeometryError, match=r"room\.height"):
+    with pytest.raises(GeometryError, match=r"field 'height'"):
         parametric_room(W, D, 0.0, WINDOWS, REFL, PANES)
     with pytest.raises(GeometryError) as err:
         room(windows=[{**WINDOWS[0], "wall": "north"}])
@@ -196,7 +202,7 @@ def test_model_dumps_with_none_for_unset_keys():
     assert area(g, "window_1") == pytest.approx(1.2 * 1.6)
     with pytest.raises(GeometryError) as err:
         room(windows=[{**WINDOWS[0], "sill": None}])
-    assert err.value.field == "room.windows.0.sill"
+    assert err.value.field == "windows.0.sill"
 
 
 def test_touching_windows_are_allowed():
