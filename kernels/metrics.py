@@ -1,7 +1,7 @@
 """Annual daylight metrics from illuminance series, accumulated chunk by chunk.
 
 The engine computes illuminance in time chunks. Each chunk is folded into a
-dictionary of *additive* numpy arrays (``counts``) by :func:`accumulate`; chunks
+:class:`Counts` of *additive* numpy arrays by :func:`accumulate`; chunks
 may be folded in any order or merged with :func:`merge_counts` (they add), and
 :func:`finalize` turns the counts into the metrics. A whole year is therefore
 never held in memory at once, and the result does not depend on how the year
@@ -105,7 +105,7 @@ from __future__ import annotations
 
 import functools
 import re
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, fields
 from fractions import Fraction
 from typing import Any
 
@@ -113,6 +113,7 @@ import numpy as np
 import pandas as pd
 
 __all__ = [
+    "Counts",
     "MetricParams",
     "StepMasks",
     "accumulate",
@@ -329,21 +330,75 @@ def _share_more_than(count: np.ndarray, total: np.ndarray | int, fraction: float
     return np.asarray(count, dtype=np.int64) * den > np.asarray(total, dtype=np.int64) * num
 
 
-_PER_SENSOR_COUNTS = (
-    "occ_da", "occ_udi_ge_e0", "occ_udi_ge_e1", "occ_udi_gt_e2", "occ_sun",
-    "occ_cda_lux", "occ_sum_lux", "all_sum_lux", "ana_sda", "ana_ase",
-)
+@dataclass(frozen=True, eq=False)
+class Counts:
+    """Additive counts of a stretch of the year (:func:`accumulate`); ``+`` merges two.
+
+    Step counts have the batch shape ``(...)``; per-sensor counts
+    ``(..., n_sensors)``; EN 17037 counts ``(..., n_levels)``. Integer counts are
+    int64, lux sums float64. "occ" counts are over occupied steps, "ana" over
+    the LM-83 analysis steps (08:00–18:00), "day" over daylight steps.
+
+    Attributes
+    ----------
+    n_steps, n_occupied, n_analysis, n_daylight : ndarray int64
+        Steps in all, occupied, in the analysis period, with the sun up.
+    occ_da : ndarray int64
+        Occupied steps with E ≥ the DA threshold (Reinhart & Walkenhorst 2001).
+    occ_udi_reach_supplementary, occ_udi_reach_autonomous : ndarray int64
+        Occupied steps with E ≥ the lower UDI edge (100 lx) and ≥ the middle
+        edge (300 lx) (Nabil & Mardaljevic 2005).
+    occ_udi_high : ndarray int64
+        Occupied steps with E > the upper UDI edge (3000 lx).
+    occ_sun : ndarray int64
+        Occupied steps with direct sun above the sun threshold.
+    occ_cda_lux, occ_sum_lux, all_sum_lux : ndarray float64 [lx]
+        Σ min(E, DA threshold) and Σ E over occupied steps; Σ E over all steps.
+    ana_sda, ana_ase : ndarray int64
+        Analysis steps with E ≥ the sDA threshold (shading applied) and with
+        direct sun above the sun threshold (IES LM-83-12).
+    ana_shaded : ndarray int64
+        Analysis steps with the operable shading closed (LM-83 rule).
+    day_target_ok, day_minimum_ok : ndarray int64
+        Daylight steps meeting each EN 17037 level's target and minimum target
+        over the required share of the grid.
+    """
+
+    n_steps: np.ndarray
+    n_occupied: np.ndarray
+    n_analysis: np.ndarray
+    n_daylight: np.ndarray
+    occ_da: np.ndarray
+    occ_udi_reach_supplementary: np.ndarray
+    occ_udi_reach_autonomous: np.ndarray
+    occ_udi_high: np.ndarray
+    occ_sun: np.ndarray
+    occ_cda_lux: np.ndarray
+    occ_sum_lux: np.ndarray
+    all_sum_lux: np.ndarray
+    ana_sda: np.ndarray
+    ana_ase: np.ndarray
+    ana_shaded: np.ndarray
+    day_target_ok: np.ndarray
+    day_minimum_ok: np.ndarray
+
+    def __add__(self, other: Counts) -> Counts:
+        return Counts(**{f.name: getattr(self, f.name) + getattr(other, f.name)
+                         for f in fields(self)})
 
 
-def _add(counts: dict[str, np.ndarray], key: str, value: np.ndarray) -> None:
-    counts[key] = counts[key] + value if key in counts else value
+def _plus(counts: Counts | None, chunk: Counts) -> Counts:
+    return chunk if counts is None else counts + chunk
 
 
-def _step_counts(counts: dict[str, np.ndarray], masks: StepMasks) -> None:
-    _add(counts, "n_steps", np.asarray(masks.n_steps, dtype=np.int64))
-    _add(counts, "n_occupied", np.count_nonzero(masks.occupied, axis=-1).astype(np.int64))
-    _add(counts, "n_analysis", np.count_nonzero(masks.analysis, axis=-1).astype(np.int64))
-    _add(counts, "n_daylight", np.count_nonzero(masks.daylight, axis=-1).astype(np.int64))
+def _step_counts(masks: StepMasks) -> dict[str, np.ndarray]:
+    """The four step counts of a chunk (``Counts`` fields ``n_*``)."""
+    return {
+        "n_steps": np.asarray(masks.n_steps, dtype=np.int64),
+        "n_occupied": np.count_nonzero(masks.occupied, axis=-1).astype(np.int64),
+        "n_analysis": np.count_nonzero(masks.analysis, axis=-1).astype(np.int64),
+        "n_daylight": np.count_nonzero(masks.daylight, axis=-1).astype(np.int64),
+    }
 
 
 def _grid_rows(mask: np.ndarray, batch: tuple[int, ...], n_steps: int) -> np.ndarray:
@@ -357,8 +412,160 @@ FOLD_STEPS = 512
 float32 steps (400 kB) and its work buffers stay in a core's L2 cache."""
 
 
+@dataclass(frozen=True)
+class _Comparison:
+    """A threshold comparison on ``total``: E ≥ ``level`` (E > ``level`` when ``strict``)."""
+
+    level: float
+    strict: bool = False
+
+
+class _Fold:
+    """Counts of every variant of one grid piece ``(n_sensors, w)`` at a time.
+
+    Holds the comparisons, each variant's passing levels (:func:`_first_passing`),
+    the output arrays (one row per grid × variant) and two work buffers laid
+    out like the input. :meth:`piece` runs the stages in order.
+    """
+
+    def __init__(self, params: MetricParams, tau: np.ndarray, tau_shut: np.ndarray | None,
+                 n_out: int, n_sensors: int, like: np.ndarray, dtype: np.dtype) -> None:
+        e0, e1, e2 = params.udi_edges
+        self.params, self.n_sensors = params, n_sensors
+        self.da = _Comparison(float(params.da_threshold))
+        self.udi_low, self.udi_mid = _Comparison(float(e0)), _Comparison(float(e1))
+        self.udi_high = _Comparison(float(e2), True)
+        self.sda = _Comparison(float(params.sda_threshold))
+        self.sun = _Comparison(float(params.sun_threshold), True)
+        self.levels = [(_Comparison(float(t)), _Comparison(float(m)))
+                       for t, m in params.en17037_levels]
+        # counted per sensor over occupied steps (into these outputs); per step over sensors
+        # (equal thresholds share one comparison, e.g. DA at 300 lx and the UDI edge)
+        self.per_sensor: dict[_Comparison, list[str]] = {}
+        for k, name in ((self.da, "occ_da"), (self.udi_low, "occ_udi_reach_supplementary"),
+                        (self.udi_mid, "occ_udi_reach_autonomous"),
+                        (self.udi_high, "occ_udi_high")):
+            self.per_sensor.setdefault(k, []).append(name)
+        self.per_step = {k for pair in self.levels for k in pair}
+        self.compared = sorted({*self.per_sensor, *self.per_step, self.sda},
+                               key=lambda k: (k.level, k.strict))
+        # per variant, the unit-illuminance level at which each comparison turns true
+        self.limit = {k: np.array([_first_passing(k.level, t, k.strict, dtype) for t in tau],
+                                  dtype=dtype)[:, None, None]
+                      for k in [*self.compared, self.sun]}
+        self.limit_shut = (None if tau_shut is None else
+                           np.array([_first_passing(self.sda.level, t, False, dtype)
+                                     for t in tau_shut]))
+        self.tau64 = tau.astype(np.float64)[:, None]
+        self.n_v = tau.size
+        self.sensor = {name: np.zeros((n_out, n_sensors), np.int64) for name in (
+            "occ_da", "occ_udi_reach_supplementary", "occ_udi_reach_autonomous",
+            "occ_udi_high", "occ_sun", "ana_sda", "ana_ase")}
+        self.lux = {name: np.zeros((n_out, n_sensors), np.float64)
+                    for name in ("occ_cda_lux", "occ_sum_lux", "all_sum_lux")}
+        self.shaded = np.zeros(n_out, np.int64)
+        self.target = np.zeros((n_out, len(self.levels)), np.int64)
+        self.minimum = np.zeros((n_out, len(self.levels)), np.int64)
+        width = like.shape[1]
+        order = [0, *(1 + np.argsort(like.strides)[::-1])]  # buffers follow the input layout
+        shape = (self.n_v, n_sensors, width)
+        self.ind, self.work = (
+            np.empty([shape[i] for i in order], dtype=dtype).transpose(np.argsort(order))
+            for _ in range(2))
+        self.every_sensor = np.ones(n_sensors, dtype=dtype)
+
+    def sums(self, rows: slice, e: np.ndarray, m_occ: np.ndarray, m_all: np.ndarray) -> None:
+        """Lux sums of the piece: Σ E over occupied and all steps (and cDA's first term)."""
+        sum_occ, sum_all = (e @ m_occ).astype(np.float64), (e @ m_all).astype(np.float64)
+        self.lux["occ_sum_lux"][rows] += self.tau64 * sum_occ
+        self.lux["all_sum_lux"][rows] += self.tau64 * sum_all
+        self.lux["occ_cda_lux"][rows] += self.tau64 * sum_occ
+
+    def piece(self, rows: slice, e: np.ndarray, d: np.ndarray | None,
+              shut_e: np.ndarray | None, m_occ: np.ndarray, m_ana: np.ndarray,
+              ana_g: np.ndarray, day_g: np.ndarray) -> None:
+        """Count every variant of one piece into output ``rows`` (``d`` None: no sun)."""
+        w = e.shape[1]
+        ix, wk = self.ind[:, :, :w], self.work[:, :, :w]  # (n_v, S, w)
+        step_counts = self._thresholds(rows, e, shut_e, m_occ, m_ana, ix, wk)
+        closed = None if d is None else self._direct_sun(rows, d, m_occ, m_ana, ana_g, ix)
+        if shut_e is not None or self.limit_shut is not None:
+            self._sda_with_shading(rows, e, shut_e, closed, m_ana, ix)
+        self._en17037(rows, step_counts, day_g)
+
+    def _thresholds(self, rows: slice, e: np.ndarray, shut_e: np.ndarray | None,
+                    m_occ: np.ndarray, m_ana: np.ndarray, ix: np.ndarray, wk: np.ndarray
+                    ) -> dict[_Comparison, np.ndarray]:
+        """Each distinct comparison once: per-sensor counts, cDA, sDA without shading.
+
+        Returns the per-step sensor counts ``(n_v, w)`` of the EN 17037 comparisons.
+        """
+        step_counts = {}
+        for k in self.compared:
+            np.greater_equal(e, self.limit[k], out=ix, casting="unsafe")  # 0/1 indicators
+            if k in self.per_step:
+                step_counts[k] = (self.every_sensor @ ix).astype(np.int64)  # (n_v, w)
+            if k in self.per_sensor or k == self.sda:
+                n_occ = ix @ m_occ  # (n_v, S)
+                for name in self.per_sensor.get(k, ()):
+                    self.sensor[name][rows] += n_occ.astype(np.int64)
+                if k == self.sda and shut_e is None and self.limit_shut is None:
+                    self.sensor["ana_sda"][rows] += (ix @ m_ana).astype(np.int64)
+                if k == self.da:  # Σ min(τE, x) = Σ τE − Σ_{τE ≥ x} τE + x·#(τE ≥ x)
+                    np.multiply(e, ix, out=wk)
+                    self.lux["occ_cda_lux"][rows] += (self.da.level * n_occ
+                                                      - self.tau64 * (wk @ m_occ))
+        return step_counts
+
+    def _direct_sun(self, rows: slice, d: np.ndarray, m_occ: np.ndarray, m_ana: np.ndarray,
+                    ana_g: np.ndarray, ix: np.ndarray) -> np.ndarray:
+        """Direct-sun counts and ASE; returns the steps the LM-83 rule closes ``(n_v, w)``."""
+        np.greater_equal(d, self.limit[self.sun], out=ix, casting="unsafe")
+        n_sunlit = (self.every_sensor @ ix).astype(np.int64)  # (n_v, w)
+        self.sensor["occ_sun"][rows] += (ix @ m_occ).astype(np.int64)
+        self.sensor["ana_ase"][rows] += (ix @ m_ana).astype(np.int64)
+        return (_share_more_than(n_sunlit, self.n_sensors,
+                                 self.params.shading_sensor_fraction) & ana_g)
+
+    def _sda_with_shading(self, rows: slice, e: np.ndarray, shut_e: np.ndarray | None,
+                          closed: np.ndarray | None, m_ana: np.ndarray, ix: np.ndarray) -> None:
+        """sDA counts where closed steps take the shaded illuminance (IES LM-83-12)."""
+        limit = self.limit[self.sda]
+        edge = np.broadcast_to(limit[:, :, 0], (self.n_v, e.shape[1])).copy()  # per step
+        if closed is not None and self.limit_shut is not None:
+            edge = np.where(closed, self.limit_shut[:, None], edge)
+        np.greater_equal(e, edge[:, None, :], out=ix, casting="unsafe")
+        if closed is not None and shut_e is not None:  # closed steps from the shaded grid
+            for v, shut in enumerate(closed):
+                ix[v][:, shut] = shut_e[:, shut] >= limit[v]
+        if closed is not None:
+            self.shaded[rows] += np.count_nonzero(closed, axis=1)
+        self.sensor["ana_sda"][rows] += (ix @ m_ana).astype(np.int64)
+
+    def _en17037(self, rows: slice, step_counts: dict[_Comparison, np.ndarray],
+                 day_g: np.ndarray) -> None:
+        """EN 17037:2018 daylight provision: daylight steps meeting each level's shares."""
+        p = self.params
+        for i, (kt, km) in enumerate(self.levels):
+            ok_t = _share_at_least(step_counts[kt], self.n_sensors, p.en17037_target_area)
+            ok_m = _share_at_least(step_counts[km], self.n_sensors, p.en17037_minimum_area)
+            self.target[rows, i] += np.count_nonzero(ok_t & day_g, axis=1)
+            self.minimum[rows, i] += np.count_nonzero(ok_m & day_g, axis=1)
+
+    def counts(self, steps: dict[str, np.ndarray], batch: tuple[int, ...]) -> Counts:
+        """The folded counts as :class:`Counts` of batch shape ``batch``."""
+        n_s, n_l = self.n_sensors, len(self.levels)
+        return Counts(
+            **steps,
+            **{k: v.reshape(*batch, n_s) for k, v in (*self.sensor.items(), *self.lux.items())},
+            ana_shaded=self.shaded.reshape(batch),
+            day_target_ok=self.target.reshape(*batch, n_l),
+            day_minimum_ok=self.minimum.reshape(*batch, n_l),
+        )
+
+
 def accumulate(
-    counts: dict[str, np.ndarray] | None,
+    counts: Counts | None,
     total: np.ndarray,
     direct_sun: np.ndarray,
     masks: StepMasks,
@@ -367,13 +574,13 @@ def accumulate(
     *,
     transmittance: np.ndarray | None = None,
     shaded_transmittance: np.ndarray | None = None,
-) -> dict[str, np.ndarray]:
+) -> Counts:
     """Fold one time chunk of illuminance into the additive counts.
 
     Parameters
     ----------
-    counts : dict or None
-        Counts of the chunks folded so far (updated and returned), or None to start.
+    counts : Counts or None
+        Counts of the chunks folded so far, or None to start.
     total : ndarray (..., n_sensors, n_steps) [lx]
         Illuminance with operable shading open (all light). Any memory layout
         (the engine passes time-major arrays as transposed views).
@@ -400,8 +607,9 @@ def accumulate(
 
     Returns
     -------
-    dict of str to ndarray
-        Additive counts; integer step counts (int64) and lux sums (float64).
+    Counts
+        ``counts`` plus this chunk's counts (a new object; ``counts`` is not
+        changed).
 
     Notes
     -----
@@ -414,10 +622,10 @@ def accumulate(
     integer counts are exact (below 2**24 steps per chunk in float32), lux sums
     are accumulated in the arrays' precision within a piece and in float64
     across pieces (exact for integer lux below 2**24 lx·steps per sensor and
-    piece; relative rounding of a few 1e-7 otherwise).
+    piece; relative rounding of a few 1e-7 otherwise). The stages of a piece
+    are methods of :class:`_Fold`: threshold comparisons, direct sun and the
+    LM-83 shading rule, sDA, EN 17037.
     """
-    counts = {} if counts is None else counts
-    e0, e1, e2 = params.udi_edges
     n_sensors, n_steps = total.shape[-2:]
     scaled = transmittance is not None
     if scaled and total_shaded is not None:
@@ -431,124 +639,30 @@ def accumulate(
                                                        masks.daylight)))
     batch = (*grid_batch, tau.size) if scaled else grid_batch
     # masks may vary per grid, never per variant: their counts broadcast over variants
-    _step_counts(counts, StepMasks(*(np.expand_dims(m, -2) if scaled and np.ndim(m) > 1 else m
+    steps = _step_counts(StepMasks(*(np.expand_dims(m, -2) if scaled and np.ndim(m) > 1 else m
                                      for m in (masks.occupied, masks.analysis, masks.daylight))))
     grids = [np.broadcast_to(a, (*grid_batch, n_sensors, n_steps)).reshape(-1, n_sensors, n_steps)
              for a in (total, direct_sun) + (() if total_shaded is None else (total_shaded,))]
     occ, ana, day = (_grid_rows(m, grid_batch, n_steps)
                      for m in (masks.occupied, masks.analysis, masks.daylight))
     n_grids = grids[0].shape[0]
-    n_out = n_grids * tau.size
-
-    # the distinct comparisons on ``total``: (threshold, strictly above?)
-    def key(x: float, strict: bool = False) -> tuple[float, bool]:
-        return (float(x), strict)
-
-    k_da, k_e0, k_e1, k_e2 = key(params.da_threshold), key(e0), key(e1), key(e2, True)
-    k_sda, k_sun = key(params.sda_threshold), key(params.sun_threshold, True)
-    levels = [(key(t), key(m)) for t, m in params.en17037_levels]
-    per_sensor = {k_da, k_e0, k_e1, k_e2}  # counted over occupied steps
-    per_step = {k for pair in levels for k in pair}  # counted over sensors
-    compared = sorted(per_sensor | per_step | {k_sda})
-    # per variant, the unit-illuminance level at which each comparison turns true: (n_v, 1, 1)
-    limit = {k: np.array([_first_passing(k[0], t, k[1], dtype) for t in tau],
-                         dtype=dtype)[:, None, None] for k in [*compared, k_sun]}
-    limit_shut = (None if tau_shut is None else
-                  np.array([_first_passing(k_sda[0], t, False, dtype) for t in tau_shut]))
-    x_da = float(params.da_threshold)
-
-    out_sensor = {name: np.zeros((n_out, n_sensors), np.int64) for name in (
-        "occ_da", "occ_udi_ge_e0", "occ_udi_ge_e1", "occ_udi_gt_e2", "occ_sun",
-        "ana_sda", "ana_ase")}
-    out_lux = {name: np.zeros((n_out, n_sensors), np.float64)
-               for name in ("occ_cda_lux", "occ_sum_lux", "all_sum_lux")}
-    out_shaded = np.zeros(n_out, np.int64)
-    out_target = np.zeros((n_out, len(levels)), np.int64)
-    out_minimum = np.zeros((n_out, len(levels)), np.int64)
-
-    n_v = tau.size
     width = min(FOLD_STEPS, n_steps)
-    like = grids[0][0][:, :width]  # buffers follow the input's memory layout
-    order = [0, *(1 + np.argsort(like.strides)[::-1])]
-    shape = (n_v, n_sensors, width)
-    ind, work = (np.empty([shape[i] for i in order], dtype=dtype).transpose(np.argsort(order))
-                 for _ in range(2))
-    every_sensor = np.ones(n_sensors, dtype=dtype)
+    fold = _Fold(params, tau, tau_shut, n_grids * tau.size, n_sensors,
+                 grids[0][0][:, :width], dtype)
     step_vec = np.empty((3, width), dtype=dtype)  # rows: occupied, analysis, every step
-    tau64 = tau.astype(np.float64)[:, None]
-
-    def fold(rows: slice, e: np.ndarray, d: np.ndarray | None, shut_e: np.ndarray | None,
-             m_occ: np.ndarray, m_ana: np.ndarray, ana_g: np.ndarray, day_g: np.ndarray
-             ) -> None:
-        """Count every variant of one piece (n_sensors, w) of a grid into output ``rows``."""
-        w = e.shape[1]
-        ix, wk = ind[:, :, :w], work[:, :, :w]  # (n_v, S, w)
-        step_counts: dict[tuple[float, bool], np.ndarray] = {}
-        for k in compared:
-            np.greater_equal(e, limit[k], out=ix, casting="unsafe")  # 0/1 indicators
-            if k in per_step:
-                step_counts[k] = (every_sensor @ ix).astype(np.int64)  # (n_v, w)
-            if k in per_sensor or k == k_sda:
-                n_occ = ix @ m_occ  # (n_v, S)
-                for name, kk in (("occ_da", k_da), ("occ_udi_ge_e0", k_e0),
-                                 ("occ_udi_ge_e1", k_e1), ("occ_udi_gt_e2", k_e2)):
-                    if kk == k:
-                        out_sensor[name][rows] += n_occ.astype(np.int64)
-                if k == k_sda and shut_e is None and limit_shut is None:
-                    out_sensor["ana_sda"][rows] += (ix @ m_ana).astype(np.int64)
-                if k == k_da:  # Σ min(τE, x) = Σ τE − Σ_{τE ≥ x} τE + x·#(τE ≥ x)
-                    np.multiply(e, ix, out=wk)
-                    out_lux["occ_cda_lux"][rows] += x_da * n_occ - tau64 * (wk @ m_occ)
-
-        # IES LM-83-12: shading rule, sDA and ASE over the analysis steps
-        closed = None
-        if d is not None:
-            np.greater_equal(d, limit[k_sun], out=ix, casting="unsafe")
-            n_sunlit = (every_sensor @ ix).astype(np.int64)  # (n_v, w)
-            out_sensor["occ_sun"][rows] += (ix @ m_occ).astype(np.int64)
-            out_sensor["ana_ase"][rows] += (ix @ m_ana).astype(np.int64)
-            closed = _share_more_than(n_sunlit, n_sensors, params.shading_sensor_fraction) & ana_g
-        if shut_e is not None or limit_shut is not None:
-            edge = np.broadcast_to(limit[k_sda][:, :, 0], (n_v, w)).copy()  # per step
-            if closed is not None and limit_shut is not None:
-                edge = np.where(closed, limit_shut[:, None], edge)
-            np.greater_equal(e, edge[:, None, :], out=ix, casting="unsafe")
-            if closed is not None and shut_e is not None:  # closed steps from the shaded grid
-                for v, shut in enumerate(closed):
-                    ix[v][:, shut] = shut_e[:, shut] >= limit[k_sda][v]
-            if closed is not None:
-                out_shaded[rows] += np.count_nonzero(closed, axis=1)
-            out_sensor["ana_sda"][rows] += (ix @ m_ana).astype(np.int64)
-
-        # EN 17037:2018 daylight provision, per daylight step and level
-        for i, (kt, km) in enumerate(levels):
-            ok_t = _share_at_least(step_counts[kt], n_sensors, params.en17037_target_area)
-            ok_m = _share_at_least(step_counts[km], n_sensors, params.en17037_minimum_area)
-            out_target[rows, i] += np.count_nonzero(ok_t & day_g, axis=1)
-            out_minimum[rows, i] += np.count_nonzero(ok_m & day_g, axis=1)
-
     for g in range(n_grids):
-        rows = slice(g * n_v, (g + 1) * n_v)
+        rows = slice(g * tau.size, (g + 1) * tau.size)
         for lo in range(0, n_steps, width):
             hi = min(lo + width, n_steps)
             e, d = grids[0][g][:, lo:hi], grids[1][g][:, lo:hi]
             shut_e = grids[2][g][:, lo:hi] if total_shaded is not None else None
             m_occ, m_ana, m_all = step_vec[:, : hi - lo]
             m_occ[:], m_ana[:], m_all[:] = occ[g, lo:hi], ana[g, lo:hi], 1.0
-            sum_occ, sum_all = (e @ m_occ).astype(np.float64), (e @ m_all).astype(np.float64)
-            out_lux["occ_sum_lux"][rows] += tau64 * sum_occ
-            out_lux["all_sum_lux"][rows] += tau64 * sum_all
-            out_lux["occ_cda_lux"][rows] += tau64 * sum_occ
+            fold.sums(rows, e, m_occ, m_all)
             lit = bool(np.any(d))  # no direct sun in the piece: nothing to count or close
-            fold(rows, e, d if lit else None, shut_e, m_occ, m_ana, ana[g, lo:hi],
-                 day[g, lo:hi])
-
-    for name, value in (*out_sensor.items(), *out_lux.items()):
-        _add(counts, name, value.reshape(*batch, n_sensors))
-    _add(counts, "ana_shaded", out_shaded.reshape(batch))
-    _add(counts, "day_target_ok", out_target.reshape(*batch, len(levels)))
-    _add(counts, "day_minimum_ok", out_minimum.reshape(*batch, len(levels)))
-    return counts
+            fold.piece(rows, e, d if lit else None, shut_e, m_occ, m_ana, ana[g, lo:hi],
+                       day[g, lo:hi])
+    return _plus(counts, fold.counts(steps, batch))
 
 
 def _first_passing(x: float, tau: float, strict: bool, dtype: np.dtype) -> float:
@@ -576,12 +690,12 @@ def _first_passing(x: float, tau: float, strict: bool, dtype: np.dtype) -> float
 
 
 def accumulate_dark(
-    counts: dict[str, np.ndarray] | None,
+    counts: Counts | None,
     masks: StepMasks,
     params: MetricParams,
     batch_shape: tuple[int, ...],
     n_sensors: int,
-) -> dict[str, np.ndarray]:
+) -> Counts:
     """Fold steps that the engine skipped because no light reaches the room.
 
     Equivalent to :func:`accumulate` with all-zero illuminance for these steps
@@ -590,7 +704,7 @@ def accumulate_dark(
 
     Parameters
     ----------
-    counts : dict or None
+    counts : Counts or None
         Counts so far, or None.
     masks : StepMasks
         Period masks of the skipped steps.
@@ -600,25 +714,31 @@ def accumulate_dark(
         Leading batch shape of the other chunks.
     n_sensors : int
         Sensors of the grid.
+
+    Returns
+    -------
+    Counts
+        ``counts`` plus the skipped steps (a new object).
     """
     n_levels = len(params.en17037_levels)
-    counts = {} if counts is None else counts
-    _step_counts(counts, masks)
-    for key in _PER_SENSOR_COUNTS:
-        dtype = np.float64 if key.endswith("_lux") else np.int64
-        _add(counts, key, np.zeros((*batch_shape, n_sensors), dtype))
-    _add(counts, "ana_shaded", np.zeros(batch_shape, np.int64))
-    _add(counts, "day_target_ok", np.zeros((*batch_shape, n_levels), np.int64))
-    _add(counts, "day_minimum_ok", np.zeros((*batch_shape, n_levels), np.int64))
-    return counts
+    per_sensor = {f.name: np.zeros((*batch_shape, n_sensors),
+                                   np.float64 if f.name.endswith("_lux") else np.int64)
+                  for f in fields(Counts)
+                  if f.name.startswith(("occ_", "all_", "ana_sda", "ana_ase"))}
+    chunk = Counts(
+        **_step_counts(masks), **per_sensor,
+        ana_shaded=np.zeros(batch_shape, np.int64),
+        day_target_ok=np.zeros((*batch_shape, n_levels), np.int64),
+        day_minimum_ok=np.zeros((*batch_shape, n_levels), np.int64),
+    )
+    return _plus(counts, chunk)
 
 
-def merge_counts(*parts: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+def merge_counts(*parts: Counts) -> Counts:
     """Add the counts of chunks folded separately (e.g. on different workers)."""
-    merged: dict[str, np.ndarray] = {}
-    for part in parts:
-        for k, v in part.items():
-            _add(merged, k, v)
+    merged = parts[0]
+    for part in parts[1:]:
+        merged = merged + part
     return merged
 
 
@@ -633,12 +753,12 @@ def _per_step(count: np.ndarray, steps: np.ndarray) -> np.ndarray:
     return np.divide(count, steps, out=np.zeros(shape), where=steps > 0)
 
 
-def finalize(counts: dict[str, np.ndarray], params: MetricParams) -> dict[str, np.ndarray]:
+def finalize(counts: Counts, params: MetricParams) -> dict[str, np.ndarray]:
     """Metrics from accumulated counts (definitions in the module docstring).
 
     Parameters
     ----------
-    counts : dict of str to ndarray
+    counts : Counts
         From :func:`accumulate` / :func:`accumulate_dark` / :func:`merge_counts`.
     params : MetricParams
         The same thresholds used to accumulate.
@@ -655,40 +775,40 @@ def finalize(counts: dict[str, np.ndarray], params: MetricParams) -> dict[str, n
         [0–1], ``shading_hours`` [h],
         ``en17037_level`` (int8, 0–3).
     """
-    occ = counts["n_occupied"]
+    occ = counts.n_occupied
     h = params.step_hours
-    ge_e0 = counts["occ_udi_ge_e0"]
-    ge_e1 = counts["occ_udi_ge_e1"]
-    gt_e2 = counts["occ_udi_gt_e2"]
+    ge_e0 = counts.occ_udi_reach_supplementary
+    ge_e1 = counts.occ_udi_reach_autonomous
+    gt_e2 = counts.occ_udi_high
     out: dict[str, np.ndarray] = {
-        "daylight_autonomy": _per_step(counts["occ_da"], occ),
-        "continuous_daylight_autonomy": _per_step(counts["occ_cda_lux"], occ)
+        "daylight_autonomy": _per_step(counts.occ_da, occ),
+        "continuous_daylight_autonomy": _per_step(counts.occ_cda_lux, occ)
         / params.da_threshold,
         "udi_low": _per_step(np.asarray(occ)[..., None] - ge_e0, occ),
         "udi_supplementary": _per_step(ge_e0 - ge_e1, occ),
         "udi_autonomous": _per_step(ge_e1 - gt_e2, occ),
         "udi_high": _per_step(gt_e2, occ),
-        "mean_illuminance": _per_step(counts["occ_sum_lux"], occ),
-        "light_exposure": counts["all_sum_lux"] * h,
-        "direct_sun_hours": counts["occ_sun"] * h,
-        "sda_fraction": _per_step(counts["ana_sda"], counts["n_analysis"]),
-        "ase_hours": counts["ana_ase"] * h,
+        "mean_illuminance": _per_step(counts.occ_sum_lux, occ),
+        "light_exposure": counts.all_sum_lux * h,
+        "direct_sun_hours": counts.occ_sun * h,
+        "sda_fraction": _per_step(counts.ana_sda, counts.n_analysis),
+        "ase_hours": counts.ana_ase * h,
     }
     out["udi_useful_mean"] = np.mean(out["udi_supplementary"] + out["udi_autonomous"], axis=-1)
     out["daylight_autonomy_mean"] = np.mean(out["daylight_autonomy"], axis=-1)
 
-    n_ana = np.asarray(counts["n_analysis"])[..., None]
-    sda_ok = _share_at_least(counts["ana_sda"], n_ana, params.sda_time_fraction)
+    n_ana = np.asarray(counts.n_analysis)[..., None]
+    sda_ok = _share_at_least(counts.ana_sda, n_ana, params.sda_time_fraction)
     sda_ok &= n_ana > 0
     out["sda"] = 100.0 * np.mean(sda_ok, axis=-1)
     # "more than 250 hours", compared exactly: count · step_hours > ase_hours
     step = Fraction(str(h)).limit_denominator(10**6)
     limit = Fraction(str(params.ase_hours)).limit_denominator(10**6)
-    over = counts["ana_ase"] * (step.numerator * limit.denominator) > (
+    over = counts.ana_ase * (step.numerator * limit.denominator) > (
         limit.numerator * step.denominator
     )
     out["ase"] = 100.0 * np.mean(over, axis=-1)
-    out["shading_hours"] = counts["ana_shaded"] * h
+    out["shading_hours"] = counts.ana_shaded * h
 
     target_ok, minimum_ok = en17037_pass(counts, params)
     met = np.cumprod(target_ok & minimum_ok, axis=-1)  # a level counts only with all below it
@@ -697,17 +817,17 @@ def finalize(counts: dict[str, np.ndarray], params: MetricParams) -> dict[str, n
 
 
 def en17037_pass(
-    counts: dict[str, np.ndarray], params: MetricParams
+    counts: Counts, params: MetricParams
 ) -> tuple[np.ndarray, np.ndarray]:
     """EN 17037 target and minimum-target tests per level, ``(..., n_levels)`` bool."""
-    n_day = np.asarray(counts["n_daylight"])[..., None]
-    ok_t = _share_at_least(counts["day_target_ok"], n_day, params.en17037_time) & (n_day > 0)
-    ok_m = _share_at_least(counts["day_minimum_ok"], n_day, params.en17037_time) & (n_day > 0)
+    n_day = np.asarray(counts.n_daylight)[..., None]
+    ok_t = _share_at_least(counts.day_target_ok, n_day, params.en17037_time) & (n_day > 0)
+    ok_m = _share_at_least(counts.day_minimum_ok, n_day, params.en17037_time) & (n_day > 0)
     return ok_t, ok_m
 
 
 def en17037_time_fractions(
-    counts: dict[str, np.ndarray], params: MetricParams
+    counts: Counts, params: MetricParams
 ) -> tuple[np.ndarray, np.ndarray]:
     """Shares of daylight hours meeting each level's target and minimum target.
 
@@ -718,8 +838,8 @@ def en17037_time_fractions(
         with E ≥ minimum target over ≥ 95 % of it (EN 17037:2018).
     """
     return (
-        _per_step(counts["day_target_ok"], counts["n_daylight"]),
-        _per_step(counts["day_minimum_ok"], counts["n_daylight"]),
+        _per_step(counts.day_target_ok, counts.n_daylight),
+        _per_step(counts.day_minimum_ok, counts.n_daylight),
     )
 
 
