@@ -155,12 +155,20 @@ class ClimateSteps:
     """
 
     def __init__(self, max_entries: int = 4) -> None:
-        from luxsweep.kernels.sun import Ephemeris
-
         self.max_entries = max_entries
-        self.ephemeris = Ephemeris()
+        self._ephemeris: Any = None  # made on first use: importing the engine stays light
         self._entries: dict[tuple, tuple] = {}
         self._lock = threading.Lock()
+
+    @property
+    def ephemeris(self) -> Any:
+        """The :class:`kernels.sun.Ephemeris` shared by every climate of this process."""
+        with self._lock:
+            if self._ephemeris is None:
+                from luxsweep.kernels.sun import Ephemeris
+
+                self._ephemeris = Ephemeris()
+            return self._ephemeris
 
     def __len__(self) -> int:
         return len(self._entries)
@@ -169,8 +177,8 @@ class ClimateSteps:
         """Forget every climate and, unless ``ephemeris=False``, every stored sun place."""
         with self._lock:
             self._entries.clear()
-        if ephemeris:
-            self.ephemeris.clear()
+        if ephemeris and self._ephemeris is not None:
+            self._ephemeris.clear()
 
     def get(self, path: str | os.PathLike, step_minutes: int) -> tuple:
         """``(climate, altitude, azimuth, daylight)`` of a weather file at ``step_minutes``
