@@ -483,6 +483,7 @@ def _series(
         if task.study.store_series:
             with timer("write"):
                 occ_done += _write_series(inp, members, store_path, a, b, lit, unit, occ_done)
+        del unit  # the block's direct-sun array is fresh memory: free it before the next
     with timer("metrics"):
         results = _final_results(inp, counts)
     with timer("write"):
