@@ -330,16 +330,15 @@ def test_duplicate_task_execution_leaves_store_bytes_unchanged(study, reference,
     shutil.copytree(reference[0], out)
     before = store_files(out)
     plan, results, cache, _ = prepare(study, out, reference[1])
-    n_store = max(len(s) for s in plan.sensors)
     assert len(plan.tasks) == 4
     with loopback_cluster(2) as (_, client):
         for task in plan.tasks:
             twins = [client.submit(series_task, task, list(task.members), str(results),
-                                   str(cache.root), n_store, pure=False) for _ in range(2)]
+                                   str(cache.root), pure=False) for _ in range(2)]
             assert [f.result()["variants"] for f in twins] == [len(task.members)] * 2
         assert store_files(out) == before
         again = [client.submit(series_task, task, list(task.members), str(results),
-                               str(cache.root), n_store, pure=False) for task in plan.tasks]
+                               str(cache.root), pure=False) for task in plan.tasks]
         client.gather(again)
     assert store_files(out) == before
 
