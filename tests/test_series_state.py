@@ -11,7 +11,7 @@ import pytest
 from conftest import TMY3_SAND_POINT
 
 from luxsweep.kernels.climate import read_climate
-from luxsweep.kernels.sun import resample, solar_position, step_times
+from luxsweep.kernels.sun import daylight_steps, resample, solar_position, step_times
 from luxsweep.sweep.run import ClimateSteps, Workspace, _StageTimer
 
 
@@ -30,7 +30,7 @@ def test_workspace_reuses_a_name_and_keeps_names_apart():
 
 def test_climate_steps_are_those_of_the_kernels_and_kept_once(tmp_path):
     cache = ClimateSteps(max_entries=1)
-    climate, altitude, azimuth = cache.get(TMY3_SAND_POINT, 15)
+    climate, altitude, azimuth, daylight = cache.get(TMY3_SAND_POINT, 15)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         raw = read_climate(TMY3_SAND_POINT)
@@ -41,6 +41,8 @@ def test_climate_steps_are_those_of_the_kernels_and_kept_once(tmp_path):
     want_alt, want_az = solar_position(sun_times, raw.site)  # pvlib's SPA, no memo
     np.testing.assert_array_equal(altitude, want_alt)
     np.testing.assert_array_equal(azimuth, want_az)
+    # the EN 17037 daylight steps from the kept sun equal the kernel's own computation
+    np.testing.assert_array_equal(daylight, daylight_steps(direct))
     assert cache.get(TMY3_SAND_POINT, 15)[1] is altitude  # kept: the same entry
     assert len(cache) == 1 and len(cache.ephemeris) > 0
     cache.get(TMY3_SAND_POINT, 30)  # bounded: the oldest entry goes
