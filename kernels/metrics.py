@@ -135,6 +135,9 @@ EN17037_LEVELS: tuple[tuple[float, float], ...] = ((300.0, 100.0), (500.0, 300.0
 class MetricParams:
     """Thresholds of the metrics (defaults from the cited definitions).
 
+    The engine fills them from a study's ``metric_options``
+    (``sweep.registry.metric_params``, which names the study-file key of each).
+
     Parameters
     ----------
     step_hours : float [h]
@@ -149,8 +152,9 @@ class MetricParams:
         sDA illuminance (LM-83-12; 300 lx).
     sda_time_fraction : float [-]
         sDA share of analysis hours (LM-83-12; 0.5).
-    ase_hours : float [h]
-        ASE hours limit (LM-83-12; 250 h, exceeded strictly).
+    ase_hours_limit : float [h]
+        ASE hours limit (LM-83-12; 250 h, exceeded strictly). The per-sensor
+        result ``ase_hours`` is the count it is compared with.
     shading_sensor_fraction : float [-]
         LM-83 rule: shading closes when more than this share of sensors get
         more than ``sun_threshold`` direct sun (LM-83-12; 0.02).
@@ -166,36 +170,12 @@ class MetricParams:
     sun_threshold: float = 1000.0
     sda_threshold: float = 300.0
     sda_time_fraction: float = 0.5
-    ase_hours: float = 250.0
+    ase_hours_limit: float = 250.0
     shading_sensor_fraction: float = 0.02
     en17037_levels: tuple[tuple[float, float], ...] = EN17037_LEVELS
     en17037_target_area: float = 0.5
     en17037_minimum_area: float = 0.95
     en17037_time: float = 0.5
-
-    @classmethod
-    def from_options(cls, options: dict | None, step_minutes: float) -> MetricParams:
-        """Parameters from the study file's ``metric_options`` mapping.
-
-        Keys (all optional): ``daylight_autonomy`` [lx], ``udi_edges`` [lx],
-        ``sda_illuminance`` [lx], ``sda_time_fraction`` [%], ``ase_illuminance``
-        [lx] (also the direct-sun level of ``direct_sun_hours``), ``ase_hours`` [h].
-        """
-        o = dict(options or {})
-        kw: dict = {"step_hours": step_minutes / 60.0}
-        if "daylight_autonomy" in o:
-            kw["da_threshold"] = float(o["daylight_autonomy"])
-        if "udi_edges" in o:
-            kw["udi_edges"] = tuple(float(v) for v in o["udi_edges"])
-        if "sda_illuminance" in o:
-            kw["sda_threshold"] = float(o["sda_illuminance"])
-        if "sda_time_fraction" in o:
-            kw["sda_time_fraction"] = float(o["sda_time_fraction"]) / 100.0
-        if "ase_illuminance" in o:
-            kw["sun_threshold"] = float(o["ase_illuminance"])
-        if "ase_hours" in o:
-            kw["ase_hours"] = float(o["ase_hours"])
-        return cls(**kw)
 
     def __post_init__(self) -> None:
         e0, e1, e2 = self.udi_edges
@@ -801,9 +781,9 @@ def finalize(counts: Counts, params: MetricParams) -> dict[str, np.ndarray]:
     sda_ok = _share_at_least(counts.ana_sda, n_ana, params.sda_time_fraction)
     sda_ok &= n_ana > 0
     out["sda"] = 100.0 * np.mean(sda_ok, axis=-1)
-    # "more than 250 hours", compared exactly: count · step_hours > ase_hours
+    # "more than 250 hours", compared exactly: count · step_hours > ase_hours_limit
     step = Fraction(str(h)).limit_denominator(10**6)
-    limit = Fraction(str(params.ase_hours)).limit_denominator(10**6)
+    limit = Fraction(str(params.ase_hours_limit)).limit_denominator(10**6)
     over = counts.ana_ase * (step.numerator * limit.denominator) > (
         limit.numerator * step.denominator
     )

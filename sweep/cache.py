@@ -116,15 +116,21 @@ class CoefficientCache:
         except (OSError, ValueError) as exc:
             raise CacheIntegrityError(
                 f"cache entry {folder}: no readable manifest ({exc})"
-            ) from None
+            ) from exc
+        if not isinstance(manifest, dict) or not isinstance(manifest.get("files"), dict):
+            raise CacheIntegrityError(f"cache entry {folder}: the manifest lists no files")
         if manifest.get("key") != key:
             raise CacheIntegrityError(f"cache entry {folder}: manifest is for key "
                                       f"{manifest.get('key')!r}")
         for name, info in manifest["files"].items():
             path = folder / "arrays" / f"{name}.npy"
-            if not path.is_file():
-                raise CacheIntegrityError(f"cache entry {folder}: file {path.name} is missing")
-            if _sha256(path) != info["sha256"]:
+            try:
+                good = isinstance(info, dict) and _sha256(path) == info.get("sha256")
+            except OSError as exc:  # missing, or removed meanwhile by another process
+                raise CacheIntegrityError(
+                    f"cache entry {folder}: file {path.name} is missing or unreadable ({exc})"
+                ) from exc
+            if not good:
                 raise CacheIntegrityError(f"cache entry {folder}: {path.name} fails its checksum")
         return manifest
 

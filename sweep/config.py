@@ -22,7 +22,8 @@ Extensions to CONTRACT.md §1 (all optional; documented on the models below):
 - ``exclude:`` a list of partial assignments ``{path: value, ...}``; a variant
   that matches every entry of one of them is dropped.
 - ``metric_options:`` thresholds of the metrics (daylight autonomy threshold, UDI
-  band edges, direct-sun threshold and hours, sDA time fraction).
+  band edges, sDA illuminance and time percentage, direct-sun threshold, ASE
+  hours limit); names and units in :mod:`sweep.registry`.
 - ``compute:`` ray-tracing settings passed to :class:`kernels.coefficients.Settings`
   (sky subdivision, sun-point spacing, ray counts, element size, seed); they
   enter the coefficient key.
@@ -42,6 +43,7 @@ import json
 import os
 import re
 import typing
+import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Annotated, Any, Literal
@@ -55,16 +57,18 @@ from pydantic import (
     ValidationError,
     ValidationInfo,
     field_validator,
+    model_validator,
 )
 
+from luxsweep.sweep import registry
 from luxsweep.sweep.errors import StudyFileError
 
 # ---------------------------------------------------------------------------
 # helpers shared by the models
 
-METRIC_FAMILIES = ("daylight_factor", "daylight_autonomy", "udi", "sda_ase", "en17037")
+METRIC_FAMILIES = registry.FAMILIES
 # Top-level keys that describe the sweep or the store layout rather than a
-# variant: they cannot be varied.
+# variant: they cannot be varied, and they stay out of a variant's hash.
 NOT_VARIABLE = ("name", "vary", "vary_together", "exclude", "rank", "metrics", "store_series",
                 "climates", "labels", "project")
 
@@ -359,17 +363,33 @@ class Project(_Model):
 class MetricOptions(_Model):
     """Extension ``metric_options:``: thresholds of the metrics [lx, h, %].
 
-    Defaults: daylight autonomy at 300 lx; UDI band edges 100, 300, 3000 lx
-    (Nabil & Mardaljevic 2005); sDA 300 lx for 50 % of the analysis hours and ASE
-    above 1000 lx of direct sun for more than 250 h (IES LM-83-12).
+    Defaults (:data:`sweep.registry.DEFAULT_THRESHOLDS`): daylight autonomy at
+    300 lx; UDI band edges 100, 300, 3000 lx (Nabil & Mardaljevic 2005); sDA
+    300 lx (``sda_illuminance``) for 50 % of the analysis hours
+    (``sda_time_percent``) and ASE above 1000 lx of direct sun (``sun_threshold``,
+    also the level of ``direct_sun_hours``) for more than 250 h
+    (``ase_hours_limit``) (IES LM-83-12). The former spellings
+    ``ase_illuminance``, ``ase_hours`` and ``sda_time_fraction`` (a percentage)
+    are read with a warning naming the new key.
     """
 
-    daylight_autonomy: Positive = 300.0
-    udi_edges: tuple[float, float, float] = (100.0, 300.0, 3000.0)
-    sda_illuminance: Positive = 300.0
-    sda_time_fraction: float = 50.0
-    ase_illuminance: Positive = 1000.0
-    ase_hours: Positive = 250.0
+    daylight_autonomy: Positive = registry.DEFAULT_THRESHOLDS["daylight_autonomy"]
+    udi_edges: tuple[float, float, float] = registry.DEFAULT_THRESHOLDS["udi_edges"]
+    sda_illuminance: Positive = registry.DEFAULT_THRESHOLDS["sda_illuminance"]
+    sda_time_percent: float = registry.DEFAULT_THRESHOLDS["sda_time_percent"]
+    sun_threshold: Positive = registry.DEFAULT_THRESHOLDS["sun_threshold"]
+    ase_hours_limit: Positive = registry.DEFAULT_THRESHOLDS["ase_hours_limit"]
+
+    @model_validator(mode="before")
+    @classmethod
+    def _former_spellings(cls, data: Any) -> Any:
+        if not isinstance(data, dict):
+            return data
+        for old, new in registry.RENAMED_OPTIONS.items():
+            if old in data:
+                warnings.warn(f"metric_options: '{old}' is now spelled '{new}' (same value and "
+                              "unit); rename the key", FutureWarning, stacklevel=2)
+        return registry.renamed_options(data)
 
     @field_validator("udi_edges")
     @classmethod
@@ -378,11 +398,11 @@ class MetricOptions(_Model):
             raise ValueError(f"UDI band edges must be positive and increasing, got {list(v)}")
         return v
 
-    @field_validator("sda_time_fraction")
+    @field_validator("sda_time_percent")
     @classmethod
-    def _fraction(cls, v: float) -> float:
+    def _percent(cls, v: float) -> float:
         if not 0 < v <= 100:
-            raise ValueError(f"sda_time_fraction is a percentage in (0, 100], got {v}")
+            raise ValueError(f"sda_time_percent is a percentage in (0, 100], got {v}")
         return v
 
 
@@ -438,12 +458,10 @@ def _positive_count(v: int | None, what: str) -> int | None:
     return v
 
 
-RANK_METRICS = ("sda", "ase", "udi_useful_mean", "daylight_autonomy_mean",
-                "daylight_factor_mean", "en17037_level", "shading_hours")
+RANK_METRICS = registry.rank_metrics()
 """Per-variant results that ranking criteria and objectives may name."""
-RANK_FAMILY = {"sda": "sda_ase", "ase": "sda_ase", "shading_hours": "sda_ase",
-               "udi_useful_mean": "udi", "daylight_autonomy_mean": "daylight_autonomy",
-               "daylight_factor_mean": "daylight_factor", "en17037_level": "en17037"}
+RANK_FAMILY = {name: registry.METRICS[name].family for name in RANK_METRICS}
+"""Rankable result -> the metric family that computes it."""
 
 
 def _rank_metric(v: str) -> str:

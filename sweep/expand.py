@@ -36,11 +36,7 @@ from luxsweep.sweep.config import (
     dotted,
     validation_problems,
 )
-
-# Study keys that do not change a variant's results (left out of its hash).
-_PRESENTATION = ("name", "vary", "vary_together", "exclude", "rank", "metrics", "store_series",
-                 "climates", "labels", "project")
-
+from luxsweep.sweep.registry import RENAMED_OPTIONS
 
 # Study keys holding file paths (resolved to absolute paths in the model).
 _FILE_KEYS = ("mesh", "sensors")
@@ -273,7 +269,11 @@ def variant_params(study: Study, hashes: dict[str, str]) -> dict[str, Any]:
     ``mesh`` or ``sensors`` path is hashed like the base one.
     """
     data = study.canonical()
-    params = {k: v for k, v in data.items() if k not in _PRESENTATION}
+    # the keys that cannot be varied are also those that do not change a variant's results
+    params = {k: v for k, v in data.items() if k not in NOT_VARIABLE}
+    # hashed under their former spellings, so variant ids made before the rename stay
+    former = {new: old for old, new in RENAMED_OPTIONS.items()}
+    params["metric_options"] = {former.get(k, k): v for k, v in params["metric_options"].items()}
     label = study.default_climate
     params["climate"] = label
     params["climate_file"] = _content_hash(study.climates[label], hashes)

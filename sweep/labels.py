@@ -194,27 +194,30 @@ _SHORT = {
 }
 
 
-def _metric_entry(metric: str) -> tuple[str, str]:
-    from luxsweep.sweep.rank import METRICS  # the metric table (label, store unit)
-
-    return METRICS.get(metric, (metric.replace("_", " "), ""))
-
-
 def display_unit(metric: str) -> tuple[float, str]:
     """Scale and unit a metric is shown in: shares of time and of the grid in percent.
 
-    Store values times the scale give the shown value (a fraction 0–1 is shown ×100
-    in %); other units are shown as stored.
+    Store values times the scale give the shown value (a share stored as a fraction
+    0–1 is shown ×100 in %; :mod:`sweep.registry` marks the shares); other units are
+    shown as stored; the EN 17037 level and unregistered names have no unit.
     """
-    unit = _metric_entry(metric)[1]
-    if unit == "fraction":
-        return 100.0, "%"
-    return 1.0, "" if unit == "0–3" else unit
+    from luxsweep.sweep.registry import METRICS
+
+    entry = METRICS.get(metric)
+    if entry is None or metric == "en17037_level":
+        return 1.0, ""
+    return (100.0, "%") if entry.share else (1.0, entry.unit)
 
 
-def metric_heading(metric: str) -> str:
-    """Short column heading with the shown unit: ``sDA [%]``, ``EN 17037 level``."""
-    short = _SHORT.get(metric, _metric_entry(metric)[0])
+def metric_heading(metric: str, options: Mapping[str, Any] | None = None) -> str:
+    """Short column heading with the shown unit: ``sDA [%]``, ``EN 17037 level``.
+
+    A metric without a short name is headed by its registry label, thresholds
+    filled from the study's ``metric_options`` (``options``).
+    """
+    from luxsweep.sweep.registry import label
+
+    short = _SHORT.get(metric) or label(metric, options)
     unit = display_unit(metric)[1]
     return f"{short} [{unit}]" if unit else short
 

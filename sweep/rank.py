@@ -23,8 +23,9 @@ the ``rank:`` section of the study file text kept in its attributes:
 
 Metrics available for ranking are the per-variant numeric variables of the store
 (``dims == ("variant",)``), e.g. ``sda``, ``ase``, ``udi_useful_mean``,
-``daylight_factor_mean``, ``en17037_level``. :data:`METRICS` gives labels and
-units for display; a store variable without an entry is shown by its name.
+``daylight_factor_mean``, ``en17037_level``. :mod:`sweep.registry` gives their
+labels and units (:mod:`sweep.labels` writes them for people); a store variable
+without an entry is shown by its name.
 """
 
 from __future__ import annotations
@@ -44,7 +45,6 @@ from luxsweep.sweep.errors import ResultsStoreError, StudyFileError
 
 __all__ = [
     "MAIN_METRICS",
-    "METRICS",
     "RankSpec",
     "axes_of",
     "completed_mask",
@@ -59,30 +59,6 @@ __all__ = [
     "study_from_store",
     "variant_names",
 ]
-
-#: Display label and unit of the metrics luxsweep writes (name -> (label, unit)).
-METRICS: dict[str, tuple[str, str]] = {
-    "sda": ("spatial daylight autonomy sDA 300 lx / 50 %", "%"),
-    "ase": ("annual sunlight exposure ASE 1000 lx / 250 h", "%"),
-    "udi_useful_mean": ("useful daylight (100–3000 lx), grid mean", "fraction"),
-    "daylight_factor_mean": ("daylight factor, grid mean", "%"),
-    "en17037_level": ("EN 17037 daylight provision level", "0–3"),
-    "daylight_autonomy": ("daylight autonomy 300 lx", "fraction"),
-    "udi_low": ("daylight below 100 lx", "fraction"),
-    "udi_supplementary": ("daylight 100–300 lx", "fraction"),
-    "udi_autonomous": ("daylight 300–3000 lx", "fraction"),
-    "udi_high": ("daylight above 3000 lx", "fraction"),
-    "udi_useful": ("useful daylight 100–3000 lx", "fraction"),
-    "daylight_factor": ("daylight factor", "%"),
-    "direct_sun_hours": ("occupied hours of direct sun above 1000 lx", "h"),
-    "shading_hours": ("analysis hours with shading closed (LM-83 rule)", "h"),
-    "daylight_autonomy_mean": ("daylight autonomy 300 lx, grid mean", "fraction"),
-    "continuous_daylight_autonomy": ("continuous daylight autonomy 300 lx", "fraction"),
-    "mean_illuminance": ("mean illuminance over occupied time", "lx"),
-    "light_exposure": ("annual light exposure", "lx·h"),
-    "ase_hours": ("analysis hours of direct sun above 1000 lx", "h"),
-    "sda_fraction": ("share of analysis hours at or above 300 lx", "fraction"),
-}
 
 # attribute names under which the store may keep the study file's text
 _STUDY_TEXT_ATTRS = ("study_text", "study", "study_yaml", "study_file_text", "study_file")

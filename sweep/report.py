@@ -64,7 +64,7 @@ from matplotlib import colors
 from matplotlib.figure import Figure
 from matplotlib.patches import Rectangle
 
-from luxsweep.sweep import __version__
+from luxsweep.sweep import __version__, registry
 from luxsweep.sweep.errors import UserInputError
 from luxsweep.sweep.labels import (
     EN17037_LEVELS,
@@ -79,7 +79,6 @@ from luxsweep.sweep.labels import (
     variant_name,
 )
 from luxsweep.sweep.rank import (
-    METRICS,
     RankSpec,
     axes_of,
     completed_mask,
@@ -105,11 +104,8 @@ CAUTION = (
     "codes and standards and on the judgement of a qualified professional. Glare "
     "and overheating are not assessed."
 )
-PLAN_METRICS = (
-    ("daylight_autonomy", "Daylight autonomy (300 lx)", "% of occupied time"),
-    ("udi_useful", "Useful daylight (100–3000 lx)", "% of occupied time"),
-    ("daylight_factor", "Daylight factor", "%"),
-)
+PLAN_METRICS = ("daylight_autonomy", "udi_useful", "daylight_factor")
+"""Per-sensor results drawn on the room plans (labels and units from :mod:`sweep.registry`)."""
 
 
 # ---------------------------------------------------------------------------
@@ -127,10 +123,28 @@ def _png(fig: Figure, alt: str) -> str:
     return f'<img src="data:image/png;base64,{data}" alt="{_esc(alt)}">'
 
 
-def _label(metric: str) -> str:
-    label = METRICS.get(metric, (metric.replace("_", " "), ""))[0]
+def _options(ds: xr.Dataset) -> dict:
+    """The study's ``metric_options`` kept in the store ({} when absent: the defaults)."""
+    options = study_from_store(ds).get("metric_options")
+    return options if isinstance(options, dict) else {}
+
+
+def _label(metric: str, options: dict | None = None) -> str:
+    """Registry label with the shown unit, thresholds from ``options``."""
+    label = registry.label(metric, options)
     unit = display_unit(metric)[1]
     return f"{label} [{unit}]" if unit else label
+
+
+def _plan_title(name: str, options: dict) -> str:
+    """Plan title: the registry label, capitalised (``Daylight autonomy 300 lx``)."""
+    text = registry.label(name, options)
+    return text[:1].upper() + text[1:]
+
+
+def _plan_unit(name: str) -> str:
+    """Plan unit: time shares in percent of occupied time, others as shown elsewhere."""
+    return "% of occupied time" if registry.METRICS[name].share else display_unit(name)[1]
 
 
 def _fmt(value: Any) -> str:
@@ -282,12 +296,12 @@ def _when(ds: xr.Dataset, source: str | None) -> str:
 
 
 def _ranking(table: pd.DataFrame, spec: RankSpec, axes: list[str], labels: dict[str, str],
-             top: int = 25) -> str:
+             top: int = 25, options: dict | None = None) -> str:
     ranked = table[table["status"] != "incomplete"].head(top)
     incomplete = table[table["status"] == "incomplete"]
     metrics = spec.metrics or [m for m in ("sda", "ase", "udi_useful_mean") if m in table]
     head = ["Rank", "Variant",
-            *[f'<span title="{_esc(_label(m))}">{_esc(metric_heading(m))}</span>'
+            *[f'<span title="{_esc(_label(m, options))}">{_esc(metric_heading(m, options))}</span>'
               for m in metrics]]
     if spec.prefer:
         head += ["Score (0–1)", "Pareto set"]
@@ -718,8 +732,9 @@ def _pareto_chart(ds: xr.Dataset, table: pd.DataFrame, spec: RankSpec) -> str:
         ax.annotate(f"#{ranks[k]}", (x[k], y[k]), textcoords="offset points", fontsize=9,
                     xytext=(10 + 14 * k, -16 - 12 * k),
                     arrowprops={"arrowstyle": "-", "lw": 0.5, "color": "0.3"})
-    ax.set_xlabel(f"{_label(mx)} – {'higher' if gx == 'max' else 'lower'} is better")
-    ax.set_ylabel(f"{_label(my)} – {'higher' if gy == 'max' else 'lower'} is better")
+    options = _options(ds)
+    ax.set_xlabel(f"{_label(mx, options)} – {'higher' if gx == 'max' else 'lower'} is better")
+    ax.set_ylabel(f"{_label(my, options)} – {'higher' if gy == 'max' else 'lower'} is better")
     ax.grid(alpha=0.3)
     ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=8, frameon=True)
     fig.tight_layout()
@@ -759,7 +774,7 @@ def _main_effect_plots(ds: xr.Dataset, spec: RankSpec, labels: dict[str, str]) -
             if i == len(metrics) - 1:
                 ax.set_xlabel(axis_label(axis, labels), fontsize=9)
             if j == 0:
-                ax.set_ylabel(metric_heading(metric), fontsize=8)
+                ax.set_ylabel(metric_heading(metric, _options(ds)), fontsize=8)
     fig.tight_layout()
     return (_png(fig, "main effects")
             + '<p class="note">Each row is a metric and each column a varied choice: the '
@@ -811,13 +826,13 @@ def _orientation_climate_map(ds: xr.Dataset, table: pd.DataFrame, spec: RankSpec
                                      for r in rows])
     ax.set_xlabel("climate")
     ax.set_ylabel("front façade faces")
-    fig.colorbar(im, ax=ax, label=metric_heading(metric))
+    fig.colorbar(im, ax=ax, label=metric_heading(metric, _options(ds)))
     fig.tight_layout()
     fixed = ", ".join(f"{axis_label(a, labels)} {value_text(a, best[a])}" for a in others) or (
         "no other choices varied")
     return (_png(fig, f"{metric} by orientation and climate")
-            + f'<p class="note">{_esc(_label(metric))} for each orientation and climate, '
-              f"with the other choices of the first-ranked variant: {_esc(fixed)}.</p>")
+            + f'<p class="note">{_esc(_label(metric, _options(ds)))} for each orientation and '
+              f"climate, with the other choices of the first-ranked variant: {_esc(fixed)}.</p>")
 
 
 def _draw_room(ax: Any, room: dict | None) -> None:
@@ -891,18 +906,20 @@ def _field(ax: Any, x: np.ndarray, y: np.ndarray, v: np.ndarray, norm: Any) -> A
 def _plan_maps(ds: xr.Dataset, table: pd.DataFrame, study: dict, top: int = 3) -> str:
     labels = _labels(study)
     done = table[table["status"] != "incomplete"].head(top)
-    metrics = [(n, t, u) for n, t, u in PLAN_METRICS if _per_sensor(ds, n, 0) is not None]
+    options = _options(ds)
+    metrics = [(n, _plan_title(n, options), _plan_unit(n)) for n in PLAN_METRICS
+               if _per_sensor(ds, n, 0) is not None]
     if done.empty or not metrics or "x" not in ds or "y" not in ds:
         return '<p class="note">No per-sensor results to draw.</p>'
     axes = axes_of(ds)
     data = {}
     for n, _, _ in metrics:
-        scale = 1.0 if n == "daylight_factor" else 100.0
+        scale = display_unit(n)[0]
         data[n] = [_per_sensor(ds, n, int(v)) * scale for v in done["variant"]]
     fig = Figure(figsize=(4.2 * len(metrics), 4.8 * len(done) + 0.6))
     grid = fig.subplots(len(done), len(metrics), squeeze=False)
     for j, (n, title, unit) in enumerate(metrics):
-        top_value = 100.0 if unit.startswith("%") and n != "daylight_factor" else max(
+        top_value = 100.0 if registry.METRICS[n].share else max(
             1.0, float(np.nanmax([np.nanmax(a) for a in data[n]])))
         norm = colors.Normalize(0.0, np.ceil(top_value))
         for i, (_, row) in enumerate(done.iterrows()):
@@ -992,15 +1009,16 @@ def _hourly_map(ds: xr.Dataset, table: pd.DataFrame, study: dict) -> str:
 NOTES = """
 <dl>
 <dt>Daylight autonomy</dt><dd>Share of the occupied hours in which a point gets at least
-the threshold illuminance (300 lx unless the study sets another) from daylight alone.</dd>
-<dt>Useful daylight bands</dt><dd>Shares of the occupied hours below 100 lx (too dark),
-100–300 lx (useful with some electric light), 300–3000 lx (useful on its own) and above
-3000 lx (likely too bright) — after Nabil &amp; Mardaljevic (2005). "Useful" is
-100–3000 lx.</dd>
+{daylight_autonomy:g} lx (the study's threshold) from daylight alone.</dd>
+<dt>Useful daylight bands</dt><dd>Shares of the occupied hours below {e0:g} lx (too dark),
+{e0:g}–{e1:g} lx (useful with some electric light), {e1:g}–{e2:g} lx (useful on its own) and
+above {e2:g} lx (likely too bright) — after Nabil &amp; Mardaljevic (2005). "Useful" is
+{e0:g}–{e2:g} lx.</dd>
 <dt>sDA and ASE</dt><dd>IES LM-83-12, 08:00–18:00 every day: sDA is the share of points
-with at least 300 lx for at least half of those hours, with operable shading closed in
-hours where more than 2 % of the points get more than 1000 lx of direct sun; ASE is the
-share of points with more than 1000 lx of direct sun for more than 250 hours, shading
+with at least {sda_illuminance:g} lx for at least {sda_time_percent:g} % of those hours, with
+operable shading closed in hours where more than 2 % of the points get more than
+{sun_threshold:g} lx of direct sun; ASE is the share of points with more than
+{sun_threshold:g} lx of direct sun for more than {ase_hours_limit:g} hours, shading
 open.</dd>
 <dt>EN 17037 daylight provision</dt><dd>Levels 1–3 (minimum, medium, high): a target
 illuminance (300/500/750 lx) over half of the working plane and a minimum (100/300/500 lx)
@@ -1096,7 +1114,8 @@ def build_report(ds: xr.Dataset, source: str | None = None, paper: str | None = 
     title = project.get("project") or name
     sections = [
         ("summary", "Summary", _summary(ds, study, source, table, spec)),
-        ("ranking", "Ranking of the variants", _ranking(table, spec, axes_of(ds), labels)),
+        ("ranking", "Ranking of the variants", _ranking(table, spec, axes_of(ds), labels,
+                                                        options=_options(ds))),
         ("inputs", "Inputs", _inputs(ds, study)),
         ("geometry", "Geometry", _geometry_sketch(ds, table, study, source)),
         ("tradeoff", "Trade-off between two objectives", _pareto_chart(ds, table, spec)),
@@ -1105,7 +1124,7 @@ def build_report(ds: xr.Dataset, source: str | None = None, paper: str | None = 
          _orientation_climate_map(ds, table, spec, labels)),
         ("maps", "Daylight across the room for the top variants", _plan_maps(ds, table, study)),
         ("hourly", "Hour by hour at one point", _hourly_map(ds, table, study)),
-        ("notes", "What the metrics mean", NOTES),
+        ("notes", "What the metrics mean", NOTES.format(**registry.thresholds(_options(ds)))),
     ]
     body = "".join(f'<section class="{k}"><h2>{_esc(t)}</h2>{c}</section>'
                    for k, t, c in sections)

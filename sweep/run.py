@@ -48,6 +48,7 @@ from typing import Any
 
 import numpy as np
 
+from luxsweep.sweep import registry
 from luxsweep.sweep import store as results_store
 from luxsweep.sweep.cache import CoefficientCache
 from luxsweep.sweep.cluster import (
@@ -69,6 +70,7 @@ from luxsweep.sweep.errors import (
 )
 from luxsweep.sweep.plan import CoefficientJob, Plan, SeriesTask, make_plan
 from luxsweep.sweep.progress import PLAIN_EVERY, Progress
+from luxsweep.sweep.registry import store_variables
 
 log = logging.getLogger("luxsweep")
 
@@ -78,28 +80,8 @@ SERIES_CHUNK = 512
 BLOCK_BYTES = 192 * 2**20
 """Memory budget of one time block of a series task [bytes]."""
 
-# metric family -> (per-sensor variables, per-variant variables)
-FAMILIES: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
-    "daylight_factor": (("daylight_factor",), ("daylight_factor_mean",)),
-    "daylight_autonomy": (("daylight_autonomy", "continuous_daylight_autonomy",
-                           "mean_illuminance", "light_exposure"), ("daylight_autonomy_mean",)),
-    "udi": (("udi_low", "udi_supplementary", "udi_autonomous", "udi_high"),
-            ("udi_useful_mean",)),
-    "sda_ase": (("direct_sun_hours", "ase_hours", "sda_fraction"),
-                ("sda", "ase", "shading_hours")),
-    "en17037": ((), ("en17037_level",)),
-}
-
-
-def store_variables(metrics: list[str]) -> tuple[list[str], list[str]]:
-    """Per-sensor and per-variant variables kept for the study's metric families."""
-    sensor: list[str] = []
-    variant: list[str] = []
-    for family in metrics:
-        s, v = FAMILIES[family]
-        sensor += [x for x in s if x not in sensor]
-        variant += [x for x in v if x not in variant]
-    return sensor, variant
+FAMILIES = registry.FAMILIES
+"""Metric families (:data:`sweep.registry.FAMILIES`)."""
 
 
 # ---------------------------------------------------------------------------
@@ -116,18 +98,16 @@ def coefficient_task(job: CoefficientJob, cache_root: str) -> dict[str, Any]:
         try:
             cache.verify(job.key)
             return {"key": job.key, "computed": False, "seconds": 0.0}
-        except Exception:  # damaged: recompute and replace
-            pass
+        except CacheIntegrityError as exc:  # a damaged entry is a miss: recompute, replace
+            log.warning("%s; recomputing it", exc)
     coefficients = compute_coefficients(job.geometry, job.sensors, job.settings)
     cache.save(coefficients)
     return {"key": job.key, "computed": True, "seconds": time.perf_counter() - t0}
 
 
 def _metric_params(task: SeriesTask) -> Any:
-    from luxsweep.kernels.metrics import MetricParams
-
     study = task.study
-    return MetricParams.from_options(study.metric_options.model_dump(), study.timestep)
+    return registry.metric_params(study.metric_options.model_dump(), study.timestep)
 
 
 def _blocks(n_steps: int, occupied: np.ndarray, series: bool, block: int) -> list[tuple[int, int]]:
@@ -549,6 +529,7 @@ def _layout(plan: Plan) -> results_store.StoreLayout:
         times=plan.times,
         series_chunk=SERIES_CHUNK,
         attrs=_attrs(plan),
+        metric_options=plan.loaded.study.metric_options.model_dump(),
     )
 
 

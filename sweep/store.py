@@ -57,39 +57,16 @@ import zarr
 
 from luxsweep.sweep import __version__
 from luxsweep.sweep.errors import ResultsStoreError
+from luxsweep.sweep.registry import METRICS, long_name, sensor_metrics, variant_metrics
 
-# name -> (dtype, units, long name)
+# name -> (dtype, units, long name at the default thresholds); from sweep.registry
 SENSOR_VARIABLES: dict[str, tuple[str, str, str]] = {
-    "daylight_factor": ("float32", "%", "daylight factor under the CIE overcast sky"),
-    "daylight_autonomy": ("float32", "1", "fraction of occupied time at or above the "
-                          "daylight autonomy threshold"),
-    "continuous_daylight_autonomy": ("float32", "1", "continuous daylight autonomy "
-                                     "(partial credit below the threshold)"),
-    "udi_low": ("float32", "1", "fraction of occupied time below the lowest UDI edge"),
-    "udi_supplementary": ("float32", "1", "fraction of occupied time in the supplementary "
-                          "UDI band"),
-    "udi_autonomous": ("float32", "1", "fraction of occupied time in the autonomous UDI band"),
-    "udi_high": ("float32", "1", "fraction of occupied time above the highest UDI edge"),
-    "direct_sun_hours": ("float32", "h", "occupied hours above the direct-sun threshold "
-                         "(direct sun only)"),
-    "ase_hours": ("float32", "h", "analysis hours (08:00-18:00) above the direct-sun "
-                  "threshold (direct sun only)"),
-    "sda_fraction": ("float32", "1", "fraction of analysis hours at or above the sDA "
-                     "threshold (shading rule applied)"),
-    "mean_illuminance": ("float32", "lx", "mean illuminance over the occupied time"),
-    "light_exposure": ("float32", "lx h", "annual light exposure over all steps"),
+    name: (METRICS[name].dtype, METRICS[name].unit, long_name(name))
+    for name in sensor_metrics()
 }
 VARIANT_VARIABLES: dict[str, tuple[str, str, str]] = {
-    "sda": ("float32", "%", "spatial daylight autonomy sDA (IES LM-83-12)"),
-    "ase": ("float32", "%", "annual sunlight exposure ASE (IES LM-83-12)"),
-    "udi_useful_mean": ("float32", "1", "grid mean of the fraction of occupied time in "
-                        "the useful band"),
-    "daylight_autonomy_mean": ("float32", "1", "grid mean of daylight autonomy"),
-    "daylight_factor_mean": ("float32", "%", "grid mean daylight factor"),
-    "en17037_level": ("int8", "1", "EN 17037 daylight provision level: 0 none, 1 minimum, "
-                      "2 medium, 3 high"),
-    "shading_hours": ("float32", "h", "analysis hours with the operable shading closed "
-                      "(IES LM-83-12 rule)"),
+    **{name: (METRICS[name].dtype, METRICS[name].unit, long_name(name))
+       for name in variant_metrics()},
     "done": ("bool", "1", "all results of this variant are written"),
 }
 SERIES_VARIABLES: dict[str, tuple[str, str, str]] = {
@@ -118,6 +95,9 @@ class StoreLayout:
         Time steps per series chunk.
     attrs : mapping
         Group attributes (study_hash, study text, ...).
+    metric_options : mapping, optional
+        The study's ``metric_options``: fills the thresholds into each
+        variable's ``long_name`` (:func:`sweep.registry.long_name`).
     """
 
     variant_ids: Sequence[str]
@@ -129,6 +109,7 @@ class StoreLayout:
     times: pd.DatetimeIndex | None
     series_chunk: int
     attrs: Mapping[str, Any]
+    metric_options: Mapping[str, Any] | None = None
 
     @property
     def n_variants(self) -> int:
@@ -186,16 +167,18 @@ def _template(layout: StoreLayout) -> tuple[xr.Dataset, dict[str, dict[str, Any]
     data: dict[str, Any] = {}
     encoding: dict[str, dict[str, Any]] = {}
     for name in layout.sensor_variables:
-        dtype, units, long_name = SENSOR_VARIABLES[name]
+        dtype, units, _ = SENSOR_VARIABLES[name]
         data[name] = (("variant", "sensor"), da.full((nv, ns), np.nan, dtype=dtype,
                                                      chunks=(1, ns)),
-                      {"units": units, "long_name": long_name})
+                      {"units": units, "long_name": long_name(name, layout.metric_options)})
         encoding[name] = {"chunks": (1, ns), "chunk_key_encoding": FLAT_KEYS}
     for name in [*layout.variant_variables, "done"]:
-        dtype, units, long_name = VARIANT_VARIABLES[name]
+        dtype, units, text = VARIANT_VARIABLES[name]
+        if name != "done":
+            text = long_name(name, layout.metric_options)
         fill = np.nan if dtype.startswith("float") else 0
         data[name] = (("variant",), da.full((nv,), fill, dtype=dtype, chunks=1),
-                      {"units": units, "long_name": long_name})
+                      {"units": units, "long_name": text})
         # one value per chunk: a compressor only adds its frame (and time) to each
         encoding[name] = {"chunks": (1,), "compressors": None, "chunk_key_encoding": FLAT_KEYS}
     if layout.times is not None:
@@ -203,11 +186,11 @@ def _template(layout: StoreLayout) -> tuple[xr.Dataset, dict[str, dict[str, Any]
         coords["time"] = ("time", np.asarray(layout.times.tz_localize(None)
                                              if layout.times.tz is not None else layout.times),
                           {"long_name": "local standard time (hour-ending stamps)"})
-        for name, (dtype, units, long_name) in SERIES_VARIABLES.items():
+        for name, (dtype, units, text) in SERIES_VARIABLES.items():
             chunks = (1, ns, min(layout.series_chunk, nt))
             data[name] = (("variant", "sensor", "time"),
                           da.full((nv, ns, nt), np.nan, dtype=dtype, chunks=chunks),
-                          {"units": units, "long_name": long_name})
+                          {"units": units, "long_name": text})
             encoding[name] = {"chunks": chunks, "chunk_key_encoding": FLAT_KEYS}
     ds = xr.Dataset(data, coords=coords, attrs=dict(layout.attrs))
     return ds, encoding

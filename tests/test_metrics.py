@@ -326,7 +326,7 @@ def random_year(seed=7, batch=(2, 3), n_sensors=12, n_steps=700):
 def test_one_chunk_equals_seven_chunks_and_merge():
     # Additivity over time chunks (the engine's contract): identical results.
     total, direct, shaded, m = random_year()
-    p = MetricParams(ase_hours=20.0)
+    p = MetricParams(ase_hours_limit=20.0)
     whole = finalize(accumulate(None, total, direct, m, p, shaded), p)
     edges = [0, 13, 100, 101, 250, 400, 555, 700]  # 7 uneven chunks
     counts, parts = None, []
@@ -384,16 +384,6 @@ def test_daylight_factor_stats():
 def test_params_reject_bad_udi_edges():
     with pytest.raises(ValueError, match="udi_edges"):
         MetricParams(udi_edges=(300.0, 100.0, 3000.0))
-
-
-def test_params_from_study_options():
-    # sda_time_fraction is a percentage in the study file, a share here.
-    p = MetricParams.from_options(
-        {"daylight_autonomy": 500, "sda_time_fraction": 75, "ase_illuminance": 1200},
-        step_minutes=15,
-    )
-    assert (p.da_threshold, p.sda_time_fraction, p.sun_threshold) == (500.0, 0.75, 1200.0)
-    assert p.step_hours == 0.25
 
 
 def _direct_counts(total, direct, shaded, m, p):
@@ -474,7 +464,7 @@ def test_transmittance_scaling_equals_forming_each_variant():
     # place values exactly on thresholds after scaling: τ·u lands on 300 lx and 3000 lx
     total[0, 0, :4] = [np.float32(300) / tau[0], np.float32(3000) / tau[1],
                        np.nextafter(np.float32(300) / tau[2], np.float32(0)), 1000 / 0.7]
-    p = MetricParams(ase_hours=20.0)
+    p = MetricParams(ase_hours_limit=20.0)
     got = finalize(accumulate(None, total, direct, m, p, transmittance=tau,
                               shaded_transmittance=tau_closed), p)
     formed = tau[None, :, None, None] * total[:, None]  # (2, 3, S, T) float32
