@@ -428,13 +428,13 @@ def _epw_site(line: str, source: str) -> Site:
     for name, text in zip(names, parts[6:10], strict=True):
         try:
             numbers.append(float(text))
-        except ValueError:
+        except ValueError as exc:
             raise WeatherFileError(
                 f"{name} {text!r} is not a number; write the site's {name} in the LOCATION line",
                 file=source,
                 line=1,
                 field=name,
-            ) from None
+            ) from exc
     latitude, longitude, utc_offset, elevation = numbers
     _check_site(latitude, longitude, utc_offset, elevation, source)
     name = ", ".join(p for p in parts[1:4] if p and p != "-")
@@ -539,14 +539,14 @@ def _tmy3_records(
             mm, dd, _ = d.split("/")
             hh, _ = t.split(":")
             month[i], day[i], hour[i] = int(mm), int(dd), int(hh)
-        except ValueError:
+        except ValueError as exc:
             bad, fmt = ("Date (MM/DD/YYYY)", d) if d.count("/") != 2 else ("Time (HH:MM)", t)
             raise WeatherFileError(
                 f"cannot read {fmt!r} as a date MM/DD/YYYY and time HH:MM",
                 file=source,
                 line=first_line + i,
                 field=bad,
-            ) from None
+            ) from exc
     values = {}
     valid = {}
     for name, (column, flag_column) in _TMY3_COLUMNS.items():
@@ -603,13 +603,13 @@ def _tmy3_site(line: str, source: str) -> Site:
     for name, text in zip(names, parts[3:7], strict=True):
         try:
             numbers.append(float(text))
-        except ValueError:
+        except ValueError as exc:
             raise WeatherFileError(
                 f"{name} {text!r} is not a number; write the site's {name} in the metadata line",
                 file=source,
                 line=1,
                 field=name,
-            ) from None
+            ) from exc
     utc_offset, latitude, longitude, elevation = numbers
     _check_site(latitude, longitude, utc_offset, elevation, source)
     name = ", ".join(p.strip() for p in parts[1:3] if p.strip())
@@ -970,13 +970,13 @@ def _day_span(days: list[int]) -> str:
 def _read_text(path: Path) -> str:
     try:
         raw = path.read_bytes()
-    except FileNotFoundError:
+    except FileNotFoundError as exc:
         raise WeatherFileError(
             "file not found; check the path (relative paths resolve against the study file)",
             file=str(path),
-        ) from None
-    except IsADirectoryError:
-        raise WeatherFileError("is a folder, not a weather file", file=str(path)) from None
+        ) from exc
+    except IsADirectoryError as exc:
+        raise WeatherFileError("is a folder, not a weather file", file=str(path)) from exc
     if b"\x00" in raw[:65536]:
         raise WeatherFileError(
             "is a binary file, not a text weather file; accepted formats are: "

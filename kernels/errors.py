@@ -1,12 +1,31 @@
-"""Errors raised by the kernels when their inputs (weather files, geometry) are bad.
+"""The root of luxsweep's errors, and the kernels' input errors.
 
-They inherit :class:`ValueError`; ``sweep`` maps them to exit status 2.
+:class:`LuxsweepError` is the base of every error luxsweep defines, in the
+kernels and in ``sweep`` (``sweep.errors`` re-exports it; it lives here because
+the kernels may not import ``sweep``). Each subclass also inherits the builtin
+that callers caught before (:class:`InputError` is a :class:`ValueError`), so
+``except LuxsweepError`` and ``except ValueError`` both work.
+
+The kernels raise :class:`InputError` subclasses when their inputs (weather
+files, geometry) are bad; ``sweep`` maps them to exit status 2.
+
+Chaining rule (the whole project): a ``raise`` inside an ``except`` block always
+names the caught exception as its cause, ``raise NewError(...) from exc`` —
+never ``from None`` and never an implicit context. The message says what is
+wrong for the user; the cause stays for ``--debug`` tracebacks and for callers
+that inspect ``__cause__``. A test scans the sources for it.
 """
 
 from __future__ import annotations
 
+__all__ = ["GeometryError", "InputError", "LuxsweepError", "WeatherFileError"]
 
-class InputError(ValueError):
+
+class LuxsweepError(Exception):
+    """Base class of every error luxsweep defines."""
+
+
+class InputError(LuxsweepError, ValueError):
     """Bad user input found by a kernel.
 
     Parameters

@@ -296,12 +296,12 @@ def _get(item: Any, key: str, default: Any = ...) -> Any:
 def _number(item: Any, key: str, path: str, default: Any = ...) -> float:
     try:
         value = _get(item, key, default)
-    except KeyError:
-        raise GeometryError(f"'{key}' is missing; give it in metres", field=path) from None
+    except KeyError as exc:
+        raise GeometryError(f"'{key}' is missing; give it in metres", field=path) from exc
     try:
         value = float(value)
-    except (TypeError, ValueError):
-        raise GeometryError(f"'{value}' is not a number", field=path) from None
+    except (TypeError, ValueError) as exc:
+        raise GeometryError(f"'{value}' is not a number", field=path) from exc
     if not math.isfinite(value):
         raise GeometryError(f"{value} is not a finite number", field=path)
     return value
@@ -457,10 +457,10 @@ def _validate_windows(
         path = f"windows.{i}"
         try:
             wall = _get(win, "wall")
-        except KeyError:
+        except KeyError as exc:
             raise GeometryError(
                 f"'wall' is missing; give one of {', '.join(WALLS)}", field=f"{path}.wall"
-            ) from None
+            ) from exc
         if wall not in WALLS:
             raise GeometryError(
                 f"unknown wall '{wall}'; use one of {', '.join(WALLS)}", field=f"{path}.wall"
@@ -831,7 +831,7 @@ def read_obj(
     try:
         text = path.read_text(encoding="utf-8", errors="replace")
     except OSError as exc:
-        raise GeometryError(f"cannot read the mesh: {exc.strerror}", file=src) from None
+        raise GeometryError(f"cannot read the mesh: {exc.strerror}", file=src) from exc
     verts: list[tuple[float, float, float]] = []
     faces: list[tuple[int, int, int]] = []
     face_group: list[str] = []
@@ -845,10 +845,10 @@ def read_obj(
         if key == "v":
             try:
                 xyz = tuple(float(s) for s in rest[:3])
-            except ValueError:
+            except ValueError as exc:
                 raise GeometryError(
                     f"vertex '{line}' is not three numbers", file=src, line=lineno
-                ) from None
+                ) from exc
             if len(xyz) != 3 or not all(math.isfinite(c) for c in xyz):
                 raise GeometryError(
                     f"vertex '{line}' needs three finite numbers x y z", file=src, line=lineno
@@ -862,11 +862,11 @@ def read_obj(
                 s = tok.split("/", 1)[0]
                 try:
                     k = int(s)
-                except ValueError:
+                except ValueError as exc:
                     raise GeometryError(
                         f"face index '{tok}' is not an integer", file=src, line=lineno,
                         field=group,
-                    ) from None
+                    ) from exc
                 k = k - 1 if k > 0 else len(verts) + k
                 if k < 0 or k >= len(verts) or s.startswith("0"):
                     raise GeometryError(
@@ -1139,7 +1139,7 @@ def read_sensors(path: str | Path) -> np.ndarray:
     try:
         text = path.read_text(encoding="utf-8-sig")
     except OSError as exc:
-        raise GeometryError(f"cannot read the sensor file: {exc.strerror}", file=src) from None
+        raise GeometryError(f"cannot read the sensor file: {exc.strerror}", file=src) from exc
     rows: list[list[float]] = []
     first = True
     for lineno, rec in enumerate(csv.reader(text.splitlines()), start=1):
@@ -1148,13 +1148,13 @@ def read_sensors(path: str | Path) -> np.ndarray:
             continue
         try:
             vals = [float(c) for c in cells]
-        except ValueError:
+        except ValueError as exc:
             if first:  # a header line
                 first = False
                 continue
             raise GeometryError(
                 f"'{','.join(cells)}' holds a value that is not a number", file=src, line=lineno
-            ) from None
+            ) from exc
         first = False
         if len(vals) != 6 or not all(math.isfinite(v) for v in vals):
             raise GeometryError(

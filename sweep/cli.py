@@ -26,8 +26,8 @@ from luxsweep.sweep import __version__
 def _positive_int(text: str) -> int:
     try:
         value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from exc
     if value < 1:
         raise argparse.ArgumentTypeError(f"must be at least 1, got {value}")
     return value

@@ -61,7 +61,7 @@ from pydantic import (
 )
 
 from luxsweep.sweep import registry
-from luxsweep.sweep.errors import StudyFileError
+from luxsweep.sweep.errors import LuxsweepError, StudyFileError
 
 # ---------------------------------------------------------------------------
 # helpers shared by the models
@@ -795,7 +795,9 @@ def _line_map(node: yaml.Node, prefix: tuple = ()) -> dict[tuple, int]:
     return lines
 
 
-class _Duplicate(Exception):
+class _Duplicate(LuxsweepError):
+    """A key given twice in one mapping (turned into a StudyFileError by the loader)."""
+
     def __init__(self, path: tuple, first: int, second: int) -> None:
         self.path, self.first, self.second = path, first, second
 
@@ -984,20 +986,20 @@ def parse_study(text: str, path: str | Path) -> StudyFile:
         raise StudyFileError(
             f"{path}: line {dup.second}, key '{dotted(dup.path)}': given twice (first on line "
             f"{dup.first}); YAML would silently keep only the last one. Keep one of them."
-        ) from None
+        ) from dup
     except yaml.constructor.ConstructorError as exc:
         line = exc.problem_mark.line + 1 if exc.problem_mark else None
         raise StudyFileError(
             f"{path}: line {line}: YAML tag not allowed ({exc.problem}). Study files hold "
             "plain data only; remove the '!!' tag."
-        ) from None
+        ) from exc
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         line = f"line {mark.line + 1}: " if mark else ""
         problem = getattr(exc, "problem", None) or str(exc)
         raise StudyFileError(
             f"{path}: {line}not valid YAML ({problem}). Check indentation and quoting there."
-        ) from None
+        ) from exc
     if not isinstance(data, dict):
         raise StudyFileError(f"{path}: line 1: a study file is a YAML mapping of keys "
                              "(name, climates, room, ...); configs/demo.yaml is a complete "
@@ -1006,7 +1008,7 @@ def parse_study(text: str, path: str | Path) -> StudyFile:
     try:
         study = Study.model_validate(data, context=context)
     except ValidationError as exc:
-        raise _error(path, lines, validation_problems(exc)) from None
+        raise _error(path, lines, validation_problems(exc)) from exc
     problems = cross_check(study)
     if problems:
         raise _error(path, lines, problems)
@@ -1023,10 +1025,10 @@ def load_study(path: str | Path) -> StudyFile:
     p = Path(path)
     try:
         text = p.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise StudyFileError(f"{p}: study file not found; check the path.") from None
+    except FileNotFoundError as exc:
+        raise StudyFileError(f"{p}: study file not found; check the path.") from exc
     except (OSError, UnicodeDecodeError) as exc:
-        raise StudyFileError(f"{p}: cannot read the study file ({exc}).") from None
+        raise StudyFileError(f"{p}: cannot read the study file ({exc}).") from exc
     return parse_study(text, p)
 
 

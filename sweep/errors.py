@@ -1,16 +1,27 @@
 """The error hierarchy of luxsweep's orchestration layer.
 
-Every error a user can fix is a :class:`LuxsweepError` that also inherits the
-matching builtin, so callers may catch either. The command line maps
-:class:`UserInputError` (and the kernels' :class:`kernels.errors.InputError`) to
-exit status 2 with one message, and everything else to exit status 1.
+Every error luxsweep defines derives from one root, :class:`LuxsweepError`
+(defined in :mod:`kernels.errors`, so that the kernels' :class:`InputError`
+shares it, and re-exported here), and also inherits the matching builtin, so
+callers may catch either. The command line maps :class:`UserInputError` (and the
+kernels' :class:`kernels.errors.InputError`) to exit status 2 with one message,
+and everything else to exit status 1. Exceptions chain with ``from exc``
+(the rule is in :mod:`kernels.errors`).
 """
 
 from __future__ import annotations
 
+from luxsweep.kernels.errors import InputError, LuxsweepError
 
-class LuxsweepError(Exception):
-    """Base class of luxsweep's own errors."""
+__all__ = [
+    "CacheIntegrityError",
+    "InputError",
+    "LuxsweepError",
+    "ResultsStoreError",
+    "StudyFileError",
+    "UserInputError",
+    "VariantFailedError",
+]
 
 
 class UserInputError(LuxsweepError, ValueError):

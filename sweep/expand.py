@@ -183,7 +183,7 @@ def check_vary(loaded: StudyFile) -> None:
                     (*loc, j) if len(paths) == 1 else (*loc, paths[0], j),
                     f"value {row if len(row) > 1 else row[0]!r} (item {j}) is not valid at "
                     f"'{dotted(inner_loc)}': {message}",
-                ) from None
+                ) from exc
             problems = cross_check(resolved)
             if problems:
                 shown = row if len(row) > 1 else row[0]

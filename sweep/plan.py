@@ -353,7 +353,7 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
                 settings = settings_of(v.study)
                 geometry, pts = build_geometry(v.study)
             except InputError as exc:
-                raise _wrap_geometry_error(loaded, v, exc) from None
+                raise _wrap_geometry_error(loaded, v, exc) from exc
             built[doc] = (geometry, pts, coefficient_key(geometry, pts, settings), settings)
         geometry, pts, key, settings = built[doc]
         sensors.append(pts)

@@ -223,7 +223,7 @@ def create_store(path: str | Path, layout: StoreLayout) -> None:
             os.rename(tmp, path)
         except OSError as exc:
             raise ResultsStoreError(f"{path}: cannot create the results store ({exc}); "
-                                    "delete it or choose another --out") from None
+                                    "delete it or choose another --out") from exc
     finally:
         if tmp.exists():
             shutil.rmtree(tmp, ignore_errors=True)
@@ -355,12 +355,12 @@ def _open_arrays(path: str | Path, names: Sequence[str]) -> dict[str, zarr.Array
     for name in [*names, "done"]:
         try:
             arrays[name] = group[name]
-        except KeyError:
+        except KeyError as exc:
             raise ResultsStoreError(
                 f"{path}: the results store has no array '{name}' (it was made for other "
                 f"metrics or is damaged). Delete the folder {path} or write elsewhere with "
                 "--out."
-            ) from None
+            ) from exc
     return arrays
 
 
