@@ -36,6 +36,10 @@ import numpy as np
 
 from luxsweep.sweep.errors import CacheIntegrityError
 
+__all__ = [
+    "CoefficientCache",
+]
+
 _TMP = ".tmp-"
 _TRASH = ".trash-"
 

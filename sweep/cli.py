@@ -22,6 +22,18 @@ from typing import Any
 
 from luxsweep.sweep import __version__
 
+__all__ = [
+    "COMMANDS",
+    "build_parser",
+    "cmd_check",
+    "cmd_demo",
+    "cmd_plan",
+    "cmd_rank",
+    "cmd_report",
+    "cmd_run",
+    "main",
+]
+
 
 def _positive_int(text: str) -> int:
     try:

@@ -330,5 +330,5 @@ def dask_client(workers: int | None, scheduler: str | None, *,
 
 __all__ = [
     "ALLOWED_FAILURES", "CONNECT_TIMEOUT", "TlsFiles", "check_target", "dashboard_link",
-    "dask_client", "is_loopback", "is_plain_link", "scheduler_address",
+    "dask_client", "dask_setup", "is_loopback", "is_plain_link", "scheduler_address",
 ]

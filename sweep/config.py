@@ -63,6 +63,40 @@ from pydantic import (
 from luxsweep.sweep import registry
 from luxsweep.sweep.errors import LuxsweepError, StudyFileError
 
+__all__ = [
+    "MAX_NODES",
+    "METRIC_FAMILIES",
+    "NOT_VARIABLE",
+    "RANK_FAMILY",
+    "RANK_METRICS",
+    "Compute",
+    "Glazing",
+    "Grid",
+    "MeshMaterial",
+    "MetricOptions",
+    "Obstruction",
+    "Occupancy",
+    "Overhang",
+    "Positive",
+    "Preference",
+    "Project",
+    "Rank",
+    "Reflectance",
+    "Requirement",
+    "Room",
+    "Study",
+    "StudyFile",
+    "WeatherFile",
+    "Window",
+    "canonical_json",
+    "cross_check",
+    "dotted",
+    "json_schema",
+    "load_study",
+    "parse_study",
+    "validation_problems",
+]
+
 # ---------------------------------------------------------------------------
 # helpers shared by the models
 

@@ -19,6 +19,13 @@ import pvlib
 
 from luxsweep.sweep.errors import UserInputError
 
+__all__ = [
+    "DEMO_CLIMATES",
+    "demo_text",
+    "run_demo",
+    "write_demo",
+]
+
 DEMO_CLIMATES = ("723170TYA.CSV", "703165TY.csv")
 WRITTEN_RECORD = ".luxsweep-demo-study.sha256"
 """Beside the demo study: the hash of the text luxsweep last wrote there, so a rerun

@@ -18,6 +18,7 @@ __all__ = [
     "InputError",
     "LuxsweepError",
     "ResultsStoreError",
+    "SchedulerError",
     "StudyFileError",
     "UserInputError",
     "VariantFailedError",

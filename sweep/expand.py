@@ -38,6 +38,20 @@ from luxsweep.sweep.config import (
 )
 from luxsweep.sweep.registry import RENAMED_OPTIONS
 
+__all__ = [
+    "Variant",
+    "axis_names",
+    "check_vary",
+    "expand",
+    "file_sha256",
+    "get_path",
+    "has_path",
+    "set_path",
+    "split_path",
+    "study_hash",
+    "variant_params",
+]
+
 # Study keys holding file paths (resolved to absolute paths in the model).
 _FILE_KEYS = ("mesh", "sensors")
 

@@ -31,6 +31,18 @@ from luxsweep.sweep.config import Study, StudyFile, canonical_json
 from luxsweep.sweep.errors import StudyFileError
 from luxsweep.sweep.expand import Variant, axis_names, expand, study_hash
 
+__all__ = [
+    "BYTES_PER_VALUE",
+    "CoefficientJob",
+    "Plan",
+    "SeriesTask",
+    "build_geometry",
+    "check_climates",
+    "make_plan",
+    "occupied_times",
+    "settings_of",
+]
+
 BYTES_PER_VALUE = 4  # float32 results
 
 

@@ -45,18 +45,25 @@ from luxsweep.sweep.errors import ResultsStoreError, StudyFileError
 
 __all__ = [
     "MAIN_METRICS",
+    "Objective",
     "RankSpec",
+    "Requirement",
     "axes_of",
     "completed_mask",
+    "coord_values",
     "criterion_text",
     "main_effects",
     "metric_names",
+    "open_store",
     "pareto_front",
+    "parse_rank_spec",
+    "print_table",
     "rank_command",
     "rank_spec_from_store",
     "rank_table",
     "shown_metrics",
     "study_from_store",
+    "study_text",
     "variant_names",
 ]
 

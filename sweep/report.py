@@ -93,7 +93,16 @@ from luxsweep.sweep.rank import (
     study_from_store,
 )
 
-__all__ = ["CAUTION", "build_report", "report_command", "write_pdf"]
+__all__ = [
+    "CAUTION",
+    "NOTES",
+    "PLAN_METRICS",
+    "build_report",
+    "find_chromium",
+    "report_command",
+    "resolved_study",
+    "write_pdf",
+]
 
 CMAP = "cividis"
 CAUTION = (

@@ -912,5 +912,5 @@ __all__ = [
     "ALLOWED_FAILURES", "FAMILIES", "Collector", "ResultsStoreError", "RunSummary",
     "VariantFailedError", "coefficient_task", "dask_client", "default_cache", "default_results",
     "format_summary", "is_loopback", "is_plain_link", "prepare", "run_study", "series_task",
-    "store_variables",
+    "store_variables", "terminate_as_interrupt",
 ]

@@ -59,6 +59,26 @@ from luxsweep.sweep import __version__
 from luxsweep.sweep.errors import ResultsStoreError
 from luxsweep.sweep.registry import METRICS, long_name, sensor_metrics, variant_metrics
 
+__all__ = [
+    "CREATING",
+    "FLAT_KEYS",
+    "SENSOR_VARIABLES",
+    "SERIES_VARIABLES",
+    "VARIANT_VARIABLES",
+    "StoreLayout",
+    "check_alignment",
+    "consolidate",
+    "create_store",
+    "open_existing",
+    "read_attrs",
+    "remove_unfinished",
+    "update_attrs",
+    "write_series",
+    "write_series_block",
+    "write_variant",
+    "write_variants",
+]
+
 # name -> (dtype, units, long name at the default thresholds); from sweep.registry
 SENSOR_VARIABLES: dict[str, tuple[str, str, str]] = {
     name: (METRICS[name].dtype, METRICS[name].unit, long_name(name))
@@ -419,6 +439,8 @@ class _ChunkWriter:
             return
         spec = self.spec
         for codec in self.codecs:
+            # zarr's synchronous codec protocol has only this underscored name: pyproject
+            # bounds zarr below the next minor version for it
             data = codec._encode_sync(data, spec)
             spec = codec.resolve_metadata(spec)
         self.store.set_sync(key, data)

@@ -63,3 +63,24 @@ def test_installed_modules_come_from_the_repository_folders():
     for module, folder in ((luxsweep.sweep, "sweep"), (luxsweep.kernels, "kernels"),
                            (luxsweep.configs, "configs")):
         assert Path(module.__file__).resolve().parent == ROOT / folder
+
+
+def test_every_sweep_module_lists_its_public_names():
+    # each module's __all__ exists, names only what the module holds, and holds every
+    # public function and class the module defines itself
+    import importlib
+    import inspect
+    import pkgutil
+
+    import luxsweep.sweep
+
+    modules = [luxsweep.sweep] + [importlib.import_module(f"luxsweep.sweep.{m.name}")
+                                  for m in pkgutil.iter_modules(luxsweep.sweep.__path__)]
+    for module in modules:
+        names = getattr(module, "__all__", None)
+        assert names is not None, f"{module.__name__} has no __all__"
+        assert all(hasattr(module, n) for n in names), module.__name__
+        own = {n for n, obj in vars(module).items()
+               if not n.startswith("_") and (inspect.isfunction(obj) or inspect.isclass(obj))
+               and obj.__module__ == module.__name__}
+        assert own <= set(names), f"{module.__name__}: not in __all__: {own - set(names)}"
