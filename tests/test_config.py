@@ -13,6 +13,7 @@ import shutil
 import textwrap
 from pathlib import Path
 
+import pydantic
 import pytest
 from conftest import TMY3_GREENSBORO, TMY3_SAND_POINT
 
@@ -90,7 +91,7 @@ def test_models_are_frozen(folder):
     path = folder / "study.yaml"
     path.write_text(BASE)
     study = load_study(path).study
-    with pytest.raises(Exception):  # noqa: B017 - pydantic raises its own ValidationError
+    with pytest.raises(pydantic.ValidationError, match="frozen"):
         study.name = "other"  # type: ignore[misc]
 
 

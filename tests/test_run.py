@@ -130,8 +130,12 @@ def test_series_are_stored_for_occupied_steps(tmp_path):
     run_study(study, tmp_path / "r.zarr", workers=1, cache_dir=tmp_path / "cache",
               show_progress=False)
     ds = xr.open_zarr(tmp_path / "r.zarr")
-    # hourly, 08:00-18:00 on weekdays: ten occupied steps per weekday (occupancy_mask)
-    assert ds.sizes["time"] == 260 * 10 or ds.sizes["time"] == 261 * 10
+    # hourly, 08:00-18:00 on weekdays: ten occupied steps per weekday (occupancy_mask) of
+    # the reference year 2023 (kernels.climate.REFERENCE_YEAR), which has 260 weekdays
+    # (numpy's business-day calendar, Monday to Friday)
+    weekdays = int(np.busday_count("2023-01-01", "2024-01-01"))
+    assert weekdays == 260
+    assert ds.sizes["time"] == weekdays * 10
     e = ds.illuminance.isel(variant=0).values
     assert np.isfinite(e).all() and (e >= 0).all() and e.max() > 100
     assert ds.illuminance.encoding["chunks"][2] == 512

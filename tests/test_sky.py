@@ -173,21 +173,37 @@ def test_pickle_round_trip():
 # ------------------------------------------------------------------------------- CIE skies
 
 
+# ISO 15469:2004 / CIE S 011/E:2003, the table of the 15 standard general skies as the
+# standard prints it, one row per sky type: gradation group, indicatrix group and the
+# parameters a, b (gradation) and c, d, e (indicatrix). Typed from memory of the
+# standard's table (not from kernels/sky.py, which stores groups, not rows).
+ISO15469_TABLE = {
+    1: ("I", 1, 4.0, -0.70, 0.0, -1.0, 0.00),
+    2: ("I", 2, 4.0, -0.70, 2.0, -1.5, 0.15),
+    3: ("II", 1, 1.1, -0.8, 0.0, -1.0, 0.00),
+    4: ("II", 2, 1.1, -0.8, 2.0, -1.5, 0.15),
+    5: ("III", 1, 0.0, -1.0, 0.0, -1.0, 0.00),
+    6: ("III", 2, 0.0, -1.0, 2.0, -1.5, 0.15),
+    7: ("III", 3, 0.0, -1.0, 5.0, -2.5, 0.30),
+    8: ("III", 4, 0.0, -1.0, 10.0, -3.0, 0.45),
+    9: ("IV", 2, -1.0, -0.55, 2.0, -1.5, 0.15),
+    10: ("IV", 3, -1.0, -0.55, 5.0, -2.5, 0.30),
+    11: ("IV", 4, -1.0, -0.55, 10.0, -3.0, 0.45),
+    12: ("V", 4, -1.0, -0.32, 10.0, -3.0, 0.45),
+    13: ("V", 5, -1.0, -0.32, 16.0, -3.0, 0.30),
+    14: ("VI", 5, -1.0, -0.15, 16.0, -3.0, 0.30),
+    15: ("VI", 6, -1.0, -0.15, 24.0, -2.8, 0.15),
+}
+ROMAN = {"I": 1, "II": 2, "III": 3, "IV": 4, "V": 5, "VI": 6}
+
+
 def iso15469_by_hand(sky_type, zenith_deg, chi_deg, sun_zenith_deg):
     """L/Lz written plainly from ISO 15469:2004 / CIE S 011/E:2003 (parameters from memory).
 
     φ(Z) = 1 + a exp(b / cos Z), φ(0) = 1 + a exp(b);
     f(χ) = 1 + c (exp(d χ) − exp(d π/2)) + e cos² χ;  L/Lz = f(χ) φ(Z) / (f(Zs) φ(0)).
     """
-    table = {  # type: (a, b, c, d, e), ISO 15469 Table 1 (from memory)
-        1: (4.0, -0.70, 0, -1.0, 0.0),
-        3: (1.1, -0.8, 0, -1.0, 0.0),
-        7: (0.0, -1.0, 5, -2.5, 0.30),
-        12: (-1.0, -0.32, 10, -3.0, 0.45),
-        13: (-1.0, -0.32, 16, -3.0, 0.30),
-        15: (-1.0, -0.15, 24, -2.8, 0.15),
-    }
-    a, b, c, d, e = table[sky_type]
+    a, b, c, d, e = ISO15469_TABLE[sky_type][2:]
     z, chi, zs = (math.radians(v) for v in (zenith_deg, chi_deg, sun_zenith_deg))
     phi = 1 + a * math.exp(b / math.cos(z)) if zenith_deg < 90 else 1.0
     phi0 = 1 + a * math.exp(b)
@@ -196,7 +212,16 @@ def iso15469_by_hand(sky_type, zenith_deg, chi_deg, sun_zenith_deg):
     return f * phi / (fs * phi0)
 
 
-@pytest.mark.parametrize("sky_type", [1, 3, 7, 12, 13, 15])
+@pytest.mark.parametrize("sky_type", sorted(ISO15469_TABLE))
+def test_cie_sky_parameters_equal_the_iso15469_table(sky_type):
+    # the kernel's groups and type map give each row of the standard's table
+    gradation, indicatrix, *params = ISO15469_TABLE[sky_type]
+    assert sky.CIE_SKY_TYPES[sky_type] == (ROMAN[gradation], indicatrix)
+    assert (*sky.CIE_GRADATION[ROMAN[gradation]], *sky.CIE_INDICATRIX[indicatrix]) == tuple(
+        params)
+
+
+@pytest.mark.parametrize("sky_type", sorted(ISO15469_TABLE))
 def test_cie_standard_sky_against_iso15469_formula(sky_type):
     sun = unit(180.0, 35.0)
     points = [(180.0, 35.0), (0.0, 20.0), (90.0, 60.0), (200.0, 5.0), (0.0, 90.0)]
@@ -559,7 +584,7 @@ MODELS = {
 @pytest.mark.parametrize("model", sorted(MODELS))
 def test_every_sky_model_conforms(model):
     """Shared contract of the sky models: finite, non-negative luminance per direction,
-    and a pickled copy of the inputs gives the same result (workers receive pickles)."""
+    independent of the other directions evaluated with it."""
     assert {name for name in dir(sky) if name.startswith("luminance_")} == {
         f"luminance_{m}" for m in MODELS}  # a new model joins this contract
     function, params = MODELS[model]
@@ -567,9 +592,10 @@ def test_every_sky_model_conforms(model):
     lum = function(d, **dict(params))
     assert lum.shape == (d.shape[0],)
     assert np.isfinite(lum).all() and (lum >= 0).all()
-    again = function(*pickle.loads(pickle.dumps((d,))),
-                     **pickle.loads(pickle.dumps(dict(params))))
-    assert np.array_equal(lum, again)
+    # luminance depends on each direction alone: a model normalised over the batch of
+    # directions it is given (instead of its own parameters) would change here
+    part = function(d[::7], **dict(params))
+    np.testing.assert_allclose(part, lum[::7], rtol=1e-12)
     if model == "perez1993":
         # normalised to the given diffuse illuminance (DESIGN §2.4): patch sum within 0.5 %
         scheme = sky.patch_scheme(2)
