@@ -1,0 +1,81 @@
+"""Mutation check: the suite notices a changed threshold, table entry, comparison or sign.
+
+Each case changes one thing in a kernel — a default threshold, one entry of a published
+table, a strict comparison, a sign — for the duration of the test only (the function or
+class is recompiled from its own source with the change and patched wherever it is
+referenced; the files are never touched), then runs an existing physics test, which
+must now fail. A case whose test still passes shows a check that cannot see the
+mistake it is there for.
+"""
+
+from __future__ import annotations
+
+import inspect
+import sys
+import textwrap
+
+import pytest
+import test_metrics
+import test_sky
+
+from luxsweep.kernels import metrics, sky
+
+
+def mutate(monkeypatch: pytest.MonkeyPatch, module, name: str, old: str, new: str) -> None:
+    """Replace ``old`` by ``new`` (exactly once) in the source of ``module.name``."""
+    original = getattr(module, name)
+    source = textwrap.dedent(inspect.getsource(original))
+    assert source.count(old) == 1, f"'{old}' must occur once in {name}"
+    code = compile(source.replace(old, new), inspect.getsourcefile(original), "exec")
+    namespace: dict = {}
+    exec(code, module.__dict__, namespace)  # globals stay the module's own
+    mutant = namespace[name]
+    for loaded in list(sys.modules.values()):
+        for attr, value in list(getattr(loaded, "__dict__", {}).items()):
+            if value is original:
+                monkeypatch.setattr(loaded, attr, mutant)
+
+
+def test_unmutated_targets_pass():
+    # the targets pass as they are; each case below must turn one of them into a failure
+    test_metrics.test_lm83_ase_more_than_250_hours()
+    test_sky.test_cie_sky_parameters_equal_the_iso15469_table(12)
+    test_sky.test_cie_standard_sky_against_iso15469_formula(12)
+    test_sky.test_cie_overcast_illuminance_over_patches()
+
+
+def test_a_changed_threshold_is_noticed(monkeypatch):
+    # IES LM-83-12: ASE counts more than 250 h; a 249 h default must fail the hand count
+    mutate(monkeypatch, metrics, "MetricParams", "ase_hours_limit: float = 250.0",
+           "ase_hours_limit: float = 249.0")
+    # test_metrics builds its default parameters on import: rebuild them from the mutant
+    assert test_metrics.run.__defaults__ == (None, None, test_metrics.P, None)
+    params = metrics.MetricParams()
+    assert params.ase_hours_limit == 249.0
+    monkeypatch.setattr(test_metrics, "P", params)
+    monkeypatch.setattr(test_metrics.run, "__defaults__", (None, None, params, None))
+    with pytest.raises(AssertionError):
+        test_metrics.test_lm83_ase_more_than_250_hours()
+
+
+def test_a_changed_comparison_is_noticed(monkeypatch):
+    # "more than 250 hours" is strict (IES LM-83-12); >= must fail the hand count
+    mutate(monkeypatch, metrics, "finalize", ") > (", ") >= (")
+    with pytest.raises(AssertionError):
+        test_metrics.test_lm83_ase_more_than_250_hours()
+
+
+def test_a_changed_table_entry_is_noticed(monkeypatch):
+    # ISO 15469 indicatrix group 4 has c = 10 (sky types 8, 11 and 12)
+    monkeypatch.setitem(sky.CIE_INDICATRIX, 4, (11.0, -3.0, 0.45))
+    with pytest.raises(AssertionError):
+        test_sky.test_cie_sky_parameters_equal_the_iso15469_table(12)
+    with pytest.raises(AssertionError):
+        test_sky.test_cie_standard_sky_against_iso15469_formula(12)
+
+
+def test_a_changed_sign_is_noticed(monkeypatch):
+    # the CIE overcast sky brightens towards the zenith: L/Lz = (1 + 2 sin α) / 3
+    mutate(monkeypatch, sky, "luminance_cie_overcast", "(1.0 + 2.0 *", "(1.0 - 2.0 *")
+    with pytest.raises(AssertionError):
+        test_sky.test_cie_overcast_illuminance_over_patches()
