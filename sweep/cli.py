@@ -32,6 +32,7 @@ __all__ = [
     "cmd_report",
     "cmd_run",
     "main",
+    "output_file",
 ]
 
 
