@@ -49,8 +49,8 @@ def _positive_int(text: str) -> int:
 def _positive_float(text: str) -> float:
     try:
         value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a number of seconds, got {text!r}") from None
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(f"expected a number of seconds, got {text!r}") from exc
     if not value > 0 or value == float("inf"):
         raise argparse.ArgumentTypeError(f"must be a positive number of seconds, got {text}")
     return value

@@ -153,10 +153,10 @@ def scheduler_address(scheduler: str, wait: float = 0.0) -> tuple[str, str]:
             info = json.loads(path.read_text(encoding="utf-8"))
         except OSError as exc:
             raise SchedulerError(f"the scheduler file {scheduler} cannot be read "
-                                 f"({exc.strerror or exc})") from None
-        except ValueError:
+                                 f"({exc.strerror or exc})") from exc
+        except ValueError as exc:
             raise SchedulerError(f"the scheduler file {scheduler} is not the JSON file a "
-                                 "Dask scheduler writes") from None
+                                 "Dask scheduler writes") from exc
         address = info.get("address") if isinstance(info, dict) else None
         if not isinstance(address, str) or _parse_address(address) is None:
             raise SchedulerError(f"the scheduler file {scheduler} holds no scheduler "
@@ -301,11 +301,11 @@ def dask_client(workers: int | None, scheduler: str | None, *,
             if "ssl" in text or "certificate" in text:
                 raise SchedulerError(f"the TLS handshake with the scheduler at {address} "
                                      "failed: check the CA file and the client certificate "
-                                     "and key") from None
+                                     "and key") from exc
             raise SchedulerError(f"could not reach the scheduler at {address} within "
                                  f"{connect_timeout:g} s. Check that the scheduler is running "
                                  "and the address is right (--connect-timeout sets the "
-                                 "wait).") from None
+                                 "wait).") from exc
         with client:
             yield client
         return
