@@ -1254,12 +1254,14 @@ _SCHEMA_TEXT: dict[str, tuple[str, dict[str, str]]] = {
                          "too dark below the first, supplementary up to the second, "
                          "autonomous up to the third, too bright above it.",
             "sda_illuminance": "Illuminance in lux of spatial daylight autonomy (sDA).",
-            "sda_time_fraction": "Share of the analysis hours, in percent, for which a "
-                                 "sensor must reach the sDA illuminance.",
-            "ase_illuminance": "Direct-sun illuminance in lux of annual sunlight exposure "
-                               "(ASE).",
-            "ase_hours": "Number of analysis hours above the ASE illuminance that makes a "
-                         "sensor count as over-exposed.",
+            "sda_time_percent": "Share of the analysis hours, in percent, for which a "
+                                "sensor must reach the sDA illuminance (formerly "
+                                "sda_time_fraction).",
+            "sun_threshold": "Direct-sun illuminance in lux of annual sunlight exposure "
+                             "(ASE) and of the direct-sun hours (formerly ase_illuminance).",
+            "ase_hours_limit": "Number of analysis hours above the direct-sun illuminance "
+                               "that makes a sensor count as over-exposed (formerly "
+                               "ase_hours).",
         },
     ),
     "Compute": (
