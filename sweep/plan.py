@@ -33,6 +33,7 @@ from luxsweep.sweep.expand import Variant, axis_names, expand, study_hash
 
 __all__ = [
     "BYTES_PER_VALUE",
+    "ROOM_PARAMETERS",
     "CoefficientJob",
     "Plan",
     "SeriesTask",
@@ -40,6 +41,7 @@ __all__ = [
     "check_climates",
     "make_plan",
     "occupied_times",
+    "room_key",
     "settings_of",
 ]
 
