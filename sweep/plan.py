@@ -6,7 +6,10 @@ their climate and their time-series settings (time step, ground reflectance,
 occupancy, metric thresholds) form one *series task*: one set of sky vectors for
 all their orientations, one batched illuminance product for all their glazing
 rows (open and, with operable shading, closed), the metrics accumulated chunk
-by chunk, and each variant's results written to its own chunks of the store.
+by chunk, and its variants' results written to the task's own chunks of the
+store. The plan numbers the variants so that every series task is one
+contiguous range of store indices (:func:`order_by_task`), which lets the
+store's chunks follow task boundaries (:mod:`sweep.store`).
 
 Building the plan also validates every input that ``luxsweep run`` will read
 (geometry of every variant, sensor grids, every weather file), so ``check``,
@@ -15,6 +18,7 @@ Building the plan also validates every input that ``luxsweep run`` will read
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import json
 import os
@@ -130,6 +134,24 @@ class Plan:
     @property
     def axes(self) -> list[str]:
         return axis_names(self.loaded.study)
+
+    def task_bounds(self) -> list[tuple[int, int]]:
+        """``(start, stop)`` store indices of each series task (contiguous ranges).
+
+        Raises
+        ------
+        RuntimeError
+            When a task's members are not a contiguous range (a planning bug that
+            would make tasks share chunks of the store).
+        """
+        bounds = []
+        for t in self.tasks:
+            idx = sorted(m[0] for m in t.members)
+            if idx[-1] - idx[0] + 1 != len(idx):
+                raise RuntimeError(f"series task {t.task_id}: variants {idx[0]}..{idx[-1]} are "
+                                   "not contiguous in the store; tasks would share chunks")
+            bounds.append((idx[0], idx[-1] + 1))
+        return bounds
 
     # -- cost -----------------------------------------------------------------
     def estimate(self) -> dict[str, Any]:
@@ -345,6 +367,32 @@ def check_climates(loaded: StudyFile, labels: Iterable[str]) -> dict[str, Any]:
     return out
 
 
+def order_by_task(groups: list[str]) -> np.ndarray:
+    """Store order of variants given each one's series-task group: tasks contiguous.
+
+    Parameters
+    ----------
+    groups : list of str
+        One group label per variant, in factorial order.
+
+    Returns
+    -------
+    ndarray of int
+        Factorial positions in store order: groups in order of first appearance,
+        largest first (a stable sort, so that the chunk size along ``variant``,
+        the greatest common divisor of the task boundaries, stays large when
+        tasks differ in size); the factorial order within a group.
+    """
+    labels, first, inverse, counts = np.unique(np.asarray(groups, dtype=object),
+                                               return_index=True, return_inverse=True,
+                                               return_counts=True)
+    del labels
+    # rank of each group: by size (descending), then by first appearance
+    rank = np.empty(len(first), dtype=np.int64)
+    rank[np.lexsort((first, -counts))] = np.arange(len(first))
+    return np.argsort(rank[inverse], kind="stable")
+
+
 def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
               *, read_climates: bool = True) -> Plan:
     """Expand, build every geometry, group by coefficient key, split into series tasks.
@@ -360,6 +408,7 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
     built: dict[str, tuple[Any, np.ndarray, str, Any]] = {}
     sensors: list[np.ndarray] = []
     keys: list[str] = []
+    series_of: list[str] = []
     for v in variants:
         doc = canonical_json(_geometry_inputs(v.study))
         if doc not in built:
@@ -372,6 +421,15 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
         geometry, pts, key, settings = built[doc]
         sensors.append(pts)
         keys.append(key)
+        series_of.append(canonical_json(_series_params(v.study)))
+    # store order: every series task (key, climate, series settings) a contiguous
+    # range of indices, so that chunks along `variant` can follow task boundaries
+    order = order_by_task([f"{k} {v.climate} {s}"
+                           for k, v, s in zip(keys, variants, series_of, strict=True)])
+    variants = [dataclasses.replace(variants[j], index=i) for i, j in enumerate(order)]
+    sensors = [sensors[j] for j in order]
+    keys = [keys[j] for j in order]
+    series_of = [series_of[j] for j in order]
 
     jobs: dict[str, CoefficientJob] = {}
     for geometry, pts, key, settings in built.values():
@@ -390,8 +448,7 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
 
     groups: dict[tuple[str, str, str], list[Variant]] = {}
     for v in variants:
-        series = canonical_json(_series_params(v.study))
-        groups.setdefault((keys[v.index], v.climate, series), []).append(v)
+        groups.setdefault((keys[v.index], v.climate, series_of[v.index]), []).append(v)
     tasks = []
     for (key, climate, series), members in groups.items():
         sets = tuple(jobs[key].geometry.glazing_sets)

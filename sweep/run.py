@@ -10,8 +10,8 @@ Order of work (DESIGN.md §3):
    :class:`sweep.plan.SeriesTask`: sky vectors of all its orientations in time
    blocks (:func:`kernels.sky.sky_vectors`), illuminance of all its glazing rows
    (:func:`kernels.timeseries.illuminance`), metrics accumulated block by block
-   (:mod:`kernels.metrics`), then each variant's results written to its own
-   chunks of the results store and its ``done`` flag last.
+   (:mod:`kernels.metrics`), then its variants' results written to the
+   task's own chunks of the results store and their ``done`` flags last.
 
 Task keys are explicit (``coefficients-<key>``, ``series-<key>-<hash>``), so a
 failure names its coefficient key and its variant ids; the other tasks finish
@@ -530,6 +530,7 @@ def _layout(plan: Plan) -> results_store.StoreLayout:
         series_chunk=SERIES_CHUNK,
         attrs=_attrs(plan),
         metric_options=plan.loaded.study.metric_options.model_dump(),
+        tasks=plan.task_bounds(),
     )
 
 
@@ -662,7 +663,8 @@ def run_study(
     for stale in results_store.remove_unfinished(results):
         log.info("removed %s, left by a run killed while creating the store", stale)
     if done is not None:
-        results_store.check_alignment(results, series_chunk=SERIES_CHUNK)
+        results_store.check_alignment(results, series_chunk=SERIES_CHUNK,
+                                      tasks=plan.task_bounds())
         # the rank section may have changed: keep the store's study text current
         results_store.update_attrs(results, _attrs(plan))
     done_before = done if done is not None else np.zeros(n, dtype=bool)

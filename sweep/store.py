@@ -2,24 +2,33 @@
 
 The client creates every array's metadata once, before any task writes, with
 xarray's ``to_zarr(compute=False)`` (which writes the coordinates and leaves the
-data variables at their fill values). Tasks then write whole chunks: every data
-variable is chunked with one variant per chunk (and, for the series,
-``series_chunk`` time steps per chunk), so a task that owns a variant owns all of
-its chunks and no two tasks ever write the same chunk. :func:`check_alignment`
-refuses a store whose chunks would be shared. Consolidated metadata is written
-once at the end of a run.
+data variables at their fill values). Tasks then write their own chunks.
 
-Writing: a series task writes all its variants in one call
-(:func:`write_variants`, :func:`write_series_block`): one group open, then each
-variable's chunks of all the variants, then all their ``done`` flags, last. Each
-chunk is encoded with the array's own codecs and stored in the calling thread
-through zarr's synchronous codec and store protocols (:class:`_ChunkWriter`;
-``LocalStore`` writes a temporary file and renames it, so a chunk is either
-old or new, never torn), bypassing the per-chunk asyncio round trips of zarr's
-array API; the bytes are the same as zarr's. A process killed during a call
-leaves no variant of it marked done; repeating a call writes the same bytes.
-:func:`write_variant` and :func:`write_series` are the one-variant forms.
-Per-variant arrays (one value per chunk) are stored without a compressor.
+Chunks follow tasks, not variants. The plan stores the variants of each series
+task as one contiguous range of indices (:func:`sweep.plan.order_by_task`);
+the *block* of the store is the greatest common divisor of the tasks' start
+indices, so every task is a whole number of blocks (the last task may end in a
+short edge block). Every array on ``variant`` is chunked by a divisor of the
+block: per-variant arrays and per-sensor arrays by the block itself unless a
+chunk would exceed :data:`CHUNK_BYTES` (then by its largest divisor that fits),
+the series likewise with ``series_chunk`` time steps per chunk. So a task owns
+whole chunks and no two tasks ever write the same chunk: the files grow with
+tasks, not variants. :func:`check_alignment` refuses a store whose chunks do
+not line up with the task boundaries. Consolidated metadata is written once at
+the end of a run.
+
+Writing (:func:`write_variants`, :func:`write_series_block`) goes through
+zarr's public array API only: one group open, each variable's region of the
+call's variants, then their ``done`` flags, last. A task writing all its
+variants covers whole chunks, which zarr writes without reading; ``LocalStore``
+writes a temporary file and renames it, so a chunk is either old or new, never
+torn. A call that covers only part of a block (a task resumed with some
+variants done, or one variant retried alone) makes zarr read, merge and rewrite
+the chunks; on a Dask worker such a call holds a cluster-wide lock on the block
+(:func:`_block_locks`), so that retries of the variants of one task, which may
+run at the same time, never lose each other's rows. A process killed during a
+call leaves no variant of it marked done; repeating a call writes the same
+bytes. :func:`write_variant` and :func:`write_series` are the one-variant forms.
 
 Layout:
 
@@ -31,20 +40,24 @@ Layout:
 - data variables listed in :data:`SENSOR_VARIABLES`, :data:`VARIANT_VARIABLES`
   and :data:`SERIES_VARIABLES`, each with ``units`` and ``long_name`` attributes;
 - attributes ``study_hash``, ``luxsweep_version``, ``study`` (the study file's
-  text), ``study_name``, ``axes``.
+  text), ``study_name``, ``axes``, ``store_layout`` (:data:`LAYOUT`) and
+  ``variant_block``.
 
-The store lives in one folder chosen by the user; no path inside it is derived
-from variant labels.
+The variant order is the plan's (tasks contiguous), not the factorial order of
+the study file: select variants by their coordinates. The store lives in one
+folder chosen by the user; no path inside it is derived from variant labels.
 """
 
 from __future__ import annotations
 
-import itertools
+import contextlib
+import hashlib
+import math
 import os
 import shutil
 import uuid
 import warnings
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -118,6 +131,10 @@ class StoreLayout:
     metric_options : mapping, optional
         The study's ``metric_options``: fills the thresholds into each
         variable's ``long_name`` (:func:`sweep.registry.long_name`).
+    tasks : sequence of (int, int), optional
+        ``(start, stop)`` of each task's contiguous range of variants (they tile
+        ``0..n_variants``); chunks along ``variant`` follow them. Default: one
+        task per variant.
     """
 
     variant_ids: Sequence[str]
@@ -130,6 +147,7 @@ class StoreLayout:
     series_chunk: int
     attrs: Mapping[str, Any]
     metric_options: Mapping[str, Any] | None = None
+    tasks: Sequence[tuple[int, int]] | None = None
 
     @property
     def n_variants(self) -> int:
@@ -138,6 +156,12 @@ class StoreLayout:
     @property
     def n_sensors(self) -> int:
         return max(len(s) for s in self.sensors)
+
+    @property
+    def block(self) -> int:
+        """Variants per block: every task is a whole number of blocks (see module doc)."""
+        return task_block(self.tasks if self.tasks is not None
+                          else [(i, i + 1) for i in range(self.n_variants)], self.n_variants)
 
     @property
     def shared_grid(self) -> bool:
@@ -155,15 +179,60 @@ def _coordinate_values(values: Sequence[Any]) -> np.ndarray:
 FLAT_KEYS = {"name": "default", "separator": "."}
 """Chunk key encoding of the data variables: ``c.<variant>.<sensor>`` files side by
 side instead of ``c/<variant>/<sensor>`` folders (standard Zarr v3 "default"
-encoding with the "." separator). A variant's results are ~20 small chunk
-files; not making a folder for each saves ~40 % of the write time of the
-per-sensor variables (measured, benchmarks/bench_store.py). Stores written with
-the "/" separator stay readable and writable (every path goes through the
-array's own encoding)."""
+encoding with the "." separator): one folder per array, one file per chunk.
+Stores written with the "/" separator stay readable and writable (every path
+goes through the array's own encoding)."""
+
+LAYOUT = "task-blocks-1"
+"""Value of the ``store_layout`` attribute: chunks along ``variant`` follow task
+blocks (module doc). Stores without it were written one variant per chunk by an
+earlier luxsweep; they stay readable, but a run does not resume them."""
+
+CHUNK_BYTES = 16 * 2**20
+"""Largest uncompressed chunk a block is split below (16 MiB): keeps the read of
+one variant's map, and a worker's write buffers, small at any task size."""
+
+
+def task_block(tasks: Sequence[tuple[int, int]], n_variants: int) -> int:
+    """Variants per block: the greatest common divisor of the tasks' start indices.
+
+    Parameters
+    ----------
+    tasks : sequence of (start, stop)
+        Contiguous task ranges tiling ``0..n_variants`` (any order).
+    n_variants : int
+
+    Raises
+    ------
+    ResultsStoreError
+        When the ranges do not tile ``0..n_variants`` exactly once.
+    """
+    bounds = sorted((int(a), int(b)) for a, b in tasks)
+    edges = [0, *[b for _, b in bounds]]
+    if (not bounds or [a for a, _ in bounds] != edges[:-1] or edges[-1] != n_variants
+            or any(b <= a for a, b in bounds)):
+        raise ResultsStoreError(f"task ranges {bounds[:4]}... do not tile the {n_variants} "
+                                "variants of the store once each; this is a planning bug")
+    return math.gcd(*[a for a, _ in bounds[1:]]) or n_variants
+
+
+def _variant_chunk(block: int, row_bytes: int) -> int:
+    """The largest divisor of ``block`` whose chunk stays within :data:`CHUNK_BYTES`."""
+    limit = max(1, CHUNK_BYTES // max(row_bytes, 1))
+    if block <= limit:
+        return block
+    best = 1
+    for d in range(1, math.isqrt(block) + 1):
+        if block % d == 0:
+            for c in (d, block // d):
+                if best < c <= limit:
+                    best = c
+    return best
 
 
 def _template(layout: StoreLayout) -> tuple[xr.Dataset, dict[str, dict[str, Any]]]:
     nv, ns = layout.n_variants, layout.n_sensors
+    block = layout.block
     coords: dict[str, Any] = {
         "variant_id": ("variant", np.asarray(layout.variant_ids, dtype=object)),
         "label": ("variant", np.asarray(layout.labels, dtype=object)),
@@ -188,31 +257,34 @@ def _template(layout: StoreLayout) -> tuple[xr.Dataset, dict[str, dict[str, Any]
     encoding: dict[str, dict[str, Any]] = {}
     for name in layout.sensor_variables:
         dtype, units, _ = SENSOR_VARIABLES[name]
+        chunks = (_variant_chunk(block, ns * np.dtype(dtype).itemsize), ns)
         data[name] = (("variant", "sensor"), da.full((nv, ns), np.nan, dtype=dtype,
-                                                     chunks=(1, ns)),
+                                                     chunks=chunks),
                       {"units": units, "long_name": long_name(name, layout.metric_options)})
-        encoding[name] = {"chunks": (1, ns), "chunk_key_encoding": FLAT_KEYS}
+        encoding[name] = {"chunks": chunks, "chunk_key_encoding": FLAT_KEYS}
     for name in [*layout.variant_variables, "done"]:
         dtype, units, text = VARIANT_VARIABLES[name]
         if name != "done":
             text = long_name(name, layout.metric_options)
         fill = np.nan if dtype.startswith("float") else 0
-        data[name] = (("variant",), da.full((nv,), fill, dtype=dtype, chunks=1),
+        chunks = (_variant_chunk(block, np.dtype(dtype).itemsize),)
+        data[name] = (("variant",), da.full((nv,), fill, dtype=dtype, chunks=chunks),
                       {"units": units, "long_name": text})
-        # one value per chunk: a compressor only adds its frame (and time) to each
-        encoding[name] = {"chunks": (1,), "compressors": None, "chunk_key_encoding": FLAT_KEYS}
+        encoding[name] = {"chunks": chunks, "chunk_key_encoding": FLAT_KEYS}
     if layout.times is not None:
         nt = len(layout.times)
         coords["time"] = ("time", np.asarray(layout.times.tz_localize(None)
                                              if layout.times.tz is not None else layout.times),
                           {"long_name": "local standard time (hour-ending stamps)"})
         for name, (dtype, units, text) in SERIES_VARIABLES.items():
-            chunks = (1, ns, min(layout.series_chunk, nt))
+            nc = min(layout.series_chunk, nt)
+            chunks = (_variant_chunk(block, ns * nc * np.dtype(dtype).itemsize), ns, nc)
             data[name] = (("variant", "sensor", "time"),
                           da.full((nv, ns, nt), np.nan, dtype=dtype, chunks=chunks),
                           {"units": units, "long_name": text})
             encoding[name] = {"chunks": chunks, "chunk_key_encoding": FLAT_KEYS}
-    ds = xr.Dataset(data, coords=coords, attrs=dict(layout.attrs))
+    attrs = {**layout.attrs, "store_layout": LAYOUT, "variant_block": block}
+    ds = xr.Dataset(data, coords=coords, attrs=attrs)
     return ds, encoding
 
 
@@ -238,7 +310,7 @@ def create_store(path: str | Path, layout: StoreLayout) -> None:
     try:
         ds.to_zarr(tmp, mode="w-", compute=False, zarr_format=3, consolidated=False,
                    encoding=encoding)
-        check_alignment(tmp, series_chunk=layout.series_chunk)
+        check_alignment(tmp, series_chunk=layout.series_chunk, tasks=layout.tasks)
         try:
             os.rename(tmp, path)
         except OSError as exc:
@@ -260,12 +332,22 @@ def remove_unfinished(path: str | Path) -> list[Path]:
     return stale
 
 
-def check_alignment(path: str | Path, *, series_chunk: int | None = None) -> None:
+def check_alignment(path: str | Path, *, series_chunk: int | None = None,
+                    tasks: Sequence[tuple[int, int]] | None = None) -> None:
     """Refuse a store whose chunks could be written by two tasks.
 
-    Every array on the ``variant`` dimension must hold one variant per chunk, and
-    series arrays must have ``series_chunk`` steps per chunk (the task's time
-    blocks), so that each task writes whole chunks that it alone owns.
+    Every array on the ``variant`` dimension must hold the whole ``sensor``
+    dimension in each chunk and, when ``tasks`` are given, chunk boundaries on
+    ``variant`` that every task boundary falls on (each task then writes whole
+    chunks that it alone owns); series arrays must have ``series_chunk`` steps
+    per chunk (the task's time blocks).
+
+    Parameters
+    ----------
+    path : str or Path
+    series_chunk : int, optional
+    tasks : sequence of (start, stop), optional
+        The run's task ranges (:meth:`sweep.plan.Plan.task_bounds`).
     """
     group = zarr.open_group(str(path), mode="r")
     for name in [*SENSOR_VARIABLES, *VARIANT_VARIABLES, *SERIES_VARIABLES]:
@@ -273,11 +355,18 @@ def check_alignment(path: str | Path, *, series_chunk: int | None = None) -> Non
             continue
         arr = group[name]
         dims = arr.metadata.dimension_names or ()
-        if not dims or dims[0] != "variant" or arr.chunks[0] != 1:
-            raise ResultsStoreError(
-                f"{path}: array '{name}' has chunks {arr.chunks} on {dims}; results need one "
-                "variant per chunk so that tasks never share a chunk. Start a new store."
-            )
+        if not dims or dims[0] != "variant":
+            raise ResultsStoreError(f"{path}: array '{name}' has dimensions {dims}; results "
+                                    "need 'variant' first. Start a new store.")
+        c, n = arr.chunks[0], arr.shape[0]
+        if tasks is not None:
+            off = [(a, b) for a, b in tasks if a % c or (b % c and b != n)]
+            if off:
+                raise ResultsStoreError(
+                    f"{path}: array '{name}' has {c} variants per chunk, but the tasks "
+                    f"{off[:3]} (start, stop) do not begin and end on chunk boundaries, so two "
+                    "tasks would write one chunk. Start a new store (delete the folder or "
+                    "choose another --out).")
         if len(dims) > 1 and dims[1] == "sensor" and arr.chunks[1] != arr.shape[1]:
             raise ResultsStoreError(f"{path}: array '{name}' splits the sensor dimension "
                                     f"({arr.chunks}); start a new store.")
@@ -321,6 +410,13 @@ def open_existing(path: str | Path, study_hash: str, expected: Sequence[str] = (
         metrics or series setting), or is damaged (an expected array is missing).
     """
     attrs = read_attrs(path)
+    if attrs.get("store_layout") != LAYOUT:
+        raise ResultsStoreError(
+            f"{path}: this results store was written by an earlier luxsweep "
+            f"(layout {attrs.get('store_layout', 'one variant per chunk')!r}, this version "
+            f"writes {LAYOUT!r}); it stays readable by rank and report, but a run cannot "
+            f"continue it. Delete the folder {path} or write elsewhere with --out."
+        )
     if attrs.get("study_hash") != study_hash:
         raise ResultsStoreError(
             f"{path}: this results store belongs to a different study (or an earlier "
@@ -364,11 +460,12 @@ def _rows(path: str | Path, name: str, values: np.ndarray, n: int) -> np.ndarray
     return values
 
 
-def _open_arrays(path: str | Path, names: Sequence[str]) -> dict[str, zarr.Array]:
+def _open_arrays(path: str | Path, names: Sequence[str]
+                 ) -> tuple[zarr.Group, dict[str, zarr.Array]]:
     """Open the group once and the named arrays in it (plus ``done``).
 
-    Consolidated metadata is not read: parsing the whole group's (3 ms for the
-    demo's store) costs more than the few arrays a write needs (0.3 ms each).
+    Consolidated metadata is not read: parsing the whole group's costs more than
+    the few arrays a write needs.
     """
     group = zarr.open_group(str(path), mode="r+", use_consolidated=False)
     arrays = {}
@@ -381,110 +478,75 @@ def _open_arrays(path: str | Path, names: Sequence[str]) -> dict[str, zarr.Array
                 f"metrics or is damaged). Delete the folder {path} or write elsewhere with "
                 "--out."
             ) from exc
-    return arrays
-
-
-class _ChunkWriter:
-    """Writes whole chunks of one array, chunk by chunk, in the calling thread.
-
-    zarr's array API runs every write through its asyncio loop: one call costs
-    two thread hops per chunk (encode, store) plus the loop's scheduling, about
-    0.4-1.7 ms per 1-variant chunk here. This writer encodes each chunk with the
-    array's own codecs through zarr's synchronous codec protocol
-    (``SupportsSyncCodec``) and hands the bytes to the store's synchronous
-    ``set_sync`` (``SupportsSyncStore``; ``LocalStore`` writes a temporary file
-    and renames it over the chunk, as its asynchronous path does). It mirrors
-    the two rules of zarr's own write path: an edge chunk is padded with the fill
-    value, and with ``write_empty_chunks`` off a chunk equal to the fill value is
-    deleted rather than written. The chunk files are therefore byte-identical to
-    zarr's (tested).
-
-    :meth:`usable` says whether this applies (regular chunk grid, every codec
-    and the store synchronous); otherwise callers write through zarr's API.
-    """
-
-    def __init__(self, array: zarr.Array) -> None:
-        from zarr.core.buffer import default_buffer_prototype
-
-        self.array = array
-        self.codecs = tuple(array.metadata.codecs)
-        self.prototype = default_buffer_prototype()
-        self.spec = array.metadata.get_chunk_spec((0,) * array.ndim, array.config, self.prototype)
-        self.store = array.store
-        self.prefix = f"{array.path}/" if array.path else ""
-
-    @staticmethod
-    def usable(array: zarr.Array) -> bool:
-        try:
-            from zarr.abc.codec import SupportsSyncCodec
-            from zarr.abc.store import SupportsSyncStore
-            from zarr.core.chunk_grids import RegularChunkGrid
-        except ImportError:  # zarr without the synchronous protocols
-            return False
-        return (array.metadata.zarr_format == 3
-                and isinstance(array.metadata.chunk_grid, RegularChunkGrid)
-                and isinstance(array.store, SupportsSyncStore)
-                and all(isinstance(c, SupportsSyncCodec) for c in array.metadata.codecs))
-
-    def write(self, coords: tuple[int, ...], chunk: np.ndarray) -> None:
-        """Write one whole chunk (``chunk`` has the chunk shape and the array's dtype)."""
-        key = self.prefix + self.array.metadata.encode_chunk_key(coords)
-        data = self.prototype.nd_buffer.from_numpy_array(chunk)
-        fill, first = self.spec.fill_value, chunk.flat[0]
-        # a first value unlike the fill (NaN alike NaN) settles it without zarr's full test
-        maybe_empty = first == fill or (first != first and fill != fill)
-        if (maybe_empty and not self.spec.config.write_empty_chunks
-                and data.all_equal(fill)):
-            self.store.delete_sync(key)
-            return
-        spec = self.spec
-        for codec in self.codecs:
-            # zarr's synchronous codec protocol has only this underscored name: pyproject
-            # bounds zarr below the next minor version for it
-            data = codec._encode_sync(data, spec)
-            spec = codec.resolve_metadata(spec)
-        self.store.set_sync(key, data)
+    return group, arrays
 
 
 def _write_block(array: zarr.Array, indices: np.ndarray, block: np.ndarray,
                  start: int = 0) -> None:
-    """Write ``block`` (n, *region) to the chunks of variants ``indices``.
+    """Write ``block`` (n, *region) to the rows ``indices`` of ``array`` (zarr's public API).
 
     The region spans the whole sensor dimension and starts at ``start`` on the
-    time dimension. A region made of whole chunks (the last one may end at the
-    array's end) goes through :class:`_ChunkWriter`, chunk by chunk; anything
-    else through zarr's orthogonal selection (which reads and merges chunks).
+    time dimension. Contiguous indices (a task's range) are one slice
+    assignment, so a task writing all its variants covers whole chunks, which
+    zarr writes without reading; other indices go through zarr's orthogonal
+    selection (which reads and merges the chunks it touches).
     """
-    chunks, shape = array.chunks, array.shape
-    region = [(0, shape[1])] if array.ndim > 1 else []
+    trailing = [slice(0, array.shape[1])] if array.ndim > 1 else []
     if array.ndim > 2:
-        region.append((start, block.shape[2]))
-    whole = all(a % c == 0 and (n % c == 0 or a + n == s)
-                for (a, n), c, s in zip(region, chunks[1:], shape[1:], strict=True))
-    if not (whole and _ChunkWriter.usable(array)):
-        selection = (indices, *[slice(a, a + n) for a, n in region])
-        array.set_orthogonal_selection(selection, block.astype(array.dtype, copy=False))
+        trailing.append(slice(start, start + block.shape[2]))
+    block = np.asarray(block).astype(array.dtype, copy=False)
+    order = np.argsort(indices, kind="stable")
+    idx = indices[order]
+    if idx.size and idx[-1] - idx[0] + 1 == idx.size:
+        array[(slice(int(idx[0]), int(idx[-1]) + 1), *trailing)] = block[order]
+    elif idx.size:
+        array.set_orthogonal_selection((idx, *trailing), block[order])
+
+
+def _store_block(group: zarr.Group) -> int:
+    """Variants per block of a store: its ``variant_block`` attribute, or else the
+    largest chunk along ``variant`` of its result arrays (stores made by hand)."""
+    block = group.attrs.get("variant_block")
+    if block:
+        return int(block)
+    sizes = [group[n].chunks[0] for n in [*SENSOR_VARIABLES, *VARIANT_VARIABLES,
+                                          *SERIES_VARIABLES] if n in group]
+    return max(sizes, default=1)
+
+
+@contextlib.contextmanager
+def _block_locks(path: str | Path, group: zarr.Group, indices: np.ndarray) -> Iterator[None]:
+    """On a Dask worker, hold a cluster-wide lock on every block ``indices`` touch.
+
+    Tasks own whole blocks, so a task never meets another task's writes; but two
+    copies of one task (Dask rerunning a task of a worker wrongly presumed dead),
+    or the variants of one failed task retried one by one at the same time, write
+    the same chunks, and a write that covers part of a chunk reads, merges and
+    rewrites it. Holding the block's lock makes those writes follow one another,
+    so none loses another's rows. The locks (``distributed.Lock``, one per block,
+    taken in block order) live on the scheduler; a worker that dies holding one
+    loses it when its lease times out (Dask's ``locks.lease-timeout``, 30 s by
+    default). Outside a Dask worker, nothing is locked: one process writes.
+    """
+    try:
+        from distributed import Lock, get_worker
+
+        get_worker()
+    except (ImportError, ValueError):
+        yield
         return
-    writer = _ChunkWriter(array)
-    fill = writer.spec.fill_value
-    chunk = np.full(chunks, fill, dtype=array.dtype)
-    # tiles: per trailing dimension, (chunk coordinate, offset in block, length)
-    tiles = itertools.product(*[[(lo // c, lo - a, min(c, a + n - lo))
-                                 for lo in range(a, a + n, c)]
-                                for (a, n), c in zip(region, chunks[1:], strict=True)])
-    for tile in tiles:
-        coords = tuple(t[0] for t in tile)
-        inner = tuple(slice(0, t[2]) for t in tile)
-        outer = tuple(slice(t[1], t[1] + t[2]) for t in tile)
-        if any(t[2] < c for t, c in zip(tile, chunks[1:], strict=True)):
-            chunk[...] = fill  # a short edge tile: the rest of the chunk is fill
-        for j, index in enumerate(indices):
-            chunk[(0, *inner)] = block[(j, *outer)]
-            writer.write((int(index), *coords), chunk)
-
-
-def _mark_done(arrays: Mapping[str, zarr.Array], indices: np.ndarray) -> None:
-    _write_block(arrays["done"], indices, np.ones(len(indices), dtype=bool))
+    block = _store_block(group)
+    name = hashlib.sha256(os.path.abspath(str(path)).encode()).hexdigest()[:16]
+    locks = [Lock(f"luxsweep-store-{name}-{int(k)}") for k in np.unique(indices // block)]
+    held: list[Any] = []
+    try:
+        for lock in locks:
+            lock.acquire()
+            held.append(lock)
+        yield
+    finally:
+        for lock in reversed(held):
+            lock.release()
 
 
 def write_variants(
@@ -496,14 +558,14 @@ def write_variants(
     *,
     mark_done: bool = True,
 ) -> None:
-    """Write several variants' results, each into its own chunks; all ``done`` flags last.
+    """Write several variants' results into their task's chunks; all ``done`` flags last.
 
-    One group open and one pass per variable over the variants' chunks; every
-    chunk holds one variant (CONTRACT §3), so tasks that own different variants
-    never write the same chunk. The ``done`` flags are written only after every
-    data chunk of every variant of the call: a process killed in between leaves
-    none of these variants marked done (a resumed run redoes them), and running
-    the same call twice writes the same bytes.
+    One group open and one region write per variable; a task's variants fill
+    chunks that no other task writes (module doc), and on a Dask worker the call
+    holds its blocks' locks (:func:`_block_locks`). The ``done`` flags are
+    written only after all data of every variant of the call: a process killed
+    in between leaves none of these variants marked done (a resumed run redoes
+    them), and running the same call twice writes the same bytes.
 
     Parameters
     ----------
@@ -522,26 +584,32 @@ def write_variants(
     mark_done : bool
         Set the variants' ``done`` flags after their data (default True).
     """
-    arrays = _open_arrays(path, [*sensor_values, *variant_values])
+    group, arrays = _open_arrays(path, [*sensor_values, *variant_values])
     idx = _indices(path, indices, arrays["done"].shape[0])
+    blocks: dict[str, np.ndarray] = {}
     for name, values in sensor_values.items():
         array = arrays[name]
         values = _rows(path, name, values, idx.size)
         k = values.shape[1] if n_sensors is None else n_sensors
         rows = np.full((idx.size, array.shape[1]), np.nan, dtype=array.dtype)
         rows[:, :k] = values[:, :k]
-        _write_block(array, idx, rows)
+        blocks[name] = rows
     for name, values in variant_values.items():
         array = arrays[name]
         values = _rows(path, name, values, idx.size).reshape(idx.size)
-        _write_block(array, idx, values.astype(array.dtype))
-    if mark_done:
-        _mark_done(arrays, idx)
+        blocks[name] = values.astype(array.dtype)
+    if not idx.size:
+        return
+    with _block_locks(path, group, idx):
+        for name, block in blocks.items():
+            _write_block(arrays[name], idx, block)
+        if mark_done:
+            _write_block(arrays["done"], idx, np.ones(idx.size, dtype=bool))
 
 
 def write_series_block(path: str | Path, indices: Sequence[int], start: int,
                        illuminance: np.ndarray, direct_sun: np.ndarray) -> None:
-    """Write one time block of several variants' series, each into its own chunks.
+    """Write one time block of several variants' series into their task's chunks.
 
     Parameters
     ----------
@@ -550,15 +618,16 @@ def write_series_block(path: str | Path, indices: Sequence[int], start: int,
     indices : sequence of int
         Positions of the variants on the ``variant`` dimension (distinct).
     start : int
-        Time index of the block's first step; a block that starts on a chunk
-        boundary and spans whole chunks (or ends at the last step) is written
-        chunk by chunk without reading anything back.
+        Time index of the block's first step; a block of a whole task that
+        starts on a chunk boundary and spans whole chunks (or ends at the last
+        step) is written without reading anything back.
     illuminance, direct_sun : ndarray (n, n_sensors_of_variants, n_t) [lx]
         Total and direct-sun illuminance; sensor slots beyond the variants'
         sensors are NaN.
     """
-    arrays = _open_arrays(path, list(SERIES_VARIABLES))
+    group, arrays = _open_arrays(path, list(SERIES_VARIABLES))
     idx = _indices(path, indices, arrays["done"].shape[0])
+    blocks = {}
     for name, block in (("illuminance", illuminance), ("direct_sun_illuminance", direct_sun)):
         array = arrays[name]
         block = _rows(path, name, block, idx.size)
@@ -566,7 +635,12 @@ def write_series_block(path: str | Path, indices: Sequence[int], start: int,
             full = np.full((idx.size, array.shape[1], block.shape[2]), np.nan, dtype=array.dtype)
             full[:, : block.shape[1]] = block
             block = full
-        _write_block(array, idx, block, start)
+        blocks[name] = block
+    if not idx.size:
+        return
+    with _block_locks(path, group, idx):
+        for name, block in blocks.items():
+            _write_block(arrays[name], idx, block, start)
 
 
 def write_variant(
@@ -577,7 +651,7 @@ def write_variant(
     *,
     mark_done: bool = True,
 ) -> None:
-    """Write one variant's results into its own chunks; ``done`` last.
+    """Write one variant's results into its task's chunks; ``done`` last.
 
     Parameters
     ----------

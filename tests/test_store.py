@@ -12,7 +12,7 @@ from luxsweep.sweep import store
 from luxsweep.sweep.errors import ResultsStoreError
 
 
-def layout(sensors=None, times=None, **attrs) -> store.StoreLayout:
+def layout(sensors=None, times=None, tasks=None, **attrs) -> store.StoreLayout:
     grid = np.column_stack([np.arange(4.0), np.zeros(4), np.full(4, 0.8)])
     sensors = sensors if sensors is not None else [grid, grid, grid]
     n = len(sensors)
@@ -29,6 +29,7 @@ def layout(sensors=None, times=None, **attrs) -> store.StoreLayout:
         series_chunk=3,
         attrs={"study_hash": "abc", "study": "name: x\n", "axes": ["orientation", "climate"],
                **attrs},
+        tasks=tasks,
     )
 
 
@@ -57,7 +58,7 @@ def test_write_variant_fills_its_own_chunks_done_last(tmp_path):
     assert ds.daylight_factor.values[1].tolist() == [1, 2, 3, 4]
     assert np.isnan(ds.daylight_factor.values[[0, 2]]).all()
     assert float(ds.sda.values[1]) == 55.0 and int(ds.en17037_level.values[1]) == 2
-    # every data variable holds one variant per chunk (tasks own whole chunks)
+    # without task ranges every variant is its own task: one variant per chunk
     group = zarr.open_group(str(path))
     for name in ("daylight_factor", "sda", "done"):
         assert group[name].chunks[0] == 1
@@ -106,11 +107,89 @@ def test_not_a_store_is_refused(tmp_path):
 
 
 def test_misaligned_chunks_are_refused(tmp_path):
+    """Task ranges that do not begin and end on chunk boundaries would make two tasks
+    write one chunk: refused before anything is written (ranges on boundaries, the
+    last one ending in the short edge chunk, pass)."""
     path = tmp_path / "r.zarr"
-    ds = xr.Dataset({"sda": (("variant",), np.zeros(4, "f4"))})
+    ds = xr.Dataset({"sda": (("variant",), np.zeros(5, "f4"))})
     ds.to_zarr(path, zarr_format=3, encoding={"sda": {"chunks": (2,)}}, consolidated=False)
-    with pytest.raises(ResultsStoreError, match="one variant per chunk"):
-        store.check_alignment(path)
+    store.check_alignment(path, tasks=[(0, 2), (2, 4), (4, 5)])
+    with pytest.raises(ResultsStoreError, match=r"\(1, 4\).*chunk boundaries"):
+        store.check_alignment(path, tasks=[(0, 1), (1, 4), (4, 5)])
+
+
+def test_chunks_follow_task_ranges(tmp_path):
+    """Tasks of 4, 4 and 2 variants: blocks of 4 (the gcd of the starts 4 and 8), the
+    last task in the short edge chunk; every array's chunks line up with the tasks."""
+    grid = np.column_stack([np.arange(4.0), np.zeros(4), np.full(4, 0.8)])
+    tasks = [(0, 4), (4, 8), (8, 10)]
+    path = tmp_path / "r.zarr"
+    store.create_store(path, layout(sensors=[grid] * 10, tasks=tasks,
+                                    times=pd.date_range("2023-01-02 09:00", periods=7,
+                                                        freq="h")))
+    group = zarr.open_group(str(path))
+    assert group.attrs["variant_block"] == 4 and group.attrs["store_layout"] == store.LAYOUT
+    for name in ("daylight_factor", "sda", "done", "illuminance"):
+        assert group[name].chunks[0] == 4, name
+    assert group["illuminance"].chunks == (4, 4, 3)
+    store.check_alignment(path, series_chunk=3, tasks=tasks)
+    with pytest.raises(ResultsStoreError, match="chunk boundaries"):
+        store.check_alignment(path, tasks=[(0, 2), (2, 10)])
+
+
+def test_task_block_and_chunk_size_rules():
+    # gcd of the task starts; a single task is one block
+    assert store.task_block([(0, 360), (360, 720), (720, 1080)], 1080) == 360
+    assert store.task_block([(6, 10), (0, 6)], 10) == 6
+    assert store.task_block([(0, 6), (6, 10), (10, 12)], 12) == 2
+    assert store.task_block([(0, 7)], 7) == 7
+    with pytest.raises(ResultsStoreError, match="tile"):
+        store.task_block([(0, 4), (5, 8)], 8)  # a gap
+    with pytest.raises(ResultsStoreError, match="tile"):
+        store.task_block([(0, 4), (4, 8)], 9)  # does not reach the end
+    # a block too large for CHUNK_BYTES is split by its largest divisor that fits
+    row = store.CHUNK_BYTES // 100
+    assert store._variant_chunk(360, row) == 90
+    assert store._variant_chunk(360, 4) == 360
+    assert store._variant_chunk(101, row) == 1  # a prime block: one variant per chunk
+
+
+def test_file_count_grows_with_tasks_not_variants(tmp_path):
+    """Eight tasks of 5 and eight tasks of 60 variants, every variant written by its
+    task: the same number of files (one chunk per task and array), although the
+    second store holds twelve times the variants."""
+    grid = np.column_stack([np.arange(4.0), np.zeros(4), np.full(4, 0.8)])
+    counts = {}
+    for size in (5, 60):
+        n = 8 * size
+        tasks = [(k * size, (k + 1) * size) for k in range(8)]
+        path = tmp_path / f"r{size}.zarr"
+        store.create_store(path, layout(sensors=[grid] * n, tasks=tasks))
+        rng = np.random.default_rng(size)
+        for a, b in tasks:
+            store.write_variants(
+                path, list(range(a, b)),
+                {name: rng.random((b - a, 4), dtype=np.float32)
+                 for name in ("daylight_factor", "daylight_autonomy", "udi_low")},
+                {"sda": rng.random(b - a), "ase": rng.random(b - a),
+                 "en17037_level": np.ones(b - a)})
+        store.consolidate(path)
+        assert xr.open_zarr(path).done.values.all()
+        counts[size] = sum(1 for p in path.rglob("*") if p.is_file())
+    assert counts[5] == counts[60], counts
+    # 7 result arrays x 8 tasks, plus metadata and coordinates
+    assert 7 * 8 <= counts[60] < 7 * 8 + 40, counts
+
+
+def test_store_of_an_earlier_layout_is_not_resumed(tmp_path):
+    """A store written one variant per chunk (no ``store_layout`` attribute) is
+    refused for a run, with a message saying how to start fresh."""
+    path = tmp_path / "r.zarr"
+    store.create_store(path, layout())
+    group = zarr.open_group(str(path), mode="r+")
+    del group.attrs["store_layout"]
+    with pytest.raises(ResultsStoreError, match=r"earlier luxsweep.*--out"):
+        store.open_existing(path, "abc")
 
 
 def test_store_appears_whole_and_leaves_nothing_beside_it(tmp_path):
