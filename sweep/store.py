@@ -52,6 +52,7 @@ from __future__ import annotations
 
 import contextlib
 import hashlib
+import itertools
 import math
 import os
 import shutil
@@ -486,21 +487,21 @@ def _write_block(array: zarr.Array, indices: np.ndarray, block: np.ndarray,
     """Write ``block`` (n, *region) to the rows ``indices`` of ``array`` (zarr's public API).
 
     The region spans the whole sensor dimension and starts at ``start`` on the
-    time dimension. Contiguous indices (a task's range) are one slice
-    assignment, so a task writing all its variants covers whole chunks, which
-    zarr writes without reading; other indices go through zarr's orthogonal
-    selection (which reads and merges the chunks it touches).
+    time dimension. Each run of consecutive indices is one slice assignment:
+    a task writing all its variants is one run covering whole chunks, which zarr
+    writes without reading; a run covering part of a chunk makes zarr read and
+    merge it.
     """
     trailing = [slice(0, array.shape[1])] if array.ndim > 1 else []
     if array.ndim > 2:
         trailing.append(slice(start, start + block.shape[2]))
-    block = np.asarray(block).astype(array.dtype, copy=False)
     order = np.argsort(indices, kind="stable")
     idx = indices[order]
-    if idx.size and idx[-1] - idx[0] + 1 == idx.size:
-        array[(slice(int(idx[0]), int(idx[-1]) + 1), *trailing)] = block[order]
-    elif idx.size:
-        array.set_orthogonal_selection((idx, *trailing), block[order])
+    block = np.asarray(block)[order].astype(array.dtype, copy=False)
+    cuts = [0, *(np.flatnonzero(np.diff(idx) != 1) + 1).tolist(), idx.size]
+    for a, b in itertools.pairwise(cuts):
+        if b > a:
+            array[(slice(int(idx[a]), int(idx[b - 1]) + 1), *trailing)] = block[a:b]
 
 
 def _store_block(group: zarr.Group) -> int:

@@ -1,11 +1,12 @@
 """Batched results-store writes (``sweep.store.write_variants`` / ``write_series_block``).
 
-The reference for the stored bytes is zarr-python's own array API (``arr[i, :] =
-row``, its asyncio write path), which the batched writer bypasses: the chunk
-files must be byte-identical to the ones zarr writes for the same values. The
-guarantees of CONTRACT §3 and DEVELOPERS.md ("Results store") are checked with
-real faults: an obstacle on the file system in the middle of a batch and a
-process killed with SIGKILL while it writes.
+The reference for the stored bytes is zarr-python's own array API, one
+assignment per variant (``arr[i, :] = row``): a batch over a task's range, the
+same variants one by one, and the reference must leave byte-identical chunk
+files. The guarantees of CONTRACT §3 and DEVELOPERS.md ("Results store") are
+checked with real faults: an obstacle on the file system in the middle of a
+batch, a process killed with SIGKILL while it writes, and single-variant writes
+of one task's block racing on the worker processes of a real Dask cluster.
 """
 
 from __future__ import annotations
@@ -36,7 +37,8 @@ def grid(n: int) -> np.ndarray:
 
 
 def layout(sensors: list[np.ndarray], times: pd.DatetimeIndex | None = None,
-           series_chunk: int = 4) -> store.StoreLayout:
+           series_chunk: int = 4, tasks: list[tuple[int, int]] | None = None
+           ) -> store.StoreLayout:
     n = len(sensors)
     return store.StoreLayout(
         variant_ids=[f"{i:016x}" for i in range(n)],
@@ -48,6 +50,7 @@ def layout(sensors: list[np.ndarray], times: pd.DatetimeIndex | None = None,
         times=times,
         series_chunk=series_chunk,
         attrs={"study_hash": "batch", "study": "name: batch\n"},
+        tasks=tasks,
     )
 
 
@@ -88,13 +91,14 @@ def chunk_files(path: Path) -> dict[str, bytes]:
 
 def test_batched_write_gives_zarrs_bytes_and_equals_one_by_one(tmp_path):
     """Batched = one-by-one = zarr's array API, chunk file by chunk file (exact: the same
-    codecs on the same values; the reference is zarr-python's own write path)."""
+    codecs on the same values; the reference is zarr-python's own write path), in a
+    store of two tasks (variants 0-3 and 4-6: a block of 4 and the short edge block)."""
     sensors = [grid(6)] * 7
     indices = [5, 0, 3, 6]  # a subset, out of order
     sensor, variant = results(indices, 6)
     paths = {k: tmp_path / f"{k}.zarr" for k in ("batched", "one_by_one", "zarr_api")}
     for p in paths.values():
-        store.create_store(p, layout(sensors))
+        store.create_store(p, layout(sensors, tasks=[(0, 4), (4, 7)]))
     store.write_variants(paths["batched"], indices, sensor, variant)
     for j, i in enumerate(indices):
         store.write_variant(paths["one_by_one"], i, {n: v[j] for n, v in sensor.items()},
@@ -102,7 +106,9 @@ def test_batched_write_gives_zarrs_bytes_and_equals_one_by_one(tmp_path):
     zarr_api_write(paths["zarr_api"], indices, sensor, variant, 6)
 
     want = chunk_files(paths["zarr_api"])
-    assert len(want) > 4 * (len(SENSOR_VARS) + len(VARIANT_VARS))  # data and done chunks
+    # two chunks (one per task) of every data array and of done
+    results_arrays = {*SENSOR_VARS, *VARIANT_VARS, "done"}
+    assert sum(k.split("/")[0] in results_arrays for k in want) == 2 * len(results_arrays)
     assert chunk_files(paths["batched"]) == want
     assert chunk_files(paths["one_by_one"]) == want
     ds = xr.open_zarr(paths["batched"], consolidated=False)
@@ -111,13 +117,13 @@ def test_batched_write_gives_zarrs_bytes_and_equals_one_by_one(tmp_path):
         assert ds[name].values.tobytes() == ref[name].values.tobytes(), name
     assert ds.done.values.tolist() == [i in indices for i in range(7)]
     np.testing.assert_array_equal(ds.daylight_factor.values[indices], sensor["daylight_factor"])
-    assert np.isnan(ds.udi_high.values[5]).all()  # the all-NaN row (a deleted chunk) reads NaN
+    assert np.isnan(ds.udi_high.values[5]).all()  # the all-NaN row reads NaN
 
 
 def test_repeating_a_batch_leaves_the_bytes_unchanged(tmp_path):
     """Duplicate execution (a task run twice) writes the same bytes."""
     path = tmp_path / "r.zarr"
-    store.create_store(path, layout([grid(5)] * 4))
+    store.create_store(path, layout([grid(5)] * 4, tasks=[(0, 1), (1, 4)]))
     sensor, variant = results([1, 2, 3], 5)
     store.write_variants(path, [1, 2, 3], sensor, variant)
     first = chunk_files(path)
@@ -162,7 +168,7 @@ def test_series_block_matches_zarr_including_edge_and_unaligned_blocks(tmp_path)
     sun = np.where(ill > 500, ill, 0).astype(np.float32)
     ours, ref = tmp_path / "ours.zarr", tmp_path / "ref.zarr"
     for p in (ours, ref):
-        store.create_store(p, layout([grid(5)] * 3, times=times))
+        store.create_store(p, layout([grid(5)] * 3, times=times, tasks=[(0, 3)]))
     store.write_series_block(ours, [2, 0, 1], 0, ill[:, :, 0:4], sun[:, :, 0:4])  # one chunk
     # a whole chunk and the short edge chunk in one block
     store.write_series_block(ours, [2, 0, 1], 4, ill[:, :, 4:], sun[:, :, 4:])
@@ -184,15 +190,15 @@ def test_series_block_matches_zarr_including_edge_and_unaligned_blocks(tmp_path)
 
 
 def test_a_failure_in_the_middle_of_a_batch_sets_no_done_flag(tmp_path):
-    """A real fault in the middle of a batch (a folder where a chunk file of the third
-    variant's ``sda`` must go, so the file system refuses the rename) stops the call
-    before any ``done`` flag is written, also for the variants whose data was complete;
-    once the obstacle is gone, the same call completes."""
+    """A real fault in the middle of a batch (a folder where the task's chunk file of
+    ``sda`` must go, so the file system refuses the rename) stops the call before any
+    ``done`` flag is written, although the per-sensor data was complete; once the
+    obstacle is gone, the same call completes."""
     path = tmp_path / "r.zarr"
-    store.create_store(path, layout([grid(4)] * 5))
+    store.create_store(path, layout([grid(4)] * 5, tasks=[(0, 5)]))
     indices = [0, 1, 2, 3, 4]
     sensor, variant = results(indices, 4)
-    obstacle = path / "sda" / "c.2" / "x"  # store.FLAT_KEYS: chunk 2 of sda is the file c.2
+    obstacle = path / "sda" / "c.0" / "x"  # store.FLAT_KEYS: the one chunk of sda is c.0
     obstacle.mkdir(parents=True)
     with pytest.raises(OSError):
         store.write_variants(path, indices, sensor, variant)
@@ -200,7 +206,7 @@ def test_a_failure_in_the_middle_of_a_batch_sets_no_done_flag(tmp_path):
     assert not group["done"][:].any()
     # data before the fault is in place (per-sensor arrays come first), sda is not
     np.testing.assert_array_equal(group["daylight_factor"][:], sensor["daylight_factor"])
-    assert np.isnan(group["sda"][2:]).all()
+    assert np.isnan(group["sda"][:]).all()
     (obstacle.parent / "x").rmdir()
     obstacle.parent.rmdir()
     store.write_variants(path, indices, sensor, variant)
@@ -231,7 +237,7 @@ def test_a_killed_writer_leaves_no_variant_done_without_its_data(tmp_path, delay
     data, and every chunk reads (none torn)."""
     path = tmp_path / "r.zarr"
     names = SENSOR_VARS[:6]
-    lay = layout([grid(3)] * 400)
+    lay = layout([grid(3)] * 400, tasks=[(a, a + 8) for a in range(0, 400, 8)])
     lay = store.StoreLayout(**{**lay.__dict__, "sensor_variables": names,
                                "variant_variables": ["sda"]})
     store.create_store(path, lay)
@@ -258,36 +264,71 @@ def test_a_killed_writer_leaves_no_variant_done_without_its_data(tmp_path, delay
         np.testing.assert_array_equal(rest[written], expect, err_msg=n)
 
 
-def test_per_variant_arrays_carry_no_compressor_and_read_back(tmp_path):
-    """One-value chunks are stored plain (a compressor only adds its frame); per-sensor
-    arrays keep zarr's default compression."""
+def test_part_of_a_task_merges_into_its_chunks(tmp_path):
+    """A resumed task writes only its variants not yet done: their rows are merged
+    into the task's chunks and the rows already there are kept."""
     path = tmp_path / "r.zarr"
-    store.create_store(path, layout([grid(4)] * 2))
-    group = zarr.open_group(str(path), mode="r")
-    for name in [*VARIANT_VARS, "done"]:
-        assert group[name].compressors == (), name
-    assert group["daylight_factor"].compressors != ()
-    store.write_variants(path, [1], {}, {"sda": np.array([42.5])})
-    assert (path / "sda" / "c.1").read_bytes() == np.float32(42.5).tobytes()
-    assert xr.open_zarr(path, consolidated=False).sda.values[1] == 42.5
+    store.create_store(path, layout([grid(4)] * 6, tasks=[(0, 3), (3, 6)]))
+    sensor, variant = results([0, 1, 2], 4)
+    store.write_variants(path, [1], {n: v[1:2] for n, v in sensor.items()},
+                         {n: v[1:2] for n, v in variant.items()})
+    store.write_variants(path, [2, 0], {n: v[[2, 0]] for n, v in sensor.items()},
+                         {n: v[[2, 0]] for n, v in variant.items()})
+    ds = xr.open_zarr(path, consolidated=False)
+    assert ds.done.values.tolist() == [True] * 3 + [False] * 3
+    for name in SENSOR_VARS:
+        np.testing.assert_array_equal(ds[name].values[:3], sensor[name], err_msg=name)
+    np.testing.assert_array_equal(ds.sda.values[:3], variant["sda"])
+    assert np.isnan(ds.sda.values[3:]).all()
 
 
-def test_arrays_zarr_cannot_write_synchronously_use_zarrs_api(tmp_path):
-    """An array with a codec outside zarr's synchronous protocol (sharding) is written
-    through zarr's array API, with the same values."""
+def test_sharded_arrays_made_by_hand_are_written_through_zarr(tmp_path):
+    """A store made by hand with sharded arrays and no ``variant_block`` attribute is
+    written through zarr's array API with the same values."""
     path = tmp_path / "r.zarr"
     group = zarr.create_group(str(path), zarr_format=3)
-    group.create_array("daylight_factor", shape=(3, 4), chunks=(1, 4), shards=(1, 4),
+    group.create_array("daylight_factor", shape=(3, 4), chunks=(1, 4), shards=(3, 4),
                        dtype="float32", fill_value=np.nan, dimension_names=["variant", "sensor"])
-    group.create_array("done", shape=(3,), chunks=(1,), dtype="bool", fill_value=False,
+    group.create_array("done", shape=(3,), chunks=(3,), dtype="bool", fill_value=False,
                        dimension_names=["variant"])
-    assert not store._ChunkWriter.usable(group["daylight_factor"])
-    assert store._ChunkWriter.usable(group["done"])
+    assert store._store_block(group) == 3
     rows = np.arange(8, dtype=np.float32).reshape(2, 4)
     store.write_variants(path, [2, 0], {"daylight_factor": rows}, {})
     got = zarr.open_group(str(path), mode="r")
     np.testing.assert_array_equal(got["daylight_factor"][[2, 0]], rows)
     assert got["done"][:].tolist() == [True, False, True]
+
+
+def _write_one(path: str, i: int) -> int:
+    sensor = {n: np.full((1, 3), 100 * i + k, dtype=np.float32)
+              for k, n in enumerate(SENSOR_VARS[:4])}
+    store.write_variants(path, [i], sensor, {"sda": np.array([i], dtype=np.float32)})
+    return i
+
+
+@pytest.mark.slow
+def test_one_variant_retries_of_a_task_racing_on_workers_lose_nothing(tmp_path):
+    """The variants of one task written one by one at the same time, as a failed
+    task's retries are, on two worker processes of a real Dask cluster: every write
+    reads, merges and rewrites the task's chunk, and without the block lock rows
+    would be lost. Asserts every row and every ``done`` flag is there."""
+    from distributed import Client, LocalCluster
+
+    path = tmp_path / "r.zarr"
+    names = SENSOR_VARS[:4]
+    lay = layout([grid(3)] * 48, tasks=[(0, 48)])
+    store.create_store(path, store.StoreLayout(**{**lay.__dict__, "sensor_variables": names,
+                                                  "variant_variables": ["sda"]}))
+    with LocalCluster(n_workers=2, threads_per_worker=2, processes=True, host="127.0.0.1",
+                      dashboard_address=None) as cluster, Client(cluster) as client:
+        futures = [client.submit(_write_one, str(path), i, pure=False) for i in range(48)]
+        assert sorted(client.gather(futures)) == list(range(48))
+    group = zarr.open_group(str(path), mode="r")
+    assert group["done"][:].all()
+    for k, n in enumerate(names):
+        np.testing.assert_array_equal(group[n][:], 100 * np.arange(48)[:, None] + k
+                                      + np.zeros((1, 3)), err_msg=n)
+    np.testing.assert_array_equal(group["sda"][:], np.arange(48))
 
 
 def test_bad_calls_are_refused(tmp_path):
