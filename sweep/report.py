@@ -113,6 +113,13 @@ CAUTION = (
     "codes and standards and on the judgement of a qualified professional. Glare "
     "and overheating are not assessed."
 )
+SCATTER_LIMIT = 2000
+"""Above this many finished variants the trade-off chart shows their density."""
+INCOMPLETE_ROWS = 25
+"""Unfinished variants listed in the ranking table at most."""
+MAX_TICKS = 12
+"""Value labels per main-effect axis at most (every k-th value is labelled)."""
+
 PLAN_METRICS = ("daylight_autonomy", "udi_useful", "daylight_factor")
 """Per-sensor results drawn on the room plans (labels and units from :mod:`sweep.registry`)."""
 
@@ -307,7 +314,8 @@ def _when(ds: xr.Dataset, source: str | None) -> str:
 def _ranking(table: pd.DataFrame, spec: RankSpec, axes: list[str], labels: dict[str, str],
              top: int = 25, options: dict | None = None) -> str:
     ranked = table[table["status"] != "incomplete"].head(top)
-    incomplete = table[table["status"] == "incomplete"]
+    n_incomplete = int((table["status"] == "incomplete").sum())
+    incomplete = table[table["status"] == "incomplete"].head(INCOMPLETE_ROWS)
     metrics = spec.metrics or [m for m in ("sda", "ase", "udi_useful_mean") if m in table]
     head = ["Rank", "Variant",
             *[f'<span title="{_esc(_label(m, options))}">{_esc(metric_heading(m, options))}</span>'
@@ -344,6 +352,9 @@ def _ranking(table: pd.DataFrame, spec: RankSpec, axes: list[str], labels: dict[
     if n_ranked > top:
         note.append(f"The best {top} of {n_ranked:,} ranked variants are shown; the ranking "
                     "file beside this report lists them all.")
+    if n_incomplete > INCOMPLETE_ROWS:
+        note.append(f"{INCOMPLETE_ROWS} of the {n_incomplete:,} unfinished variants are "
+                    "shown.")
     crit = "; ".join(criterion_text(r) for r in spec.require) or "none given"
     pref = "; ".join(f"{metric_heading(o.metric)} ({'higher' if o.goal == 'max' else 'lower'}"
                      f" is better, weight {o.weight:g})" for o in spec.prefer) or "none given"
@@ -727,10 +738,17 @@ def _pareto_chart(ds: xr.Dataset, table: pd.DataFrame, spec: RankSpec) -> str:
         front[ok] = pareto_front(np.column_stack([x[ok], y[ok]]), [gx, gy])
     fig = Figure(figsize=(11.0, 5.6))
     ax = fig.add_subplot()
-    ax.scatter(x[~ok], y[~ok], s=36, facecolors="none", edgecolors="0.45",
-               label="misses a criterion")
-    ax.scatter(x[ok & ~front], y[ok & ~front], s=36, color="#3b4d6b",
-               label="meets every criterion")
+    dense = len(done) > SCATTER_LIMIT
+    if dense:  # thousands of markers hide each other: show how many fall where
+        finite = np.isfinite(x) & np.isfinite(y)
+        cells = ax.hexbin(x[finite], y[finite], gridsize=40, bins="log", cmap="Greys",
+                          mincnt=1, linewidths=0)
+        fig.colorbar(cells, ax=ax, label="variants per hexagon (log scale)")
+    else:
+        ax.scatter(x[~ok], y[~ok], s=36, facecolors="none", edgecolors="0.45",
+                   label="misses a criterion")
+        ax.scatter(x[ok & ~front], y[ok & ~front], s=36, color="#3b4d6b",
+                   label="meets every criterion")
     if front.any():
         order = np.argsort(x[front])
         ax.plot(x[front][order], y[front][order], "-", color="#d4a017", lw=1.5, zorder=1)
@@ -745,13 +763,20 @@ def _pareto_chart(ds: xr.Dataset, table: pd.DataFrame, spec: RankSpec) -> str:
     ax.set_xlabel(f"{_label(mx, options)} – {'higher' if gx == 'max' else 'lower'} is better")
     ax.set_ylabel(f"{_label(my, options)} – {'higher' if gy == 'max' else 'lower'} is better")
     ax.grid(alpha=0.3)
-    ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=8, frameon=True)
+    if ax.get_legend_handles_labels()[0]:
+        ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=8, frameon=True)
     fig.tight_layout()
     shown = ", ".join(f"#{r}" for r in ranks[:5])
-    return (_png(fig, f"trade-off between {mx} and {my}")
-            + f'<p class="note">Each point is a finished variant; filled points meet every '
-              f"criterion, open ones miss at least one; diamonds joined by a line are the "
-              f"Pareto set. Labels mark the first-ranked variants ({_esc(shown)}).</p>")
+    if dense:
+        note = (f"{len(done):,} finished variants, too many to draw one by one: the grey "
+                "hexagons count the variants (passing or not) that fall in each; diamonds "
+                "joined by a line are the Pareto set, drawn individually. Labels mark the "
+                f"first-ranked variants ({shown}).")
+    else:
+        note = ("Each point is a finished variant; filled points meet every criterion, open "
+                "ones miss at least one; diamonds joined by a line are the Pareto set. Labels "
+                f"mark the first-ranked variants ({shown}).")
+    return _png(fig, f"trade-off between {mx} and {my}") + f'<p class="note">{_esc(note)}</p>'
 
 
 def _main_effect_plots(ds: xr.Dataset, spec: RankSpec, labels: dict[str, str]) -> str:
@@ -776,7 +801,8 @@ def _main_effect_plots(ds: xr.Dataset, spec: RankSpec, labels: dict[str, str]) -
             ax.plot(pos, e["mean"], "o-", color="#3b4d6b")
             ticks = [value_text(axis, v).replace("-", "-\n", 1) if len(str(v)) > 9 else
                      value_text(axis, v) for v in e["value"]]
-            ax.set_xticks(pos, ticks, fontsize=8)
+            every = max(1, -(-len(e) // MAX_TICKS))  # label every k-th value when many
+            ax.set_xticks(pos[::every], ticks[::every], fontsize=8)
             ax.set_xlim(-0.5, len(e) - 0.5)
             ax.tick_params(axis="y", labelsize=8)
             ax.grid(alpha=0.3)
@@ -1110,8 +1136,10 @@ def build_report(ds: xr.Dataset, source: str | None = None, paper: str | None = 
         Page size for printing; without it the printer's own size applies (the
         layout fits both).
     """
-    # per-variant and per-sensor results are small: read them once (series stay lazy)
-    small = [n for n in ds.variables if "time" not in ds[n].dims]
+    # per-variant results and coordinates: one whole-array read each; per-sensor maps
+    # and series stay lazy and are read only for the variants drawn
+    small = [n for n in ds.variables if set(ds[n].dims) <= {"variant"}
+             or ds[n].dims == ("sensor",)]
     ds = ds.assign({n: ds[n].load() for n in small if n in ds.data_vars})
     ds = ds.assign_coords({n: ds[n].load() for n in small if n in ds.coords})
     study = study_from_store(ds)
