@@ -14,6 +14,12 @@ into a fresh store (best of ``--repeat``):
 - ``one_by_one``: today's :func:`sweep.store.write_variant` per variant;
 - ``batched``: one :func:`sweep.store.write_variants` call for all 36.
 
+The stores here use the earlier layout, one variant per chunk (no task ranges
+in the layout): the figure isolates the per-chunk cost of the write path. For
+the task-block layout and its file counts see ``bench_scale_store.py``; since
+that layout, per-variant arrays keep zarr's default compressor like the others,
+so ``batched_zstd_scalars`` below equals ``batched``.
+
 The figure is ``before / batched``. After timing, the chunk files of the three
 stores are compared byte for byte (they must be identical). A fourth timing,
 ``batched_zstd_scalars``, writes into a store whose 1-element chunks carry
@@ -101,7 +107,8 @@ def before_write_series(path: Path, index: int, start: int, illuminance: np.ndar
 
 
 def zstd_scalar_store(path: Path, lay: store.StoreLayout) -> None:
-    """A store like :func:`sweep.store.create_store`'s but with zstd on 1-element chunks."""
+    """A store like :func:`sweep.store.create_store`'s with zstd on 1-element chunks
+    (today the same as :func:`sweep.store.create_store`'s)."""
     ds, encoding = store._template(lay)
     for enc in encoding.values():
         enc.pop("compressors", None)
