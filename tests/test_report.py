@@ -156,3 +156,17 @@ def test_report_from_a_store_written_by_sweep_store(tmp_path):
     assert text.count("✓ all met") == 2 and text.count("not finished – not ranked") == 2
     assert "were not stored" in text
     assert len(images(text)) == 5  # geometry, trade-off, main effects, map, plans
+
+
+def test_many_variants_are_drawn_as_a_density_and_said_so(stores, monkeypatch):
+    """Above SCATTER_LIMIT finished variants the trade-off chart counts variants per
+    hexagon instead of drawing a marker each, and a note under it says so; below it,
+    no such note."""
+    from luxsweep.sweep import report
+
+    ds = open_store(stores["series"])
+    assert "too many to draw one by one" not in build_report(ds)
+    monkeypatch.setattr(report, "SCATTER_LIMIT", 3)
+    text = build_report(open_store(stores["series"]))
+    n = int(ds.done.values.sum())
+    assert f"{n} finished variants, too many to draw one by one" in text
