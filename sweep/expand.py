@@ -147,10 +147,22 @@ def _place(loc: tuple, path: str, paths: list[str]) -> tuple:
     return (*loc, path) if len(paths) > 1 else loc
 
 
+def _replaced(data: Any, parts: tuple, value: Any) -> Any:
+    """``data`` with the value at ``parts`` replaced, copying only the containers on the
+    path (the rest is shared with ``data``, which is not changed)."""
+    if not parts:
+        return value
+    out = list(data) if isinstance(data, list) else dict(data)
+    out[parts[0]] = _replaced(data[parts[0]], parts[1:], value)
+    return out
+
+
 def _substitute(base: dict[str, Any], assignment: dict[str, Any], folder: Path) -> Study:
+    # path copying instead of a deep copy of the whole study per path (which was most
+    # of the expansion's time); the validated Study never shares these dicts
     data = base
     for path, value in assignment.items():
-        data = set_path(data, split_path(path), value)
+        data = _replaced(data, split_path(path), value)
     data = {**data, "vary": {}, "vary_together": [], "exclude": []}
     return Study.model_validate(data, context={"base": str(folder)})
 
