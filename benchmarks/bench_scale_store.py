@@ -8,7 +8,9 @@ climates × 10 transmittances × 10 window widths × 5 sills = 36,000 variants,
 Three parts, each measured in this one process (plan in a subprocess):
 
 1. ``plan``: wall time and peak memory (resident set growth over the imports)
-   of ``make_plan`` for the full study, in a subprocess;
+   of ``make_plan`` for the full study, in a subprocess (``VmHWM`` reset through
+   ``/proc/self/clear_refs`` after the imports; ``--plan-only`` runs this part
+   alone);
 2. ``run``: a real ``luxsweep run`` of a scaled-down study with the same
    structure and the same task shape (36 orientations × 2 climates × 10
    transmittances × 2 widths × 2 sills = 2,880 variants, 8 tasks of 360) on a
@@ -71,17 +73,34 @@ def write_study(folder: Path, vary: dict[str, list[Any]], name: str) -> Path:
 
 
 PLAN_PROBE = """
-import resource, sys, time
+import sys, time
 from luxsweep.sweep.config import load_study
 from luxsweep.sweep.plan import make_plan
+
+def status(key):
+    for line in open("/proc/self/status"):
+        if line.startswith(key):
+            return int(line.split()[1])
+
 loaded = load_study(sys.argv[1])
-base = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+with open("/proc/self/clear_refs", "w") as f:  # reset VmHWM to the current RSS
+    f.write("5")
+base = status("VmRSS:")
 t0 = time.perf_counter()
 plan = make_plan(loaded, None)
 seconds = time.perf_counter() - t0
-peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+peak = status("VmHWM:")
 print(seconds, (peak - base) / 1024, len(plan.variants), len(plan.tasks), len(plan.jobs))
 """
+
+
+def plan_only(full: bool) -> dict[str, Any]:
+    """Part 1 alone (``--plan-only``)."""
+    with bc.scratch("scale-plan") as work:
+        study = write_study(work, FULL_VARY if full else SCALED_VARY, "scale-plan")
+        load0 = bc.load_average()
+        out = plan_cost(study)
+        return {**out, "load_average": [load0, bc.load_average()]}
 
 
 def plan_cost(study: Path) -> dict[str, Any]:
@@ -229,8 +248,12 @@ if __name__ == "__main__":
     parser.add_argument("--json", help="write the figures to this file")
     parser.add_argument("--full-run", action="store_true",
                         help="also run the full 36,000-variant study for real")
+    parser.add_argument("--plan-only", action="store_true", help="part 1 only")
     args = parser.parse_args()
     os.environ.setdefault("PYTHONWARNINGS", "ignore")
+    if args.plan_only:
+        bc.report({"plan_full": plan_only(True), "plan_scaled": plan_only(False)}, args.json)
+        raise SystemExit(0)
     result = main(args.full_run)
     bc.report(result, args.json)
     print(json.dumps({k: v for k, v in result.items() if k.startswith("ratios")}, indent=1))
