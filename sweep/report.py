@@ -117,7 +117,7 @@ SCATTER_LIMIT = 2000
 """Above this many finished variants the trade-off chart shows their density."""
 INCOMPLETE_ROWS = 25
 """Unfinished variants listed in the ranking table at most."""
-MAX_TICKS = 12
+MAX_TICKS = 7
 """Value labels per main-effect axis at most (every k-th value is labelled)."""
 
 PLAN_METRICS = ("daylight_autonomy", "udi_useful", "daylight_factor")
