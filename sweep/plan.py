@@ -45,6 +45,7 @@ __all__ = [
     "check_climates",
     "make_plan",
     "occupied_times",
+    "order_by_task",
     "room_key",
     "settings_of",
 ]
