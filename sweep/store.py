@@ -86,6 +86,7 @@ __all__ = [
     "open_existing",
     "read_attrs",
     "remove_unfinished",
+    "task_block",
     "update_attrs",
     "write_series",
     "write_series_block",
