@@ -18,7 +18,8 @@ from __future__ import annotations
 import hashlib
 from pathlib import Path
 
-__all__ = ["COEFFICIENT_MODULES", "KERNEL_VERSION", "source_digest"]
+__all__ = ["COEFFICIENT_MODULES", "KERNEL_VERSION", "RESULTS_MODULES", "RESULTS_VERSION",
+           "source_digest"]
 
 COEFFICIENT_MODULES = ("coefficients", "geometry", "glazing", "raytrace", "sky", "sun",
                        "transfer")
@@ -59,3 +60,12 @@ def source_digest(folder: str | Path, modules: tuple[str, ...] = COEFFICIENT_MOD
 
 KERNEL_VERSION = "src-" + source_digest(Path(__file__).parent)[:32]
 """Version of the coefficient kernels, derived from their sources (see module docstring)."""
+
+RESULTS_MODULES = (*COEFFICIENT_MODULES, "climate", "timeseries", "metrics")
+"""Kernel modules whose code shapes stored results: the coefficient modules plus the
+weather readers, the annual series and the metrics."""
+
+RESULTS_VERSION = "src-" + source_digest(Path(__file__).parent, RESULTS_MODULES)[:32]
+"""Version of the kernels that compute results, derived like :data:`KERNEL_VERSION`.
+It enters a results store's ``study_hash``, so a store is never resumed by code that
+would compute its remaining variants differently (half old, half new results)."""

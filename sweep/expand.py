@@ -365,15 +365,21 @@ def axis_names(study: Study) -> list[str]:
 def study_hash(loaded: StudyFile, variants: list[Variant]) -> str:
     """Hash of what fixes a results store's layout and contents.
 
-    The variant ids, the axes, the metric families and ``store_series``; not the
-    study name or the ``rank`` section, so editing ranking criteria keeps a store
-    usable.
+    The variant ids (in store order), the axes, the metric families,
+    ``store_series`` and the version of the kernels that compute results
+    (:data:`kernels.RESULTS_VERSION`, derived from their sources), so a store is
+    never finished by code that computes differently from the code that began
+    it; not the study name or the ``rank`` section, so editing ranking criteria
+    keeps a store usable.
     """
+    from luxsweep.kernels import RESULTS_VERSION
+
     study = loaded.study
     payload = {
         "variants": [v.variant_id for v in variants],
         "axes": axis_names(study),
         "metrics": list(study.metrics),
         "store_series": study.store_series,
+        "results_version": RESULTS_VERSION,
     }
     return hashlib.sha256(canonical_json(payload).encode()).hexdigest()

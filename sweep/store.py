@@ -421,9 +421,10 @@ def open_existing(path: str | Path, study_hash: str, expected: Sequence[str] = (
         )
     if attrs.get("study_hash") != study_hash:
         raise ResultsStoreError(
-            f"{path}: this results store belongs to a different study (or an earlier "
-            "version of this one: variants, axes, metrics or store_series changed). To start "
-            f"fresh, delete the folder {path} or write elsewhere with --out."
+            f"{path}: this results store belongs to a different study, to an earlier "
+            "version of this one (variants, axes, metrics or store_series changed), or was "
+            "begun by a luxsweep whose result code differs from this one's. Run again with "
+            "--fresh to discard it, or write elsewhere with --out."
         )
     group = zarr.open_group(str(path), mode="r")
     absent = [name for name in ["variant_id", *expected, "done"] if name not in group]

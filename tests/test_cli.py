@@ -167,7 +167,7 @@ def test_output_and_store_paths_are_refused_in_plain_sentences(tmp_path, cli):
         assert not re.search(r"\b[A-Z][a-z]+(Error|Exception)\b", result.err), result.err
 
 
-def test_run_fresh_discards_the_store_of_an_edited_study(tmp_path, cli):
+def test_run_fresh_discards_the_store_of_an_edited_study(tmp_path, cli, monkeypatch):
     import xarray as xr
 
     study = write_tiny_study(tmp_path, orientations=(180.0,), climates=("coastal",),
@@ -184,6 +184,13 @@ def test_run_fresh_discards_the_store_of_an_edited_study(tmp_path, cli):
     ds = xr.open_zarr(out)
     assert ds.sizes["variant"] == 2 and bool(ds["done"].all())
     assert not list(tmp_path.glob("r.zarr.creating-*"))
+    # a store begun by kernels that compute differently is never finished by these
+    import luxsweep.kernels
+
+    monkeypatch.setattr(luxsweep.kernels, "RESULTS_VERSION", "src-other")
+    mixed = cli("run", study, "--out", out, "--cache", cache, "--workers", "1")
+    assert mixed.code == 2 and "result code differs" in mixed.err
+    monkeypatch.undo()
     # never a folder that is not a results store
     other = tmp_path / "photos"
     other.mkdir()
