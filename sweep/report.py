@@ -420,6 +420,11 @@ _COMPUTE_WORDS = (
     ("element_rays", "rays per surface element", format_number),
     ("sensor_rays", "rays per sensor for reflected light", format_number),
     ("seed", "random seed", format_number),
+    ("max_elements", "surface elements at most (larger elements beyond)", format_number),
+    ("memory_limit", "memory per coefficient set at most",
+     lambda v: f"{format_number(v)} GiB"),
+    ("target_error", "target relative sampling error",
+     lambda v: "off" if not v else f"{format_number(100 * float(v))} %"),
 )
 
 
@@ -440,6 +445,9 @@ def _inputs(ds: xr.Dataset, study: dict) -> str:
             ["Label", "Site (weather file header)", "Latitude", "Longitude",
              "Standard time", "File"], rows))
     room = study.get("room")
+    if study.get("vary") or study.get("vary_together"):
+        parts.append('<p class="note">The tables show the study file as written; each '
+                     "variant replaces the varied values (listed in the summary).</p>")
     if isinstance(room, dict):
         refl = room.get("reflectance") or {}
         facts = [
