@@ -49,3 +49,14 @@ class SchedulerError(UserInputError):
     """The Dask scheduler given cannot be used: a missing or malformed scheduler
     file, an address that is not one, no answer within the time-out, or missing
     TLS files (a plain sentence; exit status 2 on the command line)."""
+
+
+class InputMismatchError(UserInputError):
+    """A worker reads an input whose bytes differ from the client's (another file at
+    the same path: another mount, a stale copy) or cannot read it at all; names
+    the file and the worker. Stops the run: never a silent wrong result."""
+
+
+class PreflightError(UserInputError):
+    """The pre-flight check found workers that cannot do their part (inputs,
+    cache or store folder, versions); one message lists what fails where."""

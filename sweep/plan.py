@@ -91,6 +91,8 @@ class SeriesTask:
     members : tuple of (variant index, orientation index, row index)
     study : Study
         The resolved study of the first member (time step, occupancy, ...).
+    climate_sha256 : str
+        sha256 of the weather file as the client read it (workers check theirs).
     """
 
     task_id: str
@@ -103,6 +105,7 @@ class SeriesTask:
     members: tuple[tuple[int, int, int], ...]
     study: Study
     variant_ids: tuple[str, ...]
+    climate_sha256: str = ""
 
     @property
     def shading(self) -> bool:
@@ -470,6 +473,7 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
             climate_file=loaded.study.climates[climate], orientations=orientations,
             rows=tuple(rows), glazing_sets=sets, members=tuple(placed),
             study=members[0].study, variant_ids=tuple(m.variant_id for m in members),
+            climate_sha256=members[0].params["climate_file"],
         ))
 
     n_steps = {label: len(c) * c.interval // loaded.study.timestep

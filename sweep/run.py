@@ -4,8 +4,9 @@ Order of work (DESIGN.md §3):
 
 1. Missing coefficient sets, largest first, at high priority: each task computes
    :func:`kernels.coefficients.compute_coefficients` and publishes it in the
-   shared :class:`~sweep.cache.CoefficientCache` (a task whose key is already in
-   the cache returns at once).
+   :class:`~sweep.cache.CoefficientCache` (a task whose key is already in the
+   worker's cache reads it); its result holds the set, which Dask sends to the
+   set's series tasks wherever they run, so the cache folder need not be shared.
 2. One task per (coefficient key, climate, series settings) — see
    :class:`sweep.plan.SeriesTask`: sky vectors of all its orientations in time
    blocks (:func:`kernels.sky.sky_vectors`), illuminance of all its glazing rows
@@ -24,7 +25,9 @@ created under a temporary sibling name and renamed into place
 
 The cluster (a loopback ``LocalCluster``, or one joined by address or
 scheduler file, over TLS if asked) comes from :mod:`sweep.cluster`; it is
-joined after validation and before the store is created. Progress (task by
+joined after validation, and every worker passes :func:`sweep.preflight.preflight`
+before the store is created. A series task checks its weather file against the
+client's sha256 first; a mismatch stops the run. Progress (task by
 task, both phases) is :mod:`sweep.progress`. Series tasks run BLAS on one
 thread so results are bit-identical wherever they run.
 """
@@ -64,11 +67,13 @@ from luxsweep.sweep.cluster import (
 from luxsweep.sweep.config import StudyFile, load_study
 from luxsweep.sweep.errors import (
     CacheIntegrityError,
+    InputMismatchError,
     ResultsStoreError,
     UserInputError,
     VariantFailedError,
 )
 from luxsweep.sweep.plan import CoefficientJob, Plan, SeriesTask, make_plan
+from luxsweep.sweep.preflight import preflight
 from luxsweep.sweep.progress import PLAIN_EVERY, Progress
 from luxsweep.sweep.registry import store_variables
 
@@ -89,20 +94,52 @@ FAMILIES = registry.FAMILIES
 
 
 def coefficient_task(job: CoefficientJob, cache_root: str) -> dict[str, Any]:
-    """Compute and publish one coefficient set (no-op when already cached)."""
+    """Compute and publish one coefficient set (read from the cache when there).
+
+    Returns ``key``, ``computed``, ``seconds`` and the set itself
+    (``coefficients``): series tasks submitted with this result receive the set
+    through Dask, so a worker whose cache folder lacks it (no shared disk) has it.
+    """
     from luxsweep.kernels.coefficients import compute_coefficients
 
     cache = CoefficientCache(cache_root)
     t0 = time.perf_counter()
     if cache.contains(job.key):
-        try:
-            cache.verify(job.key)
-            return {"key": job.key, "computed": False, "seconds": 0.0}
-        except CacheIntegrityError as exc:  # a damaged entry is a miss: recompute, replace
-            log.warning("%s; recomputing it", exc)
+        found = cache.load(job.key)  # checksums verified; a damaged entry is a miss
+        if found is not None:
+            return {"key": job.key, "computed": False, "seconds": 0.0, "coefficients": found}
     coefficients = compute_coefficients(job.geometry, job.sensors, job.settings)
     cache.save(coefficients)
-    return {"key": job.key, "computed": True, "seconds": time.perf_counter() - t0}
+    return {"key": job.key, "computed": True, "seconds": time.perf_counter() - t0,
+            "coefficients": coefficients}
+
+
+def coefficient_info(result: dict[str, Any]) -> dict[str, Any]:
+    """The result of :func:`coefficient_task` without the set (what the client reads)."""
+    return {k: v for k, v in result.items() if k != "coefficients"}
+
+
+def _coefficients(task: SeriesTask, cache_root: str, coefficient_result: Any,
+                  job: CoefficientJob | None) -> tuple[Any, int]:
+    """The task's coefficient set and how many sets were computed here (0 or 1).
+
+    From the coefficient task's result when given (through Dask), else from this
+    worker's cache, else (a worker with a cache of its own that lacks the set)
+    computed from ``job`` and kept in that cache.
+    """
+    if isinstance(coefficient_result, dict) and "coefficients" in coefficient_result:
+        return coefficient_result["coefficients"], 0
+    cache = CoefficientCache(cache_root)
+    coeffs = cache.load(task.key)
+    if coeffs is not None:
+        return coeffs, 0
+    if job is None:
+        raise RuntimeError(f"coefficient set {task.key} is missing from the cache {cache_root}")
+    from luxsweep.kernels.coefficients import compute_coefficients
+
+    coeffs = compute_coefficients(job.geometry, job.sensors, job.settings)
+    cache.save(coeffs)
+    return coeffs, 1
 
 
 def _metric_params(task: SeriesTask) -> Any:
@@ -160,14 +197,25 @@ class ClimateSteps:
         if ephemeris and self._ephemeris is not None:
             self._ephemeris.clear()
 
-    def get(self, path: str | os.PathLike, step_minutes: int) -> tuple:
+    def get(self, path: str | os.PathLike, step_minutes: int, sha256: str = "") -> tuple:
         """``(climate, altitude, azimuth, daylight)`` of a weather file at ``step_minutes``
-        (``daylight``: the EN 17037 daylight steps, :func:`kernels.sun.daylight_steps`)."""
+        (``daylight``: the EN 17037 daylight steps, :func:`kernels.sun.daylight_steps`).
+
+        With ``sha256`` (the client's hash of the file) the bytes are checked first
+        (:func:`sweep.preflight.verify_file`, once per file version per process) and
+        again after reading, so a file replaced meanwhile is never used.
+
+        Raises
+        ------
+        InputMismatchError
+            The file differs from the client's or cannot be read (names file and worker).
+        """
         from luxsweep.kernels.climate import read_climate
         from luxsweep.kernels.sun import daylight_steps, resample, sun_steps
+        from luxsweep.sweep.preflight import file_version, verify_file
 
-        stat = os.stat(path)
-        key = (os.fspath(path), stat.st_size, stat.st_mtime_ns, step_minutes)
+        version = verify_file(path, sha256) if sha256 else file_version(path)
+        key = (version, step_minutes)
         with self._lock:
             if key in self._entries:
                 return self._entries[key]
@@ -178,6 +226,8 @@ class ClimateSteps:
             resampled = resample(climate, step_minutes, steps=steps)
             entry = (resampled, steps.altitude, steps.azimuth,
                      daylight_steps(resampled, steps=steps))
+        if sha256 and verify_file(path, sha256) != version:  # replaced while being read
+            return self.get(path, step_minutes, sha256)
         with self._lock:
             if len(self._entries) >= self.max_entries:
                 self._entries.pop(next(iter(self._entries)))
@@ -223,6 +273,7 @@ def series_task(
     store_path: str,
     cache_root: str,
     coefficient_result: Any = None,
+    job: CoefficientJob | None = None,
 ) -> dict[str, Any]:
     """Series, metrics and writes of one group (runs on a worker).
 
@@ -237,18 +288,21 @@ def series_task(
     todo : list of (variant index, orientation index, row index)
         Members not yet done (resume).
     store_path, cache_root : str
-    coefficient_result : any
-        Result of the coefficient task (only orders the tasks).
+    coefficient_result : dict, optional
+        Result of the coefficient task computed in this run (it holds the set).
+    job : CoefficientJob, optional
+        The set's inputs: the set is computed here when this worker's cache lacks it.
 
     Returns
     -------
     dict
-        ``variants`` written and seconds spent per stage.
+        ``variants`` written, ``recomputed`` coefficient sets (0 or 1) and
+        seconds spent per stage.
     """
     from threadpoolctl import threadpool_limits
 
     with threadpool_limits(limits=1, user_api="blas"):
-        return _series(task, todo, store_path, cache_root)
+        return _series(task, todo, store_path, cache_root, coefficient_result, job)
 
 
 class _StageTimer:
@@ -286,6 +340,7 @@ class _SeriesInputs:
     params: Any
     open_rows: np.ndarray
     closed_rows: np.ndarray
+    recomputed: int = 0
 
     @property
     def n_sets(self) -> int:
@@ -303,17 +358,22 @@ class _SeriesInputs:
         return int(np.clip(BLOCK_BYTES // max(per_step, 1), 24, 8760))
 
 
-def _load_series(task: SeriesTask, cache_root: str) -> _SeriesInputs:
-    """The coefficient set, the climate with its sun, and the step masks of a task."""
+def _load_series(task: SeriesTask, cache_root: str, coefficient_result: Any = None,
+                 job: CoefficientJob | None = None) -> _SeriesInputs:
+    """The coefficient set, the climate with its sun, and the step masks of a task
+    (``recomputed``: coefficient sets computed here, :func:`_coefficients`).
+
+    The weather file is checked first: a mismatch stops the run before any set is
+    computed.
+    """
     from luxsweep.kernels import metrics as km
     from luxsweep.kernels.sky import orientation_class_count, patch_scheme
     from luxsweep.kernels.sun import SunPoints
 
-    coeffs = CoefficientCache(cache_root).load(task.key)
-    if coeffs is None:
-        raise RuntimeError(f"coefficient set {task.key} is missing from the cache {cache_root}")
     study = task.study
-    climate, altitude, azimuth, daylight = CLIMATE_STEPS.get(task.climate_file, study.timestep)
+    climate, altitude, azimuth, daylight = CLIMATE_STEPS.get(task.climate_file, study.timestep,
+                                                             task.climate_sha256)
+    coeffs, recomputed = _coefficients(task, cache_root, coefficient_result, job)
     stamps = climate.time
     scheme = patch_scheme(coeffs.subdivision)
     occ = study.occupancy
@@ -325,7 +385,7 @@ def _load_series(task: SeriesTask, cache_root: str) -> _SeriesInputs:
         daylight=daylight,  # EN 17037 daylight hours: sun up at mid-step
         occupied=km.occupancy_mask(stamps, occ.start, occ.end, occ.days, study.timestep),
         analysis=km.lm83_analysis_mask(stamps, study.timestep), params=_metric_params(task),
-        open_rows=task.open_rows(), closed_rows=task.closed_rows(),
+        open_rows=task.open_rows(), closed_rows=task.closed_rows(), recomputed=recomputed,
     )
 
 
@@ -439,6 +499,8 @@ def _series(
     todo: list[tuple[int, int, int]],
     store_path: str,
     cache_root: str,
+    coefficient_result: Any = None,
+    job: CoefficientJob | None = None,
 ) -> dict[str, Any]:
     """Body of :func:`series_task` (same parameters and result).
 
@@ -450,7 +512,7 @@ def _series(
     """
     timer = _StageTimer()
     with timer("load"):
-        inp = _load_series(task, cache_root)
+        inp = _load_series(task, cache_root, coefficient_result, job)
     workspace = Workspace()
     vis = [vi for vi, _, _ in todo]
     members = (vis, np.array([oi for _, oi, _ in todo], dtype=np.intp),
@@ -474,7 +536,7 @@ def _series(
             {name: np.asarray(results[name][ois, ris], dtype=np.float32) for name in sensor_vars},
             {name: np.asarray(results[name][ois, ris]) for name in variant_vars},
         )
-    return {"variants": len(todo), "timing": timer.seconds}
+    return {"variants": len(todo), "recomputed": inp.recomputed, "timing": timer.seconds}
 
 
 # ---------------------------------------------------------------------------
@@ -491,6 +553,7 @@ class RunSummary:
     written: int = 0
     failed: dict[str, list[str]] = field(default_factory=dict)
     coefficient_sets_computed: int = 0
+    coefficient_sets_recomputed: int = 0
     seconds: float = 0.0
     timing: dict[str, float] = field(default_factory=dict)
 
@@ -682,16 +745,20 @@ def run_study(
                      key=lambda j: -j.rays)
 
     with dask_client(workers, scheduler, connect_timeout=connect_timeout, tls=tls) as client:
+        cache.root.mkdir(parents=True, exist_ok=True)
+        # every worker: weather files, cache and store folders, versions (exit 2)
+        shared = preflight(client, {t.climate_file: t.climate_sha256 for t in pending},
+                           cache.root, results)
         if discard:
             _discard_store(results, plan)
-        if done is None:  # only now that the cluster answers
+        if done is None:  # only now that the cluster answers and passed its check
             results_store.create_store(results, _layout(plan))
         link = dashboard_link(client, local=not scheduler)
         if link:
             log.info("dashboard: %s", link)
-        cache.root.mkdir(parents=True, exist_ok=True)
         cache.clean_temporary(older_than=3600.0)
-        collector = Collector(client, plan, results, cache, summary)
+        collector = Collector(client, plan, results, cache, summary,
+                              hold_sets=not all(shared.values()))
         collector.submit_coefficients(missing)
         for task in pending:
             collector.submit_series(task, [m for m in task.members if not done_before[m[0]]])
@@ -735,20 +802,32 @@ class Collector:
     ``<task_id>-<variant_id>-alone``), where only a task's own deaths count
     against it: a poison variant then costs two rounds of worker deaths in all.
     When a group failed because its coefficient set could not be computed, its
-    members are reported at once.
+    members are reported at once. A weather file that differs on a worker from
+    the client's (:class:`~sweep.errors.InputMismatchError`) stops the run: every
+    task still queued is cancelled and the error is raised.
 
-    Finished futures are released as soon as they are read, so that a worker
-    dying later does not make Dask recompute them (and count them as suspects).
+    A coefficient set computed in this run is its task's result, so a series
+    task submitted before it finished receives it through Dask. With
+    ``hold_sets`` (some worker keeps its own cache folder) the run holds it in
+    the workers' memory until the last series task of its key is gathered, so
+    retries get it too; with a shared cache it is released once computed and
+    later tasks read the cache. The client reads only a small summary of it
+    (``coefficient-info-<key>``). Other finished futures are released as soon
+    as they are read, so that a worker dying later does not make Dask recompute
+    them (and count them as suspects).
     """
 
     def __init__(self, client: Any, plan: Plan, results: Path, cache: CoefficientCache,
-                 summary: RunSummary) -> None:
+                 summary: RunSummary, hold_sets: bool = True) -> None:
         self.client = client
         self.results, self.cache_root = str(results), str(cache.root)
         self.summary = summary
         self.timing: dict[str, float] = {"coefficients": 0.0}
-        self.coefficients: dict[str, Any] = {}  # set key -> future, until it finishes
-        self.coefficient_keys: dict[Any, str] = {}  # future -> set key
+        self.jobs = plan.jobs
+        self.hold_sets = hold_sets
+        self.coefficients: dict[str, Any] = {}  # set key -> future holding the set
+        self.coefficient_keys: dict[Any, str] = {}  # summary future -> set key, until read
+        self.users: dict[str, int] = {}  # set key -> series futures not yet gathered
         self.series: dict[Any, tuple[SeriesTask, list[tuple[int, int, int]]]] = {}
         self.failed_sets: set[str] = set()
         self.suspects: list[tuple[SeriesTask, tuple[int, int, int], str]] = []
@@ -760,19 +839,24 @@ class Collector:
     def submit_coefficients(self, missing: list[CoefficientJob]) -> None:
         """One task per missing set, largest first, ahead of every series task."""
         for rank, job in enumerate(missing):
+            priority = 100 + len(missing) - rank
             fut = self.client.submit(
                 coefficient_task, job, self.cache_root, key=f"coefficients-{job.key[:24]}",
-                priority=100 + len(missing) - rank, pure=False, retries=0,
+                priority=priority, pure=False, retries=0,
             )
+            info = self.client.submit(coefficient_info, fut, key=f"coefficient-info-"
+                                      f"{job.key[:24]}", priority=priority, pure=False)
             self.coefficients[job.key] = fut
-            self.coefficient_keys[fut] = job.key
+            self.coefficient_keys[info] = job.key
 
     def _submit(self, task: SeriesTask, todo: list[tuple[int, int, int]], key: str) -> Any:
-        # depend on the coefficient task only while it runs: once its set is
-        # cached, its future is released
+        # the set through Dask while this run holds it; else the worker's cache,
+        # or computed there from the job when its cache lacks it
+        self.users[task.key] = self.users.get(task.key, 0) + 1
         return self.client.submit(
             series_task, task, todo, self.results, self.cache_root,
-            self.coefficients.get(task.key), key=key, priority=0, pure=False, retries=0,
+            self.coefficients.get(task.key), self.jobs.get(task.key), key=key, priority=0,
+            pure=False, retries=0,
         )
 
     def submit_series(self, task: SeriesTask, todo: list[tuple[int, int, int]],
@@ -791,13 +875,15 @@ class Collector:
         from distributed import as_completed
 
         self.progress = progress
-        pending = as_completed([*self.coefficients.values(), *self.series])
+        pending = as_completed([*self.coefficient_keys, *self.series])
         for fut in pending:
             if fut in self.coefficient_keys:
                 self._coefficient_finished(fut)
             else:
                 for retry in self._series_finished(fut):
                     pending.add(retry)
+        for key in list(self.coefficients):
+            self._release_set(key)
         for task, member, vid in self.suspects:
             fut = self._submit(task, [member], f"{task.task_id}-{vid}-alone")
             try:
@@ -817,20 +903,38 @@ class Collector:
             self.timing["coefficients"] += res["seconds"]
             if self.progress is not None:
                 self.progress.set_done()
-            del self.coefficients[key]
             fut.release()
+            if not self.hold_sets or not self.users.get(key):
+                self._release_set(key)
         else:  # its series tasks fail with it and are reported at once
             self.failed_sets.add(key)
+
+    def _release_set(self, key: str) -> None:
+        """Drop the run's hold on set ``key`` (unless its task failed: it is reported)."""
+        fut = self.coefficients.get(key)
+        if fut is not None and fut.status != "error" and key not in self.failed_sets:
+            del self.coefficients[key]
+            fut.release()
+
+    def _stop(self) -> None:
+        """Cancel every task not yet gathered."""
+        futures = [*self.coefficient_keys, *self.coefficients.values(), *self.series]
+        if futures:
+            self.client.cancel(futures)
 
     def _series_finished(self, fut: Any) -> list[Any]:
         """Record one series task; the retries it needs (to be gathered too)."""
         from distributed import KilledWorker
 
         task, todo = self.series.pop(fut)
+        self.users[task.key] -= 1
         ids = _variant_ids(task, todo)
         retries: list[Any] = []
         try:
             result = fut.result()
+        except InputMismatchError:
+            self._stop()
+            raise
         except Exception as exc:
             if self._set_failed(task.key):
                 self._report(fut.key, task, ids, exc)
@@ -850,6 +954,9 @@ class Collector:
             return retries
         finally:
             fut.release()
+            if not self.users[task.key] and not retries \
+                    and task.key not in self.coefficient_keys.values():
+                self._release_set(task.key)
         self._written(result)
         return retries
 
@@ -862,6 +969,7 @@ class Collector:
 
     def _written(self, result: dict[str, Any]) -> None:
         self.summary.written += result["variants"]
+        self.summary.coefficient_sets_recomputed += result.get("recomputed", 0)
         for k, v in result["timing"].items():
             self.timing[k] = self.timing.get(k, 0.0) + v
         if self.progress is not None:
@@ -880,8 +988,10 @@ def format_summary(summary: RunSummary) -> str:
         f"variants: {summary.total} total, {summary.written} computed now, "
         f"{summary.skipped} already done (skipped), {sum(map(len, summary.failed.values()))} "
         "failed",
-        f"coefficient sets computed: {summary.coefficient_sets_computed}; wall time "
-        f"{summary.seconds:.1f} s",
+        f"coefficient sets computed: {summary.coefficient_sets_computed}"
+        + (f" (and {summary.coefficient_sets_recomputed} again on workers whose cache "
+           "lacked them)" if summary.coefficient_sets_recomputed else "")
+        + f"; wall time {summary.seconds:.1f} s",
     ]
     if summary.timing:
         busy = sum(summary.timing.values())
