@@ -1,0 +1,192 @@
+"""A cluster whose workers do not see the client's disk as it does, on real ``dask
+scheduler`` and ``dask worker`` processes bound to loopback.
+
+A worker that "sees another file at the same path" is a worker started in a
+private mount namespace (``unshare -m``) with another file or folder bind-mounted
+over the client's path: the same absolute name, other bytes, as with another
+mount or a stale copy on a real cluster. These tests need root (or unprivileged
+user namespaces) for that and are skipped where ``unshare -m`` cannot mount.
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+import signal
+import subprocess
+import sys
+import threading
+import time
+from collections.abc import Iterator
+from contextlib import contextmanager
+from pathlib import Path
+
+import numpy as np
+import pytest
+import zarr
+from conftest import assert_same_results, run_luxsweep, write_tiny_study
+
+DASK = Path(sys.executable).with_name("dask")
+
+
+def _can_bind_mount() -> bool:
+    if shutil.which("unshare") is None:
+        return False
+    probe = subprocess.run(["unshare", "-m", "sh", "-c", "mount --bind / /mnt"],
+                           capture_output=True)
+    return probe.returncode == 0
+
+
+needs_mounts = pytest.mark.skipif(not _can_bind_mount(),
+                                  reason="unshare -m with bind mounts is not available")
+
+
+def _stop(proc: subprocess.Popen) -> None:
+    try:
+        os.killpg(proc.pid, signal.SIGTERM)
+    except ProcessLookupError:
+        return
+    try:
+        proc.wait(timeout=20)
+    except subprocess.TimeoutExpired:
+        os.killpg(proc.pid, signal.SIGKILL)
+        proc.wait(timeout=10)
+
+
+@contextmanager
+def cluster(folder: Path, workers: list[list[tuple[Path, Path]]]) -> Iterator[Path]:
+    """``dask scheduler`` and one ``dask worker --nthreads 1`` per entry of ``workers``,
+    each in a private mount namespace with its (source, target) bind mounts (none:
+    it sees the client's files); yields the scheduler file once all have joined."""
+    folder.mkdir(parents=True, exist_ok=True)
+    sched_file = folder / "scheduler.json"
+    env = {**os.environ, "DASK_DISTRIBUTED__WORKER__DAEMON": "True"}
+    procs = [subprocess.Popen(
+        [str(DASK), "scheduler", "--scheduler-file", str(sched_file), "--host", "127.0.0.1",
+         "--port", "0", "--no-dashboard"],
+        stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, env=env, start_new_session=True)]
+    try:
+        deadline = time.monotonic() + 90
+        while not sched_file.is_file() and time.monotonic() < deadline:
+            time.sleep(0.1)
+        assert sched_file.is_file(), "the scheduler did not start"
+        logs: list[list[str]] = []
+        for mounts in workers:
+            script = "".join(f'mount --bind "{src}" "{dst}" && ' for src, dst in mounts)
+            worker = subprocess.Popen(
+                ["unshare", "-m", "sh", "-c", script + 'exec "$@"', "sh", str(DASK), "worker",
+                 "--scheduler-file", str(sched_file), "--nthreads", "1", "--nworkers", "1",
+                 "--host", "127.0.0.1", "--no-dashboard"],
+                stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True, env=env,
+                start_new_session=True)
+            procs.append(worker)
+            lines: list[str] = []
+            logs.append(lines)
+            threading.Thread(target=lambda w=worker, out=lines: out.extend(
+                iter(w.stderr.readline, "")), daemon=True).start()
+        for proc, lines in zip(procs[1:], logs, strict=True):
+            while time.monotonic() < deadline and not any("Registered to" in x for x in lines):
+                assert proc.poll() is None, "".join(lines)
+                time.sleep(0.1)
+            assert any("Registered to" in x for x in lines), "a worker did not join"
+        yield sched_file
+    finally:
+        for proc in reversed(procs):
+            _stop(proc)
+
+
+def _workers_by_hash(sched: Path, path: Path) -> dict[str, str]:
+    """sha256 of ``path`` as each worker reads it, by worker address."""
+    from distributed import Client
+
+    from luxsweep.sweep.expand import file_sha256
+
+    with Client(scheduler_file=str(sched), timeout="20s") as client:
+        return client.run(file_sha256, str(path))
+
+
+@needs_mounts
+@pytest.mark.slow
+def test_a_worker_seeing_another_weather_file_stops_the_run(tmp_path):
+    """Two workers, one of which sees another weather file at the client's path:
+    ``run`` stops before submitting anything with exit 2 and one message naming the
+    file and that worker (and not the good one), and leaves no store; a series task
+    sent to that worker anyway (as a task placed after the check would be) raises
+    InputMismatchError naming the file and the worker, having written nothing."""
+    from distributed import Client
+
+    from luxsweep.sweep.errors import InputMismatchError
+    from luxsweep.sweep.expand import file_sha256
+    from luxsweep.sweep.run import prepare, series_task
+
+    study = write_tiny_study(tmp_path / "study", orientations=(180.0,), climates=("coastal",),
+                             transmittances=(0.6,))
+    target = tmp_path / "study" / "climates" / "coastal.csv"
+    other = tmp_path / "elsewhere.csv"
+    text = target.read_text()
+    other.write_text(text.replace("\n", "\r\n", 40))  # same data, other bytes (a stale copy)
+    assert file_sha256(other) != file_sha256(target)
+    with cluster(tmp_path / "c", [[], [(other, target)]]) as sched:
+        hashes = _workers_by_hash(sched, target)
+        bad = [a for a, h in hashes.items() if h != file_sha256(target)]
+        good = [a for a in hashes if a not in bad]
+        assert len(bad) == 1 and len(good) == 1, hashes
+        res = run_luxsweep("run", study, "--out", tmp_path / "r.zarr", "--cache",
+                           tmp_path / "cache", "--scheduler", sched, timeout=180)
+        assert res.code == 2, res.text
+        assert "pre-flight" in res.err and bad[0] in res.err and str(target) in res.err, res.err
+        assert good[0] not in res.err, res.err
+        assert "Traceback" not in res.err
+        assert not (tmp_path / "r.zarr").exists()
+
+        plan, results, cache, _ = prepare(study, tmp_path / "direct.zarr", tmp_path / "cache")
+        (task,) = plan.tasks
+        with Client(scheduler_file=str(sched), timeout="20s") as client:
+            fut = client.submit(series_task, task, list(task.members), str(results),
+                                str(cache.root), 9, None, plan.jobs[task.key],
+                                workers=bad, pure=False)
+            with pytest.raises(InputMismatchError) as caught:
+                fut.result(timeout=120)
+        assert bad[0] in str(caught.value) and str(target) in str(caught.value)
+        assert not results.exists()
+
+
+@needs_mounts
+@pytest.mark.slow
+def test_workers_with_their_own_cache_give_the_local_results(tmp_path):
+    """No shared cache folder: two workers each see an empty folder of their own at
+    the cache path. Sets computed in the run reach the worker that lacks them
+    through Dask (none is computed twice), and results are bit-identical to a
+    local run. Then a worker whose cache lacks sets the client found cached
+    computes them itself (counted as such) with the same results again."""
+    study = write_tiny_study(tmp_path / "study", orientations=(90.0, 180.0),
+                             climates=("coastal",), transmittances=(0.6,), widths=(1.0, 1.5))
+    res = run_luxsweep("run", study, "--out", tmp_path / "local.zarr", "--cache",
+                       tmp_path / "local-cache", "--workers", "1", timeout=300)
+    assert res.code == 0, res.text
+    cache = tmp_path / "cache"
+    own = [tmp_path / "own-a", tmp_path / "own-b"]
+    for folder in (cache, *own):
+        folder.mkdir()
+    with cluster(tmp_path / "c1", [[(own[0], cache)], [(own[1], cache)]]) as sched:
+        res = run_luxsweep("run", study, "--out", tmp_path / "r.zarr", "--cache", cache,
+                           "--scheduler", sched, timeout=300)
+    assert res.code == 0, res.text
+    assert "coefficient sets computed: 2;" in res.out, res.out
+    assert "keep their own cache folder" in res.err, res.err
+    assert not any(p.name for p in cache.iterdir() if not p.name.startswith("."))
+    kept = sorted(p.name for folder in own for p in folder.iterdir()
+                  if not p.name.startswith("."))
+    assert len(kept) == 2, kept  # each set computed once, on one worker
+    assert np.asarray(zarr.open_group(str(tmp_path / "r.zarr"), mode="r")["done"][:]).all()
+    assert_same_results(tmp_path / "r.zarr", tmp_path / "local.zarr")
+
+    # the client's cache holds both sets; a worker whose own folder is empty
+    (tmp_path / "own-c").mkdir()
+    with cluster(tmp_path / "c2", [[(tmp_path / "own-c", tmp_path / "local-cache")]]) as sched:
+        res = run_luxsweep("run", study, "--out", tmp_path / "again.zarr", "--cache",
+                           tmp_path / "local-cache", "--scheduler", sched, timeout=300)
+    assert res.code == 0, res.text
+    assert "coefficient sets computed: 0 (and 2 again on workers whose cache lacked them)" \
+        in res.out, res.out
+    assert_same_results(tmp_path / "again.zarr", tmp_path / "local.zarr")
