@@ -190,3 +190,84 @@ def test_workers_with_their_own_cache_give_the_local_results(tmp_path):
     assert "coefficient sets computed: 0 (and 2 again on workers whose cache lacked them)" \
         in res.out, res.out
     assert_same_results(tmp_path / "again.zarr", tmp_path / "local.zarr")
+
+
+def test_worker_check_lists_every_problem(tmp_path):
+    """The pre-flight check run in this process (as ``client.run`` runs it on a
+    worker): a weather file with other bytes, a missing one, a store folder that is
+    not the client's, other versions — each named in one list; the client's own
+    folders and files pass and the shared cache is recognised by its probe."""
+    from luxsweep.kernels import KERNEL_VERSION
+    from luxsweep.sweep import __version__
+    from luxsweep.sweep.expand import file_sha256
+    from luxsweep.sweep.preflight import worker_check
+
+    good = tmp_path / "a.csv"
+    good.write_text("one\n")
+    cache, store = tmp_path / "cache", tmp_path / "store"
+    cache.mkdir()
+    store.mkdir()
+    (cache / "probe").write_text("token")
+    (store / "probe").write_text("token")
+    needs = {"inputs": {str(good): file_sha256(good)}, "cache": str(cache),
+             "store_folder": str(store), "token": "token", "version": __version__,
+             "kernel_version": KERNEL_VERSION, "cache_probe": "probe", "store_probe": "probe"}
+    assert worker_check(needs) == {"problems": [], "shared_cache": True}
+
+    bad = {**needs, "inputs": {str(good): "0" * 64, str(tmp_path / "gone.csv"): "1" * 64},
+           "version": "0.0.0", "kernel_version": "other", "token": "client's"}
+    answer = worker_check(bad)
+    assert answer["shared_cache"] is False
+    text = "\n".join(answer["problems"])
+    assert len(answer["problems"]) == 5, text
+    assert f"{good} is not the client's file" in text
+    assert f"{tmp_path / 'gone.csv'} cannot be read" in text
+    assert "luxsweep" in text and "0.0.0" in text and "kernel version" in text
+    assert f"store's folder {store} is not the client's" in text
+
+
+def test_series_task_refuses_a_weather_file_changed_after_planning(tmp_path):
+    """The weather file is edited after ``plan`` and before the series task reads it:
+    the task raises InputMismatchError naming the file (here, outside a worker, "the
+    client") and writes nothing."""
+    from luxsweep.sweep.errors import InputMismatchError
+    from luxsweep.sweep.run import prepare, series_task
+
+    study = write_tiny_study(tmp_path / "study", orientations=(180.0,), climates=("coastal",),
+                             transmittances=(0.6,))
+    plan, results, cache, _ = prepare(study, tmp_path / "r.zarr", tmp_path / "cache")
+    (task,) = plan.tasks
+    path = Path(task.climate_file)
+    original = path.read_bytes()
+    path.write_bytes(original.replace(b"\n", b"\r\n", 5))
+    with pytest.raises(InputMismatchError, match="is not the client's file") as caught:
+        series_task(task, list(task.members), str(results), str(cache.root), 9, None,
+                    plan.jobs[task.key])
+    assert str(path) in str(caught.value) and "the client" in str(caught.value)
+    assert not results.exists() and not cache.root.exists()
+
+
+@pytest.mark.slow
+def test_a_run_stops_when_a_weather_file_changes_after_the_check(tmp_path, monkeypatch):
+    """The file is edited after the pre-flight check passed (a hook around the real
+    check), before the series tasks read it: the run raises InputMismatchError
+    naming the file and the worker, and no variant is marked done."""
+    from luxsweep.sweep import run as run_module
+    from luxsweep.sweep.errors import InputMismatchError
+
+    study = write_tiny_study(tmp_path / "study", orientations=(90.0, 180.0),
+                             climates=("coastal",), transmittances=(0.6,))
+    path = tmp_path / "study" / "climates" / "coastal.csv"
+    real = run_module.preflight
+
+    def check_then_edit(*args, **kwargs):
+        answer = real(*args, **kwargs)
+        path.write_bytes(path.read_bytes().replace(b"\n", b"\r\n", 5))
+        return answer
+
+    monkeypatch.setattr(run_module, "preflight", check_then_edit)
+    with pytest.raises(InputMismatchError, match="is not the client's file") as caught:
+        run_module.run_study(study, tmp_path / "r.zarr", workers=1,
+                             cache_dir=tmp_path / "cache", show_progress=False)
+    assert str(path) in str(caught.value) and "tcp://127.0.0.1:" in str(caught.value)
+    assert not np.asarray(zarr.open_group(str(tmp_path / "r.zarr"), mode="r")["done"][:]).any()
