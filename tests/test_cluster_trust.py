@@ -133,6 +133,7 @@ def test_a_worker_seeing_another_weather_file_stops_the_run(tmp_path):
         assert len(bad) == 1 and len(good) == 1, hashes
         res = run_luxsweep("run", study, "--out", tmp_path / "r.zarr", "--cache",
                            tmp_path / "cache", "--scheduler", sched, timeout=180)
+        print(res.err)
         assert res.code == 2, res.text
         assert "pre-flight" in res.err and bad[0] in res.err and str(target) in res.err, res.err
         assert good[0] not in res.err, res.err
@@ -171,6 +172,7 @@ def test_workers_with_their_own_cache_give_the_local_results(tmp_path):
     with cluster(tmp_path / "c1", [[(own[0], cache)], [(own[1], cache)]]) as sched:
         res = run_luxsweep("run", study, "--out", tmp_path / "r.zarr", "--cache", cache,
                            "--scheduler", sched, timeout=300)
+    print(res.out, res.err)
     assert res.code == 0, res.text
     assert "coefficient sets computed: 2;" in res.out, res.out
     assert "keep their own cache folder" in res.err, res.err
