@@ -144,7 +144,7 @@ def test_a_worker_seeing_another_weather_file_stops_the_run(tmp_path):
         (task,) = plan.tasks
         with Client(scheduler_file=str(sched), timeout="20s") as client:
             fut = client.submit(series_task, task, list(task.members), str(results),
-                                str(cache.root), 9, None, plan.jobs[task.key],
+                                str(cache.root), None, plan.jobs[task.key],
                                 workers=bad, pure=False)
             with pytest.raises(InputMismatchError) as caught:
                 fut.result(timeout=120)
@@ -243,7 +243,7 @@ def test_series_task_refuses_a_weather_file_changed_after_planning(tmp_path):
     original = path.read_bytes()
     path.write_bytes(original.replace(b"\n", b"\r\n", 5))
     with pytest.raises(InputMismatchError, match="is not the client's file") as caught:
-        series_task(task, list(task.members), str(results), str(cache.root), 9, None,
+        series_task(task, list(task.members), str(results), str(cache.root), None,
                     plan.jobs[task.key])
     assert str(path) in str(caught.value) and "the client" in str(caught.value)
     assert not results.exists() and not cache.root.exists()
