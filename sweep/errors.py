@@ -16,7 +16,9 @@ from luxsweep.kernels.errors import InputError, LuxsweepError
 __all__ = [
     "CacheIntegrityError",
     "InputError",
+    "InputMismatchError",
     "LuxsweepError",
+    "PreflightError",
     "ResultsStoreError",
     "SchedulerError",
     "StudyFileError",
