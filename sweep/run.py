@@ -1030,6 +1030,7 @@ __all__ = [
     "RunSummary",
     "VariantFailedError",
     "Workspace",
+    "coefficient_info",
     "coefficient_task",
     "dask_client",
     "default_cache",
