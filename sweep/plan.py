@@ -34,6 +34,7 @@ from luxsweep.sweep.cache import CoefficientCache
 from luxsweep.sweep.config import Study, StudyFile, canonical_json
 from luxsweep.sweep.errors import StudyFileError
 from luxsweep.sweep.expand import Variant, axis_names, expand, study_hash
+from luxsweep.sweep.spaces import SpaceLayout, single_space
 
 __all__ = [
     "BYTES_PER_VALUE",
@@ -64,6 +65,8 @@ class CoefficientJob:
     variants: tuple[int, ...]
     cached: bool
     rays: int
+    layout: SpaceLayout | None = None
+    """Space of every sensor and grid area per space (None only in hand-made jobs)."""
 
     @property
     def n_sensors(self) -> int:
@@ -129,6 +132,7 @@ class Plan:
     variants: list[Variant]
     study_hash: str
     sensors: list[np.ndarray]
+    layouts: list[SpaceLayout]
     keys: list[str]
     jobs: dict[str, CoefficientJob]
     tasks: list[SeriesTask]
@@ -324,8 +328,17 @@ def _parametric_room(study: Study, panes: dict[str, int]) -> Any:
                         field=room_key(exc.field)) from exc
 
 
-def build_geometry(study: Study) -> tuple[Any, np.ndarray]:
-    """The :class:`kernels.geometry.Geometry` and sensors (n, 6) of a resolved study."""
+def build_geometry(study: Study) -> tuple[Any, np.ndarray, SpaceLayout]:
+    """The geometry, sensors (n, 6) and space layout of a resolved study.
+
+    Returns
+    -------
+    geometry : kernels.geometry.Geometry
+    sensors : ndarray (n, 6)
+        ``x, y, z, nx, ny, nz`` in the building frame.
+    layout : SpaceLayout
+        The space of every sensor and the grid area of every occupied space.
+    """
     from luxsweep.kernels import geometry as kg
 
     panes = {name: g.panes for name, g in study.glazings.items()}
@@ -334,6 +347,7 @@ def build_geometry(study: Study) -> tuple[Any, np.ndarray]:
         geometry = _parametric_room(study, panes)
         sensors = kg.sensor_grid(room.width, room.depth, study.grid.height, study.grid.spacing,
                                  study.grid.margin)
+        area = room.width * room.depth
     else:
         materials = {
             name: ({"reflectance": m.reflectance} if m.glazing is None
@@ -343,10 +357,14 @@ def build_geometry(study: Study) -> tuple[Any, np.ndarray]:
         geometry = kg.read_obj(study.mesh, materials, panes)
         if study.sensors is not None:
             sensors = kg.read_sensors(study.sensors)
+            area = float("nan")
         else:
-            sensors = kg.sensor_grid_on(geometry, study.grid.floors or [], study.grid.height,
+            floors = study.grid.floors or []
+            sensors = kg.sensor_grid_on(geometry, floors, study.grid.height,
                                         study.grid.spacing, study.grid.margin)
-    return geometry, np.asarray(sensors, dtype=np.float64)
+            area = float(geometry.areas[geometry.group_mask(floors, "grid.floors")].sum())
+    sensors = np.asarray(sensors, dtype=np.float64)
+    return geometry, sensors, single_space(sensors.shape[0], area)
 
 
 def settings_of(study: Study) -> Any:
@@ -409,8 +427,9 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
     from luxsweep.kernels.coefficients import coefficient_key
 
     variants = expand(loaded)
-    built: dict[str, tuple[Any, np.ndarray, str, Any]] = {}
+    built: dict[str, tuple[Any, np.ndarray, str, Any, SpaceLayout]] = {}
     sensors: list[np.ndarray] = []
+    layouts: list[SpaceLayout] = []
     keys: list[str] = []
     series_of: list[str] = []
     for v in variants:
@@ -418,12 +437,14 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
         if doc not in built:
             try:
                 settings = settings_of(v.study)
-                geometry, pts = build_geometry(v.study)
+                geometry, pts, layout = build_geometry(v.study)
             except InputError as exc:
                 raise _wrap_geometry_error(loaded, v, exc) from exc
-            built[doc] = (geometry, pts, coefficient_key(geometry, pts, settings), settings)
-        geometry, pts, key, settings = built[doc]
+            built[doc] = (geometry, pts, coefficient_key(geometry, pts, settings), settings,
+                          layout)
+        geometry, pts, key, settings, layout = built[doc]
         sensors.append(pts)
+        layouts.append(layout)
         keys.append(key)
         series_of.append(canonical_json(_series_params(v.study)))
     # store order: every series task (key, climate, series settings) a contiguous
@@ -432,18 +453,19 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
                            for k, v, s in zip(keys, variants, series_of, strict=True)])
     variants = [dataclasses.replace(variants[j], index=i) for i, j in enumerate(order)]
     sensors = [sensors[j] for j in order]
+    layouts = [layouts[j] for j in order]
     keys = [keys[j] for j in order]
     series_of = [series_of[j] for j in order]
 
     jobs: dict[str, CoefficientJob] = {}
-    for geometry, pts, key, settings in built.values():
+    for geometry, pts, key, settings, layout in built.values():
         if key in jobs:
             continue
         members = tuple(i for i, k in enumerate(keys) if k == key)
         jobs[key] = CoefficientJob(
             key=key, geometry=geometry, sensors=pts, settings=settings, variants=members,
             cached=bool(cache is not None and cache.contains(key)),
-            rays=_estimate_rays(geometry, pts, settings),
+            rays=_estimate_rays(geometry, pts, settings), layout=layout,
         )
 
     climates: dict[str, Any] = {}
@@ -482,8 +504,8 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
     if loaded.study.store_series and climates:
         times = occupied_times(loaded, climates)
     return Plan(loaded=loaded, variants=variants, study_hash=study_hash(loaded, variants),
-                sensors=sensors, keys=keys, jobs=jobs, tasks=tasks, n_steps=n_steps,
-                times=times)
+                sensors=sensors, layouts=layouts, keys=keys, jobs=jobs, tasks=tasks,
+                n_steps=n_steps, times=times)
 
 
 def occupied_times(loaded: StudyFile, climates: dict[str, Any]) -> Any:
