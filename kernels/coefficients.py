@@ -130,11 +130,17 @@ from luxsweep.kernels.transfer import (
 )
 
 __all__ = [
+    "SENSOR_PART",
     "CoefficientSet",
+    "ElementSolution",
     "Settings",
+    "assemble",
     "coefficient_key",
     "compute_coefficients",
     "daylight_factor_error",
+    "direct_part",
+    "reflected_part",
+    "solve_elements",
 ]
 
 _RAYS_PER_BATCH = 1 << 20  # rays per ray-casting batch (bounds temporary memory)
@@ -145,6 +151,8 @@ _SENSOR_DECIMALS = 6  # sensor coordinates rounded to 1 µm in the key
 REPLICAS = 4
 """Independent sub-samples (batch means) of every per-sensor Monte Carlo estimate."""
 _SENSOR_BLOCK = 256  # sensors gathered together by the reflected part (at most)
+SENSOR_PART = _SENSOR_BLOCK
+"""Sensor ranges of the split stages start at multiples of this (the gather's seed blocks)."""
 _BASE_BYTES = 350 * 2**20  # interpreter, modules, scene, sun points: outside the budget
 _MIN_ELEMENTS = 64  # fewer interior elements than this cannot resolve a room
 _MAX_RAY_FACTOR = 64  # target_error never multiplies the ray counts by more
@@ -509,8 +517,13 @@ def _sky_blocks(scene: Any, sensors: np.ndarray, owner: np.ndarray, rows: np.nda
 
 
 def _sensor_sky_direct(scene: Any, sensors: np.ndarray, scheme: Any, settings: Settings,
-                       panes: tuple[int, ...]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """``sky_direct`` (n_sets, n_sensors, n_basis) float64 and its sub-sample scatter.
+                       panes: tuple[int, ...], first: int = 0, stop: int | None = None
+                       ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """``sky_direct`` (n_sets, stop − first, n_basis) float64 and its sub-sample scatter.
+
+    For the sensors ``first`` to ``stop`` (default all) of ``sensors``; seeds
+    follow the sensor's index in the whole array, so a range gives exactly the
+    rows the whole array would.
 
     Every sensor's rays of a patch (and of the ground) are drawn as
     :func:`_replicas` independent stratified sub-samples (seeds
@@ -528,7 +541,8 @@ def _sensor_sky_direct(scene: Any, sensors: np.ndarray, scheme: Any, settings: S
         (batch means: sample variance of the sub-sample values / their number;
         NaN with a single sub-sample).
     """
-    n_s, n_sets, n_p = sensors.shape[0], len(panes), scheme.n_patches
+    stop = sensors.shape[0] if stop is None else stop
+    n_s, n_sets, n_p = stop - first, len(panes), scheme.n_patches
     k_sky, k_ground = _replicas(settings.sky_rays_per_patch), _replicas(settings.ground_rays)
     rpp, n_ground = settings.sky_rays_per_patch // k_sky, settings.ground_rays // k_ground
     v0 = overcast_sky_vector(scheme, 0.0)[:n_p]
@@ -539,8 +553,9 @@ def _sensor_sky_direct(scene: Any, sensors: np.ndarray, scheme: Any, settings: S
     sees_sky, sees_ground = tilt | (sensors[:, 5] > 0.0), tilt | (sensors[:, 5] < 0.0)
     reach = _patch_reach(scheme)
     chunk = max(1, _RAYS_PER_BATCH // (n_p * settings.sky_rays_per_patch + settings.ground_rays))
-    for start in range(0, n_s, chunk):
-        idx = np.arange(start, min(start + chunk, n_s))
+    for start in range(first, stop, chunk):
+        idx = np.arange(start, min(start + chunk, stop))
+        at = idx - first  # rows of the output
         wedges = _window_wedges(scene, sensors[idx, :3])
         keep = (sensors[idx, 3:] @ scheme.centres.T >= -reach) & sees_sky[idx, None]
         may = _window_mask(wedges, lambda a: a @ scheme.centres.T, reach)
@@ -562,8 +577,8 @@ def _sensor_sky_direct(scene: Any, sensors: np.ndarray, scheme: Any, settings: S
                                np.concatenate(parts), None if wedges is None else wedges[c - start],
                                panes, (n_sets, idx.size * k_sky, n_p + 1))
             sub = sums.reshape(n_sets, idx.size, k_sky, n_p + 1) / rpp
-            out[:, idx] += sub.mean(axis=2)
-            var_sky[:, idx] = _mean_variance(sub[..., :n_p] @ v0)
+            out[:, at] += sub.mean(axis=2)
+            var_sky[:, at] = _mean_variance(sub[..., :n_p] @ v0)
         ground = idx[sees_ground[idx]]
         if ground.size:
             blocks = np.stack([sample_ground(n_ground, _seed(settings, _STREAM_GROUND, s, r))
@@ -574,8 +589,8 @@ def _sensor_sky_direct(scene: Any, sensors: np.ndarray, scheme: Any, settings: S
                                None if wedges is None else wedges[owner - start], panes,
                                (n_sets, owner.size, n_p + 1))
             sub = sums[..., n_p].reshape(n_sets, ground.size, k_ground) / n_ground
-            out[:, ground, n_p] = sub.mean(axis=2)
-            var_ground[:, ground] = _mean_variance(sub)
+            out[:, ground - first, n_p] = sub.mean(axis=2)
+            var_ground[:, ground - first] = _mean_variance(sub)
     return out, var_sky, var_ground
 
 
@@ -708,35 +723,64 @@ def _interpolate_sun(coarse: np.ndarray, index: np.ndarray, weight: np.ndarray,
                                 for m in range(3))
 
 
-def _reflected(scene: Any, geometry: Any, sensors: np.ndarray, settings: Settings,
-               scheme: Any, sun: tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray],
-               panes: tuple[int, ...], budget: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Reflected coefficients and the sub-sample scatter of their gather.
+@dataclass(frozen=True, eq=False)
+class ElementSolution:
+    """The element stage of the reflected part: what every sensor block gathers from.
+
+    Made once per coefficient set by :func:`solve_elements` and shared by the
+    sensor blocks (:func:`sensor_part`), which may run in other processes (it
+    pickles). ``solved[g]`` holds the element radiosities of every source
+    column for glazing set ``g`` (or, in the adjoint form, the sources, which
+    each block multiplies after solving for its own sensors).
+
+    Attributes
+    ----------
+    elements : kernels.transfer.Elements
+    inner, outer : ndarray of int
+        Interior and exterior element indices.
+    lu : tuple
+        LU factors of the interior system (``scipy.linalg.lu_factor``).
+    rho : ndarray (n_inner,)
+        Interior element reflectances.
+    solved, solved_overcast : list of ndarray
+        Per glazing set: (n_inner, n_sources) and (n_inner, 2).
+    b_ext, ext_overcast : ndarray or None
+        Exterior radiosities (n_outer, n_sources) and their overcast
+        projection (n_outer, 2); None without exterior elements.
+    adjoint : bool
+        Whether ``solved`` holds the sources (fewer sensors than sources).
+    """
+
+    elements: Any
+    inner: np.ndarray
+    outer: np.ndarray
+    lu: tuple
+    rho: np.ndarray
+    solved: list
+    solved_overcast: list
+    b_ext: np.ndarray | None
+    ext_overcast: np.ndarray | None
+    adjoint: bool
+
+
+def _solve_elements(scene: Any, geometry: Any, n_sensors: int, settings: Settings,
+                    scheme: Any, sun: tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray],
+                    panes: tuple[int, ...], budget: int) -> ElementSolution | None:
+    """Element stage of the reflected part (None when nothing reflects into a window's light).
 
     Radiosity on an element budget (module notes): the elements' transfer
     ``F`` and first-hit sources ``S`` are sampled, the system
     ``(I - diag(ρ) F) B = diag(ρ) S`` is factored once (dense LU of at most
     ``max_elements`` unknowns) and solved for every source column of every
-    glazing set; the sensors then gather ``E = G B`` block by block
-    (:data:`_SENSOR_BLOCK` sensors, each with :data:`REPLICAS` sub-samples of
-    its gather rays), so the sensor part costs a fixed amount per sensor.
-
-    Returns
-    -------
-    sky_reflected : ndarray (n_sets, n_sensors, n_basis) float32
-    sun_reflected : ndarray (n_sets, n_sensors, n_fine_sun) float32
-    scatter : ndarray (n_sets, n_sensors, 3) float64
-        ``(Var a, Cov(a, b), Var b)`` of the gather's estimates of the
-        overcast sums (:attr:`CoefficientSet.overcast_error`).
+    glazing set (forward form), or kept for the sensors to solve for
+    themselves when they are fewer than the sources (adjoint form); exterior
+    elements are solved first and light the interior through the windows.
     """
-    fine, coarse_sun, index, weight = sun
-    n_s, n_sets, n_basis = sensors.shape[0], len(panes), scheme.n_patches + 1
-    sky_out = np.zeros((n_sets, n_s, n_basis), dtype=np.float32)
-    sun_out = np.zeros((n_sets, n_s, fine.shape[0]), dtype=np.float32)
-    scatter = np.zeros((n_sets, n_s, 3))
+    _, coarse_sun, _, _ = sun
+    n_sets, n_basis = len(panes), scheme.n_patches + 1
     active = ~geometry.is_glazing & (geometry.reflectance > 0.0)
     if n_sets == 0 or not np.any(active):
-        return sky_out, sun_out, scatter
+        return None
     n_src = n_basis + coarse_sun.shape[0]
     el = mesh_elements(geometry.triangles, geometry.reflectance, geometry.exterior,
                        _element_sizes(geometry, active, settings.element_size, budget),
@@ -762,7 +806,7 @@ def _reflected(scene: Any, geometry: Any, sensors: np.ndarray, settings: Setting
                         axis=1)  # (n_basis, 2): black-ground sky and ground per unit ρ_g
     # forward (B = M⁻¹ ρ S, then G B) costs N² n_src once; adjoint (G M⁻¹ ρ, then times S)
     # N² per sensor: whichever is smaller (both a fixed cost per sensor on the budget)
-    adjoint = n_s < n_src
+    adjoint = n_sensors < n_src
     solved, solved_overcast = [], []
     for g in range(n_sets):
         source = np.concatenate([tr.sky_interior[g], s_sun[g]], axis=1)
@@ -771,31 +815,66 @@ def _reflected(scene: Any, geometry: Any, sensors: np.ndarray, settings: Setting
             source += tr.through[g][inner][:, outer] @ b_ext
         solved_overcast.append(solve_factored(lu, rho[inner], source[:, :n_basis] @ overcast))
         solved.append(source if adjoint else solve_factored(lu, rho[inner], source))
-    del tr, s_sun, source
     ext_overcast = None if b_ext is None else b_ext[:, :n_basis] @ overcast
+    return ElementSolution(elements=el, inner=inner, outer=outer, lu=lu, rho=rho[inner],
+                           solved=solved, solved_overcast=solved_overcast, b_ext=b_ext,
+                           ext_overcast=ext_overcast, adjoint=adjoint)
+
+
+def _gather(scene: Any, solution: ElementSolution | None, sensors: np.ndarray,
+            settings: Settings, scheme: Any,
+            sun: tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray],
+            panes: tuple[int, ...], first: int = 0, stop: int | None = None
+            ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Reflected coefficients of sensors ``first`` to ``stop`` and the scatter of their gather.
+
+    The sensors gather ``E = G B`` block by block (:data:`_SENSOR_BLOCK`
+    sensors, each with :data:`REPLICAS` sub-samples of its gather rays, the
+    block's seed from its place in the whole array: ``first`` must be a
+    multiple of :data:`_SENSOR_BLOCK`), so the sensor part costs a fixed
+    amount per sensor.
+
+    Returns
+    -------
+    sky_reflected : ndarray (n_sets, stop − first, n_basis) float32
+    sun_reflected : ndarray (n_sets, stop − first, n_fine_sun) float32
+    scatter : ndarray (n_sets, stop − first, 3) float64
+        ``(Var a, Cov(a, b), Var b)`` of the gather's estimates of the
+        overcast sums (:attr:`CoefficientSet.overcast_error`).
+    """
+    fine, _, index, weight = sun
+    stop = sensors.shape[0] if stop is None else stop
+    n_s, n_sets, n_basis = stop - first, len(panes), scheme.n_patches + 1
+    sky_out = np.zeros((n_sets, n_s, n_basis), dtype=np.float32)
+    sun_out = np.zeros((n_sets, n_s, fine.shape[0]), dtype=np.float32)
+    scatter = np.zeros((n_sets, n_s, 3))
+    if solution is None:
+        return sky_out, sun_out, scatter
+    el, inner, outer, b_ext = solution.elements, solution.inner, solution.outer, solution.b_ext
     k = _replicas(settings.sensor_rays)
-    for block, first in enumerate(range(0, n_s, _SENSOR_BLOCK)):
-        part = slice(first, min(first + _SENSOR_BLOCK, n_s))
+    for start in range(first, stop, _SENSOR_BLOCK):
+        part = slice(start, min(start + _SENSOR_BLOCK, stop))
+        rows = slice(part.start - first, part.stop - first)
         b = part.stop - part.start
         g_same, g_through = gather_matrix(scene, el, sensors[part, :3], sensors[part, 3:],
                                           settings.sensor_rays,
-                                          _rng(settings, _STREAM_SENSOR, block), panes,
-                                          replicas=k)
+                                          _rng(settings, _STREAM_SENSOR,
+                                               start // _SENSOR_BLOCK), panes, replicas=k)
         sub = _dense(g_same).reshape(b, k, el.n)[:, :, inner]
         gather = sub.mean(axis=1)
-        if adjoint:  # G M⁻¹ ρ = (M⁻ᵀ Gᵀ)ᵀ ρ
-            gather = scipy.linalg.lu_solve(lu, np.ascontiguousarray(gather.T), trans=1,
-                                           check_finite=False).T * rho[inner]
+        if solution.adjoint:  # G M⁻¹ ρ = (M⁻ᵀ Gᵀ)ᵀ ρ
+            gather = scipy.linalg.lu_solve(solution.lu, np.ascontiguousarray(gather.T),
+                                           trans=1, check_finite=False).T * solution.rho
         for g in range(n_sets):
-            values = gather @ solved[g]
-            proj = sub @ solved_overcast[g]  # (b, k, 2)
+            values = gather @ solution.solved[g]
+            proj = sub @ solution.solved_overcast[g]  # (b, k, 2)
             if b_ext is not None:
                 seen = _dense(g_through[g]).reshape(b, k, el.n)[:, :, outer]
                 values += seen.mean(axis=1) @ b_ext
-                proj += seen @ ext_overcast
-            sky_out[g, part] = values[:, :n_basis]
-            _interpolate_sun(values[:, n_basis:], index, weight, sun_out[g, part])
-            scatter[g, part] = _covariance(proj)
+                proj += seen @ solution.ext_overcast
+            sky_out[g, rows] = values[:, :n_basis]
+            _interpolate_sun(values[:, n_basis:], index, weight, sun_out[g, rows])
+            scatter[g, rows] = _covariance(proj)
     return sky_out, sun_out, scatter
 
 
@@ -877,12 +956,11 @@ def compute_coefficients(geometry: Any, sensors: np.ndarray,
     """
     settings = settings or Settings()
     sensors = _check_sensors(sensors)
-    key = coefficient_key(geometry, sensors, settings)
-    coeffs = _compute(geometry, sensors, settings, key, settings)
+    coeffs = _compute(geometry, sensors, settings, settings)
     if settings.target_error > 0.0:
         factor = _ray_factor(coeffs, settings.target_error)
         if factor > 1.0:
-            coeffs = _compute(geometry, sensors, _scaled_rays(settings, factor), key, settings)
+            coeffs = _compute(geometry, sensors, _scaled_rays(settings, factor), settings)
     return coeffs
 
 
@@ -918,44 +996,203 @@ def _scaled_rays(settings: Settings, factor: float) -> Settings:
                    sensor_rays=scaled(settings.sensor_rays))
 
 
-def _compute(geometry: Any, sensors: np.ndarray, settings: Settings, key: str,
-             requested: Settings) -> CoefficientSet:
-    """The four families with these settings (``requested`` is recorded in the set)."""
-    from luxsweep.kernels.raytrace import Scene
+@dataclass(frozen=True)
+class _Context:
+    scheme: Any
+    sun: tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]
+    panes: tuple[int, ...]
+    budget: int
 
+
+def _context(geometry: Any, n_sensors: int, settings: Settings) -> _Context:
+    """Sky scheme, sun points, panes and element budget (refuses before any ray is traced)."""
     scheme = patch_scheme(settings.subdivision)
     sun = _sun_points(float(settings.sun_spacing),
                       float(max(settings.reflected_sun_spacing, settings.sun_spacing)))
-    scene = Scene(geometry)
     panes = tuple(int(p) for p in geometry.set_panes)
     n_basis = scheme.n_patches + 1
-    budget = _element_budget(settings, n_basis + sun[1].shape[0], len(panes), sensors.shape[0],
-                             sun[0].shape[0], n_basis)  # refuses before any ray is traced
+    budget = _element_budget(settings, n_basis + sun[1].shape[0], len(panes), n_sensors,
+                             sun[0].shape[0], n_basis)
+    return _Context(scheme, sun, panes, budget)
 
-    sky_direct, var_sky, var_ground = _sensor_sky_direct(scene, sensors, scheme, settings, panes)
-    inside = np.zeros(sensors.shape[0], dtype=bool)
-    sun_direct = _sun_direct(scene, sensors[:, :3], sensors[:, 3:], inside, sun[0], panes,
-                             np.float32)
-    sky_reflected, sun_reflected, scatter = _reflected(scene, geometry, sensors, settings,
-                                                       scheme, sun, panes, budget)
+
+def solve_elements(geometry: Any, n_sensors: int,
+                   settings: Settings | None = None) -> ElementSolution | None:
+    """The element stage of a coefficient set's reflected part (first of the split stages).
+
+    A coefficient set splits into this stage, one :func:`direct_part` and one
+    :func:`reflected_part` per range of sensors, and :func:`assemble`; the
+    direct parts need nothing from this stage, so they can run beside it. The
+    stages make exactly the arrays :func:`compute_coefficients` makes (it runs
+    them in one process).
+
+    Parameters
+    ----------
+    geometry : kernels.geometry.Geometry
+    n_sensors : int
+        Sensors of the whole set (it chooses the forward or adjoint form).
+    settings : Settings, optional
+
+    Returns
+    -------
+    ElementSolution or None
+        None when no surface reflects (no glazing set or all reflectances 0).
+    """
+    from luxsweep.kernels.raytrace import Scene
+
+    settings = settings or Settings()
+    ctx = _context(geometry, n_sensors, settings)
+    return _solve_elements(Scene(geometry), geometry, n_sensors, settings, ctx.scheme, ctx.sun,
+                           ctx.panes, ctx.budget)
+
+
+def _check_range(sensors: np.ndarray, first: int, stop: int) -> None:
+    if not (0 <= first < stop <= sensors.shape[0]) or first % SENSOR_PART:
+        raise ValueError(f"sensor range {first}:{stop} must lie in 0:{sensors.shape[0]} and "
+                         f"start at a multiple of {SENSOR_PART}")
+
+
+def direct_part(geometry: Any, sensors: np.ndarray, first: int, stop: int,
+                settings: Settings | None = None) -> dict[str, np.ndarray]:
+    """Direct families of sensors ``first`` to ``stop`` (first of :data:`SENSOR_PART` multiples).
+
+    Parameters
+    ----------
+    geometry : kernels.geometry.Geometry
+    sensors : ndarray (n, 6)
+        The whole set's sensors (seeds follow a sensor's place among them).
+    first, stop : int
+    settings : Settings, optional
+
+    Returns
+    -------
+    dict
+        ``sky_direct`` (n_sets, b, n_basis) float64, ``var_sky`` and
+        ``var_ground`` (n_sets, b), ``sun_direct`` (n_sets, b, n_sun) float32.
+    """
+    from luxsweep.kernels.raytrace import Scene
+
+    settings = settings or Settings()
+    sensors = _check_sensors(sensors)
+    _check_range(sensors, first, stop)
+    scheme = patch_scheme(settings.subdivision)
+    fine = _sun_points(float(settings.sun_spacing),
+                       float(max(settings.reflected_sun_spacing, settings.sun_spacing)))[0]
+    scene = Scene(geometry)
+    panes = tuple(int(p) for p in geometry.set_panes)
+    sky, var_sky, var_ground = _sensor_sky_direct(scene, sensors, scheme, settings, panes,
+                                                  first, stop)
+    part = sensors[first:stop]
+    inside = np.zeros(part.shape[0], dtype=bool)
+    sun = _sun_direct(scene, part[:, :3], part[:, 3:], inside, fine, panes, np.float32)
+    return {"sky_direct": sky, "var_sky": var_sky, "var_ground": var_ground, "sun_direct": sun}
+
+
+def reflected_part(geometry: Any, sensors: np.ndarray, solution: ElementSolution | None,
+                   first: int, stop: int, settings: Settings | None = None
+                   ) -> dict[str, np.ndarray]:
+    """Reflected families of sensors ``first`` to ``stop`` from the element stage.
+
+    Parameters
+    ----------
+    geometry : kernels.geometry.Geometry
+    sensors : ndarray (n, 6)
+        The whole set's sensors.
+    solution : ElementSolution or None
+        :func:`solve_elements` of the same geometry, sensor count and settings.
+    first, stop : int
+        ``first`` a multiple of :data:`SENSOR_PART`.
+    settings : Settings, optional
+
+    Returns
+    -------
+    dict
+        ``sky_reflected`` (n_sets, b, n_basis) and ``sun_reflected``
+        (n_sets, b, n_sun) float32, ``scatter`` (n_sets, b, 3) float64.
+    """
+    from luxsweep.kernels.raytrace import Scene
+
+    settings = settings or Settings()
+    sensors = _check_sensors(sensors)
+    _check_range(sensors, first, stop)
+    scheme = patch_scheme(settings.subdivision)
+    sun = _sun_points(float(settings.sun_spacing),
+                      float(max(settings.reflected_sun_spacing, settings.sun_spacing)))
+    panes = tuple(int(p) for p in geometry.set_panes)
+    sky, sun_r, scatter = _gather(Scene(geometry), solution, sensors, settings, scheme, sun,
+                                  panes, first, stop)
+    return {"sky_reflected": sky, "sun_reflected": sun_r, "scatter": scatter}
+
+
+def assemble(geometry: Any, sensors: np.ndarray, direct: list[dict[str, np.ndarray]],
+             reflected: list[dict[str, np.ndarray]], settings: Settings | None = None,
+             requested: Settings | None = None) -> CoefficientSet:
+    """The coefficient set from its parts, in sensor order (last of the split stages).
+
+    Parameters
+    ----------
+    geometry : kernels.geometry.Geometry
+    sensors : ndarray (n, 6)
+    direct, reflected : list of dict
+        :func:`direct_part` and :func:`reflected_part` results covering the
+        sensors in order, without gaps.
+    settings : Settings, optional
+        The settings the parts were computed with.
+    requested : Settings, optional
+        The settings recorded in the set (and its key); default ``settings``.
+
+    Returns
+    -------
+    CoefficientSet
+    """
+    settings = settings or Settings()
+    requested = requested or settings
+    sensors = _check_sensors(sensors)
+
+    def joined(parts: list[dict[str, np.ndarray]], name: str) -> np.ndarray:
+        return np.concatenate([p[name] for p in parts], axis=1)
+
+    sky_direct = joined(direct, "sky_direct")
+    if sky_direct.shape[1] != sensors.shape[0]:
+        raise ValueError(f"the parts hold {sky_direct.shape[1]} sensors, the set "
+                         f"{sensors.shape[0]}")
+    scheme = patch_scheme(settings.subdivision)
+    scatter = joined(reflected, "scatter")
     # direct sky, direct ground and gather rays are independent: variances add
     ground_unit = overcast_sky_vector(scheme, 1.0)[-1]
-    scatter[..., 0] += var_sky
-    scatter[..., 2] += var_ground * ground_unit**2
+    scatter[..., 0] += joined(direct, "var_sky")
+    scatter[..., 2] += joined(direct, "var_ground") * ground_unit**2
+    fine = _sun_points(float(settings.sun_spacing),
+                       float(max(settings.reflected_sun_spacing, settings.sun_spacing)))[0]
     return CoefficientSet(
-        key=key,
+        key=coefficient_key(geometry, sensors, requested),
         glazing_sets=tuple(geometry.glazing_sets),
         sensors=sensors,
         subdivision=scheme.subdivision,
-        sun_directions=sun[0].copy(),
+        sun_directions=fine.copy(),
         sky_direct=sky_direct.astype(np.float32),
-        sky_reflected=sky_reflected,
-        sun_direct=sun_direct,
-        sun_reflected=sun_reflected,
+        sky_reflected=joined(reflected, "sky_reflected"),
+        sun_direct=joined(direct, "sun_direct"),
+        sun_reflected=joined(reflected, "sun_reflected"),
         settings=requested,
         kernel_version=kernels.KERNEL_VERSION,
         overcast_error=scatter.astype(np.float32),
     )
+
+
+def _compute(geometry: Any, sensors: np.ndarray, settings: Settings,
+             requested: Settings) -> CoefficientSet:
+    """The four families with these settings (``requested`` is recorded in the set).
+
+    The split stages run one after another in this process, the sensors as one part.
+    """
+    n = sensors.shape[0]
+    _context(geometry, n, settings)  # refuses a too small memory limit before any ray
+    direct = direct_part(geometry, sensors, 0, n, settings)
+    solution = solve_elements(geometry, n, settings)
+    reflected = reflected_part(geometry, sensors, solution, 0, n, settings)
+    del solution
+    return assemble(geometry, sensors, [direct], [reflected], settings, requested)
 
 
 def daylight_factor_error(coeffs: CoefficientSet, ground_reflectance: float,
