@@ -173,6 +173,8 @@ class Scene:
             np.all(self._glazing_normals == self._glazing_normals[:1]))
         self._one_glazing_normal = self._glazing_normals[:1] if same else None
         self._glazing_set = geometry.glazing_set_index[self.glazing_index]
+        self._twin = np.asarray(geometry.twin, dtype=np.int64)
+        self._twins = bool(np.any(self._twin >= 0))
 
     def __reduce__(self) -> tuple:
         return (Scene, (self.geometry, self.epsilon))
@@ -433,4 +435,25 @@ class Scene:
                 ng[glass] = again["Ng"]
         # Embree's geometric normal Ng points like the geometry's (v1 − v0) × (v2 − v0)
         front = (np.einsum("ij,ij->i", ng, d) < 0.0) & (prim >= 0)
-        return Hits(self._opaque_table[prim], u, v, front, glazing, cos, t, self.epsilon)
+        triangle = self._opaque_table[prim]
+        if self._twins:
+            self._face_twins(triangle, u, v, front)
+        return Hits(triangle, u, v, front, glazing, cos, t, self.epsilon)
+
+    def _face_twins(self, triangle: np.ndarray, u: np.ndarray, v: np.ndarray,
+                    front: np.ndarray) -> None:
+        """Turn back-face hits on a zero-gap partition into front hits on the twin (in place).
+
+        The two coincident faces of a partition lie at the same distance, so
+        Embree may report either; the one facing the ray is the twin of a
+        back-face hit. Twins have the same corners in reverse order
+        ``(v0, v2, v1)``, so the barycentric ``(u, v)`` of the hit point swap.
+        """
+        back = np.flatnonzero(~front & (triangle >= 0))
+        if back.size == 0:
+            return
+        twin = self._twin[triangle[back]]
+        back, twin = back[twin >= 0], twin[twin >= 0]
+        triangle[back] = twin
+        u[back], v[back] = v[back], u[back].copy()
+        front[back] = True
