@@ -121,6 +121,7 @@ from luxsweep.kernels.sun import DEFAULT_SPACING, SunPoints
 from luxsweep.kernels.transfer import (
     factor_radiosity,
     gather_matrix,
+    inset_triangles,
     mesh_elements,
     points_in_triangles,
     relative_transmit,
@@ -275,6 +276,11 @@ class CoefficientSet:
         (:func:`kernels.timeseries.daylight_factor_error`). The element
         transfer's own noise (shared by neighbouring sensors) is not in it.
         NaN where a ray count is not a multiple of 2 (no sub-samples).
+    crossed_twice : int
+        Rays (of every stage) treated as blocked because they cross two or
+        more outside glazings (:meth:`kernels.raytrace.Scene.exit_glazing`):
+        0 for one room; in a building, light that leaves through one window
+        and enters another, which no single set's transmittance can scale.
     """
 
     key: str
@@ -289,6 +295,7 @@ class CoefficientSet:
     settings: Settings
     kernel_version: str
     overcast_error: np.ndarray
+    crossed_twice: int = 0
 
     _ARRAYS = ("sensors", "sun_directions", "sky_direct", "sky_reflected", "sun_direct",
                "sun_reflected", "overcast_error")
@@ -306,6 +313,7 @@ class CoefficientSet:
             "settings": self.settings.canonical(),
             "kernel_version": self.kernel_version,
             "shapes": {name: list(a.shape) for name, a in self.to_arrays().items()},
+            **({"crossed_twice": int(self.crossed_twice)} if self.crossed_twice else {}),
         }
 
     @classmethod
@@ -339,6 +347,7 @@ class CoefficientSet:
             settings=Settings(**metadata["settings"]),
             kernel_version=str(metadata["kernel_version"]),
             overcast_error=np.asarray(arrays["overcast_error"], dtype=np.float32),
+            crossed_twice=int(metadata.get("crossed_twice", 0)),
         )
 
     @property
@@ -499,10 +508,11 @@ def _sky_blocks(scene: Any, sensors: np.ndarray, owner: np.ndarray, rows: np.nda
     may = _window_mask(wedges, lambda a: np.matmul(blocks, a[:, :, None])[..., 0])
     use = cos > 0.0
     b, r = np.nonzero(use if may is None else use & may)
-    gset, cos_w = scene.exit_glazing(sensors[owner[b], :3], blocks[b, r], unit=True)
+    gset, cos_w, f = scene.exit_glazing(sensors[owner[b], :3], blocks[b, r], unit=True,
+                                        factor=True)
     ok = np.flatnonzero(gset >= 0)
     b, r, g = b[ok], r[ok], gset[ok]
-    tau = relative_transmit(cos_w[ok], g, panes)
+    tau = relative_transmit(cos_w[ok], g, panes) * f[ok]  # f = 1 without internal glazing
     flat = (g.astype(np.int64) * shape[1] + rows[b]) * shape[2] + basis[b]
     return np.bincount(flat, weights=tau * cos[b, r], minlength=int(np.prod(shape))
                        ).reshape(shape)
@@ -619,8 +629,8 @@ def _sun_direct(scene: Any, points: np.ndarray, normals: np.ndarray, exterior: n
                 free = scene.sky_view(o, d, unit=True)[0] == NO_GLAZING
                 layer, value = np.full(c.size, n_sets), free.astype(np.float64)
             else:
-                gset, cos_w = scene.exit_glazing(o, d, unit=True)
-                layer, value = gset.astype(np.int64), relative_transmit(cos_w, gset, panes)
+                gset, cos_w, f = scene.exit_glazing(o, d, unit=True, factor=True)
+                layer, value = gset.astype(np.int64), relative_transmit(cos_w, gset, panes) * f
             ok = np.flatnonzero((layer >= 0) & (value > 0.0))
             c, k = c[ok], k[ok]
             out[layer[ok], idx[c], k] = value[ok] * cos[c, k]
@@ -744,7 +754,8 @@ def _reflected(scene: Any, geometry: Any, sensors: np.ndarray, settings: Setting
     tr = transfer_matrix(scene, el, settings.element_rays, _rng(settings, _STREAM_ELEMENT),
                          panes, scheme, batch=_RAYS_PER_BATCH)
     r1, r2 = _rng(settings, _STREAM_SUNPOINT).random((2, el.n, 1))
-    points = scene.lift(points_in_triangles(el.vertices, r1, r2)[:, 0], el.normal)
+    corners = el.vertices if scene.simple else inset_triangles(el.vertices, 3.0 * scene.epsilon)
+    points = scene.lift(points_in_triangles(corners, r1, r2)[:, 0], el.normal)
     s_sun = _sun_direct(scene, points, el.normal, el.exterior, coarse_sun, panes)
 
     inner, outer = np.flatnonzero(~el.exterior), np.flatnonzero(el.exterior)
@@ -955,6 +966,7 @@ def _compute(geometry: Any, sensors: np.ndarray, settings: Settings, key: str,
         settings=requested,
         kernel_version=kernels.KERNEL_VERSION,
         overcast_error=scatter.astype(np.float32),
+        crossed_twice=scene.crossed_twice,
     )
 
 

@@ -238,22 +238,37 @@ class Geometry:
 
     @cached_property
     def glazing_set_index(self) -> np.ndarray:
-        """(n,) int32 index into ``glazing_sets`` (−1 for opaque triangles)."""
+        """(n,) int32 index into ``glazing_sets`` (−1 for opaque triangles and internal glazing)."""
         idx = np.array(
             [
-                self.glazing_sets.index(m.glazing_set) if m.kind == "glazing" else -1
+                self.glazing_sets.index(m.glazing_set)
+                if m.kind == "glazing" and m.transmittance is None else -1
                 for m in self.materials
             ],
             dtype=np.int32,
         )
         return idx[self.material]
 
+    @cached_property
+    def internal_transmittance(self) -> np.ndarray:
+        """(n,) float64 baked normal transmittance [-] of internal glazing (NaN elsewhere)."""
+        t = np.array([np.nan if m.transmittance is None else float(m.transmittance)
+                      for m in self.materials], dtype=np.float64)
+        return t[self.material]
+
+    @cached_property
+    def panes(self) -> np.ndarray:
+        """(n,) int32 number of panes of glazing triangles (0 for opaque ones)."""
+        p = np.array([int(m.panes or 0) if m.kind == "glazing" else 0 for m in self.materials],
+                     dtype=np.int32)
+        return p[self.material]
+
     @property
     def set_panes(self) -> tuple[int, ...]:
-        """Number of panes of every glazing set, aligned with ``glazing_sets``."""
+        """Number of panes of every outside glazing set, aligned with ``glazing_sets``."""
         panes: dict[str, int] = {}
         for m in self.materials:
-            if m.kind == "glazing":
+            if m.kind == "glazing" and m.transmittance is None:
                 panes[m.glazing_set] = int(m.panes or 0)
         return tuple(panes[s] for s in self.glazing_sets)
 
@@ -1216,55 +1231,121 @@ def parametric_building(
     sp = _check_spaces(spaces, glazing_panes, exterior_reflectance)
     parts = _partitions(sp)
     covered = _cover(sp, parts)
-    if covered:
-        (i, k), p = next(iter(covered.items()))
-        nb = p.high if p.low.index == i else p.low
-        raise GeometryError(
-            f"space '{sp[i].name}': window {k} opens into space '{nb.name}' (an internal "
-            "opening); internal openings are not supported yet",
-            field=f"spaces.{i}.windows.{k}")
+    glass = _glass_materials(sp, covered, glazing_panes, internal_transmittance or {})
     holes, reveal = [], []
     for s in sp:
         for w in s.windows:
             lo, hi, axis, sign = _window_box(s, w)
-            glass = lo.copy()
-            glass[axis] += sign * GLASS_POSITION * s.t
-            end = lo.copy()
-            end[axis] += sign * s.t
-            reveal.append((s, w))
-            inner = np.sort([lo, np.where(np.arange(3) == axis, glass, hi)], axis=0)
-            outer = np.sort([np.where(np.arange(3) == axis, glass, lo),
-                             np.where(np.arange(3) == axis, end, hi)], axis=0)
-            holes.append((inner[0], inner[1], len(reveal) - 1))
-            holes.append((outer[0], outer[1], _AIR))
-    coords, kind = _solid(sp, [h for h in holes if np.all(h[1] - h[0] >= 0)])
-    _check_openings(sp, coords, kind)
+            p = covered.get((s.index, w.index))
+            depth = s.t if p is None else p.gap
+            glass_at = lo[axis] + sign * GLASS_POSITION * depth
+            end_at = lo[axis] + sign * depth
+            reveal.append((s, s.materials["walls"], f"{s.name}/reveal_{w.index}"))
+            inner = _slab(lo, hi, axis, lo[axis], glass_at)
+            holes.append((*inner, len(reveal) - 1))
+            outer = _slab(lo, hi, axis, glass_at, end_at)
+            if p is None:
+                holes.append((*outer, _AIR))
+            else:
+                nb = p.high if s is p.low else p.low
+                reveal.append((nb, nb.materials["walls"], f"{nb.name}/reveal_{s.name}.{w.index}"))
+                holes.append((*outer, len(reveal) - 1))
+    coords, kind = _solid(sp, holes)
+    _check_openings(sp, covered, coords, kind)
 
     b = _Builder()
     for s in sp:
-        _add_space(b, s, parts)
+        _add_space(b, s, sp, parts, covered, glass)
     exterior = Material("exterior", "opaque", exterior_reflectance, exterior=True)
     for axis, sign, plane, label, rect in _solid_faces(coords, kind):
         tris = _axis_rect(axis, plane, rect, sign)
         if label == _AIR:
             b.add(tris, exterior, "facade")
         else:
-            s, w = reveal[label]
-            b.add(tris, s.materials["walls"], f"{s.name}/reveal_{w.index}", s.index)
+            s, mat, group = reveal[label]
+            b.add(tris, mat, group, s.index)
     slabs = []
     for s in sp:
         if s.overhang is not None:
-            slabs += _building_overhang(b, s, sp, exterior)
+            slabs += _building_overhang(b, s, sp, covered, exterior)
     _building_obstructions(b, obstructions, sp, slabs, exterior)
     return b.build(room=None, source=None, space_names=tuple(s.name for s in sp),
                    space_boxes=np.array([[s.lo, s.hi] for s in sp]))
 
 
-def _check_openings(spaces: list[_Space], coords: list[np.ndarray], kind: np.ndarray) -> None:
+def _slab(lo: np.ndarray, hi: np.ndarray, axis: int, a: float, b: float
+          ) -> tuple[np.ndarray, np.ndarray]:
+    """The box of the rectangle ``[lo, hi]`` (flat along ``axis``) swept from ``a`` to ``b``."""
+    lo, hi = lo.copy(), hi.copy()
+    lo[axis], hi[axis] = min(a, b), max(a, b)
+    return lo, hi
+
+
+def _glass_materials(spaces: list[_Space], covered: dict[tuple[int, int], _Partition],
+                     glazing_panes: Mapping[str, int], transmittance: Mapping[str, float]
+                     ) -> dict[tuple[int, int], Material]:
+    """The glazing material of every window: outside, or internal with its baked transmittance.
+
+    Raises
+    ------
+    GeometryError
+        A set used on both outside and internal windows (naming the set and
+        the window), an internal set without a transmittance in [0, 1], or
+        two internal windows filling the same opening.
+    """
+    use: dict[str, tuple[bool, int, int]] = {}
+    out = {}
+    for s in spaces:
+        for w in s.windows:
+            inside = (s.index, w.index) in covered
+            field = f"spaces.{s.index}.windows.{w.index}.glazing"
+            first = use.setdefault(w.glazing, (inside, s.index, w.index))
+            if first[0] != inside:
+                a, b = (first, (inside, s.index, w.index))
+                kinds = {True: "an internal opening", False: "an outside window"}
+                raise GeometryError(
+                    f"glazing set '{w.glazing}' is used on {kinds[a[0]]} (space "
+                    f"'{spaces[a[1]].name}', window {a[2]}) and on {kinds[b[0]]} (space "
+                    f"'{s.name}', window {w.index}); an internal opening's transmittance is "
+                    "fixed in the geometry, an outside one varies: give them separate sets",
+                    field=field)
+            if not inside:
+                out[(s.index, w.index)] = s.materials["glazing"][w.glazing]
+                continue
+            tau = transmittance.get(w.glazing)
+            if tau is None or not 0.0 <= float(tau) <= 1.0:
+                raise GeometryError(
+                    f"space '{s.name}': window {w.index} is an internal opening and needs the "
+                    f"normal transmittance of its glazing set '{w.glazing}' in [0, 1], got "
+                    f"{tau!r}", field=f"internal_transmittance.{w.glazing}")
+            out[(s.index, w.index)] = Material(
+                f"internal {w.glazing}", "glazing", 0.0, glazing_set=w.glazing,
+                panes=int(glazing_panes[w.glazing]), transmittance=float(tau))
+    keys = sorted(covered)
+    for n, a in enumerate(keys):
+        for b in keys[:n]:
+            if covered[a] is not covered[b]:
+                continue
+            la, ha, _, _ = _window_box(spaces[a[0]], spaces[a[0]].windows[a[1]])
+            lb, hb, _, _ = _window_box(spaces[b[0]], spaces[b[0]].windows[b[1]])
+            axis = covered[a].axis
+            other = [k for k in range(3) if k != axis]
+            if np.all(np.minimum(ha, hb)[other] - np.maximum(la, lb)[other] > _TOL):
+                raise GeometryError(
+                    f"window {a[1]} of space '{spaces[a[0]].name}' and window {b[1]} of space "
+                    f"'{spaces[b[0]].name}' fill the same opening between the two spaces; "
+                    "keep one of them", field=f"spaces.{a[0]}.windows.{a[1]}")
+    return out
+
+
+def _check_openings(spaces: list[_Space], covered: dict[tuple[int, int], _Partition],
+                    coords: list[np.ndarray], kind: np.ndarray) -> None:
     """Refuse an outside window whose far end opens onto solid wall (another space's shell)."""
     mid = [0.5 * (c[1:] + c[:-1]) for c in coords]
     for s in spaces:
         for w in s.windows:
+            if (s.index, w.index) in covered:
+                continue
             lo, hi, axis, sign = _window_box(s, w)
             probe = lo[axis] + sign * (s.t + 1e-6)
             sel = []
@@ -1283,29 +1364,67 @@ def _check_openings(spaces: list[_Space], coords: list[np.ndarray], kind: np.nda
                     field=f"spaces.{s.index}.windows.{w.index}")
 
 
-def _add_space(b: _Builder, s: _Space, parts: list[_Partition]) -> None:
-    """A space's interior faces (with window holes) and its glazing.
+_Rect = tuple[float, float, float, float]
 
-    Where a zero-gap partition covers a face, that part is cut out and built
-    once for both spaces as twins (this space's triangles and the same corners
-    in reverse order for the other, with each space's own material), when
-    this space is the partition's low side.
+
+def _openings(space: _Space, wall: str, spaces: list[_Space],
+              covered: dict[tuple[int, int], _Partition]) -> list[_Rect]:
+    """Holes ``(u0, u1, v0, v1)`` in a face of ``space``: its windows and the internal
+    openings of other spaces that open into it there."""
+    plane, _, _ = space.plane(wall)
+    out = [(w.u0, w.u1, w.v0, w.v1) for w in space.windows if w.wall == wall]
+    for (i, k), p in covered.items():
+        if i != space.index and space in (p.low, p.high) and p.wall(space) == wall:
+            lo, hi, _, _ = _window_box(spaces[i], spaces[i].windows[k])
+            out.append(_plane_rect(plane, lo, hi))
+    return out
+
+
+def _plane_rect(plane: _WallPlane, lo: np.ndarray, hi: np.ndarray
+                ) -> tuple[float, float, float, float]:
+    """The box ``[lo, hi]`` projected on a wall plane: ``(u0, u1, v0, v1)``."""
+    u = sorted(float((c - plane.origin) @ plane.eu) for c in (lo, hi))
+    v = sorted(float((c - plane.origin) @ plane.ev) for c in (lo, hi))
+    return u[0], u[1], v[0], v[1]
+
+
+def _clip(holes: list[tuple[float, float, float, float]], r: tuple[float, float, float, float]
+          ) -> list[tuple[float, float, float, float]]:
+    """The parts of ``holes`` inside the rectangle ``r`` (empty ones dropped)."""
+    out = []
+    for h in holes:
+        c = (max(h[0], r[0]), min(h[1], r[1]), max(h[2], r[2]), min(h[3], r[3]))
+        if c[1] - c[0] > _TOL and c[3] - c[2] > _TOL:
+            out.append(c)
+    return out
+
+
+def _add_space(b: _Builder, s: _Space, spaces: list[_Space], parts: list[_Partition],
+               covered: dict[tuple[int, int], _Partition],
+               glass: dict[tuple[int, int], Material]) -> None:
+    """A space's interior faces (with window holes) and the glazing of its windows.
+
+    Holes are cut for the space's own windows and for the internal openings
+    of other spaces into it. Where a zero-gap partition covers a face, that
+    part is cut out and built once for both spaces as twins (this space's
+    triangles and the same corners in reverse order for the other, each with
+    its own space's material), when this space is the partition's low side.
+    The glass of a window sits at :data:`GLASS_POSITION` of the wall's
+    thickness, or of the gap to the other space for an internal opening.
     """
     for wall in _FACES:
         plane, lu, lv = s.plane(wall)
-        mine = [w for w in s.windows if w.wall == wall]
-        holes = [(w.u0, w.u1, w.v0, w.v1) for w in mine]
+        openings = _openings(s, wall, spaces, covered)
+        holes = list(openings)
         seams = []
         for p in parts:
             if p.gap == 0.0 and s in (p.low, p.high) and p.wall(s) == wall:
-                u = sorted(float((c - plane.origin) @ plane.eu) for c in (p.lo, p.hi))
-                v = sorted(float((c - plane.origin) @ plane.ev) for c in (p.lo, p.hi))
-                r = (u[0], u[1], v[0], v[1])
+                r = _plane_rect(plane, p.lo, p.hi)
                 holes.append(r)
                 seams.append((p, r))
         mat = s.materials[{"floor": "floor", "roof": "ceiling"}.get(wall, "walls")]
         group = f"{s.name}/{_FACE_GROUP.get(wall, 'wall_' + wall)}"
-        for r in _rect_minus_holes(0.0, lu, 0.0, lv, holes):
+        for r in _rect_minus_holes(0.0, lu, 0.0, lv, _clip(holes, (0.0, lu, 0.0, lv))):
             b.add(plane.rect(*r, 0.0, -plane.ew), mat, group, s.index)
         for p, r in seams:
             if s is not p.low:
@@ -1314,22 +1433,29 @@ def _add_space(b: _Builder, s: _Space, parts: list[_Partition]) -> None:
             nb_wall = p.wall(nb)
             nb_mat = nb.materials[{"floor": "floor", "roof": "ceiling"}.get(nb_wall, "walls")]
             nb_group = f"{nb.name}/{_FACE_GROUP.get(nb_wall, 'wall_' + nb_wall)}"
-            for q in _rect_minus_holes(*r, []):
+            for q in _rect_minus_holes(*r, _clip(openings, r)):
                 tris = plane.rect(*q, 0.0, -plane.ew)
                 first = b.add(tris, mat, group, s.index)
                 twin = b.add(tris[:, [0, 2, 1]], nb_mat, nb_group, nb.index)
                 b.pair(first, twin, tris.shape[0])
-        for w in mine:
-            b.add(plane.rect(w.u0, w.u1, w.v0, w.v1, GLASS_POSITION * s.t, plane.ew),
-                  s.materials["glazing"][w.glazing], f"{s.name}/window_{w.index}", s.index)
+        for w in s.windows:
+            if w.wall != wall:
+                continue
+            p = covered.get((s.index, w.index))
+            depth = s.t if p is None else p.gap
+            b.add(plane.rect(w.u0, w.u1, w.v0, w.v1, GLASS_POSITION * depth, plane.ew),
+                  glass[(s.index, w.index)], f"{s.name}/window_{w.index}", s.index)
 
 
 def _building_overhang(b: _Builder, s: _Space, spaces: list[_Space],
+                       covered: dict[tuple[int, int], _Partition],
                        exterior: Material) -> list[tuple[np.ndarray, np.ndarray]]:
-    """The overhang slabs of space ``s`` (as :func:`_add_overhang`), clear of every space."""
+    """The overhang slabs of space ``s`` over its outside front windows (as
+    :func:`_add_overhang`), clear of every space."""
+    outside = [w for w in s.windows if (s.index, w.index) not in covered]
     try:
         local = _Builder()
-        slabs = _add_overhang(local, s.overhang, s.windows, s.size[2], s.t, exterior)
+        slabs = _add_overhang(local, s.overhang, outside, s.size[2], s.t, exterior)
     except GeometryError as exc:
         raise _prefixed(exc, s.index, s.name) from exc
     out = []
