@@ -84,6 +84,19 @@ and memory grow linearly with the sensors (``benchmarks/bench_scaling.py``,
 their mesh. Against the dense solution on the 30 × 18 m room: mean daylight
 factor −0.04 %, per-sensor RMS 0.5 % (max 2.0 %), sDA equal, mean DA +0.0001.
 
+Buildings (:func:`kernels.geometry.parametric_building`): the same four
+families over all sensors of all spaces in one set, the spaces shading and
+reflecting for one another. Every ray path — sensor to sky
+(:func:`_sky_blocks`), sun (:func:`_sun_direct`), element transfer and gather
+(:mod:`kernels.transfer`) — goes through the scene's glazing crossings
+(:mod:`kernels.raytrace`, "Buildings"): internal glazing multiplies by its
+baked transmittance with the outside glazing's angular profile; rays that
+cross two outside glazings are refused (blocked) and counted in
+:attr:`CoefficientSet.crossed_twice`. In such scenes element origins are
+inset 3 ε from their edges (:func:`kernels.transfer.inset_triangles`) so the
+ray caster's origin offset cannot carry a ray from a reveal past the pane it
+meets. A single parametric room takes the original path, bit for bit.
+
 Sampling error: every sensor's Monte Carlo estimates (patch rays, ground rays,
 gather rays) are drawn as :data:`REPLICAS` independent stratified sub-samples
 whose mean is the coefficient; their scatter gives the per-sensor error of the

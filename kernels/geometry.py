@@ -43,6 +43,50 @@ Conventions
   * exterior surfaces (outer faces, outer reveals, overhang, obstructions) all
     take ``exterior_reflectance`` (default 0.2, common practice for built
     surroundings, the same as the usual ground reflectance).
+
+Buildings (:func:`parametric_building`)
+---------------------------------------
+- A building is a list of box *spaces*, each given like a parametric room in
+  its own frame plus ``origin``, the building-frame position of its
+  front-left interior floor corner (z > 0: an upper storey). Its interior box
+  is ``[origin, origin + (width, depth, height)]``; every space's front faces
+  the building's front (−y). ``Geometry.space_boxes`` lists the boxes and
+  ``Geometry.space`` the owner space of every interior triangle (its faces,
+  its reveals up to the glass, its glazing); exterior triangles have −1.
+- Walls: the building's solid is the union of every space's box grown by its
+  own ``thickness`` (not below the ground), less every interior and every
+  window hole. Its faces towards the outside are found on the rectilinear
+  grid of all box and hole coordinates and merged into rectangles; so where
+  two spaces' facing walls are closer than the sum of their thicknesses the
+  gap is solid (a *partition*: no outer faces, each side keeps its own
+  interior face with its own space's reflectance), a lower ceiling under an
+  upper floor is a partition, and corners, wings and steps close without
+  gaps or doubled faces. Farther apart, each space has its own outer faces
+  (exterior surfaces, which shade and reflect for the other spaces like any
+  obstruction).
+- Touching spaces (gap 0): the two interior faces coincide and face opposite
+  ways, which a ray caster cannot tell apart (Embree reports either at the
+  same distance). The covered part is built once as a pair of *twins* — the
+  same triangles, one per space with its material, the second with its
+  corners in reverse order — recorded in ``Geometry.twin``; the ray caster
+  turns a back-face hit on one into a front-face hit on the other
+  (:meth:`kernels.raytrace.Scene.trace`). Gaps between 0 and
+  :data:`SEAM_GAP` (1 mm) are refused rather than left to float32 rounding.
+- Internal openings: a window on a wall that another space covers (facing,
+  within the partition distance) opens into that space. Its glass sits at
+  :data:`GLASS_POSITION` of the gap between the two interior faces, the hole
+  is lined by each space's wall material on its side of the glass, and its
+  glazing set's normal transmittance is baked into the material
+  (``Material.transmittance``; the set is listed in
+  ``Geometry.internal_sets``, not in ``glazing_sets``, so variants cannot
+  scale it: the sweep puts it into the coefficient key instead). Refused: a
+  window partly covered by another space, a set used on both outside and
+  internal windows, two internal windows filling the same opening, an
+  outside window whose far end meets another space's walls, overlapping
+  interiors (naming both spaces), obstructions or overhangs that run into a
+  space's walls.
+- Group names are prefixed by the space's name (``classroom-1/floor``,
+  ``classroom-1/window_0``); outer faces are ``facade``.
 """
 
 from __future__ import annotations

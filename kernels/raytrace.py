@@ -23,6 +23,26 @@ coefficient stage:
 * :meth:`Scene.sky_view` — the same for rays from anywhere, telling blocked
   from unglazed rays.
 
+Buildings
+---------
+A scene of one parametric room (``geometry.room`` set) is convex from inside:
+a ray crosses at most one window, so the nearest glazing tells everything
+(:attr:`Scene.simple`, the original path, bit for bit). Any other scene (a
+building of several spaces, a mesh) may have rays crossing several panes:
+:meth:`Scene.trace` and :meth:`Scene.exit_glazing` then follow every glazing
+before the opaque hit (:meth:`Scene._crossings`, re-casting the ray from just
+beyond each pane). Internal glazing (between spaces) multiplies the ray by
+its baked ``τ_n × τ_rel(cos)`` — the same angular profile as outside glazing,
+:func:`kernels.glazing.relative_transmittance` — returned as ``factor``. A
+ray crossing two or more *outside* glazings (out of one window and through
+another part of the building) cannot be scaled by one set's variant
+transmittance: it is treated as blocked and counted
+(:attr:`Scene.crossed_twice`, reported as
+``CoefficientSet.crossed_twice``). That light is missing from the estimate
+(an underestimate), never added wrongly. Zero-gap partitions: a back-face hit
+on a triangle with a twin (:attr:`kernels.geometry.Geometry.twin`) becomes a
+front-face hit on the twin.
+
 Self-intersection
 -----------------
 The *Scene* offsets every origin by ``epsilon`` along its direction before the
@@ -105,7 +125,8 @@ class Hits:
     Attributes
     ----------
     triangle : ndarray (n,) int64
-        Opaque triangle hit (index into ``geometry.triangles``), −1 for none.
+        Opaque triangle hit (index into ``geometry.triangles``), −1 for none;
+        at a zero-gap partition, the twin facing the ray.
     u, v : ndarray (n,) float32
         Barycentric coordinates of the hit point, ``p = (1 − u − v) v0 + u v1 + v v2``
         with the triangle's corners as stored in the geometry (meaningless
@@ -114,7 +135,9 @@ class Hits:
         The ray meets the front face of the triangle (runs against its normal).
     glazing : ndarray (n,) int32
         Glazing set of the nearest glazing crossed before the hit (or on the
-        way out, where there is no hit), −1 for none.
+        way out, where there is no hit), −1 for none; outside a
+        :attr:`Scene.simple` scene, the outside glazing crossed (internal
+        panes go into ``factor``; −1 also for two or more outside panes).
     cos_incidence : ndarray (n,) float64
         |cos| of the incidence angle at that glazing (0 where none).
     tfar : ndarray (n,) float32 [m]
@@ -342,7 +365,9 @@ class Scene:
         Returns
         -------
         triangle : ndarray (n,) int64
-            Index into ``geometry.triangles`` (−1: no opaque hit).
+            Index into ``geometry.triangles`` (−1: no opaque hit); at a
+            zero-gap partition either of the two twins (use :meth:`trace`
+            to know which face the ray meets).
         distance : ndarray (n,) float64 [m]
             From the given origin (inf: no hit).
         """

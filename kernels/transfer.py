@@ -27,6 +27,12 @@ sub-triangles), ``m`` chosen from the triangle's size and ``element_size``.
 A ray hit on a triangle is mapped to its element from the barycentric
 coordinates of the hit point, so the ray-tracing scene stays the coarse one.
 
+Internal glazing (between spaces of a building): a ray that crosses it carries
+its transmittance ``factor`` (:attr:`kernels.raytrace.Hits.factor`), which
+multiplies the ray's weight in every sum (same-region transfer, the through
+matrices, sky sources, the gather); transmission is the same both ways, so
+the shooting estimator's reciprocity still holds.
+
 Everything here is pure numerics (arrays in, arrays out); the ray casting of
 the classification step goes through :class:`kernels.raytrace.Scene`
 (:meth:`~kernels.raytrace.Scene.trace`: one combined query per ray, the element
