@@ -509,7 +509,9 @@ class Scene:
             that set's glazing (the nearest glazing along the ray);
             :data:`NO_GLAZING` (−2) when it reaches the sky without crossing any
             glazing (rays from exterior surfaces); :data:`BLOCKED` (−1) when an
-            opaque surface is hit.
+            opaque surface is hit, or when the nearest glazing is an internal
+            pane (between two spaces: only a ray that has crossed outside
+            glazing already can reach one).
         cos_incidence : ndarray (n,) float64
             |cos| at the crossed glazing (0 unless code ≥ 0).
         """
