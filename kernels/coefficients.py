@@ -84,6 +84,19 @@ and memory grow linearly with the sensors (``benchmarks/bench_scaling.py``,
 their mesh. Against the dense solution on the 30 × 18 m room: mean daylight
 factor −0.04 %, per-sensor RMS 0.5 % (max 2.0 %), sDA equal, mean DA +0.0001.
 
+Buildings (:func:`kernels.geometry.parametric_building`): the same four
+families over all sensors of all spaces in one set, the spaces shading and
+reflecting for one another. Every ray path — sensor to sky
+(:func:`_sky_blocks`), sun (:func:`_sun_direct`), element transfer and gather
+(:mod:`kernels.transfer`) — goes through the scene's glazing crossings
+(:mod:`kernels.raytrace`, "Buildings"): internal glazing multiplies by its
+baked transmittance with the outside glazing's angular profile; rays that
+cross two outside glazings are refused (blocked) and counted in
+:attr:`CoefficientSet.crossed_twice`. In such scenes element origins are
+inset 3 ε from their edges (:func:`kernels.transfer.inset_triangles`) so the
+ray caster's origin offset cannot carry a ray from a reveal past the pane it
+meets. A single parametric room takes the original path, bit for bit.
+
 Sampling error: every sensor's Monte Carlo estimates (patch rays, ground rays,
 gather rays) are drawn as :data:`REPLICAS` independent stratified sub-samples
 whose mean is the coefficient; their scatter gives the per-sensor error of the
@@ -121,6 +134,7 @@ from luxsweep.kernels.sun import DEFAULT_SPACING, SunPoints
 from luxsweep.kernels.transfer import (
     factor_radiosity,
     gather_matrix,
+    inset_triangles,
     mesh_elements,
     points_in_triangles,
     relative_transmit,
@@ -155,6 +169,7 @@ SENSOR_PART = _SENSOR_BLOCK
 """Sensor ranges of the split stages start at multiples of this (the gather's seed blocks)."""
 _BASE_BYTES = 350 * 2**20  # interpreter, modules, scene, sun points: outside the budget
 _MIN_ELEMENTS = 64  # fewer interior elements than this cannot resolve a room
+_EXTERIOR_SHARE = 1 / 3  # most of the element budget exterior surfaces of a building may take
 _MAX_RAY_FACTOR = 64  # target_error never multiplies the ray counts by more
 
 # seed streams of the stages (fixed: changing them changes every result)
@@ -283,6 +298,11 @@ class CoefficientSet:
         (:func:`kernels.timeseries.daylight_factor_error`). The element
         transfer's own noise (shared by neighbouring sensors) is not in it.
         NaN where a ray count is not a multiple of 2 (no sub-samples).
+    crossed_twice : int
+        Rays (of every stage) treated as blocked because they cross two or
+        more outside glazings (:meth:`kernels.raytrace.Scene.exit_glazing`):
+        0 for one room; in a building, light that leaves through one window
+        and enters another, which no single set's transmittance can scale.
     """
 
     key: str
@@ -297,6 +317,7 @@ class CoefficientSet:
     settings: Settings
     kernel_version: str
     overcast_error: np.ndarray
+    crossed_twice: int = 0
 
     _ARRAYS = ("sensors", "sun_directions", "sky_direct", "sky_reflected", "sun_direct",
                "sun_reflected", "overcast_error")
@@ -314,6 +335,7 @@ class CoefficientSet:
             "settings": self.settings.canonical(),
             "kernel_version": self.kernel_version,
             "shapes": {name: list(a.shape) for name, a in self.to_arrays().items()},
+            **({"crossed_twice": int(self.crossed_twice)} if self.crossed_twice else {}),
         }
 
     @classmethod
@@ -347,6 +369,7 @@ class CoefficientSet:
             settings=Settings(**metadata["settings"]),
             kernel_version=str(metadata["kernel_version"]),
             overcast_error=np.asarray(arrays["overcast_error"], dtype=np.float32),
+            crossed_twice=int(metadata.get("crossed_twice", 0)),
         )
 
     @property
@@ -507,10 +530,11 @@ def _sky_blocks(scene: Any, sensors: np.ndarray, owner: np.ndarray, rows: np.nda
     may = _window_mask(wedges, lambda a: np.matmul(blocks, a[:, :, None])[..., 0])
     use = cos > 0.0
     b, r = np.nonzero(use if may is None else use & may)
-    gset, cos_w = scene.exit_glazing(sensors[owner[b], :3], blocks[b, r], unit=True)
+    gset, cos_w, f = scene.exit_glazing(sensors[owner[b], :3], blocks[b, r], unit=True,
+                                        factor=True)
     ok = np.flatnonzero(gset >= 0)
     b, r, g = b[ok], r[ok], gset[ok]
-    tau = relative_transmit(cos_w[ok], g, panes)
+    tau = relative_transmit(cos_w[ok], g, panes) * f[ok]  # f = 1 without internal glazing
     flat = (g.astype(np.int64) * shape[1] + rows[b]) * shape[2] + basis[b]
     return np.bincount(flat, weights=tau * cos[b, r], minlength=int(np.prod(shape))
                        ).reshape(shape)
@@ -634,8 +658,8 @@ def _sun_direct(scene: Any, points: np.ndarray, normals: np.ndarray, exterior: n
                 free = scene.sky_view(o, d, unit=True)[0] == NO_GLAZING
                 layer, value = np.full(c.size, n_sets), free.astype(np.float64)
             else:
-                gset, cos_w = scene.exit_glazing(o, d, unit=True)
-                layer, value = gset.astype(np.int64), relative_transmit(cos_w, gset, panes)
+                gset, cos_w, f = scene.exit_glazing(o, d, unit=True, factor=True)
+                layer, value = gset.astype(np.int64), relative_transmit(cos_w, gset, panes) * f
             ok = np.flatnonzero((layer >= 0) & (value > 0.0))
             c, k = c[ok], k[ok]
             out[layer[ok], idx[c], k] = value[ok] * cos[c, k]
@@ -698,6 +722,11 @@ def _element_sizes(geometry: Any, active: np.ndarray, element_size: float,
     until the interior and exterior elements together fit in it (the exterior
     ones counted first): the element size is chosen from the accuracy it buys
     (module notes), which bounds the solve's time and memory whatever the model.
+    In a building of several spaces the exterior elements are held to a third
+    of the budget (:data:`_EXTERIOR_SHARE`): its own outer shell is large and
+    mostly out of sight of its interiors (flush with the windows), and counted
+    first it left the 2 × 3-classroom building of ``benchmarks/bench_building.py``
+    3.7 m interior elements (1.8 m with the cap).
     """
     outside = active & geometry.exterior
     inside = active & ~geometry.exterior
@@ -706,6 +735,11 @@ def _element_sizes(geometry: Any, active: np.ndarray, element_size: float,
     if budget is not None:
         sizes = _triangle_sizes(geometry)
         n_out = _element_count(sizes[outside], coarse)
+        if len(getattr(geometry, "space_names", ())) > 1:
+            cap = max(int(budget * _EXTERIOR_SHARE), int(np.count_nonzero(outside)))
+            while n_out > cap:
+                coarse *= max(float(np.sqrt(n_out / cap)), 1.001)
+                n_out = _element_count(sizes[outside], coarse)
         room = max(budget - n_out, _MIN_ELEMENTS)
         count = _element_count(sizes[inside], element_size)
         while count > room:
@@ -788,7 +822,8 @@ def _solve_elements(scene: Any, geometry: Any, n_sensors: int, settings: Setting
     tr = transfer_matrix(scene, el, settings.element_rays, _rng(settings, _STREAM_ELEMENT),
                          panes, scheme, batch=_RAYS_PER_BATCH)
     r1, r2 = _rng(settings, _STREAM_SUNPOINT).random((2, el.n, 1))
-    points = scene.lift(points_in_triangles(el.vertices, r1, r2)[:, 0], el.normal)
+    corners = el.vertices if scene.simple else inset_triangles(el.vertices, 3.0 * scene.epsilon)
+    points = scene.lift(points_in_triangles(corners, r1, r2)[:, 0], el.normal)
     s_sun = _sun_direct(scene, points, el.normal, el.exterior, coarse_sun, panes)
 
     inner, outer = np.flatnonzero(~el.exterior), np.flatnonzero(el.exterior)
@@ -1177,6 +1212,7 @@ def assemble(geometry: Any, sensors: np.ndarray, direct: list[dict[str, np.ndarr
         settings=requested,
         kernel_version=kernels.KERNEL_VERSION,
         overcast_error=scatter.astype(np.float32),
+        crossed_twice=scene.crossed_twice,
     )
 
 

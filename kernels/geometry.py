@@ -43,6 +43,50 @@ Conventions
   * exterior surfaces (outer faces, outer reveals, overhang, obstructions) all
     take ``exterior_reflectance`` (default 0.2, common practice for built
     surroundings, the same as the usual ground reflectance).
+
+Buildings (:func:`parametric_building`)
+---------------------------------------
+- A building is a list of box *spaces*, each given like a parametric room in
+  its own frame plus ``origin``, the building-frame position of its
+  front-left interior floor corner (z > 0: an upper storey). Its interior box
+  is ``[origin, origin + (width, depth, height)]``; every space's front faces
+  the building's front (−y). ``Geometry.space_boxes`` lists the boxes and
+  ``Geometry.space`` the owner space of every interior triangle (its faces,
+  its reveals up to the glass, its glazing); exterior triangles have −1.
+- Walls: the building's solid is the union of every space's box grown by its
+  own ``thickness`` (not below the ground), less every interior and every
+  window hole. Its faces towards the outside are found on the rectilinear
+  grid of all box and hole coordinates and merged into rectangles; so where
+  two spaces' facing walls are closer than the sum of their thicknesses the
+  gap is solid (a *partition*: no outer faces, each side keeps its own
+  interior face with its own space's reflectance), a lower ceiling under an
+  upper floor is a partition, and corners, wings and steps close without
+  gaps or doubled faces. Farther apart, each space has its own outer faces
+  (exterior surfaces, which shade and reflect for the other spaces like any
+  obstruction).
+- Touching spaces (gap 0): the two interior faces coincide and face opposite
+  ways, which a ray caster cannot tell apart (Embree reports either at the
+  same distance). The covered part is built once as a pair of *twins* — the
+  same triangles, one per space with its material, the second with its
+  corners in reverse order — recorded in ``Geometry.twin``; the ray caster
+  turns a back-face hit on one into a front-face hit on the other
+  (:meth:`kernels.raytrace.Scene.trace`). Gaps between 0 and
+  :data:`SEAM_GAP` (1 mm) are refused rather than left to float32 rounding.
+- Internal openings: a window on a wall that another space covers (facing,
+  within the partition distance) opens into that space. Its glass sits at
+  :data:`GLASS_POSITION` of the gap between the two interior faces, the hole
+  is lined by each space's wall material on its side of the glass, and its
+  glazing set's normal transmittance is baked into the material
+  (``Material.transmittance``; the set is listed in
+  ``Geometry.internal_sets``, not in ``glazing_sets``, so variants cannot
+  scale it: the sweep puts it into the coefficient key instead). Refused: a
+  window partly covered by another space, a set used on both outside and
+  internal windows, two internal windows filling the same opening, an
+  outside window whose far end meets another space's walls, overlapping
+  interiors (naming both spaces), obstructions or overhangs that run into a
+  space's walls.
+- Group names are prefixed by the space's name (``classroom-1/floor``,
+  ``classroom-1/window_0``); outer faces are ``facade``.
 """
 
 from __future__ import annotations
@@ -100,6 +144,10 @@ class Material:
     exterior : bool
         True for surfaces outside the room (façade outer faces, outer reveals,
         overhang, obstructions).
+    transmittance : float or None
+        Normal-incidence transmittance [-] of the glazing of an internal
+        opening (baked into the geometry); None for outside glazing, whose
+        transmittance the series stage applies per variant.
     """
 
     name: str
@@ -108,6 +156,7 @@ class Material:
     glazing_set: str | None = None
     panes: int | None = None
     exterior: bool = False
+    transmittance: float | None = None
 
 
 @dataclass(frozen=True, eq=False)
@@ -131,9 +180,26 @@ class Geometry:
         ``obstruction_<i>``).
     group_names : tuple of str
     room : tuple of float or None
-        ``(width, depth, height)`` [m] of a parametric room; None for meshes.
+        ``(width, depth, height)`` [m] of a parametric room; None for meshes
+        and buildings of several spaces.
     source : str or None
         File the geometry was read from (for messages).
+    space_names : tuple of str
+        Names of the spaces of a parametric building (``("room",)`` for
+        :func:`parametric_room`, ``()`` for meshes).
+    space_boxes : ndarray (k, 2, 3) [m]
+        Interior box (low corner, high corner) of every space, building frame.
+    space : ndarray (n,) int32
+        Owner space of every interior triangle (index into ``space_names``);
+        −1 for exterior surfaces and obstructions (and every triangle of a mesh).
+    internal_sets : tuple of str
+        Sorted names of the glazing sets used on internal openings (glazing
+        between two spaces, its normal transmittance baked into its material);
+        ``glazing_sets`` lists only the sets on outside glazing.
+    twin : ndarray (n,) int32
+        For a triangle of a zero-gap partition, the coincident triangle of the
+        other space (the same corners in reverse order, see the module notes);
+        −1 for every other triangle.
     """
 
     triangles: np.ndarray
@@ -144,6 +210,11 @@ class Geometry:
     group_names: tuple[str, ...]
     room: tuple[float, float, float] | None = None
     source: str | None = field(default=None)
+    space_names: tuple[str, ...] = ()
+    space_boxes: np.ndarray | None = None
+    space: np.ndarray | None = None
+    internal_sets: tuple[str, ...] = ()
+    twin: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         tri = np.ascontiguousarray(self.triangles, dtype=np.float64)
@@ -151,13 +222,28 @@ class Geometry:
         grp = np.ascontiguousarray(self.group, dtype=np.int32)
         if tri.ndim != 3 or tri.shape[1:] != (3, 3):
             raise ValueError(f"triangles must have shape (n, 3, 3), got {tri.shape}")
-        if mat.shape != (tri.shape[0],) or grp.shape != (tri.shape[0],):
+        n = tri.shape[0]
+        if mat.shape != (n,) or grp.shape != (n,):
             raise ValueError("material and group must have one entry per triangle")
-        for a in (tri, mat, grp):
+        boxes = np.ascontiguousarray(
+            np.zeros((0, 2, 3)) if self.space_boxes is None else self.space_boxes,
+            dtype=np.float64)
+        if boxes.shape != (len(self.space_names), 2, 3):
+            raise ValueError("space_boxes must have shape (len(space_names), 2, 3)")
+        own = np.ascontiguousarray(np.full(n, -1) if self.space is None else self.space,
+                                   dtype=np.int32)
+        twin = np.ascontiguousarray(np.full(n, -1) if self.twin is None else self.twin,
+                                    dtype=np.int32)
+        if own.shape != (n,) or twin.shape != (n,):
+            raise ValueError("space and twin must have one entry per triangle")
+        for a in (tri, mat, grp, boxes, own, twin):
             a.flags.writeable = False
         object.__setattr__(self, "triangles", tri)
         object.__setattr__(self, "material", mat)
         object.__setattr__(self, "group", grp)
+        object.__setattr__(self, "space_boxes", boxes)
+        object.__setattr__(self, "space", own)
+        object.__setattr__(self, "twin", twin)
 
     @property
     def n_triangles(self) -> int:
@@ -196,22 +282,37 @@ class Geometry:
 
     @cached_property
     def glazing_set_index(self) -> np.ndarray:
-        """(n,) int32 index into ``glazing_sets`` (−1 for opaque triangles)."""
+        """(n,) int32 index into ``glazing_sets`` (−1 for opaque triangles and internal glazing)."""
         idx = np.array(
             [
-                self.glazing_sets.index(m.glazing_set) if m.kind == "glazing" else -1
+                self.glazing_sets.index(m.glazing_set)
+                if m.kind == "glazing" and m.transmittance is None else -1
                 for m in self.materials
             ],
             dtype=np.int32,
         )
         return idx[self.material]
 
+    @cached_property
+    def internal_transmittance(self) -> np.ndarray:
+        """(n,) float64 baked normal transmittance [-] of internal glazing (NaN elsewhere)."""
+        t = np.array([np.nan if m.transmittance is None else float(m.transmittance)
+                      for m in self.materials], dtype=np.float64)
+        return t[self.material]
+
+    @cached_property
+    def panes(self) -> np.ndarray:
+        """(n,) int32 number of panes of glazing triangles (0 for opaque ones)."""
+        p = np.array([int(m.panes or 0) if m.kind == "glazing" else 0 for m in self.materials],
+                     dtype=np.int32)
+        return p[self.material]
+
     @property
     def set_panes(self) -> tuple[int, ...]:
-        """Number of panes of every glazing set, aligned with ``glazing_sets``."""
+        """Number of panes of every outside glazing set, aligned with ``glazing_sets``."""
         panes: dict[str, int] = {}
         for m in self.materials:
-            if m.kind == "glazing":
+            if m.kind == "glazing" and m.transmittance is None:
                 panes[m.glazing_set] = int(m.panes or 0)
         return tuple(panes[s] for s in self.glazing_sets)
 
@@ -255,7 +356,7 @@ class Geometry:
         small for large meshes while any change of geometry changes it.
         """
         tri = np.round(self.triangles, _ROUND) + 0.0  # + 0.0 turns −0 into 0
-        return {
+        out: dict[str, Any] = {
             "n_triangles": self.n_triangles,
             "triangles_sha256": hashlib.sha256(tri.astype("<f8").tobytes()).hexdigest(),
             "material_sha256": hashlib.sha256(self.material.astype("<i4").tobytes()).hexdigest(),
@@ -267,11 +368,18 @@ class Geometry:
                     "glazing_set": m.glazing_set,
                     "panes": m.panes,
                     "exterior": bool(m.exterior),
+                    **({} if m.transmittance is None
+                       else {"transmittance": round(float(m.transmittance), _ROUND)}),
                 }
                 for m in self.materials
             ],
             "glazing_sets": list(self.glazing_sets),
         }
+        if self.internal_sets:
+            out["internal_sets"] = list(self.internal_sets)
+        if np.any(self.twin >= 0):  # zero-gap partitions change which face a ray meets
+            out["twin_sha256"] = hashlib.sha256(self.twin.astype("<i4").tobytes()).hexdigest()
+        return out
 
 
 # ------------------------------------------------------------------ small helpers
@@ -385,28 +493,51 @@ class _Builder:
         self.grps: list[int] = []
         self.materials: list[Material] = []
         self.groups: list[str] = []
+        self.spaces: list[int] = []
+        self.twins: list[tuple[int, int]] = []
 
-    def add(self, tris: np.ndarray, material: Material, group: str) -> None:
+    def add(self, tris: np.ndarray, material: Material, group: str, space: int = -1) -> int:
+        """Append triangles; returns the index of the first one."""
         if material not in self.materials:
             self.materials.append(material)
         if group not in self.groups:
             self.groups.append(group)
+        first = len(self.mats)
         self.tris.append(np.asarray(tris, dtype=np.float64).reshape(-1, 3, 3))
         n = self.tris[-1].shape[0]
         self.mats += [self.materials.index(material)] * n
         self.grps += [self.groups.index(group)] * n
+        self.spaces += [space] * n
+        return first
 
-    def build(self, room: tuple[float, float, float] | None, source: str | None) -> Geometry:
-        sets = sorted({m.glazing_set for m in self.materials if m.kind == "glazing"})
+    def pair(self, a: int, b: int, n: int) -> None:
+        """Mark triangles ``a … a+n−1`` and ``b … b+n−1`` as twins (zero-gap partition)."""
+        self.twins += [(a + k, b + k) for k in range(n)]
+
+    def build(self, room: tuple[float, float, float] | None, source: str | None,
+              space_names: tuple[str, ...] = (), space_boxes: np.ndarray | None = None
+              ) -> Geometry:
+        outside = {m.glazing_set for m in self.materials
+                   if m.kind == "glazing" and m.transmittance is None}
+        inside = {m.glazing_set for m in self.materials
+                  if m.kind == "glazing" and m.transmittance is not None}
+        twin = np.full(len(self.mats), -1, dtype=np.int32)
+        for a, b in self.twins:
+            twin[a], twin[b] = b, a
         return Geometry(
             triangles=np.concatenate(self.tris),
             material=np.array(self.mats, dtype=np.int32),
             materials=tuple(self.materials),
-            glazing_sets=tuple(sets),
+            glazing_sets=tuple(sorted(outside)),
             group=np.array(self.grps, dtype=np.int32),
             group_names=tuple(self.groups),
             room=room,
             source=source,
+            space_names=space_names,
+            space_boxes=space_boxes,
+            space=np.array(self.spaces, dtype=np.int32),
+            internal_sets=tuple(sorted(inside)),
+            twin=twin,
         )
 
 
@@ -599,14 +730,15 @@ def parametric_room(
 
     b = _Builder()
     b.add(_quad(np.array([[0, 0, 0], [width, 0, 0], [width, depth, 0], [0, depth, 0]], float),
-                np.array([0.0, 0, 1])), materials["floor"], "floor")
+                np.array([0.0, 0, 1])), materials["floor"], "floor", 0)
     for wall in ("front", "back", "left", "right", "roof"):
         _add_wall(b, wall, [w for w in wins if w.wall == wall], (width, depth, height), t,
                   materials)
     slabs = [] if overhang is None else _add_overhang(b, overhang, wins, height, t,
                                                       materials["exterior"])
     _add_obstructions(b, obstructions, slabs, width, depth, t, materials["exterior"])
-    return b.build(room=(width, depth, height), source=None)
+    return b.build(room=(width, depth, height), source=None, space_names=("room",),
+                   space_boxes=np.array([[[0.0, 0.0, 0.0], [width, depth, height]]]))
 
 
 def _room_materials(reflectance: Mapping[str, float] | Any, glazing_panes: Mapping[str, int],
@@ -683,10 +815,10 @@ def _add_wall(b: _Builder, wall: str, mine: list[_Window], room: tuple[float, fl
     inner_mat = materials["ceiling"] if wall == "roof" else materials["walls"]
     group = "ceiling" if wall == "roof" else f"wall_{wall}"
     for r in _rect_minus_holes(0.0, lu, 0.0, lv, holes):
-        b.add(plane.rect(*r, 0.0, -ew), inner_mat, group)
+        b.add(plane.rect(*r, 0.0, -ew), inner_mat, group, 0)
     for w in mine:
         b.add(plane.rect(w.u0, w.u1, w.v0, w.v1, wg, ew), materials["glazing"][w.glazing],
-              f"window_{w.index}")
+              f"window_{w.index}", 0)
     if t == 0:
         return
     ou0, ou1 = -t, lu + t
@@ -716,7 +848,7 @@ def _add_reveals(b: _Builder, plane: _WallPlane, w: _Window, wg: float, t: float
                 continue
             corners = np.array([pt(su0, sv0, wa), pt(su1, sv1, wa),
                                 pt(su1, sv1, wb), pt(su0, sv0, wb)])
-            b.add(_quad(corners, normal), mat, f"reveal_{w.index}")
+            b.add(_quad(corners, normal), mat, f"reveal_{w.index}", -1 if mat.exterior else 0)
 
 
 def _add_overhang(b: _Builder, overhang: Mapping[str, float] | Any, wins: list[_Window],
@@ -787,6 +919,626 @@ def _add_obstructions(b: _Builder, obstructions: Sequence[Any], slabs: list[tupl
                     "the box intersects the overhang; move it away from the façade",
                     field=path,
                 )
+        b.add(_box_faces(lo, hi, skip=("-z",)), exterior, f"obstruction_{i}")
+
+
+# ------------------------------------------------------------ parametric building
+
+
+SEAM_GAP = 1e-3
+"""Smallest gap [m] other than 0 between facing interior faces of two spaces.
+
+Facing faces closer than this (but not touching) could not be told apart by
+the ray caster's float32 coordinates and origin offset; they are refused. At
+a gap of exactly 0 the two faces are built as *twins* (module notes)."""
+
+_TOL = 1e-9  # [m] coordinates closer than this are equal
+# cell kinds of the building solid (labels ≥ 0 are window holes, see _solid)
+_NOFACE, _INSIDE, _SOLID, _AIR = -4, -3, -2, -1
+# interior faces of a space, in the order they are built
+_FACES = ("floor", "front", "back", "left", "right", "roof")
+_FACE_GROUP = {"floor": "floor", "roof": "ceiling"}
+
+
+@dataclass(frozen=True, eq=False)
+class _Space:
+    """A checked space: interior box ``[lo, hi]`` [m] in the building frame."""
+
+    index: int
+    name: str
+    lo: np.ndarray
+    hi: np.ndarray
+    t: float
+    materials: dict[str, Any]
+    windows: list[_Window]
+    overhang: Any
+
+    @property
+    def size(self) -> tuple[float, float, float]:
+        return tuple(float(c) for c in self.hi - self.lo)  # type: ignore[return-value]
+
+    @property
+    def grown(self) -> tuple[np.ndarray, np.ndarray]:
+        """The box with its walls and roof (``t`` outwards; not below the ground)."""
+        lo, hi = self.lo - self.t, self.hi + self.t
+        lo[2] = max(self.lo[2] - self.t, 0.0) if self.lo[2] > _TOL else self.lo[2]
+        return lo, hi
+
+    def plane(self, wall: str) -> tuple[_WallPlane, float, float]:
+        """The wall's plane in the building frame and its interior extent along u and v."""
+        if wall == "floor":
+            ex, ey, ez = np.eye(3)
+            o, eu, ev, ew, lu, lv = np.zeros(3), ex, ey, -ez, self.size[0], self.size[1]
+        else:
+            o, eu, ev, ew, lu, lv = _wall_frame(wall, *self.size)
+        return _WallPlane(self.lo + o, eu, ev, ew), lu, lv
+
+
+@dataclass(frozen=True, eq=False)
+class _Partition:
+    """Facing faces of two spaces: ``low``'s +axis face, ``high``'s −axis face.
+
+    ``lo``, ``hi`` (3,) bound the covered rectangle (on the two other axes);
+    ``gap`` [m] is the distance between the two interior faces.
+    """
+
+    low: _Space
+    high: _Space
+    axis: int
+    gap: float
+    lo: np.ndarray
+    hi: np.ndarray
+
+    def wall(self, space: _Space) -> str:
+        """The name of the partition's wall in ``space``'s frame."""
+        names = (("left", "right"), ("front", "back"), ("floor", "roof"))[self.axis]
+        return names[1] if space is self.low else names[0]
+
+
+def _prefixed(exc: GeometryError, i: int, name: str) -> GeometryError:
+    """``exc`` of a space's parameter, its field under ``spaces.<i>.`` and naming the space."""
+    return GeometryError(f"space '{name}': {exc.message}",
+                         field=f"spaces.{i}" + (f".{exc.field}" if exc.field else ""))
+
+
+def _check_spaces(spaces: Sequence[Any], glazing_panes: Mapping[str, int],
+                  exterior_reflectance: float) -> list[_Space]:
+    """Each space's parameters checked as :func:`parametric_room` checks them, plus names."""
+    out: list[_Space] = []
+    seen: dict[str, int] = {}
+    if len(spaces) == 0:
+        raise GeometryError("a building needs at least one space", field="spaces")
+    for i, sp in enumerate(spaces):
+        name = str(_get(sp, "name", f"#{i}"))
+        if name in seen:
+            raise GeometryError(f"space name '{name}' is used twice (spaces {seen[name]} and "
+                                f"{i}); give every space its own name", field=f"spaces.{i}.name")
+        seen[name] = i
+        try:
+            origin = _get(sp, "origin", (0.0, 0.0, 0.0))
+            if len(origin) != 3:
+                raise GeometryError(f"origin needs three numbers x, y, z, got {len(origin)}",
+                                    field="origin")
+            lo = np.array([_number({"c": c}, "c", f"origin.{k}") for k, c in enumerate(origin)])
+            if lo[2] < 0:
+                raise GeometryError(f"origin z = {lo[2]:g} m is below the ground; use z ≥ 0",
+                                    field="origin.2")
+            size = np.array([_positive(sp, k, k) for k in ("width", "depth", "height")])
+            t = _number(sp, "thickness", "thickness", 0.0)
+            if t < 0:
+                raise GeometryError(f"thickness {t:g} m is negative; use 0 or more",
+                                    field="thickness")
+            materials = _room_materials(_get(sp, "reflectance"), glazing_panes,
+                                        exterior_reflectance)
+            wins = _validate_windows(_get(sp, "windows", ()), *size, glazing_panes)
+        except KeyError as exc:
+            raise _prefixed(GeometryError(f"'{exc.args[0]}' is missing", field=exc.args[0]),
+                            i, name) from exc
+        except GeometryError as exc:
+            raise _prefixed(exc, i, name) from exc
+        out.append(_Space(i, name, lo, lo + size, t, materials, wins, _get(sp, "overhang", None)))
+    return out
+
+
+def _partitions(spaces: list[_Space]) -> list[_Partition]:
+    """Overlap check and every pair of facing faces joined by walls (gap ≤ t_a + t_b).
+
+    Raises
+    ------
+    GeometryError
+        Two interiors overlap (naming both), or facing faces lie closer than
+        :data:`SEAM_GAP` without touching.
+    """
+    out = []
+    for a in spaces:
+        for b in spaces:
+            if b.index <= a.index:
+                continue
+            common = np.minimum(a.hi, b.hi) - np.maximum(a.lo, b.lo)
+            if np.all(common > _TOL):
+                raise GeometryError(
+                    f"spaces '{a.name}' and '{b.name}' overlap (by {common[0]:g} × {common[1]:g}"
+                    f" × {common[2]:g} m); move one of them or make it smaller",
+                    field=f"spaces.{b.index}.origin")
+    for a in spaces:
+        for b in spaces:
+            if a is b:
+                continue
+            for axis in range(3):
+                gap = float(b.lo[axis] - a.hi[axis])
+                if gap < -_TOL or gap > a.t + b.t + _TOL:
+                    continue
+                other = [k for k in range(3) if k != axis]
+                lo, hi = np.maximum(a.lo, b.lo), np.minimum(a.hi, b.hi)
+                if not np.all(hi[other] - lo[other] > _TOL):
+                    continue
+                if _TOL < gap < SEAM_GAP:
+                    raise GeometryError(
+                        f"spaces '{a.name}' and '{b.name}' face each other {gap * 1000:.3g} mm "
+                        f"apart; make them touch (gap 0) or leave at least {SEAM_GAP * 1000:g} mm",
+                        field=f"spaces.{b.index}.origin")
+                lo[axis], hi[axis] = a.hi[axis], b.lo[axis]
+                out.append(_Partition(a, b, axis, max(gap, 0.0), lo, hi))
+    return out
+
+
+def _window_box(space: _Space, w: _Window) -> tuple[np.ndarray, np.ndarray, int, int]:
+    """The window's rectangle as a flat box in the building frame, its axis and outward sign."""
+    plane, _, _ = space.plane(w.wall)
+    corners = np.array([plane.point(w.u0, w.v0, 0.0), plane.point(w.u1, w.v1, 0.0)])
+    axis = int(np.flatnonzero(plane.ew)[0])
+    return corners.min(axis=0), corners.max(axis=0), axis, int(plane.ew[axis])
+
+
+def _cover(spaces: list[_Space], parts: list[_Partition]) -> dict[tuple[int, int], _Partition]:
+    """The partition behind every internal opening: ``{(space, window): partition}``.
+
+    Raises
+    ------
+    GeometryError
+        A window partly covered by another space (naming both).
+    """
+    out = {}
+    for sp in spaces:
+        for w in sp.windows:
+            lo, hi, axis, _ = _window_box(sp, w)
+            other = [k for k in range(3) if k != axis]
+            area = float(np.prod(hi[other] - lo[other]))
+            for p in parts:
+                if sp not in (p.low, p.high) or p.wall(sp) != w.wall:
+                    continue
+                common = np.minimum(hi, p.hi)[other] - np.maximum(lo, p.lo)[other]
+                shared = float(np.prod(np.maximum(common, 0.0)))
+                if shared <= _TOL * max(area, 1.0):
+                    continue
+                nb = p.high if sp is p.low else p.low
+                if shared < area * (1.0 - 1e-9):
+                    raise GeometryError(
+                        f"space '{sp.name}': window {w.index} on the {w.wall} wall is partly "
+                        f"covered by space '{nb.name}' ({shared:.3g} of {area:.3g} m²); a "
+                        "window must open either wholly outside or wholly into one other "
+                        "space", field=f"spaces.{sp.index}.windows.{w.index}")
+                out[(sp.index, w.index)] = p
+    return out
+
+
+def _rectangles(mask: np.ndarray) -> list[tuple[int, int, int, int]]:
+    """Cover the True cells of a 2-D mask with rectangles ``(i0, i1, j0, j1)`` (exclusive ends).
+
+    Runs along the first axis in every row ``j``; equal runs of consecutive
+    rows are merged.
+    """
+    rects, open_runs = [], {}
+    for j in range(mask.shape[1] + 1):
+        runs = set()
+        if j < mask.shape[1]:
+            col = np.concatenate([[False], mask[:, j], [False]])
+            edges = np.flatnonzero(col[1:] != col[:-1])
+            runs = {(int(a), int(b)) for a, b in zip(edges[::2], edges[1::2], strict=True)}
+        for key in sorted(open_runs):
+            if key not in runs:
+                rects.append((*key, open_runs.pop(key), j))
+        for key in sorted(runs):
+            open_runs.setdefault(key, j)
+    return sorted(rects)
+
+
+def _solid(spaces: list[_Space], holes: list[tuple[np.ndarray, np.ndarray, int]]
+           ) -> tuple[list[np.ndarray], np.ndarray]:
+    """The building's walls as cells of a rectilinear grid.
+
+    Every space's box grown by its thickness is solid, except the interiors
+    (kind :data:`_INSIDE`) and the window holes (``holes``: box corners and a
+    label ≥ 0, or :data:`_AIR` for the part of an outside window beyond its
+    glass). Returns the grid coordinates per axis and the kind of every cell.
+    """
+    boxes = [sp.grown for sp in spaces] + [(sp.lo, sp.hi) for sp in spaces]
+    boxes += [(lo, hi) for lo, hi, _ in holes]
+    coords = [np.unique(np.round([c for lo, hi in boxes for c in (lo[k], hi[k])], 9))
+              for k in range(3)]
+    mid = [0.5 * (c[1:] + c[:-1]) for c in coords]
+
+    def inside(lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
+        m = [(x > lo[k]) & (x < hi[k]) for k, x in enumerate(mid)]
+        return m[0][:, None, None] & m[1][None, :, None] & m[2][None, None, :]
+
+    kind = np.full([len(m) for m in mid], _AIR, dtype=np.int64)
+    for sp in spaces:
+        kind[inside(*sp.grown)] = _SOLID
+    for lo, hi, label in holes:
+        kind[inside(lo, hi)] = label
+    for sp in spaces:
+        kind[inside(sp.lo, sp.hi)] = _INSIDE
+    return coords, kind
+
+
+def _solid_faces(coords: list[np.ndarray], kind: np.ndarray
+                 ) -> list[tuple[int, int, float, int, tuple[float, float, float, float]]]:
+    """Faces of the solid cells towards air or window holes, merged into rectangles.
+
+    Returns ``(axis, sign, plane, label, (u0, u1, v0, v1))`` with ``sign`` the
+    direction the face looks (out of the solid) and ``u``, ``v`` the other two
+    axes in increasing order. No face towards the interiors (each space builds
+    its own) nor towards the ground (below z = 0).
+    """
+    out = []
+    for axis in range(3):
+        low = _NOFACE if axis == 2 and abs(coords[2][0]) <= _TOL else _AIR
+        pad = [(0, 0)] * 3
+        pad[axis] = (1, 0)
+        k = np.pad(kind, pad, constant_values=low)
+        pad[axis] = (0, 1)
+        k = np.pad(k, pad, constant_values=_AIR)
+        c0 = np.take(k, np.arange(k.shape[axis] - 1), axis=axis)
+        c1 = np.take(k, np.arange(1, k.shape[axis]), axis=axis)
+        u, v = [a for a in range(3) if a != axis]
+        for sign, solid, other in ((1, c0, c1), (-1, c1, c0)):
+            face = (solid == _SOLID) & (other >= _AIR)
+            for plane in np.flatnonzero(face.any(axis=tuple(a for a in range(3) if a != axis))):
+                f = np.take(face, plane, axis=axis)
+                lab = np.take(other, plane, axis=axis)
+                for label in np.unique(lab[f]):
+                    for i0, i1, j0, j1 in _rectangles(f & (lab == label)):
+                        out.append((axis, sign, float(coords[axis][plane]), int(label),
+                                    (float(coords[u][i0]), float(coords[u][i1]),
+                                     float(coords[v][j0]), float(coords[v][j1]))))
+    return out
+
+
+def _axis_rect(axis: int, plane: float, rect: tuple[float, float, float, float],
+               sign: int) -> np.ndarray:
+    """Two triangles of an axis-aligned rectangle, facing ``sign`` along ``axis``."""
+    u, v = [a for a in range(3) if a != axis]
+    corners = np.zeros((4, 3))
+    corners[:, axis] = plane
+    corners[:, u] = [rect[0], rect[1], rect[1], rect[0]]
+    corners[:, v] = [rect[2], rect[2], rect[3], rect[3]]
+    normal = np.zeros(3)
+    normal[axis] = sign
+    return _quad(corners, normal)
+
+
+def parametric_building(
+    spaces: Sequence[Mapping[str, Any] | Any],
+    glazing_panes: Mapping[str, int],
+    internal_transmittance: Mapping[str, float] | None = None,
+    obstructions: Sequence[Any] = (),
+    exterior_reflectance: float = 0.2,
+) -> Geometry:
+    """Build a building of box spaces: shared walls, outer shell, windows, overhangs.
+
+    Parameters
+    ----------
+    spaces : sequence of mappings (or objects with these attributes)
+        ``{name, origin: (x, y, z), width, depth, height, thickness,
+        reflectance: {floor, walls, ceiling}, windows, overhang}`` [m]: the
+        parameters of :func:`parametric_room` in the space's own frame, whose
+        origin (front-left interior floor corner) lies at ``origin`` in the
+        building frame (copies already expanded by the caller).
+    glazing_panes : mapping
+        Glazing set name → number of panes (0 = unglazed opening).
+    internal_transmittance : mapping, optional
+        Glazing set → normal transmittance [-] of the sets used on internal
+        openings (a window on a wall that another space covers).
+    obstructions : sequence of mappings
+        Exterior boxes ``{x, y, width, depth, height}`` [m] in the building
+        frame, standing on z = 0 (as for :func:`parametric_room`).
+    exterior_reflectance : float [-]
+        Reflectance of all exterior surfaces.
+
+    Returns
+    -------
+    Geometry
+        With ``space_names``, ``space_boxes`` and ``space`` filled;
+        ``room`` is None.
+
+    Raises
+    ------
+    GeometryError
+        ``field`` ``spaces.<i>.<parameter>`` (``i`` the index in ``spaces``,
+        the message naming the space) for a space's own parameters,
+        overlapping spaces (naming both), a window partly covered by another
+        space or blocked by its walls, facing faces closer than
+        :data:`SEAM_GAP` without touching; ``obstructions.<i>`` for a box that
+        overlaps the building.
+
+    Notes
+    -----
+    The building's walls are the union of every space's box grown by its
+    thickness, less the interiors and the window holes; its faces towards the
+    outside are found on the rectilinear grid of all box and hole
+    coordinates (:func:`_solid`, :func:`_solid_faces`), so shared walls,
+    corners and wings of any arrangement close without gaps or doubled
+    faces. Each space then adds its own interior faces and glazing
+    (:func:`_add_space`). See the module notes for the conventions.
+    """
+    sp = _check_spaces(spaces, glazing_panes, exterior_reflectance)
+    parts = _partitions(sp)
+    covered = _cover(sp, parts)
+    glass = _glass_materials(sp, covered, glazing_panes, internal_transmittance or {})
+    holes, reveal = [], []
+    for s in sp:
+        for w in s.windows:
+            lo, hi, axis, sign = _window_box(s, w)
+            p = covered.get((s.index, w.index))
+            depth = s.t if p is None else p.gap
+            glass_at = lo[axis] + sign * GLASS_POSITION * depth
+            end_at = lo[axis] + sign * depth
+            reveal.append((s, s.materials["walls"], f"{s.name}/reveal_{w.index}"))
+            inner = _slab(lo, hi, axis, lo[axis], glass_at)
+            holes.append((*inner, len(reveal) - 1))
+            outer = _slab(lo, hi, axis, glass_at, end_at)
+            if p is None:
+                holes.append((*outer, _AIR))
+            else:
+                nb = p.high if s is p.low else p.low
+                reveal.append((nb, nb.materials["walls"], f"{nb.name}/reveal_{s.name}.{w.index}"))
+                holes.append((*outer, len(reveal) - 1))
+    coords, kind = _solid(sp, holes)
+    _check_openings(sp, covered, coords, kind)
+
+    b = _Builder()
+    for s in sp:
+        _add_space(b, s, sp, parts, covered, glass)
+    exterior = Material("exterior", "opaque", exterior_reflectance, exterior=True)
+    for axis, sign, plane, label, rect in _solid_faces(coords, kind):
+        tris = _axis_rect(axis, plane, rect, sign)
+        if label == _AIR:
+            b.add(tris, exterior, "facade")
+        else:
+            s, mat, group = reveal[label]
+            b.add(tris, mat, group, s.index)
+    slabs = []
+    for s in sp:
+        if s.overhang is not None:
+            slabs += _building_overhang(b, s, sp, covered, exterior)
+    _building_obstructions(b, obstructions, sp, slabs, exterior)
+    return b.build(room=None, source=None, space_names=tuple(s.name for s in sp),
+                   space_boxes=np.array([[s.lo, s.hi] for s in sp]))
+
+
+def _slab(lo: np.ndarray, hi: np.ndarray, axis: int, a: float, b: float
+          ) -> tuple[np.ndarray, np.ndarray]:
+    """The box of the rectangle ``[lo, hi]`` (flat along ``axis``) swept from ``a`` to ``b``."""
+    lo, hi = lo.copy(), hi.copy()
+    lo[axis], hi[axis] = min(a, b), max(a, b)
+    return lo, hi
+
+
+def _glass_materials(spaces: list[_Space], covered: dict[tuple[int, int], _Partition],
+                     glazing_panes: Mapping[str, int], transmittance: Mapping[str, float]
+                     ) -> dict[tuple[int, int], Material]:
+    """The glazing material of every window: outside, or internal with its baked transmittance.
+
+    Raises
+    ------
+    GeometryError
+        A set used on both outside and internal windows (naming the set and
+        the window), an internal set without a transmittance in [0, 1], or
+        two internal windows filling the same opening.
+    """
+    use: dict[str, tuple[bool, int, int]] = {}
+    out = {}
+    for s in spaces:
+        for w in s.windows:
+            inside = (s.index, w.index) in covered
+            field = f"spaces.{s.index}.windows.{w.index}.glazing"
+            first = use.setdefault(w.glazing, (inside, s.index, w.index))
+            if first[0] != inside:
+                a, b = (first, (inside, s.index, w.index))
+                kinds = {True: "an internal opening", False: "an outside window"}
+                raise GeometryError(
+                    f"glazing set '{w.glazing}' is used on {kinds[a[0]]} (space "
+                    f"'{spaces[a[1]].name}', window {a[2]}) and on {kinds[b[0]]} (space "
+                    f"'{s.name}', window {w.index}); an internal opening's transmittance is "
+                    "fixed in the geometry, an outside one varies: give them separate sets",
+                    field=field)
+            if not inside:
+                out[(s.index, w.index)] = s.materials["glazing"][w.glazing]
+                continue
+            tau = transmittance.get(w.glazing)
+            if tau is None or not 0.0 <= float(tau) <= 1.0:
+                raise GeometryError(
+                    f"space '{s.name}': window {w.index} is an internal opening and needs the "
+                    f"normal transmittance of its glazing set '{w.glazing}' in [0, 1], got "
+                    f"{tau!r}", field=f"internal_transmittance.{w.glazing}")
+            out[(s.index, w.index)] = Material(
+                f"internal {w.glazing}", "glazing", 0.0, glazing_set=w.glazing,
+                panes=int(glazing_panes[w.glazing]), transmittance=float(tau))
+    keys = sorted(covered)
+    for n, a in enumerate(keys):
+        for b in keys[:n]:
+            if covered[a] is not covered[b]:
+                continue
+            la, ha, _, _ = _window_box(spaces[a[0]], spaces[a[0]].windows[a[1]])
+            lb, hb, _, _ = _window_box(spaces[b[0]], spaces[b[0]].windows[b[1]])
+            axis = covered[a].axis
+            other = [k for k in range(3) if k != axis]
+            if np.all(np.minimum(ha, hb)[other] - np.maximum(la, lb)[other] > _TOL):
+                raise GeometryError(
+                    f"window {a[1]} of space '{spaces[a[0]].name}' and window {b[1]} of space "
+                    f"'{spaces[b[0]].name}' fill the same opening between the two spaces; "
+                    "keep one of them", field=f"spaces.{a[0]}.windows.{a[1]}")
+    return out
+
+
+def _check_openings(spaces: list[_Space], covered: dict[tuple[int, int], _Partition],
+                    coords: list[np.ndarray], kind: np.ndarray) -> None:
+    """Refuse an outside window whose far end opens onto solid wall (another space's shell)."""
+    mid = [0.5 * (c[1:] + c[:-1]) for c in coords]
+    for s in spaces:
+        for w in s.windows:
+            if (s.index, w.index) in covered:
+                continue
+            lo, hi, axis, sign = _window_box(s, w)
+            probe = lo[axis] + sign * (s.t + 1e-6)
+            sel = []
+            for k in range(3):
+                if k == axis:
+                    sel.append(np.flatnonzero((coords[k][:-1] < probe) & (coords[k][1:] > probe)))
+                else:
+                    sel.append(np.flatnonzero((mid[k] > lo[k]) & (mid[k] < hi[k])))
+            if any(x.size == 0 for x in sel):
+                continue
+            cells = kind[np.ix_(*sel)]
+            if np.any(cells == _SOLID):
+                raise GeometryError(
+                    f"space '{s.name}': window {w.index} on the {w.wall} wall opens onto the "
+                    "walls of another space; move the window or the spaces apart",
+                    field=f"spaces.{s.index}.windows.{w.index}")
+
+
+_Rect = tuple[float, float, float, float]
+
+
+def _openings(space: _Space, wall: str, spaces: list[_Space],
+              covered: dict[tuple[int, int], _Partition]) -> list[_Rect]:
+    """Holes ``(u0, u1, v0, v1)`` in a face of ``space``: its windows and the internal
+    openings of other spaces that open into it there."""
+    plane, _, _ = space.plane(wall)
+    out = [(w.u0, w.u1, w.v0, w.v1) for w in space.windows if w.wall == wall]
+    for (i, k), p in covered.items():
+        if i != space.index and space in (p.low, p.high) and p.wall(space) == wall:
+            lo, hi, _, _ = _window_box(spaces[i], spaces[i].windows[k])
+            out.append(_plane_rect(plane, lo, hi))
+    return out
+
+
+def _plane_rect(plane: _WallPlane, lo: np.ndarray, hi: np.ndarray
+                ) -> tuple[float, float, float, float]:
+    """The box ``[lo, hi]`` projected on a wall plane: ``(u0, u1, v0, v1)``."""
+    u = sorted(float((c - plane.origin) @ plane.eu) for c in (lo, hi))
+    v = sorted(float((c - plane.origin) @ plane.ev) for c in (lo, hi))
+    return u[0], u[1], v[0], v[1]
+
+
+def _clip(holes: list[tuple[float, float, float, float]], r: tuple[float, float, float, float]
+          ) -> list[tuple[float, float, float, float]]:
+    """The parts of ``holes`` inside the rectangle ``r`` (empty ones dropped)."""
+    out = []
+    for h in holes:
+        c = (max(h[0], r[0]), min(h[1], r[1]), max(h[2], r[2]), min(h[3], r[3]))
+        if c[1] - c[0] > _TOL and c[3] - c[2] > _TOL:
+            out.append(c)
+    return out
+
+
+def _add_space(b: _Builder, s: _Space, spaces: list[_Space], parts: list[_Partition],
+               covered: dict[tuple[int, int], _Partition],
+               glass: dict[tuple[int, int], Material]) -> None:
+    """A space's interior faces (with window holes) and the glazing of its windows.
+
+    Holes are cut for the space's own windows and for the internal openings
+    of other spaces into it. Where a zero-gap partition covers a face, that
+    part is cut out and built once for both spaces as twins (this space's
+    triangles and the same corners in reverse order for the other, each with
+    its own space's material), when this space is the partition's low side.
+    The glass of a window sits at :data:`GLASS_POSITION` of the wall's
+    thickness, or of the gap to the other space for an internal opening.
+    """
+    for wall in _FACES:
+        plane, lu, lv = s.plane(wall)
+        openings = _openings(s, wall, spaces, covered)
+        holes = list(openings)
+        seams = []
+        for p in parts:
+            if p.gap == 0.0 and s in (p.low, p.high) and p.wall(s) == wall:
+                r = _plane_rect(plane, p.lo, p.hi)
+                holes.append(r)
+                seams.append((p, r))
+        mat = s.materials[{"floor": "floor", "roof": "ceiling"}.get(wall, "walls")]
+        group = f"{s.name}/{_FACE_GROUP.get(wall, 'wall_' + wall)}"
+        for r in _rect_minus_holes(0.0, lu, 0.0, lv, _clip(holes, (0.0, lu, 0.0, lv))):
+            b.add(plane.rect(*r, 0.0, -plane.ew), mat, group, s.index)
+        for p, r in seams:
+            if s is not p.low:
+                continue
+            nb = p.high
+            nb_wall = p.wall(nb)
+            nb_mat = nb.materials[{"floor": "floor", "roof": "ceiling"}.get(nb_wall, "walls")]
+            nb_group = f"{nb.name}/{_FACE_GROUP.get(nb_wall, 'wall_' + nb_wall)}"
+            for q in _rect_minus_holes(*r, _clip(openings, r)):
+                tris = plane.rect(*q, 0.0, -plane.ew)
+                first = b.add(tris, mat, group, s.index)
+                twin = b.add(tris[:, [0, 2, 1]], nb_mat, nb_group, nb.index)
+                b.pair(first, twin, tris.shape[0])
+        for w in s.windows:
+            if w.wall != wall:
+                continue
+            p = covered.get((s.index, w.index))
+            depth = s.t if p is None else p.gap
+            b.add(plane.rect(w.u0, w.u1, w.v0, w.v1, GLASS_POSITION * depth, plane.ew),
+                  glass[(s.index, w.index)], f"{s.name}/window_{w.index}", s.index)
+
+
+def _building_overhang(b: _Builder, s: _Space, spaces: list[_Space],
+                       covered: dict[tuple[int, int], _Partition],
+                       exterior: Material) -> list[tuple[np.ndarray, np.ndarray]]:
+    """The overhang slabs of space ``s`` over its outside front windows (as
+    :func:`_add_overhang`), clear of every space."""
+    outside = [w for w in s.windows if (s.index, w.index) not in covered]
+    try:
+        local = _Builder()
+        slabs = _add_overhang(local, s.overhang, outside, s.size[2], s.t, exterior)
+    except GeometryError as exc:
+        raise _prefixed(exc, s.index, s.name) from exc
+    out = []
+    for lo, hi in slabs:
+        lo, hi = lo + s.lo, hi + s.lo
+        for other in spaces:
+            glo, ghi = other.grown
+            if np.all(np.minimum(hi, ghi) - np.maximum(lo, glo) > _TOL):
+                raise GeometryError(
+                    f"space '{s.name}': the overhang runs into space '{other.name}'; reduce its "
+                    "depth or move the spaces", field=f"spaces.{s.index}.overhang.depth")
+        out.append((lo, hi))
+        b.add(_box_faces(lo, hi, skip=("+y",)), exterior, "overhang")
+    return out
+
+
+def _building_obstructions(b: _Builder, obstructions: Sequence[Any], spaces: list[_Space],
+                           slabs: list[tuple], exterior: Material) -> None:
+    """Exterior boxes standing on z = 0, clear of every space's walls and of the overhangs."""
+    for i, ob in enumerate(obstructions):
+        path = f"obstructions.{i}"
+        x = _number(ob, "x", f"{path}.x")
+        y = _number(ob, "y", f"{path}.y")
+        bw = _positive(ob, "width", f"{path}.width")
+        bd = _positive(ob, "depth", f"{path}.depth")
+        bh = _positive(ob, "height", f"{path}.height")
+        lo = np.array([x - bw / 2, y - bd / 2, 0.0])
+        hi = np.array([x + bw / 2, y + bd / 2, bh])
+        for s in spaces:
+            glo, ghi = s.grown
+            if np.all(np.minimum(hi, ghi) - np.maximum(lo, glo) > _TOL):
+                raise GeometryError(
+                    f"the box x = {lo[0]:g} … {hi[0]:g} m, y = {lo[1]:g} … {hi[1]:g} m overlaps "
+                    f"space '{s.name}' with its walls (x = {glo[0]:g} … {ghi[0]:g} m, "
+                    f"y = {glo[1]:g} … {ghi[1]:g} m); move it outside", field=path)
+        for slo, shi in slabs:
+            if np.all(np.minimum(hi, shi) > np.maximum(lo, slo)):
+                raise GeometryError("the box intersects an overhang; move it away from the "
+                                    "façade", field=path)
         b.add(_box_faces(lo, hi, skip=("-z",)), exterior, f"obstruction_{i}")
 
 
@@ -1180,9 +1932,11 @@ __all__ = [
     "GLASS_POSITION",
     "MAX_SENSORS",
     "OVERHANG_SLAB",
+    "SEAM_GAP",
     "WALLS",
     "Geometry",
     "Material",
+    "parametric_building",
     "parametric_room",
     "read_obj",
     "read_sensors",

@@ -23,6 +23,26 @@ coefficient stage:
 * :meth:`Scene.sky_view` — the same for rays from anywhere, telling blocked
   from unglazed rays.
 
+Buildings
+---------
+A scene of one parametric room (``geometry.room`` set) is convex from inside:
+a ray crosses at most one window, so the nearest glazing tells everything
+(:attr:`Scene.simple`, the original path, bit for bit). Any other scene (a
+building of several spaces, a mesh) may have rays crossing several panes:
+:meth:`Scene.trace` and :meth:`Scene.exit_glazing` then follow every glazing
+before the opaque hit (:meth:`Scene._crossings`, re-casting the ray from just
+beyond each pane). Internal glazing (between spaces) multiplies the ray by
+its baked ``τ_n × τ_rel(cos)`` — the same angular profile as outside glazing,
+:func:`kernels.glazing.relative_transmittance` — returned as ``factor``. A
+ray crossing two or more *outside* glazings (out of one window and through
+another part of the building) cannot be scaled by one set's variant
+transmittance: it is treated as blocked and counted
+(:attr:`Scene.crossed_twice`, reported as
+``CoefficientSet.crossed_twice``). That light is missing from the estimate
+(an underestimate), never added wrongly. Zero-gap partitions: a back-face hit
+on a triangle with a twin (:attr:`kernels.geometry.Geometry.twin`) becomes a
+front-face hit on the twin.
+
 Self-intersection
 -----------------
 The *Scene* offsets every origin by ``epsilon`` along its direction before the
@@ -49,8 +69,9 @@ from embreex import rtcore_scene as rtcs
 from embreex.mesh_construction import TriangleMesh
 
 from luxsweep.kernels.geometry import Geometry
+from luxsweep.kernels.glazing import relative_transmittance
 
-__all__ = ["BATCH", "BLOCKED", "NO_GLAZING", "Hits", "Scene"]
+__all__ = ["BATCH", "BLOCKED", "MAX_CROSSINGS", "NO_GLAZING", "Hits", "Scene"]
 
 BATCH = 1 << 20
 """Rays per Embree call (bounds Embree's per-call result arrays)."""
@@ -60,6 +81,10 @@ NO_GLAZING = -2
 
 BLOCKED = -1
 """:meth:`Scene.sky_view` code: an opaque surface blocks the ray."""
+
+MAX_CROSSINGS = 8
+"""Glazings a ray is followed through (:meth:`Scene._crossings`); a ray crossing more is
+treated as blocked."""
 
 _MISS = 1e30  # embree reports tfar = 1e37 on a miss
 
@@ -100,7 +125,8 @@ class Hits:
     Attributes
     ----------
     triangle : ndarray (n,) int64
-        Opaque triangle hit (index into ``geometry.triangles``), −1 for none.
+        Opaque triangle hit (index into ``geometry.triangles``), −1 for none;
+        at a zero-gap partition, the twin facing the ray.
     u, v : ndarray (n,) float32
         Barycentric coordinates of the hit point, ``p = (1 − u − v) v0 + u v1 + v v2``
         with the triangle's corners as stored in the geometry (meaningless
@@ -109,13 +135,21 @@ class Hits:
         The ray meets the front face of the triangle (runs against its normal).
     glazing : ndarray (n,) int32
         Glazing set of the nearest glazing crossed before the hit (or on the
-        way out, where there is no hit), −1 for none.
+        way out, where there is no hit), −1 for none; outside a
+        :attr:`Scene.simple` scene, the outside glazing crossed (internal
+        panes go into ``factor``; −1 also for two or more outside panes).
     cos_incidence : ndarray (n,) float64
         |cos| of the incidence angle at that glazing (0 where none).
     tfar : ndarray (n,) float32 [m]
         Embree's distance from the offset origin (see :attr:`distance`).
     epsilon : float [m]
         The scene's origin offset.
+    factor : ndarray (n,) float64 or None
+        Transmittance of the internal glazing crossed before the hit (or on
+        the way out), product over the crossings of ``τ_n × τ_rel(cos)``; 0 for
+        rays that cross two or more outside glazings (treated as blocked, see
+        :meth:`Scene.exit_glazing`). None in a scene of one convex room, where
+        it would be 1 for every ray.
     """
 
     triangle: np.ndarray
@@ -126,6 +160,7 @@ class Hits:
     cos_incidence: np.ndarray
     tfar: np.ndarray
     epsilon: float
+    factor: np.ndarray | None = None
 
     @property
     def distance(self) -> np.ndarray:
@@ -173,6 +208,16 @@ class Scene:
             np.all(self._glazing_normals == self._glazing_normals[:1]))
         self._one_glazing_normal = self._glazing_normals[:1] if same else None
         self._glazing_set = geometry.glazing_set_index[self.glazing_index]
+        self._twin = np.asarray(geometry.twin, dtype=np.int64)
+        self._twins = bool(np.any(self._twin >= 0))
+        # one parametric room is convex: a ray from inside crosses at most one window, and there
+        # is no internal glazing, so the nearest glazing tells everything (the original path)
+        self.simple = geometry.room is not None or self.glazing_index.size == 0
+        self._internal_tau = geometry.internal_transmittance[self.glazing_index]
+        self._glazing_panes = geometry.panes[self.glazing_index]
+        self.crossed_twice = 0
+        """Rays refused so far because they cross two or more outside glazings (a tally of
+        this scene's queries, for the caller's report)."""
 
     def __reduce__(self) -> tuple:
         return (Scene, (self.geometry, self.epsilon))
@@ -236,6 +281,68 @@ class Scene:
             return _abs_cos(d, one)[rays]
         return _abs_cos(d[rays], one)
 
+    def _internal_factor(self, k: np.ndarray, cos: np.ndarray) -> np.ndarray:
+        """``τ_n × τ_rel(cos)`` of internal glazing triangles ``k`` (glazing-scene index)."""
+        out = self._internal_tau[k].copy()
+        panes = self._glazing_panes[k]
+        for p in np.unique(panes):
+            sel = panes == p
+            out[sel] *= relative_transmittance(cos[sel], int(p))
+        return out
+
+    def _crossings(self, o: np.ndarray, d: np.ndarray, rays: np.ndarray, prim: np.ndarray,
+                   t: np.ndarray, limit: np.ndarray
+                   ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Every glazing the (prepared) rays ``rays`` cross before ``limit``.
+
+        ``prim``, ``t`` are each ray's first glazing hit (glazing-scene index,
+        distance from the offset origin); the rays are cast again from just
+        beyond each crossing (``epsilon`` further) until no glazing lies before
+        ``limit`` (their nearest opaque hit, or inf), at most
+        :data:`MAX_CROSSINGS` times.
+
+        Returns
+        -------
+        glazing_set : ndarray (m,) int32
+            The outside glazing set crossed (−1: none, or two or more).
+        cos_incidence : ndarray (m,) float64
+            |cos| at that outside glazing (0 where −1).
+        factor : ndarray (m,) float64
+            Product of ``τ_n τ_rel(cos)`` over the internal glazing crossed;
+            0 for rays crossing two or more outside glazings or more than
+            :data:`MAX_CROSSINGS` glazings (counted in :attr:`crossed_twice`).
+        """
+        m = rays.size
+        gset = np.full(m, -1, dtype=np.int32)
+        cos = np.zeros(m)
+        factor = np.ones(m)
+        count = np.zeros(m, dtype=np.int64)
+        idx, k, dist = np.arange(m), prim, np.asarray(t, dtype=np.float64)
+        for _ in range(MAX_CROSSINGS):
+            r = rays[idx]
+            c = _abs_cos(d[r], self._glazing_normals[k])
+            s = self._glazing_set[k]
+            out = s >= 0
+            first = out & (count[idx] == 0)
+            gset[idx[first]], cos[idx[first]] = s[first], c[first]
+            count[idx[out]] += 1
+            if not np.all(out):
+                factor[idx[~out]] *= self._internal_factor(k[~out], c[~out])
+            start = dist + self.epsilon
+            o2 = np.ascontiguousarray(o[r] + (start[:, None] * d[r]), dtype=np.float32)
+            p2, t2 = self._intersect(self._glazing, o2, d[r])
+            t2 = t2 + start
+            more = (p2 >= 0) & (t2 < limit[idx])
+            idx, k, dist = idx[more], p2[more], t2[more]
+            if idx.size == 0:
+                break
+        else:
+            count[idx] = 2  # too many panes to follow: refused like a double crossing
+        twice = count >= 2
+        gset[twice], cos[twice], factor[twice] = -1, 0.0, 0.0
+        self.crossed_twice += int(twice.sum())
+        return gset, cos, factor
+
     # ------------------------------------------------------------- queries
 
     def lift(self, points: np.ndarray, normals: np.ndarray) -> np.ndarray:
@@ -258,7 +365,9 @@ class Scene:
         Returns
         -------
         triangle : ndarray (n,) int64
-            Index into ``geometry.triangles`` (−1: no opaque hit).
+            Index into ``geometry.triangles`` (−1: no opaque hit); at a
+            zero-gap partition either of the two twins (use :meth:`trace`
+            to know which face the ray meets).
         distance : ndarray (n,) float64 [m]
             From the given origin (inf: no hit).
         """
@@ -317,8 +426,9 @@ class Scene:
         return gset, cos, dist + self.epsilon
 
     def exit_glazing(
-        self, origins: np.ndarray, directions: np.ndarray, unit: bool = False
-    ) -> tuple[np.ndarray, np.ndarray]:
+        self, origins: np.ndarray, directions: np.ndarray, unit: bool = False,
+        factor: bool = False,
+    ) -> tuple[np.ndarray, ...]:
         """Glazing set through which each ray reaches the sky (rays from inside).
 
         A ray reaches the sky through glazing when it crosses a glazing
@@ -326,20 +436,51 @@ class Scene:
         scene is queried for every ray, the opaque one only for the rays that
         cross glazing.
 
+        In a scene of several spaces (or a mesh) a ray may cross internal
+        glazing (between spaces) and more than one outside glazing: every
+        crossing is followed (:meth:`_crossings`). Internal glazing multiplies
+        the ray by its baked ``τ_n × τ_rel(cos)`` (``factor``); a ray crossing
+        two or more *outside* glazings would need the product of two sets'
+        variant transmittances, which one coefficient per set cannot hold, so
+        it is treated as blocked and counted in :attr:`crossed_twice` (it
+        leaves the building and enters it again: light lost in the estimate,
+        never added wrongly).
+
+        Parameters
+        ----------
+        factor : bool
+            Also return the internal-glazing factor (required when the
+            geometry has internal glazing).
+
         Returns
         -------
         glazing_set : ndarray (n,) int32
-            Set of the nearest glazing along the ray, −1 where the ray does not
-            reach the sky through glazing.
+            Set of the outside glazing along the ray, −1 where the ray does not
+            reach the sky through exactly one outside glazing.
         cos_incidence : ndarray (n,) float64
             |cos| at that glazing (0 where −1).
+        factor : ndarray (n,) float64, only with ``factor=True``
+            Transmittance of the internal glazing crossed (1 where none).
         """
+        if not factor and self._internal_tau.size and np.any(np.isfinite(self._internal_tau)):
+            raise ValueError("the geometry has internal glazing: call exit_glazing(factor=True)")
         o, d = self._prepare(origins, directions, unit)
         n = o.shape[0]
         gset = np.full(n, -1, dtype=np.int32)
         cos = np.zeros(n)
+        f = np.ones(n)
+        done = (gset, cos, f) if factor else (gset, cos)
         if self._glazing is None or n == 0:
-            return gset, cos
+            return done
+        if not self.simple:
+            prim, t = self._intersect(self._glazing, o, d)
+            cross = np.flatnonzero(prim >= 0)
+            free = cross[~self._blocked(o[cross], d[cross])]
+            if free.size:
+                g, c, ff = self._crossings(o, d, free, prim[free], t[free],
+                                           np.full(free.size, np.inf))
+                gset[free], cos[free], f[free] = g, c, ff
+            return done
         prim = _run(self._glazing, o, d, "INTERSECT")
         cross = np.flatnonzero(prim >= 0)
         if cross.size == n:  # every ray crosses glazing (the caller culled the others)
@@ -347,11 +488,11 @@ class Scene:
         elif cross.size:
             free = cross[~self._blocked(o[cross], d[cross])]
         else:
-            return gset, cos
+            return done
         k = prim[free]
         gset[free] = self._glazing_set[k]
         cos[free] = self._glazing_cos(d, free, k)
-        return gset, cos
+        return done
 
     def sky_view(
         self, origins: np.ndarray, directions: np.ndarray, unit: bool = False
@@ -368,7 +509,9 @@ class Scene:
             that set's glazing (the nearest glazing along the ray);
             :data:`NO_GLAZING` (−2) when it reaches the sky without crossing any
             glazing (rays from exterior surfaces); :data:`BLOCKED` (−1) when an
-            opaque surface is hit.
+            opaque surface is hit, or when the nearest glazing is an internal
+            pane (between two spaces: only a ray that has crossed outside
+            glazing already can reach one).
         cos_incidence : ndarray (n,) float64
             |cos| at the crossed glazing (0 unless code ≥ 0).
         """
@@ -420,10 +563,13 @@ class Scene:
         res = _run(self._all, o, d, "INTERSECT", output=True)
         prim, u, v, t, ng = res["primID"], res["u"], res["v"], res["tfar"], res["Ng"]
         glass = np.flatnonzero(prim >= self._n_opaque)
+        factor = None if self.simple else np.ones(n)
         if glass.size:
             local = prim[glass] - self._n_opaque
-            glazing[glass] = self._glazing_set[local]
-            cos[glass] = self._glazing_cos(d, glass, local)
+            first_t = t[glass].astype(np.float64)
+            if self.simple:
+                glazing[glass] = self._glazing_set[local]
+                cos[glass] = self._glazing_cos(d, glass, local)
             if self._opaque is None:
                 prim[glass] = -1
             else:
@@ -431,6 +577,31 @@ class Scene:
                 prim[glass] = again["primID"]
                 u[glass], v[glass], t[glass] = again["u"], again["v"], again["tfar"]
                 ng[glass] = again["Ng"]
+            if factor is not None:
+                limit = np.where(prim[glass] >= 0, t[glass].astype(np.float64), np.inf)
+                glazing[glass], cos[glass], factor[glass] = self._crossings(
+                    o, d, glass, local, first_t, limit)
         # Embree's geometric normal Ng points like the geometry's (v1 − v0) × (v2 − v0)
         front = (np.einsum("ij,ij->i", ng, d) < 0.0) & (prim >= 0)
-        return Hits(self._opaque_table[prim], u, v, front, glazing, cos, t, self.epsilon)
+        triangle = self._opaque_table[prim]
+        if self._twins:
+            self._face_twins(triangle, u, v, front)
+        return Hits(triangle, u, v, front, glazing, cos, t, self.epsilon, factor)
+
+    def _face_twins(self, triangle: np.ndarray, u: np.ndarray, v: np.ndarray,
+                    front: np.ndarray) -> None:
+        """Turn back-face hits on a zero-gap partition into front hits on the twin (in place).
+
+        The two coincident faces of a partition lie at the same distance, so
+        Embree may report either; the one facing the ray is the twin of a
+        back-face hit. Twins have the same corners in reverse order
+        ``(v0, v2, v1)``, so the barycentric ``(u, v)`` of the hit point swap.
+        """
+        back = np.flatnonzero(~front & (triangle >= 0))
+        if back.size == 0:
+            return
+        twin = self._twin[triangle[back]]
+        back, twin = back[twin >= 0], twin[twin >= 0]
+        triangle[back] = twin
+        u[back], v[back] = v[back], u[back].copy()
+        front[back] = True

@@ -27,6 +27,12 @@ sub-triangles), ``m`` chosen from the triangle's size and ``element_size``.
 A ray hit on a triangle is mapped to its element from the barycentric
 coordinates of the hit point, so the ray-tracing scene stays the coarse one.
 
+Internal glazing (between spaces of a building): a ray that crosses it carries
+its transmittance ``factor`` (:attr:`kernels.raytrace.Hits.factor`), which
+multiplies the ray's weight in every sum (same-region transfer, the through
+matrices, sky sources, the gather); transmission is the same both ways, so
+the shooting estimator's reciprocity still holds.
+
 Everything here is pure numerics (arrays in, arrays out); the ray casting of
 the classification step goes through :class:`kernels.raytrace.Scene`
 (:meth:`~kernels.raytrace.Scene.trace`: one combined query per ray, the element
@@ -85,6 +91,7 @@ __all__ = [
     "factor_radiosity",
     "gather_matrix",
     "gather_radiosity",
+    "inset_triangles",
     "latin_square",
     "mesh_elements",
     "onb",
@@ -418,6 +425,34 @@ def points_in_triangles(vertices: np.ndarray, r1: np.ndarray, r2: np.ndarray) ->
     return np.matmul(weights, np.asarray(vertices, dtype=dtype))
 
 
+def inset_triangles(vertices: np.ndarray, distance: float) -> np.ndarray:
+    """Triangles shrunk about their incentre so every edge moves ``distance`` [m] inwards.
+
+    Ray origins sampled on the shrunk triangles stay at least ``distance``
+    from the edges, so a ray's origin offset (:class:`kernels.raytrace.Scene`)
+    cannot carry it across a surface that meets the triangle's edge (a pane
+    of internal glazing meeting its reveal). Triangles narrower than that
+    collapse to their incentre.
+
+    Parameters
+    ----------
+    vertices : ndarray (m, 3, 3) [m]
+    distance : float [m]
+
+    Returns
+    -------
+    ndarray (m, 3, 3), the dtype of ``vertices``
+    """
+    v = np.asarray(vertices, dtype=np.float64)
+    side = np.linalg.norm(np.roll(v, -1, axis=1) - np.roll(v, 1, axis=1), axis=2)  # opposite
+    centre = np.einsum("mk,mkc->mc", side, v) / side.sum(axis=1, keepdims=True)
+    area = 0.5 * np.linalg.norm(np.cross(v[:, 1] - v[:, 0], v[:, 2] - v[:, 0]), axis=1)
+    radius = 2.0 * area / np.maximum(side.sum(axis=1), 1e-300)
+    scale = np.clip(1.0 - distance / np.maximum(radius, 1e-300), 0.0, 1.0)
+    out = centre[:, None, :] + scale[:, None, None] * (v - centre[:, None, :])
+    return out.astype(np.asarray(vertices).dtype)
+
+
 # ---------------------------------------------------------------------------
 # Analytic configuration factors (references for tests and checks)
 # ---------------------------------------------------------------------------
@@ -680,10 +715,14 @@ class RayPaths:
         |cos| of the incidence angle at that glazing (0 where none).
     panes : tuple of int
         Panes of each glazing set.
+    factor : ndarray (n,) float64 or None
+        Transmittance of the internal glazing crossed (between spaces of a
+        building; 0 for rays refused because they cross two outside
+        glazings), :attr:`kernels.raytrace.Hits.factor`; None: 1 for every ray.
     transmit : ndarray (n,) float64
-        Relative transmittance of that crossing (1 where none); computed when
-        first read (:func:`relative_transmit`), as most callers need it for a
-        few rays only.
+        Relative transmittance of that crossing (1 where none) times
+        ``factor``; computed when first read (:func:`relative_transmit`), as
+        most callers need it for a few rays only.
     """
 
     element: np.ndarray
@@ -691,10 +730,12 @@ class RayPaths:
     glazing: np.ndarray
     cos_incidence: np.ndarray
     panes: tuple[int, ...]
+    factor: np.ndarray | None = None
 
     @functools.cached_property
     def transmit(self) -> np.ndarray:
-        return relative_transmit(self.cos_incidence, self.glazing, self.panes)
+        tau = relative_transmit(self.cos_incidence, self.glazing, self.panes)
+        return tau if self.factor is None else tau * self.factor
 
 
 def relative_transmit(cos_incidence: np.ndarray, glazing: np.ndarray,
@@ -750,7 +791,7 @@ def trace_paths(scene: Any, elements: Elements, origins: np.ndarray, directions:
         hit, t = hit[meshed], t[meshed]
     element[hit] = elements.locate_barycentric(t, hits.u[hit], hits.v[hit])
     return RayPaths(element=element, escaped=hits.triangle < 0, glazing=hits.glazing,
-                    cos_incidence=hits.cos_incidence, panes=tuple(panes))
+                    cos_incidence=hits.cos_incidence, panes=tuple(panes), factor=hits.factor)
 
 
 def _csr(rows: np.ndarray, cols: np.ndarray, values: np.ndarray,
@@ -848,7 +889,10 @@ def _tally_landed(paths: RayPaths, owner: np.ndarray, ext: np.ndarray, area: np.
         s_src, s_dst = src[sel], dst[sel]
     else:
         s_src, s_dst = src, dst
-    same.add(s_dst, s_src, area[s_src] / (area[s_dst] * rays))
+    weight = area[s_src] / (area[s_dst] * rays)
+    if paths.factor is not None:  # internal glazing crossed on the way (reciprocal: τ both ways)
+        weight = weight * paths.factor[landed][sel]
+    same.add(s_dst, s_src, weight)
     if outside:  # interior -> exterior through the windows of each set
         tau = paths.transmit[landed]
         for k, triplets in enumerate(through):
@@ -929,6 +973,8 @@ def transfer_matrix(
             normal = elements.normal[ids]
             # origins on the lifted elements (lifting is affine: lift corners, then sample)
             lifted = scene.lift(elements.vertices[ids], normal[:, None, :])
+            if not scene.simple:
+                lifted = inset_triangles(lifted, 3.0 * scene.epsilon)
             origins = points_in_triangles(lifted, r1[part], r2[part]).reshape(-1, 3)
             dirs = cosine_directions(normal, u1[part].astype(np.float32),
                                      u2[part].astype(np.float32)).reshape(-1, 3)
@@ -938,11 +984,14 @@ def transfer_matrix(
             if scheme is not None:
                 esc = np.flatnonzero(paths.escaped)
                 src, j = owner[esc], patch_index(scheme, dirs[esc])
-                escaped.append((src, j, paths.glazing[esc], paths.cos_incidence[esc]))
+                escaped.append((src, j, paths.glazing[esc], paths.cos_incidence[esc],
+                                *(() if paths.factor is None else (paths.factor[esc],))))
         if escaped:  # one sum per draw, in ray order
-            src, j, g, cos_g = (np.concatenate(p) for p in zip(*escaped, strict=True))
+            src, j, g, cos_g, *f = (np.concatenate(p) for p in zip(*escaped, strict=True))
             flat = src * n_basis + j
             weight = np.pi * relative_transmit(cos_g, g, panes) / (rays * omega[j])
+            if f:
+                weight = weight * f[0]
             for k in range(n_sets):
                 sel = (g == k) & ~ext[src]
                 sky_int[k] += np.bincount(flat[sel], weight[sel], n * n_basis).reshape(n, -1)
@@ -950,6 +999,13 @@ def transfer_matrix(
             sky_ext += np.bincount(flat[sel], weight[sel], n * n_basis).reshape(n, -1)
     return Transfer(same=same.matrix(), through=[t.matrix() for t in through],
                     sky_interior=sky_int, sky_exterior=sky_ext)
+
+
+def _gather_weight(paths: RayPaths, landed: np.ndarray, sel: np.ndarray,
+                   rays: int) -> np.ndarray:
+    """``1 / rays`` for each selected landed ray, times its internal-glazing factor."""
+    weight = np.full(int(sel.sum()), 1.0 / rays)
+    return weight if paths.factor is None else weight * paths.factor[landed][sel]
 
 
 def gather_matrix(
@@ -1018,11 +1074,11 @@ def gather_matrix(
         g = paths.glazing[landed]
         if not outside:  # one region: the rays that land without crossing glazing
             sel = g < 0
-            same.add(src[sel], dst[sel], np.full(int(sel.sum()), 1.0 / rays))
+            same.add(src[sel], dst[sel], _gather_weight(paths, landed, sel, rays))
             continue
         ext, tau = elements.exterior[dst], paths.transmit[landed]
         sel = (g < 0) & ~ext
-        same.add(src[sel], dst[sel], np.full(int(sel.sum()), 1.0 / rays))
+        same.add(src[sel], dst[sel], _gather_weight(paths, landed, sel, rays))
         for k in range(n_sets):
             sel = (g == k) & ext
             through[k].add(src[sel], dst[sel], tau[sel] / rays)

@@ -15,10 +15,11 @@ import sys
 import textwrap
 
 import pytest
+import test_building
 import test_metrics
 import test_sky
 
-from luxsweep.kernels import metrics, sky
+from luxsweep.kernels import metrics, raytrace, sky
 
 
 def mutate(monkeypatch: pytest.MonkeyPatch, module, name: str, old: str, new: str) -> None:
@@ -79,3 +80,20 @@ def test_a_changed_sign_is_noticed(monkeypatch):
     mutate(monkeypatch, sky, "luminance_cie_overcast", "(1.0 + 2.0 *", "(1.0 - 2.0 *")
     with pytest.raises(AssertionError):
         test_sky.test_cie_overcast_illuminance_over_patches()
+
+
+def test_a_lost_twin_mapping_is_noticed(monkeypatch):
+    # a back-face hit turned onto the twin must swap the barycentric coordinates (the twin's
+    # corners are in reverse order), else the hit point leaves the seam plane
+    mutate(monkeypatch, raytrace, "Scene", "u[back], v[back] = v[back], u[back].copy()",
+           "pass")
+    with pytest.raises(AssertionError):
+        test_building.test_zero_gap_twins_face_the_ray()
+
+
+def test_an_ignored_internal_pane_is_noticed(monkeypatch):
+    # light through an internal opening scales with its transmittance (superposition)
+    mutate(monkeypatch, raytrace, "Scene", "factor[idx[~out]] *= self._internal_factor",
+           "factor[idx[~out]] *= 0 * self._internal_factor")
+    with pytest.raises(AssertionError):
+        test_building.test_borrowed_light_is_linear_in_transmittance(0.0)
