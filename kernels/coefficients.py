@@ -783,6 +783,9 @@ class ElementSolution:
         projection (n_outer, 2); None without exterior elements.
     adjoint : bool
         Whether ``solved`` holds the sources (fewer sensors than sources).
+    crossed_twice : int
+        Rays of this stage that crossed outside glazing twice (counted as
+        blocked; :attr:`CoefficientSet.crossed_twice`).
     """
 
     elements: Any
@@ -795,6 +798,7 @@ class ElementSolution:
     b_ext: np.ndarray | None
     ext_overcast: np.ndarray | None
     adjoint: bool
+    crossed_twice: int = 0
 
 
 def _solve_elements(scene: Any, geometry: Any, n_sensors: int, settings: Settings,
@@ -851,7 +855,8 @@ def _solve_elements(scene: Any, geometry: Any, n_sensors: int, settings: Setting
         solved_overcast.append(solve_factored(lu, rho[inner], source[:, :n_basis] @ overcast))
         solved.append(source if adjoint else solve_factored(lu, rho[inner], source))
     ext_overcast = None if b_ext is None else b_ext[:, :n_basis] @ overcast
-    return ElementSolution(elements=el, inner=inner, outer=outer, lu=lu, rho=rho[inner],
+    return ElementSolution(crossed_twice=scene.crossed_twice,
+                           elements=el, inner=inner, outer=outer, lu=lu, rho=rho[inner],
                            solved=solved, solved_overcast=solved_overcast, b_ext=b_ext,
                            ext_overcast=ext_overcast, adjoint=adjoint)
 
@@ -1120,7 +1125,8 @@ def direct_part(geometry: Any, sensors: np.ndarray, first: int, stop: int,
     part = sensors[first:stop]
     inside = np.zeros(part.shape[0], dtype=bool)
     sun = _sun_direct(scene, part[:, :3], part[:, 3:], inside, fine, panes, np.float32)
-    return {"sky_direct": sky, "var_sky": var_sky, "var_ground": var_ground, "sun_direct": sun}
+    return {"sky_direct": sky, "var_sky": var_sky, "var_ground": var_ground, "sun_direct": sun,
+            "crossed_twice": np.array(scene.crossed_twice)}
 
 
 def reflected_part(geometry: Any, sensors: np.ndarray, solution: ElementSolution | None,
@@ -1154,14 +1160,17 @@ def reflected_part(geometry: Any, sensors: np.ndarray, solution: ElementSolution
     sun = _sun_points(float(settings.sun_spacing),
                       float(max(settings.reflected_sun_spacing, settings.sun_spacing)))
     panes = tuple(int(p) for p in geometry.set_panes)
-    sky, sun_r, scatter = _gather(Scene(geometry), solution, sensors, settings, scheme, sun,
+    scene = Scene(geometry)
+    sky, sun_r, scatter = _gather(scene, solution, sensors, settings, scheme, sun,
                                   panes, first, stop)
-    return {"sky_reflected": sky, "sun_reflected": sun_r, "scatter": scatter}
+    return {"sky_reflected": sky, "sun_reflected": sun_r, "scatter": scatter,
+            "crossed_twice": np.array(scene.crossed_twice)}
 
 
 def assemble(geometry: Any, sensors: np.ndarray, direct: list[dict[str, np.ndarray]],
              reflected: list[dict[str, np.ndarray]], settings: Settings | None = None,
-             requested: Settings | None = None) -> CoefficientSet:
+             requested: Settings | None = None, element_crossed_twice: int = 0
+             ) -> CoefficientSet:
     """The coefficient set from its parts, in sensor order (last of the split stages).
 
     Parameters
@@ -1175,6 +1184,8 @@ def assemble(geometry: Any, sensors: np.ndarray, direct: list[dict[str, np.ndarr
         The settings the parts were computed with.
     requested : Settings, optional
         The settings recorded in the set (and its key); default ``settings``.
+    element_crossed_twice : int
+        :attr:`ElementSolution.crossed_twice` of the element stage.
 
     Returns
     -------
@@ -1212,7 +1223,8 @@ def assemble(geometry: Any, sensors: np.ndarray, direct: list[dict[str, np.ndarr
         settings=requested,
         kernel_version=kernels.KERNEL_VERSION,
         overcast_error=scatter.astype(np.float32),
-        crossed_twice=scene.crossed_twice,
+        crossed_twice=int(sum(int(p["crossed_twice"]) for p in (*direct, *reflected)))
+        + int(element_crossed_twice),
     )
 
 
@@ -1227,8 +1239,9 @@ def _compute(geometry: Any, sensors: np.ndarray, settings: Settings,
     direct = direct_part(geometry, sensors, 0, n, settings)
     solution = solve_elements(geometry, n, settings)
     reflected = reflected_part(geometry, sensors, solution, 0, n, settings)
+    twice = 0 if solution is None else solution.crossed_twice
     del solution
-    return assemble(geometry, sensors, [direct], [reflected], settings, requested)
+    return assemble(geometry, sensors, [direct], [reflected], settings, requested, twice)
 
 
 def daylight_factor_error(coeffs: CoefficientSet, ground_reflectance: float,

@@ -324,3 +324,29 @@ def test_closed_building_conserves_energy(gap, thickness):
     own = geo.space[el.triangle]
     assert same[np.ix_(own == 1, own == 0)].sum() > 0
     assert same[np.ix_(own == 0, own == 1)].sum() > 0
+
+
+def test_two_outside_panes_counted_the_same_in_parts():
+    # the count of refused rays is additive over the split stages (kernels.coefficients):
+    # the parts report what the one-process set reports
+    from luxsweep.kernels.coefficients import (
+        assemble,
+        direct_part,
+        reflected_part,
+        solve_elements,
+    )
+
+    a = _space("a")
+    through = [{"wall": "left", "width": 16.0, "sill": 0.2, "head": 7.5, "glazing": "main"},
+               {"wall": "right", "width": 16.0, "sill": 0.2, "head": 7.5, "glazing": "main"}]
+    wing = dict(x=7.0, y=-20.0, width=4.0, depth=17.0, height=8.0, thickness=0.2)
+    glazed = parametric_building([a, _space("w", windows=through, **wing)], PANES)
+    sens = _grid(a)
+    whole = compute_coefficients(glazed, sens, QUICK)
+    n = sens.shape[0]
+    solution = solve_elements(glazed, n, QUICK)
+    split = assemble(glazed, sens, [direct_part(glazed, sens, 0, n, QUICK)],
+                     [reflected_part(glazed, sens, solution, 0, n, QUICK)], QUICK,
+                     element_crossed_twice=solution.crossed_twice)
+    assert split.crossed_twice == whole.crossed_twice > 0
+    np.testing.assert_array_equal(split.sky_direct, whole.sky_direct)

@@ -46,7 +46,8 @@ def _parts(geometry, sensors, settings, size):
     solution = pickle.loads(pickle.dumps(solve_elements(geometry, n, settings)))  # as sent
     direct = [direct_part(geometry, sensors, a, b, settings) for a, b in ranges]
     reflected = [reflected_part(geometry, sensors, solution, a, b, settings) for a, b in ranges]
-    return assemble(geometry, sensors, direct, reflected, settings)
+    return assemble(geometry, sensors, direct, reflected, settings,
+                    element_crossed_twice=0 if solution is None else solution.crossed_twice)
 
 
 @pytest.mark.parametrize(("spacing", "sun", "size", "adjoint"), [
