@@ -7,6 +7,10 @@ Order of work (DESIGN.md §3):
    :class:`~sweep.cache.CoefficientCache` (a task whose key is already in the
    worker's cache reads it); its result holds the set, which Dask sends to the
    set's series tasks wherever they run, so the cache folder need not be shared.
+   A set of more than one sensor range (:func:`split_ranges`) is split: its
+   element stage and the direct part of every range run at once on any worker,
+   the reflected part of every range follows the element stage, and one
+   assembly task publishes the set (the same arrays, bit for bit).
 2. One task per (coefficient key, climate, series settings) — see
    :class:`sweep.plan.SeriesTask`: sky vectors of all its orientations in time
    blocks (:func:`kernels.sky.sky_vectors`), illuminance of all its glazing rows
@@ -36,6 +40,7 @@ from __future__ import annotations
 
 import contextlib
 import dataclasses
+import functools
 import itertools
 import logging
 import os
@@ -112,6 +117,73 @@ def coefficient_task(job: CoefficientJob, cache_root: str) -> dict[str, Any]:
     cache.save(coefficients)
     return {"key": job.key, "computed": True, "seconds": time.perf_counter() - t0,
             "coefficients": coefficients}
+
+
+def split_ranges(job: CoefficientJob) -> list[tuple[int, int]]:
+    """Sensor ranges of the tasks one coefficient set is split into ([] keeps it one task).
+
+    A set of more than one :data:`kernels.coefficients.SENSOR_PART` of sensors is
+    split (the element stage, then one direct and one reflected task per range,
+    then the assembly), so that every worker can take a share of one large set
+    and no task holds more than a range's arrays; ``target_error`` needs the
+    whole set's error before it can choose the ray counts, so such a set stays
+    one task.
+    """
+    from luxsweep.kernels.coefficients import SENSOR_PART
+
+    n = job.n_sensors
+    if n <= SENSOR_PART or job.settings.target_error > 0.0:
+        return []
+    return [(a, min(a + SENSOR_PART, n)) for a in range(0, n, SENSOR_PART)]
+
+
+def coefficient_elements_task(job: CoefficientJob) -> dict[str, Any]:
+    """Element stage of a split set (:func:`kernels.coefficients.solve_elements`)."""
+    from luxsweep.kernels.coefficients import solve_elements
+
+    t0 = time.perf_counter()
+    solution = solve_elements(job.geometry, job.n_sensors, job.settings)
+    return {"solution": solution, "seconds": time.perf_counter() - t0,
+            "crossed_twice": 0 if solution is None else solution.crossed_twice}
+
+
+def coefficient_part_task(job: CoefficientJob, first: int, stop: int,
+                          elements: dict[str, Any] | None = None) -> dict[str, Any]:
+    """Direct (no ``elements``) or reflected families of sensors ``first`` to ``stop``."""
+    from luxsweep.kernels.coefficients import direct_part, reflected_part
+
+    t0 = time.perf_counter()
+    if elements is None:
+        part = direct_part(job.geometry, job.sensors, first, stop, job.settings)
+    else:
+        part = reflected_part(job.geometry, job.sensors, elements["solution"], first, stop,
+                              job.settings)
+    part["seconds"] = np.array(time.perf_counter() - t0)
+    return part
+
+
+def _element_info(elements: dict[str, Any]) -> dict[str, Any]:
+    return {k: v for k, v in elements.items() if k != "solution"}
+
+
+def coefficient_assemble_task(job: CoefficientJob, cache_root: str, direct: list[dict],
+                              reflected: list[dict], elements: dict[str, Any]
+                              ) -> dict[str, Any]:
+    """Assemble a split set from its parts and publish it (as :func:`coefficient_task` does).
+
+    The cache entry is written only here, atomically, once every part exists: a
+    worker lost midway makes Dask recompute its parts (the same numbers: every
+    draw is seeded), never a partial entry.
+    """
+    from luxsweep.kernels.coefficients import assemble
+
+    t0 = time.perf_counter()
+    coefficients = assemble(job.geometry, job.sensors, direct, reflected, job.settings,
+                            element_crossed_twice=elements["crossed_twice"])
+    CoefficientCache(cache_root).save(coefficients)
+    seconds = (time.perf_counter() - t0 + elements["seconds"]
+               + sum(float(p["seconds"]) for p in (*direct, *reflected)))
+    return {"key": job.key, "computed": True, "seconds": seconds, "coefficients": coefficients}
 
 
 def coefficient_info(result: dict[str, Any]) -> dict[str, Any]:
@@ -840,14 +912,38 @@ class Collector:
         """One task per missing set, largest first, ahead of every series task."""
         for rank, job in enumerate(missing):
             priority = 100 + len(missing) - rank
-            fut = self.client.submit(
-                coefficient_task, job, self.cache_root, key=f"coefficients-{job.key[:24]}",
-                priority=priority, pure=False, retries=0,
-            )
+            ranges = split_ranges(job)
+            if ranges:
+                fut = self._submit_split(job, ranges, priority)
+            else:
+                fut = self.client.submit(
+                    coefficient_task, job, self.cache_root, key=f"coefficients-{job.key[:24]}",
+                    priority=priority, pure=False, retries=0,
+                )
             info = self.client.submit(coefficient_info, fut, key=f"coefficient-info-"
                                       f"{job.key[:24]}", priority=priority, pure=False)
             self.coefficients[job.key] = fut
             self.coefficient_keys[info] = job.key
+
+    def _submit_split(self, job: CoefficientJob, ranges: list[tuple[int, int]],
+                      priority: int) -> Any:
+        """The tasks of one split set (:func:`split_ranges`); the future of its assembly.
+
+        The direct parts need nothing from the element stage, so they run beside
+        it; the client keeps only the assembly's future (Dask keeps the parts
+        while the assembly needs them, and recomputes any a lost worker held).
+        """
+        short = job.key[:24]
+        submit = functools.partial(self.client.submit, priority=priority, pure=False,
+                                   retries=0)
+        elements = submit(coefficient_elements_task, job, key=f"coefficient-elements-{short}")
+        direct = [submit(coefficient_part_task, job, a, b, key=f"coefficient-direct-{short}-{a}")
+                  for a, b in ranges]
+        reflected = [submit(coefficient_part_task, job, a, b, elements,
+                            key=f"coefficient-reflected-{short}-{a}") for a, b in ranges]
+        info = submit(_element_info, elements, key=f"coefficient-element-info-{short}")
+        return submit(coefficient_assemble_task, job, self.cache_root, direct, reflected, info,
+                      key=f"coefficients-{short}")
 
     def _submit(self, task: SeriesTask, todo: list[tuple[int, int, int]], key: str) -> Any:
         # the set through Dask while this run holds it; else the worker's cache,
@@ -1030,7 +1126,10 @@ __all__ = [
     "RunSummary",
     "VariantFailedError",
     "Workspace",
+    "coefficient_assemble_task",
+    "coefficient_elements_task",
     "coefficient_info",
+    "coefficient_part_task",
     "coefficient_task",
     "dask_client",
     "default_cache",
@@ -1041,6 +1140,7 @@ __all__ = [
     "prepare",
     "run_study",
     "series_task",
+    "split_ranges",
     "store_variables",
     "terminate_as_interrupt",
 ]
