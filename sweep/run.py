@@ -186,6 +186,26 @@ def coefficient_assemble_task(job: CoefficientJob, cache_root: str, direct: list
     return {"key": job.key, "computed": True, "seconds": seconds, "coefficients": coefficients}
 
 
+def submit_split(client: Any, job: CoefficientJob, cache_root: str,
+                 ranges: list[tuple[int, int]], priority: int = 0) -> Any:
+    """Submit the tasks of one split set (:func:`split_ranges`); the future of its assembly.
+
+    The direct parts need nothing from the element stage, so they run beside
+    it; the caller keeps only the assembly's future (Dask keeps the parts
+    while the assembly needs them, and recomputes any a lost worker held).
+    """
+    short = job.key[:24]
+    submit = functools.partial(client.submit, priority=priority, pure=False, retries=0)
+    elements = submit(coefficient_elements_task, job, key=f"coefficient-elements-{short}")
+    direct = [submit(coefficient_part_task, job, a, b, key=f"coefficient-direct-{short}-{a}")
+              for a, b in ranges]
+    reflected = [submit(coefficient_part_task, job, a, b, elements,
+                        key=f"coefficient-reflected-{short}-{a}") for a, b in ranges]
+    info = submit(_element_info, elements, key=f"coefficient-element-info-{short}")
+    return submit(coefficient_assemble_task, job, cache_root, direct, reflected, info,
+                  key=f"coefficients-{short}")
+
+
 def coefficient_info(result: dict[str, Any]) -> dict[str, Any]:
     """The result of :func:`coefficient_task` without the set (what the client reads)."""
     return {k: v for k, v in result.items() if k != "coefficients"}
@@ -927,23 +947,7 @@ class Collector:
 
     def _submit_split(self, job: CoefficientJob, ranges: list[tuple[int, int]],
                       priority: int) -> Any:
-        """The tasks of one split set (:func:`split_ranges`); the future of its assembly.
-
-        The direct parts need nothing from the element stage, so they run beside
-        it; the client keeps only the assembly's future (Dask keeps the parts
-        while the assembly needs them, and recomputes any a lost worker held).
-        """
-        short = job.key[:24]
-        submit = functools.partial(self.client.submit, priority=priority, pure=False,
-                                   retries=0)
-        elements = submit(coefficient_elements_task, job, key=f"coefficient-elements-{short}")
-        direct = [submit(coefficient_part_task, job, a, b, key=f"coefficient-direct-{short}-{a}")
-                  for a, b in ranges]
-        reflected = [submit(coefficient_part_task, job, a, b, elements,
-                            key=f"coefficient-reflected-{short}-{a}") for a, b in ranges]
-        info = submit(_element_info, elements, key=f"coefficient-element-info-{short}")
-        return submit(coefficient_assemble_task, job, self.cache_root, direct, reflected, info,
-                      key=f"coefficients-{short}")
+        return submit_split(self.client, job, self.cache_root, ranges, priority)
 
     def _submit(self, task: SeriesTask, todo: list[tuple[int, int, int]], key: str) -> Any:
         # the set through Dask while this run holds it; else the worker's cache,
@@ -1142,5 +1146,6 @@ __all__ = [
     "series_task",
     "split_ranges",
     "store_variables",
+    "submit_split",
     "terminate_as_interrupt",
 ]
