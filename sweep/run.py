@@ -207,8 +207,14 @@ def submit_split(client: Any, job: CoefficientJob, cache_root: str,
 
 
 def coefficient_info(result: dict[str, Any]) -> dict[str, Any]:
-    """The result of :func:`coefficient_task` without the set (what the client reads)."""
-    return {k: v for k, v in result.items() if k != "coefficients"}
+    """The result of :func:`coefficient_task` without the set (what the client reads).
+
+    ``crossed_twice``: rays of a newly computed set that crossed two or more
+    outside glazings and were counted as blocked (0 for a set read from the cache).
+    """
+    out = {k: v for k, v in result.items() if k != "coefficients"}
+    out["crossed_twice"] = int(result["coefficients"].crossed_twice) if result["computed"] else 0
+    return out
 
 
 def _coefficients(task: SeriesTask, cache_root: str, coefficient_result: Any,
@@ -648,6 +654,8 @@ class RunSummary:
     coefficient_sets_recomputed: int = 0
     seconds: float = 0.0
     timing: dict[str, float] = field(default_factory=dict)
+    crossed_twice: int = 0
+    """Rays of the sets computed now that crossed two outside glazings (counted as blocked)."""
 
     @property
     def ok(self) -> bool:
@@ -1001,6 +1009,7 @@ class Collector:
             res = fut.result()
             self.summary.coefficient_sets_computed += int(res["computed"])
             self.timing["coefficients"] += res["seconds"]
+            self.summary.crossed_twice += int(res.get("crossed_twice", 0))
             if self.progress is not None:
                 self.progress.set_done()
             fut.release()
@@ -1098,6 +1107,11 @@ def format_summary(summary: RunSummary) -> str:
         parts = ", ".join(f"{k} {v:.1f} s ({100 * v / busy:.0f} %)"
                           for k, v in summary.timing.items() if busy > 0)
         lines.append(f"worker time: {parts}")
+    if summary.crossed_twice:
+        lines.append(f"note: {summary.crossed_twice:,} rays left through one outside window and "
+                     "met another; they were counted as blocked (light re-entering the "
+                     "building from outside is not followed), so results there are slightly "
+                     "low")
     for task_id, ids in summary.failed.items():
         lines.append(f"FAILED {task_id}: variants {', '.join(ids)}")
     return "\n".join(lines)
