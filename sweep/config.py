@@ -40,6 +40,7 @@ from __future__ import annotations
 import difflib
 import hashlib
 import json
+import math
 import os
 import re
 import typing
@@ -449,7 +450,11 @@ class Compute(_Model):
     ``sun_spacing`` [deg] between sun points; ray counts per patch / element /
     sensor; ``element_size`` [m] of the reflected-light mesh;
     ``reflected_sun_spacing`` [deg] of the coarse sun points of the reflected
-    sun family; ``seed``.
+    sun family; ``seed``; ``max_elements``, the element budget of the
+    reflected part (elements grow past ``element_size`` to fit it);
+    ``memory_limit`` [GiB] of one coefficient computation; ``target_error``,
+    a target relative standard error of the daylight factor (a fraction:
+    0.01 = 1 %; 0 = off) from which the sensor ray counts are chosen.
     """
 
     subdivision: int | None = None
@@ -461,6 +466,9 @@ class Compute(_Model):
     sensor_rays: int | None = None
     reflected_sun_spacing: Positive | None = None
     seed: int | None = None
+    max_elements: int | None = None
+    memory_limit: Positive | None = None
+    target_error: float | None = None
 
     @field_validator("subdivision")
     @classmethod
@@ -473,6 +481,22 @@ class Compute(_Model):
     @classmethod
     def _ray_count(cls, v: int | None, info: ValidationInfo) -> int | None:
         return _positive_count(v, info.field_name)
+
+    @field_validator("max_elements")
+    @classmethod
+    def _max_elements(cls, v: int | None) -> int | None:
+        if v is not None and v < 100:
+            raise ValueError(f"max_elements must be at least 100 (default 3000), got {v}")
+        return v
+
+    @field_validator("target_error")
+    @classmethod
+    def _target_error(cls, v: float | None) -> float | None:
+        if v is not None and not (math.isfinite(v) and 0.0 <= v < 0.5):
+            raise ValueError(
+                f"target_error is a fraction (0.01 for 1 %; 0 switches it off) below 0.5, "
+                f"got {v!r}")
+        return v
 
     @field_validator("seed")
     @classmethod
@@ -1284,6 +1308,16 @@ _SCHEMA_TEXT: dict[str, tuple[str, dict[str, str]]] = {
                                      "used for reflected sunlight.",
             "seed": "Seed of the random ray directions (the same seed gives the same "
                     "results).",
+            "max_elements": "Largest number of surface elements for reflected light: in a "
+                            "large space the elements grow beyond element_size until they "
+                            "fit, which bounds time and memory whatever the model.",
+            "memory_limit": "Memory in GiB that one coefficient computation may use; the "
+                            "element count is lowered to fit, and a sensor grid too large "
+                            "for it is refused.",
+            "target_error": "Target relative standard error of the daylight factor, as a "
+                            "fraction (0.01 is 1 %); when the estimated error of the 95th "
+                            "percentile sensor is larger, the sensor rays are increased to "
+                            "meet it. 0 switches this off.",
         },
     ),
     "Rank": (

@@ -330,3 +330,33 @@ def test_small_aliases_stay_allowed(folder):
     path = folder / "study.yaml"
     path.write_text(text)
     assert load_study(path).study.glazings["spare"].transmittance == 0.70
+
+
+def test_compute_budget_keys_reach_the_kernel_settings_and_the_key(folder):
+    # the element budget, memory bound and target error are study-file keys;
+    # they change the coefficients, so they enter the coefficient key
+    from luxsweep.kernels.coefficients import coefficient_key
+    from luxsweep.sweep.plan import build_geometry, settings_of
+
+    path = folder / "study.yaml"
+    path.write_text(BASE + "compute: {max_elements: 500, memory_limit: 1.5, target_error: 0.02}\n")
+    study = load_study(path).study
+    settings = settings_of(study)
+    assert (settings.max_elements, settings.memory_limit, settings.target_error) == (500, 1.5,
+                                                                                      0.02)
+    path.write_text(BASE)
+    plain = load_study(path).study
+    geometry, sensors, _ = build_geometry(plain)
+    assert (coefficient_key(geometry, sensors, settings)
+            != coefficient_key(geometry, sensors, settings_of(plain)))
+
+
+@pytest.mark.parametrize("text, fragment", [
+    ("target_error: 2", "fraction"),          # 2 meant as 2 %
+    ("target_error: -0.01", "fraction"),
+    ("max_elements: 10", "at least 100"),
+    ("memory_limit: 0", "compute.memory_limit"),
+])
+def test_compute_budget_keys_refuse_bad_values(folder, text, fragment):
+    message = refuse(folder, BASE + f"compute: {{{text}}}\n")
+    assert fragment in message
