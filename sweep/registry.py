@@ -135,6 +135,10 @@ _ENTRIES: tuple[Metric, ...] = (
     # daylight factor
     Metric("daylight_factor", "daylight_factor", "sensor", "float32", "%",
            "daylight factor", "daylight factor under the CIE overcast sky", source="engine"),
+    Metric("daylight_factor_error", "daylight_factor", "sensor", "float32", "%",
+           "daylight factor standard error",
+           "standard error of the daylight factor estimated from the ray samples",
+           source="engine"),
     Metric("daylight_factor_mean", "daylight_factor", "variant", "float32", "%",
            "daylight factor, grid mean", "grid mean daylight factor", source="engine",
            rank=True),

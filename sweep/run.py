@@ -577,6 +577,7 @@ def _write_series(inp: _SeriesInputs, members: tuple, store_path: str, a: int, b
 def _final_results(inp: _SeriesInputs, counts: Any) -> dict[str, np.ndarray]:
     """Metrics from the counts of the whole year, plus the daylight factor."""
     from luxsweep.kernels import metrics as km
+    from luxsweep.kernels.coefficients import daylight_factor_error
     from luxsweep.kernels.sky import overcast_sky_vector
     from luxsweep.kernels.timeseries import daylight_factor
 
@@ -587,6 +588,9 @@ def _final_results(inp: _SeriesInputs, counts: Any) -> dict[str, np.ndarray]:
                          inp.open_rows)
     df_stats = km.daylight_factor_stats(df)
     results["daylight_factor"] = np.broadcast_to(df[None], (n_o, *df.shape))
+    error = daylight_factor_error(inp.coeffs, study.ground_reflectance, inp.open_rows)
+    results["daylight_factor_error"] = np.broadcast_to(error.astype(np.float32)[None],
+                                                       (n_o, *error.shape))
     results["daylight_factor_mean"] = np.broadcast_to(df_stats["daylight_factor_mean"][None],
                                                       (n_o, n_r))
     return results

@@ -28,8 +28,8 @@ from luxsweep.sweep.config import load_study
 from luxsweep.sweep.expand import expand
 from luxsweep.sweep.run import run_study
 
-SENSOR_VARS = ("daylight_factor", "daylight_autonomy", "udi_low", "udi_supplementary",
-               "udi_autonomous", "udi_high", "direct_sun_hours")
+SENSOR_VARS = ("daylight_factor", "daylight_factor_error", "daylight_autonomy", "udi_low",
+               "udi_supplementary", "udi_autonomous", "udi_high", "direct_sun_hours")
 VARIANT_VARS = ("sda", "ase", "udi_useful_mean", "daylight_factor_mean", "en17037_level")
 
 
@@ -37,7 +37,11 @@ def reference(variant) -> dict[str, np.ndarray]:
     """One variant alone through the kernels (no sweep code but the resolved study)."""
     from luxsweep.kernels import metrics as km
     from luxsweep.kernels.climate import read_climate
-    from luxsweep.kernels.coefficients import Settings, compute_coefficients
+    from luxsweep.kernels.coefficients import (
+        Settings,
+        compute_coefficients,
+        daylight_factor_error,
+    )
     from luxsweep.kernels.geometry import parametric_room, sensor_grid
     from luxsweep.kernels.sky import overcast_sky_vector, patch_scheme, sky_vectors
     from luxsweep.kernels.sun import SunPoints, daylight_steps
@@ -63,6 +67,7 @@ def reference(variant) -> dict[str, np.ndarray]:
     out = km.finalize(km.accumulate(None, total[0], direct[0], masks, params), params)
     df = daylight_factor(coeffs, overcast_sky_vector(scheme, s.ground_reflectance), tau)
     out["daylight_factor"] = df
+    out["daylight_factor_error"] = daylight_factor_error(coeffs, s.ground_reflectance, tau)
     out["daylight_factor_mean"] = km.daylight_factor_stats(df)["daylight_factor_mean"]
     return {k: np.asarray(v).reshape(-1) for k, v in out.items()}
 
@@ -87,6 +92,12 @@ def test_two_geometries_compute_exactly_two_coefficient_sets(finished):
     assert ds.done.values.all()
     assert set(ds.coords) >= {"variant_id", "orientation", "climate",
                               "glazings.main.transmittance", "room.windows.0.width", "x", "y"}
+    # the sampling error is stored beside the daylight factor (issue 13 item 4): an
+    # estimate from the rays, so positive and a small fraction of the value itself
+    err, df = ds.daylight_factor_error.values, ds.daylight_factor.values
+    assert ds.daylight_factor_error.attrs["units"] == "%"
+    assert np.isfinite(err).all() and (err > 0).all()
+    assert np.median(err / df) < 0.1
 
 
 @pytest.mark.parametrize("index", [0, 23, 30, 47])
