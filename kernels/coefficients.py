@@ -772,8 +772,10 @@ class ElementSolution:
     elements : kernels.transfer.Elements
     inner, outer : ndarray of int
         Interior and exterior element indices.
-    lu : tuple
-        LU factors of the interior system (``scipy.linalg.lu_factor``).
+    lu : tuple or None
+        LU factors of the interior system (``scipy.linalg.lu_factor``), kept
+        only in the adjoint form (the sensor blocks solve with them); None in
+        the forward form, so that the solution sent to other workers is smaller.
     rho : ndarray (n_inner,)
         Interior element reflectances.
     solved, solved_overcast : list of ndarray
@@ -791,7 +793,7 @@ class ElementSolution:
     elements: Any
     inner: np.ndarray
     outer: np.ndarray
-    lu: tuple
+    lu: tuple | None
     rho: np.ndarray
     solved: list
     solved_overcast: list
@@ -856,7 +858,8 @@ def _solve_elements(scene: Any, geometry: Any, n_sensors: int, settings: Setting
         solved.append(source if adjoint else solve_factored(lu, rho[inner], source))
     ext_overcast = None if b_ext is None else b_ext[:, :n_basis] @ overcast
     return ElementSolution(crossed_twice=scene.crossed_twice,
-                           elements=el, inner=inner, outer=outer, lu=lu, rho=rho[inner],
+                           elements=el, inner=inner, outer=outer,
+                           lu=lu if adjoint else None, rho=rho[inner],
                            solved=solved, solved_overcast=solved_overcast, b_ext=b_ext,
                            ext_overcast=ext_overcast, adjoint=adjoint)
 
