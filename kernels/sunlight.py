@@ -27,21 +27,29 @@ list of capitals in its national-annex tables, which are not reproduced here.
 from __future__ import annotations
 
 import datetime as dt
+import re
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 
 from luxsweep.kernels.climate import Site
+from luxsweep.kernels.geometry import Geometry
 from luxsweep.kernels.raytrace import BLOCKED, Scene
 from luxsweep.kernels.sun import direction, solar_position, to_building_frame
 
 __all__ = [
     "LEVEL_HOURS",
+    "WindowPoints",
     "reference_height",
+    "space_sunlight_hours",
     "sun_path",
     "sunlight_hours",
     "sunlight_level",
+    "window_reference_points",
 ]
+
+_WINDOW = re.compile(r"(?:^|/)window_(\d+)$")
 
 LEVEL_HOURS = (1.5, 3.0, 4.0)
 """Sunlight hours [h] for EN 17037 levels 1 (minimum), 2 (medium), 3 (high) (from memory)."""
@@ -155,3 +163,99 @@ def sunlight_level(hours: np.ndarray) -> np.ndarray:
     """
     return np.searchsorted(np.asarray(LEVEL_HOURS), np.asarray(hours, dtype=np.float64),
                            side="right").astype(np.int8)
+
+
+@dataclass(frozen=True)
+class WindowPoints:
+    """Sunlight reference points of the outside windows of a geometry.
+
+    Attributes
+    ----------
+    space : ndarray (k,) int
+        Index into ``geometry.space_names`` of the space each window lights.
+    group : tuple of str
+        The window's group name (``window_<i>`` or ``<space>/window_<i>``).
+    points : ndarray (k, 3) [m]
+        Reference points on the glass (building frame).
+    normals : ndarray (k, 3)
+        Outward unit normals of the windows.
+    """
+
+    space: np.ndarray
+    group: tuple[str, ...]
+    points: np.ndarray
+    normals: np.ndarray
+
+
+def window_reference_points(geometry: Geometry) -> WindowPoints:
+    """EN 17037 sunlight reference points of every outside wall window.
+
+    The point is centred on the window's width, on the plane of its glass, at
+    :func:`reference_height` above the floor of its space (from the sill and
+    head heights of the glazed opening). Roof windows and internal openings
+    (glazing between two spaces) have none: the standard's point is on a
+    façade window (from memory).
+
+    Parameters
+    ----------
+    geometry : Geometry
+        A parametric room or building (its windows are the groups
+        ``window_<i>`` or ``<space>/window_<i>``).
+
+    Returns
+    -------
+    WindowPoints
+    """
+    outside = geometry.glazing_set_index >= 0
+    boxes = geometry.space_boxes
+    space, groups, points, normals = [], [], [], []
+    for g, name in enumerate(geometry.group_names):
+        if not _WINDOW.search(name):
+            continue
+        tri = geometry.triangles[(geometry.group == g) & outside]
+        if tri.shape[0] == 0:
+            continue
+        n = np.cross(tri[0, 1] - tri[0, 0], tri[0, 2] - tri[0, 0])
+        n /= np.linalg.norm(n)
+        if abs(n[2]) > 0.5:  # a roof window
+            continue
+        owner = name.split("/")[0] if "/" in name else None
+        k = geometry.space_names.index(owner) if owner else 0
+        lo, hi = tri.reshape(-1, 3).min(axis=0), tri.reshape(-1, 3).max(axis=0)
+        floor = boxes[k, 0, 2] if boxes is not None and len(boxes) else 0.0
+        centre = 0.5 * (lo + hi)
+        if boxes is not None and len(boxes) and np.dot(n, centre - boxes[k].mean(axis=0)) < 0:
+            n = -n  # point away from the space
+        z = floor + reference_height(lo[2] - floor, hi[2] - floor)
+        space.append(k)
+        groups.append(name)
+        points.append([centre[0], centre[1], float(z)])
+        normals.append(n)
+    return WindowPoints(np.asarray(space, dtype=np.int64), tuple(groups),
+                        np.asarray(points, dtype=np.float64).reshape(-1, 3),
+                        np.asarray(normals, dtype=np.float64).reshape(-1, 3))
+
+
+def space_sunlight_hours(hours: np.ndarray, space: np.ndarray, n_spaces: int) -> np.ndarray:
+    """Sunlight hours of each space: those of its best window.
+
+    Parameters
+    ----------
+    hours : ndarray (..., k) [h]
+        Per window (:func:`sunlight_hours`), for one or more sun paths.
+    space : ndarray (k,) int
+        Space of each window (:attr:`WindowPoints.space`).
+    n_spaces : int
+
+    Returns
+    -------
+    ndarray (..., n_spaces) [h]
+        The largest over the space's windows; 0 for a space without one.
+    """
+    h = np.asarray(hours, dtype=np.float64)
+    out = np.zeros((*h.shape[:-1], n_spaces))
+    for k in range(n_spaces):
+        mine = np.asarray(space) == k
+        if mine.any():
+            out[..., k] = h[..., mine].max(axis=-1)
+    return out

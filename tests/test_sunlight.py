@@ -21,9 +21,11 @@ from luxsweep.kernels.geometry import parametric_room
 from luxsweep.kernels.raytrace import Scene
 from luxsweep.kernels.sunlight import (
     reference_height,
+    space_sunlight_hours,
     sun_path,
     sunlight_hours,
     sunlight_level,
+    window_reference_points,
 )
 
 DAY = dt.date(2023, 3, 21)
@@ -138,3 +140,44 @@ def test_levels_and_reference_height():
     # at least 1.2 m above the floor and 0.3 m above the sill, never above the head
     np.testing.assert_allclose(reference_height([0.0, 0.9, 1.5, 2.0], [2.1, 2.7, 2.4, 2.2]),
                                [1.2, 1.2, 1.8, 2.2])
+
+
+def test_reference_points_are_on_the_glass_at_the_standard_height():
+    # the window's own group gives the point the hand-made POINT above stands for
+    found = window_reference_points(_room())
+    np.testing.assert_allclose(found.points, POINT, atol=1e-9)
+    np.testing.assert_allclose(found.normals, OUT, atol=1e-12)
+    assert found.group == ("window_0",) and found.space.tolist() == [0]
+    # a high sill: the point is 0.3 m above it (EN 17037, from memory); a roof
+    # window has none
+    high = dict(WINDOW, sill=1.4)
+    roof = {"wall": "roof", "width": 1.0, "length": 1.0, "x": 3.5, "y": 3.0, "glazing": "main"}
+    g = parametric_room(7.0, 6.0, 3.0, [high, roof], {"floor": 0.2, "walls": 0.5, "ceiling": 0.7},
+                        {"main": 2})
+    found = window_reference_points(g)
+    assert found.group == ("window_0",)
+    assert found.points[0, 2] == pytest.approx(1.7)
+
+
+def test_reference_points_of_a_building_follow_each_space_and_skip_internal_glass():
+    from luxsweep.kernels.geometry import parametric_building
+
+    grey = {"floor": 0.2, "walls": 0.5, "ceiling": 0.7}
+    lower = {"name": "lower", "origin": (0.0, 0.0, 0.0), "width": 7.0, "depth": 6.0,
+             "height": 3.0, "thickness": 0.2, "reflectance": grey,
+             "windows": [WINDOW, {"wall": "back", "width": 2.0, "sill": 2.0, "head": 2.6,
+                                  "offset": 0.0, "glazing": "inner"}]}
+    behind = dict(lower, name="behind", origin=(0.0, 6.2, 0.0), windows=[])
+    upper = dict(lower, name="upper", origin=(0.0, 0.0, 3.2), windows=[WINDOW])
+    g = parametric_building([lower, behind, upper], {"main": 2, "inner": 1},
+                            internal_transmittance={"inner": 0.8})
+    found = window_reference_points(g)
+    # one point per outside window: the internal opening into 'behind' has none
+    assert found.group == ("lower/window_0", "upper/window_0")
+    np.testing.assert_allclose(found.points[:, 2], [1.2, 3.2 + 1.2])
+    np.testing.assert_allclose(found.normals, np.repeat(OUT, 2, axis=0), atol=1e-12)
+    assert [g.space_names[k] for k in found.space] == ["lower", "upper"]
+    # a space is judged by its best window; a space without one gets 0
+    hours = np.array([[1.0, 2.5], [4.0, 0.5]])  # two sun paths x two windows
+    per_space = space_sunlight_hours(hours, np.array([0, 0]), 2)
+    np.testing.assert_allclose(per_space, [[2.5, 0.0], [4.0, 0.0]])
