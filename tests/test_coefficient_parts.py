@@ -26,7 +26,7 @@ from luxsweep.kernels.coefficients import (
 from luxsweep.kernels.geometry import parametric_room, sensor_grid
 
 COARSE = Settings(sky_rays_per_patch=4, ground_rays=16, sensor_rays=16, element_rays=16,
-                  subdivision=1, element_size=1.0)
+                  subdivision=1, element_size=1.0, sun_spacing=6.0)
 
 
 def _room():
@@ -52,8 +52,8 @@ def _parts(geometry, sensors, settings, size):
 
 @pytest.mark.parametrize(("spacing", "sun", "size", "adjoint"), [
     (0.5, 3.0, SENSOR_PART, True),  # 195 sensors, fewer than the sources: one part
-    (0.2, 3.0, SENSOR_PART, True),  # 1,152 sensors in five parts, the last one short
-    (0.2, 6.0, 2 * SENSOR_PART, False),  # fewer sources (coarse suns 6°): forward form
+    (0.25, 3.0, SENSOR_PART, True),  # 725 sensors in three parts, the last one short
+    (0.25, 8.0, 2 * SENSOR_PART, False),  # fewer sources (coarse suns 8°): forward form
 ])
 def test_parts_equal_the_whole(spacing, sun, size, adjoint):
     geometry, sensors = _room(), sensor_grid(7.2, 8.0, 0.8, spacing, 0.5)
