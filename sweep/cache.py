@@ -32,6 +32,7 @@ from __future__ import annotations
 import hashlib
 import json
 import os
+import re
 import shutil
 import time
 import uuid
@@ -295,9 +296,27 @@ def is_url(location: str | os.PathLike) -> bool:
     return "://" in os.fspath(location)
 
 
-def local_path(location: str | os.PathLike) -> str | None:
-    """The local path of ``location``: itself, or the path of a ``file://`` URL; else None."""
+_SCHEME_LIKE = re.compile(r"^[A-Za-z][A-Za-z0-9+.-]+:/(?!/)")
+
+
+def local_path(location: str | os.PathLike, what: str = "--cache") -> str | None:
+    """The local path of ``location``: itself, or the path of a ``file://`` URL; else None.
+
+    Raises
+    ------
+    CacheLocationError
+        ``location`` looks like a URL with one slash too few (``s3:/bucket/x``),
+        which would otherwise quietly become a local folder named ``s3:``.
+    """
+    from luxsweep.sweep.errors import CacheLocationError
+
     text = os.fspath(location)
+    if _SCHEME_LIKE.match(text):
+        scheme = text.split(":", 1)[0]
+        raise CacheLocationError(
+            f"{what} {text}: this looks like a URL with one slash missing after "
+            f"'{scheme}:'; write {scheme}://{text.split(':/', 1)[1]} (or ./{text} for a "
+            "local folder of that name)")
     if not is_url(text):
         return text
     if text.startswith("file://"):
@@ -314,7 +333,7 @@ def open_cache(location: str | os.PathLike) -> CoefficientCache | UrlCache:
         An fsspec URL whose scheme no installed fsspec backend serves (e.g.
         ``s3://`` without ``s3fs``), or that fsspec cannot open.
     """
-    path = local_path(location)
+    path = local_path(location, "--cache")
     if path is not None:
         return CoefficientCache(path)
     return UrlCache(os.fspath(location))

@@ -361,7 +361,7 @@ def preflight(client: Any, inputs: dict[str, str], cache_root: str | Path,
     notes = tuple(f"{a}: {n}" for a, ans in good.items() for n in ans["notes"])
     if no_shared_disk:
         transport = Transport(True, True, True, dict.fromkeys(good, False),
-                              ("--no-shared-disk",))
+                              ("as asked with --no-shared-disk",))
     else:
         transport = Transport(
             inputs_by_dask=not all(a["inputs"] for a in good.values()),
@@ -375,7 +375,7 @@ def preflight(client: Any, inputs: dict[str, str], cache_root: str | Path,
                                        ("results store", transport.client_store)) if on]
         log.info("no shared disk for the %s: %s stay with the client and travel through "
                  "Dask (%s)", ", ".join(moved), "they" if len(moved) > 1 else "it",
-                 "; ".join(notes))
+                 "; ".join(transport.notes))
     own = [a for a, ans in good.items() if not ans["shared_cache"] and ans["own_cache"]]
     if own and not transport.client_cache:
         log.info("coefficient cache: workers %s keep their own cache folder (no shared disk "

@@ -718,7 +718,10 @@ def results_path(out: str | Path) -> Path:
         creation, its resume checks and its per-block locks rely on a folder,
         so luxsweep refuses rather than writing a store it cannot keep whole.
     """
-    path = local_path(out)
+    try:
+        path = local_path(out, "--out")
+    except CacheLocationError as exc:
+        raise ResultsStoreError(str(exc)) from exc
     if path is None:
         raise ResultsStoreError(
             f"--out {out}: the results store must be a folder (a local or network-mounted "
@@ -1202,11 +1205,14 @@ class Collector:
 
     def _written(self, result: dict[str, Any]) -> None:
         if "rows" in result:  # the client writes the store: series first, `done` last
+            t0 = time.perf_counter()
             indices = result["rows"][0]
             for start, illuminance, direct in result["series"]:
                 results_store.write_series_block(self.results, indices, start, illuminance,
                                                  direct)
             results_store.write_variants(self.results, *result["rows"])
+            self.timing["write"] = (self.timing.get("write", 0.0)
+                                    + time.perf_counter() - t0)
         self.summary.written += result["variants"]
         self.summary.coefficient_sets_recomputed += result.get("recomputed", 0)
         for k, v in result["timing"].items():
