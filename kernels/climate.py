@@ -72,6 +72,7 @@ import csv
 import os
 import re
 import warnings
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from datetime import timedelta, timezone
 from pathlib import Path
@@ -220,7 +221,8 @@ def read_climate(path: str | os.PathLike) -> Climate:
         The file does not exist, has an unknown format, or is malformed.
     """
     path = Path(path)
-    return parse_climate(_read_bytes(path), str(path))
+    text = _decode(_read_bytes(path), str(path))
+    return _parser(text, str(path))(text, str(path))  # warnings name our caller
 
 
 def parse_climate(data: bytes | str, name: str) -> Climate:
@@ -250,12 +252,17 @@ def parse_climate(data: bytes | str, name: str) -> Climate:
         Unknown format, not text, or malformed content (naming ``name``).
     """
     text = data if isinstance(data, str) else _decode(data, name)
+    return _parser(text, name)(text, name)
+
+
+def _parser(text: str, name: str) -> Callable[[str, str], Climate]:
+    """The parser of a weather file's text: by extension, else by its first lines."""
     suffix = Path(name).suffix.lower()
     head = text.split("\n", 2)
     if suffix == ".epw" or head[0].upper().startswith("LOCATION,"):
-        return _parse_epw(text, name)
+        return _parse_epw
     if any(line.startswith("Date (MM/DD/YYYY)") for line in head[:2]):
-        return _parse_tmy3(text, name)
+        return _parse_tmy3
     if not text.strip():
         raise WeatherFileError(
             "the file is empty; give an EPW or TMY3 CSV weather file", file=name
