@@ -31,7 +31,9 @@ The cluster (a loopback ``LocalCluster``, or one joined by address or
 scheduler file, over TLS if asked) comes from :mod:`sweep.cluster`; it is
 joined after validation, and every worker passes :func:`sweep.preflight.preflight`
 before the store is created. A series task checks its weather file against the
-client's sha256 first; a mismatch stops the run. Progress (task by
+client's sha256 first; a mismatch stops the run. Whatever some worker cannot
+reach (weather files, the cache, the store's folder) stays with the client and
+travels through Dask (:class:`sweep.preflight.Transport`; ``--no-shared-disk``). Progress (task by
 task, both phases) is :mod:`sweep.progress`. Series tasks run BLAS on one
 thread so results are bit-identical wherever they run.
 """
@@ -985,6 +987,12 @@ class Collector:
     (``coefficient-info-<key>``). Other finished futures are released as soon
     as they are read, so that a worker dying later does not make Dask recompute
     them (and count them as suspects).
+
+    Without a shared disk (``transport``) the collector also places the weather
+    files' bytes and the client's cached sets in Dask, publishes the sets the
+    workers compute in the client's cache, and writes the results the series
+    tasks return (series blocks, then the variants with ``done`` last), all in
+    the thread that gathers them.
     """
 
     def __init__(self, client: Any, plan: Plan, results: Path,
