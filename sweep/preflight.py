@@ -329,8 +329,8 @@ def preflight(client: Any, inputs: dict[str, str], cache_root: str | Path,
     store_folder = results.parent
     probes = {"cache_probe": f"{PROBE}{token[:16]}", "store_probe": f"{PROBE}{token[:16]}"}
     written: list[tuple[str, str]] = []
+    store_folder.mkdir(parents=True, exist_ok=True)
     if not no_shared_disk:
-        store_folder.mkdir(parents=True, exist_ok=True)
         written = [(location, probes["cache_probe"]),
                    (str(store_folder), probes["store_probe"])]
         for where, name in written:

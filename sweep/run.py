@@ -917,6 +917,8 @@ def run_study(
         # what some worker cannot reach stays with the client
         transport = preflight(client, {t.climate_file: t.climate_sha256 for t in pending},
                               cache.location, results, no_shared_disk=no_shared_disk)
+        # read before the store exists: a file changed since planning leaves none
+        weather = read_weather(pending) if transport.inputs_by_dask else {}
         if discard:
             _discard_store(results, plan)
         if done is None:  # only now that the cluster answers and passed its check
@@ -927,8 +929,7 @@ def run_study(
         cache.clean_temporary(older_than=3600.0)
         collector = Collector(client, plan, results, cache, summary,
                               hold_sets=transport.hold_sets, transport=transport)
-        if transport.inputs_by_dask:
-            collector.send_climates(pending)
+        collector.send_climates(weather)
         if transport.client_cache:
             collector.send_cached_sets(sorted(needed - {j.key for j in missing}))
         collector.submit_coefficients(missing)
@@ -941,6 +942,34 @@ def run_study(
     results_store.consolidate(results)
     summary.seconds = time.perf_counter() - t_start
     return summary
+
+
+def _weather_bytes(data: bytes) -> bytes:
+    """The bytes of one weather file, as a task result (:meth:`Collector.send_climates`)."""
+    return data
+
+
+def read_weather(tasks: list[SeriesTask]) -> dict[str, bytes]:
+    """The bytes of every weather file of ``tasks``, read once by the client.
+
+    Raises
+    ------
+    InputMismatchError
+        A file's bytes are not those the plan hashed (it changed since planning).
+    """
+    out: dict[str, bytes] = {}
+    for task in tasks:
+        path = task.climate_file
+        if path in out:
+            continue
+        data = Path(path).read_bytes()
+        found = hashlib.sha256(data).hexdigest()
+        if task.climate_sha256 and found != task.climate_sha256:
+            raise InputMismatchError(
+                f"the weather file {path} changed after the run read it (sha256 "
+                f"{found[:12]}… now, {task.climate_sha256[:12]}… then); run again")
+        out[path] = data
+    return out
 
 
 def _discard_store(results: Path, plan: Plan) -> None:
@@ -1021,25 +1050,17 @@ class Collector:
 
     # -- submitting
 
-    def send_climates(self, tasks: list[SeriesTask]) -> None:
-        """Read each weather file of ``tasks`` once and place its bytes in Dask.
+    def send_climates(self, weather: dict[str, bytes]) -> None:
+        """Place each weather file's bytes (:func:`read_weather`) in Dask.
 
-        Raises
-        ------
-        InputMismatchError
-            A file's bytes are not those the plan hashed (it changed since).
+        Each is the argument of a small task (``weather-<sha256>``) rather than
+        scattered data: the scheduler keeps the task, so if the worker holding
+        the bytes dies they are made again, not lost.
         """
-        for task in tasks:
-            path = task.climate_file
-            if path in self.climate_data:
-                continue
-            data = Path(path).read_bytes()
-            found = hashlib.sha256(data).hexdigest()
-            if task.climate_sha256 and found != task.climate_sha256:
-                raise InputMismatchError(
-                    f"the weather file {path} changed after the run read it (sha256 "
-                    f"{found[:12]}… now, {task.climate_sha256[:12]}… then); run again")
-            self.climate_data[path] = self.client.scatter(data, hash=False)
+        for path, data in weather.items():
+            digest = hashlib.sha256(data).hexdigest()
+            self.climate_data[path] = self.client.submit(
+                _weather_bytes, data, key=f"weather-{digest[:24]}", pure=False, priority=200)
 
     def send_cached_sets(self, keys: list[str]) -> None:
         """Place the client's cached sets ``keys`` in Dask (the client keeps the cache)."""
@@ -1295,6 +1316,8 @@ __all__ = [
     "is_loopback",
     "is_plain_link",
     "prepare",
+    "read_weather",
+    "results_path",
     "run_study",
     "series_task",
     "split_ranges",
