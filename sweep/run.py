@@ -207,16 +207,14 @@ def _coefficients(task: SeriesTask, cache_root: str | None, coefficient_result: 
     """The task's coefficient set and how many sets were computed here (0 or 1).
 
     From the coefficient task's result when given (through Dask), else from this
-    worker's cache, else (a worker with a cache of its own that lacks the set)
-    computed from ``job`` and kept in that cache.
+    worker's cache, else (a worker with a cache of its own that lacks the set, or
+    no cache at all: ``cache_root`` None) computed from ``job`` and kept in that
+    cache if there is one.
     """
     if isinstance(coefficient_result, dict) and "coefficients" in coefficient_result:
         return coefficient_result["coefficients"], 0
-    if cache_root is None:
-        raise RuntimeError(f"coefficient set {task.key} did not come with the task, and the "
-                           "client keeps the cache")
-    cache = open_cache(cache_root)
-    coeffs = cache.load(task.key)
+    cache = open_cache(cache_root) if cache_root is not None else None
+    coeffs = cache.load(task.key) if cache is not None else None
     if coeffs is not None:
         return coeffs, 0
     if job is None:
@@ -224,7 +222,8 @@ def _coefficients(task: SeriesTask, cache_root: str | None, coefficient_result: 
     from luxsweep.kernels.coefficients import compute_coefficients
 
     coeffs = compute_coefficients(job.geometry, job.sensors, job.settings)
-    cache.save(coeffs)
+    if cache is not None:  # else the client keeps the cache: nothing to keep here
+        cache.save(coeffs)
     return coeffs, 1
 
 
@@ -1065,13 +1064,32 @@ class Collector:
     def send_cached_sets(self, keys: list[str]) -> None:
         """Place the client's cached sets ``keys`` in Dask (the client keeps the cache)."""
         for key in keys:
-            coefficients = self.cache.load(key)
-            if coefficients is None:  # damaged since planning: computed like a miss
+            if self._send_set(key) is None:  # damaged since planning: computed like a miss
                 self.submit_coefficients([self.jobs[key]])
-                continue
-            # a list of one: scatter would place a dict's values one by one
-            (self.coefficients[key],) = self.client.scatter([{"coefficients": coefficients}],
-                                                            hash=False)
+
+    def _send_set(self, key: str) -> Any:
+        """Scatter set ``key`` from the client's cache; its future (None when not there)."""
+        coefficients = self.cache.load(key)
+        if coefficients is None:
+            return None
+        # a list of one: scatter would place a dict's values one by one
+        (fut,) = self.client.scatter([{"coefficients": coefficients}], hash=False)
+        self.coefficients[key] = fut
+        return fut
+
+    def _set_for(self, key: str) -> Any:
+        """The future of set ``key`` for a series task, or None (the worker then reads
+        its cache or computes the set from its job).
+
+        When the client keeps the cache, a set no longer held (released after its
+        last task, or scattered data lost with a worker) is sent again from the
+        client's cache, where every set of the run has been published.
+        """
+        fut = self.coefficients.get(key)
+        if not self.transport.client_cache or (
+                fut is not None and fut.status in ("pending", "finished")):
+            return fut
+        return self._send_set(key)
 
     def submit_coefficients(self, missing: list[CoefficientJob]) -> None:
         """One task per missing set, largest first, ahead of every series task."""
@@ -1116,7 +1134,7 @@ class Collector:
         self.users[task.key] = self.users.get(task.key, 0) + 1
         return self.client.submit(
             series_task, task, todo, self.store_path, self.cache_root,
-            self.coefficients.get(task.key), self.jobs.get(task.key),
+            self._set_for(task.key), self.jobs.get(task.key),
             self.climate_data.get(task.climate_file), key=key, priority=0,
             pure=False, retries=0,
         )
@@ -1154,6 +1172,8 @@ class Collector:
                 self._report(fut.key, task, [vid], exc)
             finally:
                 fut.release()
+        for key in list(self.coefficients):  # sets sent again for the tasks run alone
+            self._release_set(key)
         self.summary.timing = self.timing
         return self.summary
 

@@ -363,3 +363,52 @@ def test_workers_that_cannot_see_the_study_folder(reference, tmp_path):
         assert "variants: 4 total, 2 computed now, 2 already done" in res.out, res.out
         assert_same_results(project / "r.zarr", shared)
     assert not any(p.name.startswith(".tmp-probe-") for p in cache.iterdir())
+
+
+# --------------------------------------------------------------------------- faults
+
+
+@pytest.mark.slow
+def test_no_shared_disk_survives_killed_workers_and_a_poison_variant(reference, tmp_path):
+    """With ``--no-shared-disk``: every coefficient and series task kills its worker
+    once (the sets and results the workers were to send back are lost with them,
+    and Dask makes them again); the results equal the shared-disk run's. Then a
+    poison variant that kills every worker it starts on fails alone, and its
+    partner variants, run alone at the end after the sets were released, get the
+    set again from the client's cache."""
+    from test_faults import KillOnceAtRandom, KillPoison, loopback_cluster
+
+    from luxsweep.sweep.config import load_study
+    from luxsweep.sweep.expand import expand
+    from luxsweep.sweep.run import run_study
+
+    study, shared = reference
+    ledger = tmp_path / "ledger"
+    ledger.mkdir()
+    url = _url()
+    with loopback_cluster(2, **{"distributed.scheduler.allowed-failures": 10}) as (cluster,
+                                                                                  client):
+        client.register_plugin(KillOnceAtRandom(str(ledger), seed=3, max_delay=0.6))
+        summary = run_study(study, tmp_path / "killed.zarr", scheduler=cluster.scheduler_address,
+                            cache_dir=url, show_progress=False, no_shared_disk=True)
+        time.sleep(1.0)  # let a last pending kill timer (at most 0.6 s) fire
+    assert len(list(ledger.iterdir())) == 4  # 2 coefficient + 2 series tasks, killed once
+    assert summary.ok and summary.written == 4, summary.failed
+    assert_same_results(tmp_path / "killed.zarr", shared)
+
+    poison = expand(load_study(study))[1].variant_id
+    (ledger / "poison").mkdir()
+    with loopback_cluster(2) as (cluster, client):
+        client.register_plugin(KillPoison(poison, str(ledger / "poison")))
+        summary = run_study(study, tmp_path / "poison.zarr", scheduler=cluster.scheduler_address,
+                            cache_dir=url, show_progress=False, no_shared_disk=True)
+    failed = {vid for ids in summary.failed.values() for vid in ids}
+    assert failed == {poison}, summary.failed
+    assert summary.coefficient_sets_computed == 0 and summary.written == 3
+    got = zarr.open_group(str(tmp_path / "poison.zarr"), mode="r")
+    want = zarr.open_group(str(shared), mode="r")
+    ids = [str(v) for v in got["variant_id"][:]]
+    keep = np.asarray(ids) != poison
+    assert got["done"][:].sum() == 3 and not got["done"][:][ids.index(poison)]
+    for name in ("daylight_autonomy", "sda", "daylight_factor", "illuminance"):
+        np.testing.assert_array_equal(got[name][...][keep], want[name][...][keep], err_msg=name)
