@@ -1034,6 +1034,7 @@ class Collector:
         self.cache_root = None if self.transport.client_cache else cache.location
         self.store_path = None if self.transport.client_store else self.results
         self.climate_data: dict[str, Any] = {}  # weather file -> future of its bytes
+        self.sent: set[str] = set()  # sets scattered from the client's cache
         self.summary = summary
         self.timing: dict[str, float] = {"coefficients": 0.0}
         self.jobs = plan.jobs
@@ -1075,6 +1076,7 @@ class Collector:
         # a list of one: scatter would place a dict's values one by one
         (fut,) = self.client.scatter([{"coefficients": coefficients}], hash=False)
         self.coefficients[key] = fut
+        self.sent.add(key)
         return fut
 
     def _set_for(self, key: str) -> Any:
@@ -1165,13 +1167,18 @@ class Collector:
         for key in list(self.coefficients):
             self._release_set(key)
         for task, member, vid in self.suspects:
-            fut = self._submit(task, [member], f"{task.task_id}-{vid}-alone")
-            try:
-                self._written(fut.result())
-            except Exception as exc:
-                self._report(fut.key, task, [vid], exc)
-            finally:
-                fut.release()
+            for attempt in ("", "-again"):  # again once if the set sent with it was lost
+                fut = self._submit(task, [member], f"{task.task_id}-{vid}-alone{attempt}")
+                try:
+                    self._written(fut.result())
+                except Exception as exc:
+                    if not attempt and self._lost_set(task.key, exc):
+                        continue
+                    self._report(fut.key, task, [vid], exc)
+                finally:
+                    self.users[task.key] -= 1
+                    fut.release()
+                break
         for key in list(self.coefficients):  # sets sent again for the tasks run alone
             self._release_set(key)
         self.summary.timing = self.timing
@@ -1221,9 +1228,10 @@ class Collector:
             self._stop()
             raise
         except Exception as exc:
+            lost = self._lost_set(task.key, exc)
             if self._set_failed(task.key):
                 self._report(fut.key, task, ids, exc)
-            elif isinstance(exc, KilledWorker):
+            elif isinstance(exc, KilledWorker) or lost:
                 log.warning("task %s failed (%s); its variants %s will run again one at "
                             "a time at the end", fut.key, exc, ", ".join(ids))
                 self.suspects += [(task, m, vid) for m, vid in zip(todo, ids, strict=True)]
@@ -1244,6 +1252,20 @@ class Collector:
                 self._release_set(task.key)
         self._written(result)
         return retries
+
+    def _lost_set(self, key: str, exc: Exception) -> bool:
+        """Whether a task failed because the set the client sent with it was lost (a
+        worker holding the only copy died: scattered data cannot be made again). The
+        set is then dropped, so the next task of its key gets it sent afresh."""
+        from concurrent.futures import CancelledError
+
+        if key not in self.sent or not isinstance(exc, CancelledError):
+            return False
+        self.sent.discard(key)
+        fut = self.coefficients.pop(key, None)
+        if fut is not None:
+            fut.release()
+        return True
 
     def _set_failed(self, key: str) -> bool:
         """Whether the coefficient task of set ``key`` failed (seen or not yet gathered)."""
