@@ -33,8 +33,8 @@ joined after validation, and every worker passes :func:`sweep.preflight.prefligh
 before the store is created. A series task checks its weather file against the
 client's sha256 first; a mismatch stops the run. Whatever some worker cannot
 reach (weather files, the cache, the store's folder) stays with the client and
-travels through Dask (:class:`sweep.preflight.Transport`; ``--no-shared-disk``). Progress (task by
-task, both phases) is :mod:`sweep.progress`. Series tasks run BLAS on one
+travels through Dask (:class:`sweep.preflight.Transport`; ``--no-shared-disk``).
+Progress (task by task, both phases) is :mod:`sweep.progress`. Series tasks run BLAS on one
 thread so results are bit-identical wherever they run.
 """
 

@@ -412,3 +412,29 @@ def test_no_shared_disk_survives_killed_workers_and_a_poison_variant(reference, 
     assert got["done"][:].sum() == 3 and not got["done"][:][ids.index(poison)]
     for name in ("daylight_autonomy", "sda", "daylight_factor", "illuminance"):
         np.testing.assert_array_equal(got[name][...][keep], want[name][...][keep], err_msg=name)
+
+
+@pytest.mark.slow
+def test_a_split_set_is_published_by_the_client(tmp_path):
+    """A set split across the cluster (element stage, parts, assembly) with the cache
+    at memory:// and ``--no-shared-disk``: the assembly returns the set, the client
+    publishes it, and it equals the set one process computes, bit for bit."""
+    from test_split_sets import _fine_grid_study
+
+    from luxsweep.kernels.coefficients import compute_coefficients
+    from luxsweep.sweep.cache import open_cache
+    from luxsweep.sweep.config import load_study
+    from luxsweep.sweep.plan import make_plan
+    from luxsweep.sweep.run import run_study, split_ranges
+
+    study = _fine_grid_study(tmp_path)
+    (job,) = make_plan(load_study(study), read_climates=False).jobs.values()
+    assert len(split_ranges(job)) > 1
+    url = _url()
+    summary = run_study(study, tmp_path / "r.zarr", workers=2, cache_dir=url,
+                        show_progress=False, no_shared_disk=True)
+    assert summary.ok and summary.coefficient_sets_computed == 1
+    split = open_cache(url).load(job.key)
+    whole = compute_coefficients(job.geometry, job.sensors, job.settings)
+    for name, value in whole.to_arrays().items():
+        np.testing.assert_array_equal(getattr(split, name), value, err_msg=name)
