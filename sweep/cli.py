@@ -96,7 +96,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true", help="print the plan as JSON")
     p.add_argument("--workers", type=_positive_int, default=None,
                    help="workers to estimate the time for (default: number of cores)")
-    p.add_argument("--cache", default=None, help="coefficient cache folder")
+    p.add_argument("--cache", default=None, help="coefficient cache folder or fsspec URL")
 
     p = sub.add_parser("run", help="compute a study (resumes an interrupted run)")
     p.add_argument("study", help="study file (YAML)")
