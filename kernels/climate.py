@@ -72,6 +72,7 @@ import csv
 import os
 import re
 import warnings
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from datetime import timedelta, timezone
 from pathlib import Path
@@ -220,20 +221,55 @@ def read_climate(path: str | os.PathLike) -> Climate:
         The file does not exist, has an unknown format, or is malformed.
     """
     path = Path(path)
-    text = _read_text(path)
-    suffix = path.suffix.lower()
+    text = _decode(_read_bytes(path), str(path))
+    return _parser(text, str(path))(text, str(path))  # warnings name our caller
+
+
+def parse_climate(data: bytes | str, name: str) -> Climate:
+    """Parse the bytes (or text) of an EPW or TMY3 CSV weather file.
+
+    :func:`read_climate` is this function on a file's bytes: given the same bytes
+    and the file's path as ``name``, both return the same :class:`Climate`, bit
+    for bit (``source`` included). It lets a program read a file once and parse
+    it elsewhere, e.g. on a machine that cannot see the file.
+
+    Parameters
+    ----------
+    data : bytes or str
+        The file's whole content.
+    name : str
+        The file's name or path: chooses the reader by extension (``.epw`` EPW,
+        ``.csv`` TMY3, otherwise recognised from the first line) and names the
+        file in errors and in ``Climate.source``.
+
+    Returns
+    -------
+    Climate
+
+    Raises
+    ------
+    WeatherFileError
+        Unknown format, not text, or malformed content (naming ``name``).
+    """
+    text = data if isinstance(data, str) else _decode(data, name)
+    return _parser(text, name)(text, name)
+
+
+def _parser(text: str, name: str) -> Callable[[str, str], Climate]:
+    """The parser of a weather file's text: by extension, else by its first lines."""
+    suffix = Path(name).suffix.lower()
     head = text.split("\n", 2)
     if suffix == ".epw" or head[0].upper().startswith("LOCATION,"):
-        return _parse_epw(text, str(path))
+        return _parse_epw
     if any(line.startswith("Date (MM/DD/YYYY)") for line in head[:2]):
-        return _parse_tmy3(text, str(path))
+        return _parse_tmy3
     if not text.strip():
         raise WeatherFileError(
-            "the file is empty; give an EPW or TMY3 CSV weather file", file=str(path)
+            "the file is empty; give an EPW or TMY3 CSV weather file", file=name
         )
     raise WeatherFileError(
         "unknown weather file format; accepted formats are: " + "; ".join(ACCEPTED_FORMATS),
-        file=str(path),
+        file=name,
         line=1,
     )
 
@@ -967,9 +1003,9 @@ def _day_span(days: list[int]) -> str:
 # --------------------------------------------------------------------------- file access
 
 
-def _read_text(path: Path) -> str:
+def _read_bytes(path: Path) -> bytes:
     try:
-        raw = path.read_bytes()
+        return path.read_bytes()
     except FileNotFoundError as exc:
         raise WeatherFileError(
             "file not found; check the path (relative paths resolve against the study file)",
@@ -977,11 +1013,19 @@ def _read_text(path: Path) -> str:
         ) from exc
     except IsADirectoryError as exc:
         raise WeatherFileError("is a folder, not a weather file", file=str(path)) from exc
+
+
+def _read_text(path: Path) -> str:
+    return _decode(_read_bytes(path), str(path))
+
+
+def _decode(raw: bytes, source: str) -> str:
+    """The text of a weather file's bytes (UTF-8, else Latin-1); refuses binary data."""
     if b"\x00" in raw[:65536]:
         raise WeatherFileError(
             "is a binary file, not a text weather file; accepted formats are: "
             + "; ".join(ACCEPTED_FORMATS),
-            file=str(path),
+            file=source,
         )
     try:
         return raw.decode("utf-8-sig")
@@ -992,7 +1036,7 @@ def _read_text(path: Path) -> str:
     if printable < 0.95 * min(len(text), 65536):
         raise WeatherFileError(
             "is not a text file; accepted formats are: " + "; ".join(ACCEPTED_FORMATS),
-            file=str(path),
+            file=source,
         )
     return text
 
@@ -1015,6 +1059,7 @@ __all__ = [
     "REFERENCE_YEAR",
     "Climate",
     "Site",
+    "parse_climate",
     "read_climate",
     "read_epw",
     "read_site",

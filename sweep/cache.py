@@ -16,8 +16,15 @@ entry and deletes its own copy, so exactly one entry remains. Temporary folders
 left by killed writers are removed by :meth:`CoefficientCache.clean_temporary`
 (the run client calls it at start for folders older than an hour).
 
-Only local paths (including shared network file systems) are supported; an
-fsspec URL is not.
+A cache may also live at an fsspec URL (``memory://``, ``s3://``, ``gcs://``, ...;
+:func:`open_cache` chooses): :class:`UrlCache` keeps the same layout and
+checksums, but object stores cannot rename a folder, so it publishes an entry by
+writing its manifest *last*, in one write, after every array file. Array files
+carry their content's sha256 in their name, so two writers of one key never
+overwrite each other's files with other bytes, and a manifest always names whole
+files. A reader sees no manifest (a miss) or a whole entry; a torn manifest on a
+store without atomic writes fails to parse and is a miss. ``file://`` URLs are
+plain local folders (:class:`CoefficientCache`, with its atomic rename).
 """
 
 from __future__ import annotations
@@ -25,6 +32,7 @@ from __future__ import annotations
 import hashlib
 import json
 import os
+import re
 import shutil
 import time
 import uuid
@@ -38,6 +46,10 @@ from luxsweep.sweep.errors import CacheIntegrityError
 
 __all__ = [
     "CoefficientCache",
+    "UrlCache",
+    "is_url",
+    "local_path",
+    "open_cache",
 ]
 
 _TMP = ".tmp-"
@@ -87,6 +99,15 @@ class CoefficientCache:
 
     def __reduce__(self) -> tuple[Any, ...]:
         return (CoefficientCache, (str(self.root),))
+
+    @property
+    def location(self) -> str:
+        """Where the cache is, as workers are told (a local path here)."""
+        return str(self.root)
+
+    def create(self) -> None:
+        """Create the cache folder (and its parents) when missing."""
+        self.root.mkdir(parents=True, exist_ok=True)
 
     # -- queries ----------------------------------------------------------------
     def entry(self, key: str) -> Path:
@@ -268,3 +289,233 @@ class CoefficientCache:
                 shutil.rmtree(path, ignore_errors=True)
                 removed += 1
         return removed
+
+
+def is_url(location: str | os.PathLike) -> bool:
+    """Whether ``location`` is a URL (``scheme://...``) rather than a local path."""
+    return "://" in os.fspath(location)
+
+
+_SCHEME_LIKE = re.compile(r"^[A-Za-z][A-Za-z0-9+.-]+:/(?!/)")
+
+
+def local_path(location: str | os.PathLike, what: str = "--cache") -> str | None:
+    """The local path of ``location``: itself, or the path of a ``file://`` URL; else None.
+
+    Raises
+    ------
+    CacheLocationError
+        ``location`` looks like a URL with one slash too few (``s3:/bucket/x``),
+        which would otherwise quietly become a local folder named ``s3:``.
+    """
+    from luxsweep.sweep.errors import CacheLocationError
+
+    text = os.fspath(location)
+    if _SCHEME_LIKE.match(text):
+        scheme = text.split(":", 1)[0]
+        raise CacheLocationError(
+            f"{what} {text}: this looks like a URL with one slash missing after "
+            f"'{scheme}:'; write {scheme}://{text.split(':/', 1)[1]} (or ./{text} for a "
+            "local folder of that name)")
+    if not is_url(text):
+        return text
+    if text.startswith("file://"):
+        return text[len("file://"):]
+    return None
+
+
+def open_cache(location: str | os.PathLike) -> CoefficientCache | UrlCache:
+    """The coefficient cache at a local folder, a ``file://`` URL or another fsspec URL.
+
+    Raises
+    ------
+    CacheLocationError
+        An fsspec URL whose scheme no installed fsspec backend serves (e.g.
+        ``s3://`` without ``s3fs``), or that fsspec cannot open.
+    """
+    path = local_path(location, "--cache")
+    if path is not None:
+        return CoefficientCache(path)
+    return UrlCache(os.fspath(location))
+
+
+class UrlCache:
+    """A coefficient cache at an fsspec URL (module doc: manifest-last publishing).
+
+    Parameters
+    ----------
+    url : str
+        ``protocol://path`` of the cache folder; any fsspec filesystem. A
+        ``memory://`` cache lives in the memory of the process that opens it, so
+        it serves the client's runs in one process (the client keeps it).
+
+    Notes
+    -----
+    Pickles as its URL; every process opens the filesystem itself.
+    """
+
+    def __init__(self, url: str) -> None:
+        from luxsweep.sweep.errors import CacheLocationError
+
+        self.url = url.rstrip("/")
+        try:
+            import fsspec
+
+            self._fs, self._path = fsspec.core.url_to_fs(self.url)
+        except (ImportError, ValueError, OSError) as exc:
+            raise CacheLocationError(
+                f"coefficient cache {url}: fsspec cannot open this URL ({exc}); install the "
+                "fsspec backend for its scheme (e.g. s3fs for s3://) or give a local folder "
+                "with --cache") from exc
+        self._path = self._path.rstrip("/")
+
+    @property
+    def root(self) -> str:
+        return self.url
+
+    @property
+    def location(self) -> str:
+        return self.url
+
+    def __repr__(self) -> str:
+        return f"UrlCache({self.url!r})"
+
+    def __reduce__(self) -> tuple[Any, ...]:
+        return (UrlCache, (self.url,))
+
+    def create(self) -> None:
+        """Create the cache folder where the filesystem has folders."""
+        self._fs.makedirs(self._path, exist_ok=True)
+
+    def _entry(self, key: str) -> str:
+        if not key or "/" in key or key.startswith("."):
+            raise ValueError(f"not a cache key: {key!r}")
+        return f"{self._path}/{key}"
+
+    def entry(self, key: str) -> str:
+        return f"{self.url}/{key}"
+
+    def contains(self, key: str) -> bool:
+        return bool(self._fs.exists(f"{self._entry(key)}/manifest.json"))
+
+    def keys(self) -> list[str]:
+        try:
+            names = [p.rstrip("/").rsplit("/", 1)[-1] for p in self._fs.ls(self._path,
+                                                                          detail=False)]
+        except FileNotFoundError:
+            return []
+        return sorted(n for n in names if not n.startswith(".") and self.contains(n))
+
+    def _manifest(self, key: str) -> dict[str, Any]:
+        where = self.entry(key)
+        try:
+            manifest = json.loads(self._fs.cat_file(f"{self._entry(key)}/manifest.json"))
+        except (OSError, ValueError) as exc:
+            raise CacheIntegrityError(f"cache entry {where}: no readable manifest ({exc})"
+                                      ) from exc
+        if not isinstance(manifest, dict) or not isinstance(manifest.get("files"), dict):
+            raise CacheIntegrityError(f"cache entry {where}: the manifest lists no files")
+        if manifest.get("key") != key:
+            raise CacheIntegrityError(f"cache entry {where}: manifest is for key "
+                                      f"{manifest.get('key')!r}")
+        return manifest
+
+    def _read(self, key: str, manifest: dict[str, Any]) -> dict[str, bytes]:
+        out = {}
+        for name, info in manifest["files"].items():
+            path = f"{self._entry(key)}/arrays/{info.get('file', name + '.npy')}"
+            try:
+                raw = self._fs.cat_file(path)
+            except OSError as exc:
+                raise CacheIntegrityError(f"cache entry {self.entry(key)}: file {path} is "
+                                          f"missing or unreadable ({exc})") from exc
+            if hashlib.sha256(raw).hexdigest() != info.get("sha256"):
+                raise CacheIntegrityError(f"cache entry {self.entry(key)}: {name} fails its "
+                                          "checksum")
+            out[name] = raw
+        return out
+
+    def verify(self, key: str) -> dict[str, Any]:
+        """The manifest of entry ``key`` after checking every file's checksum."""
+        manifest = self._manifest(key)
+        self._read(key, manifest)
+        return manifest
+
+    def load_arrays(self, key: str) -> tuple[dict[str, np.ndarray], dict[str, Any]] | None:
+        """The arrays and metadata of entry ``key``; ``None`` on a miss (a damaged
+        entry is reported, removed and a miss)."""
+        import io
+
+        if not self.contains(key):
+            return None
+        try:
+            manifest = self._manifest(key)
+            raw = self._read(key, manifest)
+            arrays = {name: np.load(io.BytesIO(b), allow_pickle=False) for name, b in raw.items()}
+        except (CacheIntegrityError, OSError, ValueError) as exc:
+            warnings.warn(f"coefficient cache: ignoring and replacing entry {key}: {exc}",
+                          UserWarning, stacklevel=2)
+            self.discard(key)
+            return None
+        return arrays, manifest["metadata"]
+
+    def discard(self, key: str) -> None:
+        """Remove entry ``key`` (its manifest first, so readers see it whole or not at all)."""
+        entry = self._entry(key)
+        for path in (f"{entry}/manifest.json", entry):
+            try:
+                self._fs.rm(path, recursive=path == entry)
+            except (FileNotFoundError, OSError):
+                pass
+
+    def save_arrays(self, key: str, arrays: dict[str, np.ndarray],
+                    metadata: dict[str, Any]) -> str:
+        """Publish an entry: every array file, then the manifest in one write.
+
+        A good entry already there (another writer won) is kept as it is.
+        """
+        import io
+
+        entry = self._entry(key)
+        if self.contains(key):
+            try:
+                self.verify(key)
+                return self.entry(key)
+            except CacheIntegrityError:
+                self.discard(key)
+        files = {}
+        for name, array in arrays.items():
+            if not name.isidentifier():
+                raise ValueError(f"array name {name!r} is not a plain identifier")
+            buffer = io.BytesIO()
+            np.save(buffer, np.ascontiguousarray(array), allow_pickle=False)
+            raw = buffer.getvalue()
+            digest = hashlib.sha256(raw).hexdigest()
+            file = f"{name}-{digest[:16]}.npy"
+            self._fs.pipe_file(f"{entry}/arrays/{file}", raw)
+            files[name] = {"sha256": digest, "file": file, "shape": list(np.shape(array)),
+                           "dtype": str(np.asarray(array).dtype)}
+        manifest = {"key": key, "files": files, "metadata": metadata, "created": time.time(),
+                    "format": 1}
+        self._fs.pipe_file(f"{entry}/manifest.json",
+                           json.dumps(manifest, indent=1, sort_keys=True).encode())
+        return self.entry(key)
+
+    def load(self, key: str) -> Any | None:
+        """The :class:`kernels.coefficients.CoefficientSet` of ``key``, or ``None``."""
+        from luxsweep.kernels.coefficients import CoefficientSet
+
+        found = self.load_arrays(key)
+        if found is None:
+            return None
+        arrays, metadata = found
+        return CoefficientSet.from_parts(arrays, metadata)
+
+    def save(self, coefficients: Any) -> str:
+        """Publish a :class:`kernels.coefficients.CoefficientSet` under its own key."""
+        return self.save_arrays(coefficients.key, coefficients.to_arrays(),
+                                coefficients.metadata())
+
+    def clean_temporary(self, older_than: float = 3600.0) -> int:
+        """Nothing to clean: entries are written in place, published by their manifest."""
+        return 0

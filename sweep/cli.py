@@ -96,7 +96,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true", help="print the plan as JSON")
     p.add_argument("--workers", type=_positive_int, default=None,
                    help="workers to estimate the time for (default: number of cores)")
-    p.add_argument("--cache", default=None, help="coefficient cache folder")
+    p.add_argument("--cache", default=None, help="coefficient cache folder or fsspec URL")
 
     p = sub.add_parser("run", help="compute a study (resumes an interrupted run)")
     p.add_argument("study", help="study file (YAML)")
@@ -106,8 +106,12 @@ def build_parser() -> argparse.ArgumentParser:
                    help="local worker processes (default: number of cores)")
     p.add_argument("--scheduler", default=None,
                    help="join the Dask cluster at this address or scheduler file")
-    p.add_argument("--cache", default=None, help="coefficient cache folder (default "
-                   "$LUXSWEEP_CACHE or <study folder>/.luxsweep-cache)")
+    p.add_argument("--cache", default=None, help="coefficient cache folder or fsspec URL "
+                   "(default $LUXSWEEP_CACHE or <study folder>/.luxsweep-cache)")
+    p.add_argument("--no-shared-disk", action="store_true",
+                   help="workers share no disk with this machine: weather files travel "
+                   "through Dask, this machine keeps the cache and writes the results "
+                   "(chosen by itself for whatever a worker cannot reach)")
     p.add_argument("--fresh", action="store_true",
                    help="discard the existing results store (e.g. of an edited study) and "
                    "start over")
@@ -166,7 +170,7 @@ def cmd_check(args: argparse.Namespace) -> int:
 
 
 def cmd_plan(args: argparse.Namespace) -> int:
-    from luxsweep.sweep.cache import CoefficientCache
+    from luxsweep.sweep.cache import open_cache
     from luxsweep.sweep.config import load_study
     from luxsweep.sweep.costs import estimated_seconds, format_duration, measure_rates
     from luxsweep.sweep.labels import plural
@@ -174,7 +178,7 @@ def cmd_plan(args: argparse.Namespace) -> int:
     from luxsweep.sweep.run import default_cache
 
     loaded = load_study(args.study)
-    cache = CoefficientCache(args.cache or default_cache(loaded))
+    cache = open_cache(args.cache or default_cache(loaded))
     plan = make_plan(loaded, cache)
     est = plan.estimate()
     missing = next((j for j in plan.jobs.values() if not j.cached), None)
@@ -228,7 +232,8 @@ def cmd_run(args: argparse.Namespace) -> int:
         summary = run_study(args.study, args.out, workers=args.workers,
                             scheduler=args.scheduler, cache_dir=args.cache,
                             connect_timeout=args.connect_timeout, tls=tls,
-                            progress_every=args.progress_every, fresh=args.fresh)
+                            progress_every=args.progress_every, fresh=args.fresh,
+                            no_shared_disk=args.no_shared_disk)
     print(format_summary(summary))
     return 0 if summary.ok else 1
 

@@ -15,6 +15,7 @@ from luxsweep.kernels.errors import InputError, LuxsweepError
 
 __all__ = [
     "CacheIntegrityError",
+    "CacheLocationError",
     "InputError",
     "InputMismatchError",
     "LuxsweepError",
@@ -62,3 +63,8 @@ class InputMismatchError(UserInputError):
 class PreflightError(UserInputError):
     """The pre-flight check found workers that cannot do their part (inputs,
     cache or store folder, versions); one message lists what fails where."""
+
+
+class CacheLocationError(UserInputError):
+    """The coefficient cache location cannot be used: an fsspec URL that no
+    installed backend serves, or that cannot be created or written (exit 2)."""

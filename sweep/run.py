@@ -31,8 +31,10 @@ The cluster (a loopback ``LocalCluster``, or one joined by address or
 scheduler file, over TLS if asked) comes from :mod:`sweep.cluster`; it is
 joined after validation, and every worker passes :func:`sweep.preflight.preflight`
 before the store is created. A series task checks its weather file against the
-client's sha256 first; a mismatch stops the run. Progress (task by
-task, both phases) is :mod:`sweep.progress`. Series tasks run BLAS on one
+client's sha256 first; a mismatch stops the run. Whatever some worker cannot
+reach (weather files, the cache, the store's folder) stays with the client and
+travels through Dask (:class:`sweep.preflight.Transport`; ``--no-shared-disk``).
+Progress (task by task, both phases) is :mod:`sweep.progress`. Series tasks run BLAS on one
 thread so results are bit-identical wherever they run.
 """
 
@@ -41,6 +43,7 @@ from __future__ import annotations
 import contextlib
 import dataclasses
 import functools
+import hashlib
 import itertools
 import logging
 import os
@@ -58,7 +61,7 @@ import numpy as np
 
 from luxsweep.sweep import registry
 from luxsweep.sweep import store as results_store
-from luxsweep.sweep.cache import CoefficientCache
+from luxsweep.sweep.cache import CoefficientCache, UrlCache, is_url, local_path, open_cache
 from luxsweep.sweep.cluster import (
     ALLOWED_FAILURES,
     CONNECT_TIMEOUT,
@@ -72,13 +75,14 @@ from luxsweep.sweep.cluster import (
 from luxsweep.sweep.config import StudyFile, load_study
 from luxsweep.sweep.errors import (
     CacheIntegrityError,
+    CacheLocationError,
     InputMismatchError,
     ResultsStoreError,
     UserInputError,
     VariantFailedError,
 )
 from luxsweep.sweep.plan import CoefficientJob, Plan, SeriesTask, make_plan
-from luxsweep.sweep.preflight import preflight
+from luxsweep.sweep.preflight import Transport, preflight
 from luxsweep.sweep.progress import PLAIN_EVERY, Progress
 from luxsweep.sweep.registry import store_variables
 
@@ -98,17 +102,23 @@ FAMILIES = registry.FAMILIES
 # worker tasks
 
 
-def coefficient_task(job: CoefficientJob, cache_root: str) -> dict[str, Any]:
+def coefficient_task(job: CoefficientJob, cache_root: str | None) -> dict[str, Any]:
     """Compute and publish one coefficient set (read from the cache when there).
 
     Returns ``key``, ``computed``, ``seconds`` and the set itself
     (``coefficients``): series tasks submitted with this result receive the set
     through Dask, so a worker whose cache folder lacks it (no shared disk) has it.
+    With ``cache_root`` None (the client keeps the cache) the set is only computed
+    and returned: the client publishes it.
     """
     from luxsweep.kernels.coefficients import compute_coefficients
 
-    cache = CoefficientCache(cache_root)
     t0 = time.perf_counter()
+    if cache_root is None:
+        coefficients = compute_coefficients(job.geometry, job.sensors, job.settings)
+        return {"key": job.key, "computed": True, "seconds": time.perf_counter() - t0,
+                "coefficients": coefficients}
+    cache = open_cache(cache_root)
     if cache.contains(job.key):
         found = cache.load(job.key)  # checksums verified; a damaged entry is a miss
         if found is not None:
@@ -166,7 +176,7 @@ def _element_info(elements: dict[str, Any]) -> dict[str, Any]:
     return {k: v for k, v in elements.items() if k != "solution"}
 
 
-def coefficient_assemble_task(job: CoefficientJob, cache_root: str, direct: list[dict],
+def coefficient_assemble_task(job: CoefficientJob, cache_root: str | None, direct: list[dict],
                               reflected: list[dict], elements: dict[str, Any]
                               ) -> dict[str, Any]:
     """Assemble a split set from its parts and publish it (as :func:`coefficient_task` does).
@@ -180,7 +190,8 @@ def coefficient_assemble_task(job: CoefficientJob, cache_root: str, direct: list
     t0 = time.perf_counter()
     coefficients = assemble(job.geometry, job.sensors, direct, reflected, job.settings,
                             element_crossed_twice=elements["crossed_twice"])
-    CoefficientCache(cache_root).save(coefficients)
+    if cache_root is not None:  # else the client publishes it
+        open_cache(cache_root).save(coefficients)
     seconds = (time.perf_counter() - t0 + elements["seconds"]
                + sum(float(p["seconds"]) for p in (*direct, *reflected)))
     return {"key": job.key, "computed": True, "seconds": seconds, "coefficients": coefficients}
@@ -217,18 +228,19 @@ def coefficient_info(result: dict[str, Any]) -> dict[str, Any]:
     return out
 
 
-def _coefficients(task: SeriesTask, cache_root: str, coefficient_result: Any,
+def _coefficients(task: SeriesTask, cache_root: str | None, coefficient_result: Any,
                   job: CoefficientJob | None) -> tuple[Any, int]:
     """The task's coefficient set and how many sets were computed here (0 or 1).
 
     From the coefficient task's result when given (through Dask), else from this
-    worker's cache, else (a worker with a cache of its own that lacks the set)
-    computed from ``job`` and kept in that cache.
+    worker's cache, else (a worker with a cache of its own that lacks the set, or
+    no cache at all: ``cache_root`` None) computed from ``job`` and kept in that
+    cache if there is one.
     """
     if isinstance(coefficient_result, dict) and "coefficients" in coefficient_result:
         return coefficient_result["coefficients"], 0
-    cache = CoefficientCache(cache_root)
-    coeffs = cache.load(task.key)
+    cache = open_cache(cache_root) if cache_root is not None else None
+    coeffs = cache.load(task.key) if cache is not None else None
     if coeffs is not None:
         return coeffs, 0
     if job is None:
@@ -236,7 +248,8 @@ def _coefficients(task: SeriesTask, cache_root: str, coefficient_result: Any,
     from luxsweep.kernels.coefficients import compute_coefficients
 
     coeffs = compute_coefficients(job.geometry, job.sensors, job.settings)
-    cache.save(coeffs)
+    if cache is not None:  # else the client keeps the cache: nothing to keep here
+        cache.save(coeffs)
     return coeffs, 1
 
 
@@ -295,7 +308,8 @@ class ClimateSteps:
         if ephemeris and self._ephemeris is not None:
             self._ephemeris.clear()
 
-    def get(self, path: str | os.PathLike, step_minutes: int, sha256: str = "") -> tuple:
+    def get(self, path: str | os.PathLike, step_minutes: int, sha256: str = "",
+            data: bytes | None = None) -> tuple:
         """``(climate, altitude, azimuth, daylight)`` of a weather file at ``step_minutes``
         (``daylight``: the EN 17037 daylight steps, :func:`kernels.sun.daylight_steps`).
 
@@ -303,28 +317,42 @@ class ClimateSteps:
         (:func:`sweep.preflight.verify_file`, once per file version per process) and
         again after reading, so a file replaced meanwhile is never used.
 
+        With ``data`` (the file's bytes, read by the client and sent through Dask)
+        the file is not opened here: the bytes are checked against ``sha256`` and
+        parsed (:func:`kernels.climate.parse_climate`, the same climate bit for bit).
+
         Raises
         ------
         InputMismatchError
             The file differs from the client's or cannot be read (names file and worker).
         """
-        from luxsweep.kernels.climate import read_climate
+        from luxsweep.kernels.climate import parse_climate, read_climate
         from luxsweep.kernels.sun import daylight_steps, resample, sun_steps
-        from luxsweep.sweep.preflight import file_version, verify_file
+        from luxsweep.sweep.preflight import file_version, verify_file, worker_name
 
-        version = verify_file(path, sha256) if sha256 else file_version(path)
+        if data is not None:
+            found = hashlib.sha256(data).hexdigest()
+            if sha256 and found != sha256:
+                raise InputMismatchError(
+                    f"worker {worker_name()}: the weather data of {os.fspath(path)} received "
+                    f"through Dask is not the client's (sha256 {found[:12]}…, expected "
+                    f"{sha256[:12]}…); the run stopped so that no result comes from other data")
+            version: tuple = ("bytes", found)
+        else:
+            version = verify_file(path, sha256) if sha256 else file_version(path)
         key = (version, step_minutes)
         with self._lock:
             if key in self._entries:
                 return self._entries[key]
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")  # reported once by the client's check
-            climate = read_climate(path)
+            climate = (read_climate(path) if data is None
+                       else parse_climate(data, str(Path(path))))
             steps = sun_steps(climate, step_minutes, ephemeris=self.ephemeris)
             resampled = resample(climate, step_minutes, steps=steps)
             entry = (resampled, steps.altitude, steps.azimuth,
                      daylight_steps(resampled, steps=steps))
-        if sha256 and verify_file(path, sha256) != version:  # replaced while being read
+        if data is None and sha256 and verify_file(path, sha256) != version:  # replaced
             return self.get(path, step_minutes, sha256)
         with self._lock:
             if len(self._entries) >= self.max_entries:
@@ -368,10 +396,11 @@ class Workspace:
 def series_task(
     task: SeriesTask,
     todo: list[tuple[int, int, int]],
-    store_path: str,
-    cache_root: str,
+    store_path: str | None,
+    cache_root: str | None,
     coefficient_result: Any = None,
     job: CoefficientJob | None = None,
+    climate_data: bytes | None = None,
 ) -> dict[str, Any]:
     """Series, metrics and writes of one group (runs on a worker).
 
@@ -385,22 +414,34 @@ def series_task(
     task : SeriesTask
     todo : list of (variant index, orientation index, row index)
         Members not yet done (resume).
-    store_path, cache_root : str
+    store_path : str or None
+        The results store; None when the client writes it (no shared disk): the
+        result then holds the variants' arrays (``rows``, ``series``).
+    cache_root : str or None
+        The coefficient cache as workers reach it; None when the client keeps it
+        (the set then always comes as ``coefficient_result``).
     coefficient_result : dict, optional
-        Result of the coefficient task computed in this run (it holds the set).
+        Result of the coefficient task computed in this run, or the set the
+        client read from its cache (it holds the set).
     job : CoefficientJob, optional
         The set's inputs: the set is computed here when this worker's cache lacks it.
+    climate_data : bytes, optional
+        The weather file's bytes as the client read them (no shared disk); else
+        the file is read here by path.
 
     Returns
     -------
     dict
         ``variants`` written, ``recomputed`` coefficient sets (0 or 1) and
-        seconds spent per stage.
+        seconds spent per stage; without ``store_path`` also ``rows`` (variant
+        indices, per-sensor and per-variant arrays) and ``series`` (one
+        ``(start, illuminance, direct_sun)`` per time block) for the client to write.
     """
     from threadpoolctl import threadpool_limits
 
     with threadpool_limits(limits=1, user_api="blas"):
-        return _series(task, todo, store_path, cache_root, coefficient_result, job)
+        return _series(task, todo, store_path, cache_root, coefficient_result, job,
+                       climate_data)
 
 
 class _StageTimer:
@@ -456,8 +497,9 @@ class _SeriesInputs:
         return int(np.clip(BLOCK_BYTES // max(per_step, 1), 24, 8760))
 
 
-def _load_series(task: SeriesTask, cache_root: str, coefficient_result: Any = None,
-                 job: CoefficientJob | None = None) -> _SeriesInputs:
+def _load_series(task: SeriesTask, cache_root: str | None, coefficient_result: Any = None,
+                 job: CoefficientJob | None = None,
+                 climate_data: bytes | None = None) -> _SeriesInputs:
     """The coefficient set, the climate with its sun, and the step masks of a task
     (``recomputed``: coefficient sets computed here, :func:`_coefficients`).
 
@@ -470,7 +512,7 @@ def _load_series(task: SeriesTask, cache_root: str, coefficient_result: Any = No
 
     study = task.study
     climate, altitude, azimuth, daylight = CLIMATE_STEPS.get(task.climate_file, study.timestep,
-                                                             task.climate_sha256)
+                                                             task.climate_sha256, climate_data)
     coeffs, recomputed = _coefficients(task, cache_root, coefficient_result, job)
     stamps = climate.time
     scheme = patch_scheme(coeffs.subdivision)
@@ -554,9 +596,13 @@ def _count_block(inp: _SeriesInputs, counts: Any, a: int, b: int, workspace: Wor
     return counts, lit, unit
 
 
-def _write_series(inp: _SeriesInputs, members: tuple, store_path: str, a: int, b: int,
-                  lit: np.ndarray, unit: tuple | None, occ_done: int) -> int:
-    """Write the occupied steps of ``[a, b)`` of the members' series; returns how many."""
+def _write_series(inp: _SeriesInputs, members: tuple, store_path: str | None, a: int, b: int,
+                  lit: np.ndarray, unit: tuple | None, occ_done: int,
+                  kept: list | None = None) -> int:
+    """Write the occupied steps of ``[a, b)`` of the members' series; returns how many.
+
+    Without ``store_path`` the block is appended to ``kept`` for the client to write.
+    """
     from luxsweep.kernels.timeseries import combine
 
     vis, ois, ris = members
@@ -570,7 +616,11 @@ def _write_series(inp: _SeriesInputs, members: tuple, store_path: str, a: int, b
         hit = (pos < lit.size) & (lit[np.minimum(pos, lit.size - 1)] == occ_steps)
         for out, u in zip((e, d), unit, strict=True):
             out[..., hit] = combine(u[:, :, pos[hit]], inp.open_rows).swapaxes(-1, -2)
-    results_store.write_series_block(store_path, vis, occ_done, e[ois, ris], d[ois, ris])
+    if store_path is None:
+        assert kept is not None
+        kept.append((occ_done, e[ois, ris], d[ois, ris]))
+    else:
+        results_store.write_series_block(store_path, vis, occ_done, e[ois, ris], d[ois, ris])
     return int(occ_steps.size)
 
 
@@ -599,10 +649,11 @@ def _final_results(inp: _SeriesInputs, counts: Any) -> dict[str, np.ndarray]:
 def _series(
     task: SeriesTask,
     todo: list[tuple[int, int, int]],
-    store_path: str,
-    cache_root: str,
+    store_path: str | None,
+    cache_root: str | None,
     coefficient_result: Any = None,
     job: CoefficientJob | None = None,
+    climate_data: bytes | None = None,
 ) -> dict[str, Any]:
     """Body of :func:`series_task` (same parameters and result).
 
@@ -614,31 +665,37 @@ def _series(
     """
     timer = _StageTimer()
     with timer("load"):
-        inp = _load_series(task, cache_root, coefficient_result, job)
+        inp = _load_series(task, cache_root, coefficient_result, job, climate_data)
     workspace = Workspace()
     vis = [vi for vi, _, _ in todo]
     members = (vis, np.array([oi for _, oi, _ in todo], dtype=np.intp),
                np.array([ri for _, _, ri in todo], dtype=np.intp))
     counts = None
     occ_done = 0
+    kept: list[tuple[int, np.ndarray, np.ndarray]] = []
     for a, b in _blocks(len(inp.climate.time), inp.occupied, task.study.store_series,
                         inp.block_steps()):
         counts, lit, unit = _count_block(inp, counts, a, b, workspace, timer)
         if task.study.store_series:
             with timer("write"):
-                occ_done += _write_series(inp, members, store_path, a, b, lit, unit, occ_done)
+                occ_done += _write_series(inp, members, store_path, a, b, lit, unit, occ_done,
+                                          kept)
         del unit  # the block's direct-sun array is fresh memory: free it before the next
     with timer("metrics"):
         results = _final_results(inp, counts)
     with timer("write"):
         _, ois, ris = members
         sensor_vars, variant_vars = store_variables(list(task.study.metrics))
-        results_store.write_variants(  # every variant's data, then their `done` flags
-            store_path, vis,
-            {name: np.asarray(results[name][ois, ris], dtype=np.float32) for name in sensor_vars},
-            {name: np.asarray(results[name][ois, ris]) for name in variant_vars},
-        )
-    return {"variants": len(todo), "recomputed": inp.recomputed, "timing": timer.seconds}
+        rows = (vis,
+                {name: np.asarray(results[name][ois, ris], dtype=np.float32)
+                 for name in sensor_vars},
+                {name: np.asarray(results[name][ois, ris]) for name in variant_vars})
+        if store_path is not None:  # every variant's data, then their `done` flags
+            results_store.write_variants(store_path, *rows)
+    out = {"variants": len(todo), "recomputed": inp.recomputed, "timing": timer.seconds}
+    if store_path is None:  # the client writes them (no shared disk)
+        out.update(rows=rows, series=kept)
+    return out
 
 
 # ---------------------------------------------------------------------------
@@ -676,10 +733,37 @@ def default_results(loaded: StudyFile) -> Path:
     return path
 
 
-def default_cache(loaded: StudyFile) -> Path:
-    """``$LUXSWEEP_CACHE`` or ``<study folder>/.luxsweep-cache``."""
+def default_cache(loaded: StudyFile) -> Path | str:
+    """``$LUXSWEEP_CACHE`` (a folder or an fsspec URL) or ``<study folder>/.luxsweep-cache``."""
     env = os.environ.get("LUXSWEEP_CACHE")
+    if env and is_url(env):
+        return env
     return Path(env).expanduser() if env else loaded.folder / ".luxsweep-cache"
+
+
+def results_path(out: str | Path) -> Path:
+    """The results store's folder for ``--out``: a path, or a ``file://`` URL.
+
+    Raises
+    ------
+    ResultsStoreError
+        For any other URL (``s3://``, ``memory://``, ...): the store's atomic
+        creation, its resume checks and its per-block locks rely on a folder,
+        so luxsweep refuses rather than writing a store it cannot keep whole.
+    """
+    try:
+        path = local_path(out, "--out")
+    except CacheLocationError as exc:
+        raise ResultsStoreError(str(exc)) from exc
+    if path is None:
+        raise ResultsStoreError(
+            f"--out {out}: the results store must be a folder (a local or network-mounted "
+            "path, or a file:// URL); stores at other URLs are not supported. Write the "
+            "store to a folder on the client (workers need not see it: the client writes "
+            "it when they cannot) and copy it afterwards; the coefficient cache may live at "
+            "an fsspec URL (--cache)")
+    # absolute but as given (no symlink resolution): workers open the same name
+    return Path(os.path.abspath(Path(path).expanduser()))
 
 
 def _layout(plan: Plan) -> results_store.StoreLayout:
@@ -732,7 +816,8 @@ def _inputs_record(plan: Plan) -> dict[str, Any]:
 
 
 def prepare(study_path: str | Path, out: str | Path | None, cache_dir: str | Path | None,
-            *, fresh: bool = False) -> tuple[Plan, Path, CoefficientCache, np.ndarray | None]:
+            *, fresh: bool = False
+            ) -> tuple[Plan, Path, CoefficientCache | UrlCache, np.ndarray | None]:
     """Validate everything and open the store (no cluster yet).
 
     Returns the plan, results path, cache and the ``done`` flags of an existing
@@ -740,10 +825,9 @@ def prepare(study_path: str | Path, out: str | Path | None, cache_dir: str | Pat
     store, which must be a luxsweep store, is then replaced by :func:`run_study`).
     """
     loaded = load_study(study_path)
-    cache = CoefficientCache(cache_dir if cache_dir else default_cache(loaded))
-    plan = make_plan(loaded, cache)
-    # absolute but as given (no symlink resolution): workers open the same name
-    results = Path(os.path.abspath(Path(out).expanduser())) if out else default_results(loaded)
+    results = results_path(out) if out else default_results(loaded)
+    cache = open_cache(cache_dir if cache_dir else default_cache(loaded))
+    plan = make_plan(loaded, cache)  # type: ignore[arg-type]  # any cache: contains()
     done = None
     if results.exists() and fresh:
         results_store.read_attrs(results)  # refuses a folder that is not a results store
@@ -755,7 +839,7 @@ def prepare(study_path: str | Path, out: str | Path | None, cache_dir: str | Pat
     return plan, results, cache, done
 
 
-def _usable(cache: CoefficientCache, key: str) -> bool:
+def _usable(cache: CoefficientCache | UrlCache, key: str) -> bool:
     """Whether entry ``key`` is in the cache and passes its checksums.
 
     A damaged entry is reported with a warning naming the key, removed, and
@@ -785,6 +869,7 @@ def run_study(
     tls: TlsFiles | None = None,
     progress_every: float = PLAIN_EVERY,
     fresh: bool = False,
+    no_shared_disk: bool = False,
 ) -> RunSummary:
     """Validate, plan and compute a study; resume an interrupted run of the same study.
 
@@ -812,6 +897,11 @@ def run_study(
         Discard an existing results store at ``out`` (saying so) and start over;
         it must be a luxsweep results store. It is removed only once the cluster
         answers, moved aside first so a run killed meanwhile leaves no half store.
+    no_shared_disk : bool
+        Do not rely on any disk shared with the workers: weather files travel as
+        bytes through Dask, the client keeps the cache and writes the store
+        (:class:`sweep.preflight.Transport`); without it the pre-flight check
+        chooses this for whatever some worker cannot reach.
 
     Raises
     ------
@@ -849,10 +939,17 @@ def run_study(
                      key=lambda j: -j.rays)
 
     with dask_client(workers, scheduler, connect_timeout=connect_timeout, tls=tls) as client:
-        cache.root.mkdir(parents=True, exist_ok=True)
-        # every worker: weather files, cache and store folders, versions (exit 2)
-        shared = preflight(client, {t.climate_file: t.climate_sha256 for t in pending},
-                           cache.root, results)
+        try:
+            cache.create()
+        except OSError as exc:
+            raise CacheLocationError(f"coefficient cache {cache.location}: cannot be created "
+                                     f"({exc}); choose another with --cache") from exc
+        # every worker: weather files, cache and store folders, versions (exit 2);
+        # what some worker cannot reach stays with the client
+        transport = preflight(client, {t.climate_file: t.climate_sha256 for t in pending},
+                              cache.location, results, no_shared_disk=no_shared_disk)
+        # read before the store exists: a file changed since planning leaves none
+        weather = read_weather(pending) if transport.inputs_by_dask else {}
         if discard:
             _discard_store(results, plan)
         if done is None:  # only now that the cluster answers and passed its check
@@ -862,7 +959,10 @@ def run_study(
             log.info("dashboard: %s", link)
         cache.clean_temporary(older_than=3600.0)
         collector = Collector(client, plan, results, cache, summary,
-                              hold_sets=not all(shared.values()))
+                              hold_sets=transport.hold_sets, transport=transport)
+        collector.send_climates(weather)
+        if transport.client_cache:
+            collector.send_cached_sets(sorted(needed - {j.key for j in missing}))
         collector.submit_coefficients(missing)
         for task in pending:
             collector.submit_series(task, [m for m in task.members if not done_before[m[0]]])
@@ -873,6 +973,34 @@ def run_study(
     results_store.consolidate(results)
     summary.seconds = time.perf_counter() - t_start
     return summary
+
+
+def _weather_bytes(data: bytes) -> bytes:
+    """The bytes of one weather file, as a task result (:meth:`Collector.send_climates`)."""
+    return data
+
+
+def read_weather(tasks: list[SeriesTask]) -> dict[str, bytes]:
+    """The bytes of every weather file of ``tasks``, read once by the client.
+
+    Raises
+    ------
+    InputMismatchError
+        A file's bytes are not those the plan hashed (it changed since planning).
+    """
+    out: dict[str, bytes] = {}
+    for task in tasks:
+        path = task.climate_file
+        if path in out:
+            continue
+        data = Path(path).read_bytes()
+        found = hashlib.sha256(data).hexdigest()
+        if task.climate_sha256 and found != task.climate_sha256:
+            raise InputMismatchError(
+                f"the weather file {path} changed after the run read it (sha256 "
+                f"{found[:12]}… now, {task.climate_sha256[:12]}… then); run again")
+        out[path] = data
+    return out
 
 
 def _discard_store(results: Path, plan: Plan) -> None:
@@ -919,16 +1047,30 @@ class Collector:
     (``coefficient-info-<key>``). Other finished futures are released as soon
     as they are read, so that a worker dying later does not make Dask recompute
     them (and count them as suspects).
+
+    Without a shared disk (``transport``) the collector also places the weather
+    files' bytes and the client's cached sets in Dask, publishes the sets the
+    workers compute in the client's cache, and writes the results the series
+    tasks return (series blocks, then the variants with ``done`` last), all in
+    the thread that gathers them.
     """
 
-    def __init__(self, client: Any, plan: Plan, results: Path, cache: CoefficientCache,
-                 summary: RunSummary, hold_sets: bool = True) -> None:
+    def __init__(self, client: Any, plan: Plan, results: Path,
+                 cache: CoefficientCache | UrlCache, summary: RunSummary,
+                 hold_sets: bool = True, transport: Transport | None = None) -> None:
         self.client = client
-        self.results, self.cache_root = str(results), str(cache.root)
+        self.transport = transport or Transport()
+        self.cache = cache
+        self.results = str(results)
+        # what workers are told: None when the client keeps the cache or writes the store
+        self.cache_root = None if self.transport.client_cache else cache.location
+        self.store_path = None if self.transport.client_store else self.results
+        self.climate_data: dict[str, Any] = {}  # weather file -> future of its bytes
+        self.sent: set[str] = set()  # sets scattered from the client's cache
         self.summary = summary
         self.timing: dict[str, float] = {"coefficients": 0.0}
         self.jobs = plan.jobs
-        self.hold_sets = hold_sets
+        self.hold_sets = hold_sets or self.transport.client_cache
         self.coefficients: dict[str, Any] = {}  # set key -> future holding the set
         self.coefficient_keys: dict[Any, str] = {}  # summary future -> set key, until read
         self.users: dict[str, int] = {}  # set key -> series futures not yet gathered
@@ -939,6 +1081,49 @@ class Collector:
         self.progress: Progress | None = None
 
     # -- submitting
+
+    def send_climates(self, weather: dict[str, bytes]) -> None:
+        """Place each weather file's bytes (:func:`read_weather`) in Dask.
+
+        Each is the argument of a small task (``weather-<sha256>``) rather than
+        scattered data: the scheduler keeps the task, so if the worker holding
+        the bytes dies they are made again, not lost.
+        """
+        for path, data in weather.items():
+            digest = hashlib.sha256(data).hexdigest()
+            self.climate_data[path] = self.client.submit(
+                _weather_bytes, data, key=f"weather-{digest[:24]}", pure=False, priority=200)
+
+    def send_cached_sets(self, keys: list[str]) -> None:
+        """Place the client's cached sets ``keys`` in Dask (the client keeps the cache)."""
+        for key in keys:
+            if self._send_set(key) is None:  # damaged since planning: computed like a miss
+                self.submit_coefficients([self.jobs[key]])
+
+    def _send_set(self, key: str) -> Any:
+        """Scatter set ``key`` from the client's cache; its future (None when not there)."""
+        coefficients = self.cache.load(key)
+        if coefficients is None:
+            return None
+        # a list of one: scatter would place a dict's values one by one
+        (fut,) = self.client.scatter([{"coefficients": coefficients}], hash=False)
+        self.coefficients[key] = fut
+        self.sent.add(key)
+        return fut
+
+    def _set_for(self, key: str) -> Any:
+        """The future of set ``key`` for a series task, or None (the worker then reads
+        its cache or computes the set from its job).
+
+        When the client keeps the cache, a set no longer held (released after its
+        last task, or scattered data lost with a worker) is sent again from the
+        client's cache, where every set of the run has been published.
+        """
+        fut = self.coefficients.get(key)
+        if not self.transport.client_cache or (
+                fut is not None and fut.status in ("pending", "finished")):
+            return fut
+        return self._send_set(key)
 
     def submit_coefficients(self, missing: list[CoefficientJob]) -> None:
         """One task per missing set, largest first, ahead of every series task."""
@@ -966,8 +1151,9 @@ class Collector:
         # or computed there from the job when its cache lacks it
         self.users[task.key] = self.users.get(task.key, 0) + 1
         return self.client.submit(
-            series_task, task, todo, self.results, self.cache_root,
-            self.coefficients.get(task.key), self.jobs.get(task.key), key=key, priority=0,
+            series_task, task, todo, self.store_path, self.cache_root,
+            self._set_for(task.key), self.jobs.get(task.key),
+            self.climate_data.get(task.climate_file), key=key, priority=0,
             pure=False, retries=0,
         )
 
@@ -997,13 +1183,20 @@ class Collector:
         for key in list(self.coefficients):
             self._release_set(key)
         for task, member, vid in self.suspects:
-            fut = self._submit(task, [member], f"{task.task_id}-{vid}-alone")
-            try:
-                self._written(fut.result())
-            except Exception as exc:
-                self._report(fut.key, task, [vid], exc)
-            finally:
-                fut.release()
+            for attempt in ("", "-again"):  # again once if the set sent with it was lost
+                fut = self._submit(task, [member], f"{task.task_id}-{vid}-alone{attempt}")
+                try:
+                    self._written(fut.result())
+                except Exception as exc:
+                    if not attempt and self._lost_set(task.key, exc):
+                        continue
+                    self._report(fut.key, task, [vid], exc)
+                finally:
+                    self.users[task.key] -= 1
+                    fut.release()
+                break
+        for key in list(self.coefficients):  # sets sent again for the tasks run alone
+            self._release_set(key)
         self.summary.timing = self.timing
         return self.summary
 
@@ -1011,6 +1204,9 @@ class Collector:
         key = self.coefficient_keys.pop(fut)
         if fut.status == "finished":
             res = fut.result()
+            if self.transport.client_cache and res["computed"]:
+                # the client keeps the cache: publish the set the worker returned
+                self.cache.save(self.coefficients[key].result()["coefficients"])
             self.summary.coefficient_sets_computed += int(res["computed"])
             self.timing["coefficients"] += res["seconds"]
             self.summary.crossed_twice += int(res.get("crossed_twice", 0))
@@ -1049,9 +1245,10 @@ class Collector:
             self._stop()
             raise
         except Exception as exc:
+            lost = self._lost_set(task.key, exc)
             if self._set_failed(task.key):
                 self._report(fut.key, task, ids, exc)
-            elif isinstance(exc, KilledWorker):
+            elif isinstance(exc, KilledWorker) or lost:
                 log.warning("task %s failed (%s); its variants %s will run again one at "
                             "a time at the end", fut.key, exc, ", ".join(ids))
                 self.suspects += [(task, m, vid) for m, vid in zip(todo, ids, strict=True)]
@@ -1073,6 +1270,20 @@ class Collector:
         self._written(result)
         return retries
 
+    def _lost_set(self, key: str, exc: Exception) -> bool:
+        """Whether a task failed because the set the client sent with it was lost (a
+        worker holding the only copy died: scattered data cannot be made again). The
+        set is then dropped, so the next task of its key gets it sent afresh."""
+        from concurrent.futures import CancelledError
+
+        if key not in self.sent or not isinstance(exc, CancelledError):
+            return False
+        self.sent.discard(key)
+        fut = self.coefficients.pop(key, None)
+        if fut is not None:
+            fut.release()
+        return True
+
     def _set_failed(self, key: str) -> bool:
         """Whether the coefficient task of set ``key`` failed (seen or not yet gathered)."""
         fut = self.coefficients.get(key)
@@ -1081,6 +1292,15 @@ class Collector:
         return key in self.failed_sets
 
     def _written(self, result: dict[str, Any]) -> None:
+        if "rows" in result:  # the client writes the store: series first, `done` last
+            t0 = time.perf_counter()
+            indices = result["rows"][0]
+            for start, illuminance, direct in result["series"]:
+                results_store.write_series_block(self.results, indices, start, illuminance,
+                                                 direct)
+            results_store.write_variants(self.results, *result["rows"])
+            self.timing["write"] = (self.timing.get("write", 0.0)
+                                    + time.perf_counter() - t0)
         self.summary.written += result["variants"]
         self.summary.coefficient_sets_recomputed += result.get("recomputed", 0)
         for k, v in result["timing"].items():
@@ -1160,6 +1380,8 @@ __all__ = [
     "is_loopback",
     "is_plain_link",
     "prepare",
+    "read_weather",
+    "results_path",
     "run_study",
     "series_task",
     "split_ranges",

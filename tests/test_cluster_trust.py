@@ -196,8 +196,9 @@ def test_workers_with_their_own_cache_give_the_local_results(tmp_path):
 
 def test_worker_check_lists_every_problem(tmp_path):
     """The pre-flight check run in this process (as ``client.run`` runs it on a
-    worker): a weather file with other bytes, a missing one, a store folder that is
-    not the client's, other versions — each named in one list; the client's own
+    worker): a weather file with other bytes and other versions — each named in one
+    list of problems; a missing weather file and a store folder that is not the
+    client's are notes (their data then travels through Dask); the client's own
     folders and files pass and the shared cache is recognised by its probe."""
     from luxsweep.kernels import KERNEL_VERSION
     from luxsweep.sweep import __version__
@@ -214,18 +215,22 @@ def test_worker_check_lists_every_problem(tmp_path):
     needs = {"inputs": {str(good): file_sha256(good)}, "cache": str(cache),
              "store_folder": str(store), "token": "token", "version": __version__,
              "kernel_version": KERNEL_VERSION, "cache_probe": "probe", "store_probe": "probe"}
-    assert worker_check(needs) == {"problems": [], "shared_cache": True}
+    assert worker_check(needs) == {"problems": [], "shared_cache": True, "own_cache": False,
+                                   "inputs": True, "shared_store": True, "notes": []}
 
     bad = {**needs, "inputs": {str(good): "0" * 64, str(tmp_path / "gone.csv"): "1" * 64},
            "version": "0.0.0", "kernel_version": "other", "token": "client's"}
     answer = worker_check(bad)
     assert answer["shared_cache"] is False
     text = "\n".join(answer["problems"])
-    assert len(answer["problems"]) == 5, text
+    assert len(answer["problems"]) == 3, text
     assert f"{good} is not the client's file" in text
-    assert f"{tmp_path / 'gone.csv'} cannot be read" in text
     assert "luxsweep" in text and "0.0.0" in text and "kernel version" in text
-    assert f"store's folder {store} is not the client's" in text
+    # what the client can send through Dask or keep itself is a note, not a problem
+    notes = "\n".join(answer["notes"])
+    assert not answer["inputs"] and not answer["shared_store"]
+    assert f"{tmp_path / 'gone.csv'} cannot be read" in notes
+    assert f"store's folder {store} is not the client's" in notes
 
 
 def test_series_task_refuses_a_weather_file_changed_after_planning(tmp_path):
