@@ -96,6 +96,9 @@ class SeriesTask:
         The resolved study of the first member (time step, occupancy, ...).
     climate_sha256 : str
         sha256 of the weather file as the client read it (workers check theirs).
+    layout : SpaceLayout or None
+        The space of every sensor of the set and each space's grid area (the
+        coefficient job's); None in hand-made tasks: one space.
     """
 
     task_id: str
@@ -109,6 +112,7 @@ class SeriesTask:
     study: Study
     variant_ids: tuple[str, ...]
     climate_sha256: str = ""
+    layout: SpaceLayout | None = None
 
     @property
     def shading(self) -> bool:
@@ -495,7 +499,7 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
             climate_file=loaded.study.climates[climate], orientations=orientations,
             rows=tuple(rows), glazing_sets=sets, members=tuple(placed),
             study=members[0].study, variant_ids=tuple(m.variant_id for m in members),
-            climate_sha256=members[0].params["climate_file"],
+            climate_sha256=members[0].params["climate_file"], layout=jobs[key].layout,
         ))
 
     n_steps = {label: len(c) * c.interval // loaded.study.timestep

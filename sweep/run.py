@@ -80,7 +80,8 @@ from luxsweep.sweep.errors import (
 from luxsweep.sweep.plan import CoefficientJob, Plan, SeriesTask, make_plan
 from luxsweep.sweep.preflight import preflight
 from luxsweep.sweep.progress import PLAIN_EVERY, Progress
-from luxsweep.sweep.registry import store_variables
+from luxsweep.sweep.registry import space_variables, store_variables
+from luxsweep.sweep.spaces import SpaceLayout, single_space
 
 log = logging.getLogger("luxsweep")
 
@@ -412,6 +413,7 @@ class _SeriesInputs:
     params: Any
     open_rows: np.ndarray
     closed_rows: np.ndarray
+    layout: SpaceLayout
     recomputed: int = 0
 
     @property
@@ -458,6 +460,8 @@ def _load_series(task: SeriesTask, cache_root: str, coefficient_result: Any = No
         occupied=km.occupancy_mask(stamps, occ.start, occ.end, occ.days, study.timestep),
         analysis=km.lm83_analysis_mask(stamps, study.timestep), params=_metric_params(task),
         open_rows=task.open_rows(), closed_rows=task.closed_rows(), recomputed=recomputed,
+        layout=(task.layout if task.layout is not None
+                else single_space(coeffs.n_sensors, float("nan"))),
     )
 
 
@@ -507,7 +511,8 @@ def _count_block(inp: _SeriesInputs, counts: Any, a: int, b: int, workspace: Wor
     if dark.size:
         with timer("metrics"):
             masks = km.StepMasks(inp.occupied[dark], inp.analysis[dark], inp.daylight[dark])
-            counts = km.accumulate_dark(counts, masks, inp.params, (n_o, n_r), n_s)
+            counts = km.accumulate_dark(counts, masks, inp.params, (n_o, n_r), n_s,
+                                        inp.layout.n_spaces)
     if not lit.size:
         return counts, lit, None
     unit = _unit_series(inp, lit, workspace, timer)
@@ -517,14 +522,16 @@ def _count_block(inp: _SeriesInputs, counts: Any, a: int, b: int, workspace: Wor
             counts = km.accumulate(
                 counts, unit[0][:, 0].swapaxes(-1, -2), unit[1][:, 0].swapaxes(-1, -2),
                 masks, inp.params, transmittance=inp.open_rows[:, 0],
-                shaded_transmittance=inp.closed_rows[:, 0] if task.shading else None)
+                shaded_transmittance=inp.closed_rows[:, 0] if task.shading else None,
+                space=inp.layout.sensor_space)
         return counts, lit, unit
     with timer("illuminance"):
         total, direct = (combine(u, inp.open_rows).swapaxes(-1, -2) for u in unit)
         shaded = (combine(unit[0], inp.closed_rows).swapaxes(-1, -2) if task.shading
                   else None)
     with timer("metrics"):
-        counts = km.accumulate(counts, total, direct, masks, inp.params, shaded)
+        counts = km.accumulate(counts, total, direct, masks, inp.params, shaded,
+                               space=inp.layout.sensor_space)
     return counts, lit, unit
 
 
@@ -549,20 +556,23 @@ def _write_series(inp: _SeriesInputs, members: tuple, store_path: str, a: int, b
 
 
 def _final_results(inp: _SeriesInputs, counts: Any) -> dict[str, np.ndarray]:
-    """Metrics from the counts of the whole year, plus the daylight factor."""
+    """Metrics from the counts of the whole year, plus the daylight factor; per space
+    (``space_<name>``, spaces of ``inp.layout``) and for the building."""
     from luxsweep.kernels import metrics as km
     from luxsweep.kernels.sky import overcast_sky_vector
     from luxsweep.kernels.timeseries import daylight_factor
 
     study = inp.task.study
     n_o, n_r = len(inp.task.orientations), len(inp.task.rows)
-    results = km.finalize(counts, inp.params)
+    own, area = inp.layout.sensor_space, inp.layout.area
+    results = km.finalize(counts, inp.params, own, area)
     df = daylight_factor(inp.coeffs, overcast_sky_vector(inp.scheme, study.ground_reflectance),
                          inp.open_rows)
-    df_stats = km.daylight_factor_stats(df)
+    df_space = km.space_mean(np.asarray(df, dtype=np.float64), own)  # (n_r, n_spaces)
     results["daylight_factor"] = np.broadcast_to(df[None], (n_o, *df.shape))
-    results["daylight_factor_mean"] = np.broadcast_to(df_stats["daylight_factor_mean"][None],
+    results["daylight_factor_mean"] = np.broadcast_to(km.area_weighted(df_space, area)[None],
                                                       (n_o, n_r))
+    results["space_daylight_factor_mean"] = np.broadcast_to(df_space[None], (n_o, *df_space.shape))
     return results
 
 
@@ -607,6 +617,9 @@ def _series(
             store_path, vis,
             {name: np.asarray(results[name][ois, ris], dtype=np.float32) for name in sensor_vars},
             {name: np.asarray(results[name][ois, ris]) for name in variant_vars},
+            space_values={name: np.asarray(results[name][ois, ris])
+                          for name in space_variables(list(task.study.metrics))},
+            spaces=inp.layout.names,
         )
     return {"variants": len(todo), "recomputed": inp.recomputed, "timing": timer.seconds}
 
@@ -666,6 +679,8 @@ def _layout(plan: Plan) -> results_store.StoreLayout:
         attrs=_attrs(plan),
         metric_options=plan.loaded.study.metric_options.model_dump(),
         tasks=plan.task_bounds(),
+        spaces=plan.layouts,
+        space_variables=space_variables(list(study.metrics)),
     )
 
 
