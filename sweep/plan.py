@@ -34,7 +34,7 @@ from luxsweep.sweep.cache import CoefficientCache
 from luxsweep.sweep.config import Study, StudyFile, canonical_json
 from luxsweep.sweep.errors import StudyFileError
 from luxsweep.sweep.expand import Variant, axis_names, expand, study_hash
-from luxsweep.sweep.spaces import SpaceLayout, single_space
+from luxsweep.sweep.spaces import SpaceLayout, check_rank_spaces, single_space
 
 __all__ = [
     "BYTES_PER_VALUE",
@@ -507,6 +507,7 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
     times = None
     if loaded.study.store_series and climates:
         times = occupied_times(loaded, climates)
+    check_rank_spaces(loaded, layouts)
     return Plan(loaded=loaded, variants=variants, study_hash=study_hash(loaded, variants),
                 sensors=sensors, layouts=layouts, keys=keys, jobs=jobs, tasks=tasks,
                 n_steps=n_steps, times=times)
