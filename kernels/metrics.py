@@ -807,7 +807,9 @@ def space_mean(values: np.ndarray, space: np.ndarray | None = None) -> np.ndarra
     if space is None or not np.any(space):
         return np.mean(values, axis=-1)[..., None]
     own = np.asarray(space)
-    return np.stack([np.mean(values[..., own == k], axis=-1)
+    # each space's values as their own contiguous grid: the same sums, in the same order,
+    # as a grid of that space alone
+    return np.stack([np.mean(np.ascontiguousarray(values[..., own == k]), axis=-1)
                      for k in range(int(own.max()) + 1)], axis=-1)
 
 
