@@ -157,3 +157,140 @@ def test_area_weights_need_areas_for_several_spaces():
     # grid-area weighting (CONTRACT.md §3): 3·0.2 + 1·0.6 over 4 m² = 0.3
     assert area_weighted(np.array([0.2, 0.6]), np.array([3.0, 1.0])) == pytest.approx(0.3,
                                                                                       rel=1e-15)
+
+
+# --------------------------------------------------------------------------- store
+
+
+def _space(name, origin, width, depth, wall):
+    """A space of the test building: 2.7 m high, one 1.5 m window on ``wall``."""
+    return {"name": name, "origin": origin, "width": width, "depth": depth, "height": 2.7,
+            "thickness": 0.0, "reflectance": {"floor": 0.2, "walls": 0.5, "ceiling": 0.7},
+            "windows": [{"wall": wall, "width": 1.5, "sill": 0.9, "head": 2.1,
+                         "glazing": "main"}]}
+
+
+def _run_plan(plan, results, cache_root, job=None):
+    """Create the store of ``plan`` and run every series task in this process."""
+    from luxsweep.sweep import store as results_store
+    from luxsweep.sweep.run import _layout, series_task
+
+    results_store.create_store(results, _layout(plan))
+    for task in plan.tasks:
+        series_task(task, list(task.members), str(results), str(cache_root), None,
+                    job if job is not None else plan.jobs[task.key])
+    results_store.consolidate(results)
+
+
+@pytest.fixture(scope="module")
+def stores(tmp_path_factory):
+    """The tiny room study run as it is, and the same study on a building of two spaces:
+    a 4 × 3 m space `south` with a front window and a 3 × 2 m space `north` touching its
+    back wall with a back window (kernels.geometry.parametric_building, real coefficients
+    and a real TMY3 year). 4 variants each (orientation 90/180 × τ 0.7/0.4)."""
+    from conftest import write_tiny_study
+
+    from luxsweep.kernels.coefficients import coefficient_key
+    from luxsweep.kernels.geometry import parametric_building, sensor_grid
+    from luxsweep.sweep.cache import CoefficientCache
+    from luxsweep.sweep.config import load_study
+    from luxsweep.sweep.plan import make_plan
+    from luxsweep.sweep.spaces import SpaceLayout
+
+    folder = tmp_path_factory.mktemp("spaces")
+    study = write_tiny_study(folder / "study", name="two-room-wing", climates=("coastal",))
+    cache = CoefficientCache(folder / "cache")
+    plan = make_plan(load_study(study), cache)
+    room = folder / "room.zarr"
+    _run_plan(plan, room, cache.root)
+
+    spaces = [_space("south", (0.0, 0.0, 0.0), 4.0, 3.0, "front"),
+              _space("north", (0.0, 3.0, 0.0), 3.0, 2.0, "back")]
+    geometry = parametric_building(spaces, {"main": 2})
+    grids = []
+    for s in spaces:
+        g = sensor_grid(s["width"], s["depth"], 0.8, 1.0, 0.5)
+        g[:, :3] += np.asarray(s["origin"])
+        grids.append(g)
+    sensors = np.concatenate(grids)
+    layout = SpaceLayout(names=("south", "north"),
+                         sensor_space=np.repeat([0, 1], [len(g) for g in grids]),
+                         area=np.array([s["width"] * s["depth"] for s in spaces]))
+    room_job = next(iter(plan.jobs.values()))
+    key = coefficient_key(geometry, sensors, room_job.settings)
+    job = dataclasses.replace(room_job, key=key, geometry=geometry, sensors=sensors,
+                              layout=layout, cached=False)
+    n = len(plan.variants)
+    building_plan = dataclasses.replace(
+        plan, sensors=[sensors] * n, layouts=[layout] * n, keys=[key] * n, jobs={key: job},
+        tasks=[dataclasses.replace(t, key=key, layout=layout) for t in plan.tasks])
+    building = folder / "building.zarr"
+    _run_plan(building_plan, building, cache.root)
+    return {"room": xr.open_zarr(room), "building": xr.open_zarr(building), "layout": layout,
+            "folder": folder}
+
+
+SPACE_VARIABLES = [f"space_{n}" for n in ("daylight_factor_mean", "daylight_autonomy_mean",
+                                          "udi_useful_mean", "sda", "ase", "shading_hours",
+                                          "en17037_level")]
+
+
+def test_building_store_has_spaces_sensor_owners_and_areas(stores):
+    ds, layout = stores["building"], stores["layout"]
+    assert ds.done.values.all()
+    assert [str(s) for s in ds.space.values] == ["south", "north"]
+    assert ds.sensor_space.dims == ("sensor",)
+    assert [str(s) for s in ds.sensor_space.values] == [layout.names[k]
+                                                        for k in layout.sensor_space]
+    np.testing.assert_array_equal(ds.space_area.values, np.tile([12.0, 6.0], (4, 1)))
+    assert ds.space_area.attrs["units"] == "m²"
+    for name in SPACE_VARIABLES:
+        assert ds[name].dims == ("variant", "space"), name
+        assert not np.isnan(ds[name].values.astype(float)).any(), name
+
+
+def test_building_totals_equal_the_pooled_recount_from_the_sensors(stores):
+    ds = stores["building"]
+    own = np.array([str(s) for s in ds.sensor_space.values])
+    names = [str(s) for s in ds.space.values]
+    area = ds.space_area.values
+    # sDA_300/50% and ASE_1000,250h (IES LM-83-12) pooled over the sensors of every space;
+    # the stored fractions and hours are float32 of exact ratios, far from the thresholds'
+    # rounding (1/3650 apart), so the recount is exact
+    sda_ok = ds.sda_fraction.values >= 0.5
+    over = ds.ase_hours.values > 250.0
+    np.testing.assert_allclose(ds.sda.values, 100.0 * sda_ok.mean(axis=1), rtol=1e-6)
+    np.testing.assert_allclose(ds.ase.values, 100.0 * over.mean(axis=1), rtol=1e-6)
+    # per space: the same over the space's own sensors
+    useful = ds.udi_supplementary.values.astype(float) + ds.udi_autonomous.values
+    for k, name in enumerate(names):
+        mine = own == name
+        np.testing.assert_allclose(ds.space_sda.values[:, k], 100.0 * sda_ok[:, mine].mean(1),
+                                   rtol=1e-6)
+        np.testing.assert_allclose(ds.space_udi_useful_mean.values[:, k],
+                                   useful[:, mine].mean(1), rtol=1e-6)  # float32 store
+        np.testing.assert_allclose(ds.space_daylight_factor_mean.values[:, k],
+                                   ds.daylight_factor.values[:, mine].mean(1), rtol=1e-6)
+    # means weighted by grid area, EN 17037 the lowest space's level (CONTRACT.md §3)
+    w = area / area.sum(axis=1, keepdims=True)
+    for name in ("udi_useful_mean", "daylight_factor_mean", "daylight_autonomy_mean"):
+        np.testing.assert_allclose(ds[name].values, (w * ds[f"space_{name}"].values).sum(1),
+                                   rtol=1e-6, err_msg=name)
+    np.testing.assert_array_equal(ds.en17037_level.values,
+                                  ds.space_en17037_level.values.min(axis=1))
+    # not vacuous: the north space (back window) and the south one differ
+    south, north = ds.space_daylight_factor_mean.values.T
+    assert np.all(np.abs(south - north) > 0.05 * np.maximum(south, north))
+
+
+def test_one_room_store_keeps_its_results_and_adds_its_one_space(stores):
+    # a room study is a building of one space `room` (CONTRACT.md §1b, §3)
+    ds = stores["room"]
+    assert dict(ds.sizes) == {"variant": 4, "sensor": 9, "space": 1}
+    assert [str(s) for s in ds.space.values] == ["room"]
+    assert {str(s) for s in ds.sensor_space.values} == {"room"}
+    np.testing.assert_array_equal(ds.space_area.values, np.full((4, 1), 9.0))  # 3 × 3 m
+    for name in SPACE_VARIABLES:
+        base = name.removeprefix("space_")
+        assert ds[name].dtype == ds[base].dtype
+        np.testing.assert_array_equal(ds[name].values[:, 0], ds[base].values, err_msg=name)
