@@ -294,3 +294,62 @@ def test_one_room_store_keeps_its_results_and_adds_its_one_space(stores):
         base = name.removeprefix("space_")
         assert ds[name].dtype == ds[base].dtype
         np.testing.assert_array_equal(ds[name].values[:, 0], ds[base].values, err_msg=name)
+
+
+# --------------------------------------------------------------------------- rank
+
+
+def test_rank_criteria_on_every_space_a_named_space_and_the_building(stores):
+    import io
+
+    from luxsweep.sweep.rank import parse_rank_spec, print_table, rank_table
+
+    ds = stores["building"]
+    names = [str(s) for s in ds.space.values]
+    space_ase, building_ase = ds.space_ase.values.astype(float), ds.ase.values.astype(float)
+    bound = float(np.median(space_ase.max(axis=1)))  # some variants pass, some fail
+    cases = {
+        "all": (space_ase > bound, list(range(2))),
+        "north": (space_ase[:, [1]] > bound, [1]),
+    }
+    for scope, (fails, cols) in cases.items():
+        spec = {"require": [{"metric": "ase", "at_most": bound, "spaces": scope}]}
+        table = rank_table(ds, spec).set_index("variant").sort_index()
+        want_status = np.where(fails.any(axis=1), "fail", "pass")
+        assert table["status"].tolist() == want_status.tolist(), scope
+        assert len(set(want_status)) == 2, "the case must hold passing and failing variants"
+        want_spaces = [", ".join(names[cols[j]] for j in np.flatnonzero(row)) for row in fails]
+        assert table["failed_spaces"].tolist() == want_spaces, scope
+        label = f"ase ≤ {bound:g} in {'every space' if scope == 'all' else scope}"
+        np.testing.assert_allclose(table[f"margin: {label}"],
+                                   (bound - space_ase[:, cols]).min(axis=1), rtol=1e-12)
+    # default scope: the building total, no spaces named
+    table = rank_table(ds, {"require": [{"metric": "ase", "at_most": bound}]})
+    table = table.set_index("variant").sort_index()
+    assert table["status"].tolist() == np.where(building_ase > bound, "fail", "pass").tolist()
+    assert set(table["failed_spaces"]) == {""}
+    # the printed ranking names the failing spaces
+    spec = parse_rank_spec({"require": [{"metric": "ase", "at_most": bound, "spaces": "all"}]},
+                           ["ase", "sda"], names)
+    out = io.StringIO()
+    print_table(rank_table(ds, spec), ds, spec, None, file=out)
+    failing = [n for n in names if (space_ase[:, names.index(n)] > bound).any()]
+    assert all(f"in {n}" in out.getvalue() or f"in {n}," in out.getvalue() for n in failing)
+
+
+def test_rank_refuses_unknown_spaces_and_absent_named_spaces_fail(stores, tmp_path):
+    from luxsweep.sweep.errors import StudyFileError
+    from luxsweep.sweep.rank import rank_table
+
+    ds = stores["building"]
+    with pytest.raises(StudyFileError, match=r"rank\.require\.0\.spaces.*'east'.*south, north"):
+        rank_table(ds, {"require": [{"metric": "sda", "at_least": 50, "spaces": "east"}]})
+    # a variant that lacks a named space cannot be shown to meet the criterion: it fails;
+    # `all` covers the spaces the variant has (NaN / level -1 where absent, CONTRACT.md §3)
+    lacking = ds.copy(deep=True)
+    lacking["space_sda"][0, 1] = np.nan
+    named = rank_table(lacking, {"require": [{"metric": "sda", "at_least": 0,
+                                              "spaces": ["north"]}]})
+    assert named.set_index("variant").loc[0, "status"] == "fail"
+    every = rank_table(lacking, {"require": [{"metric": "sda", "at_least": 0, "spaces": "all"}]})
+    assert every.set_index("variant").loc[0, "status"] == "pass"
