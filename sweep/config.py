@@ -33,6 +33,11 @@ Extensions to CONTRACT.md §1 (all optional; documented on the models below):
   presentation only.
 - mesh rooms: ``mesh:`` (OBJ), ``materials:`` (group -> reflectance or glazing
   set), ``grid.floors:`` (floor groups for the grid) or ``sensors:`` (CSV).
+- ``rank.require.<i>.spaces``: a criterion on spaces instead of the building
+  total: ``all`` (every occupied space on its own), a space name or a list of
+  names (``{metric: sda, at_least: 55, spaces: all}``). Names are checked
+  against the study's occupied spaces at plan time
+  (:func:`sweep.spaces.check_rank_spaces`, called by ``make_plan``).
 """
 
 from __future__ import annotations
