@@ -15,8 +15,6 @@ coefficients, a real TMY3 year); nothing is mocked.
 from __future__ import annotations
 
 import dataclasses
-import textwrap
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -162,12 +160,18 @@ def test_area_weights_need_areas_for_several_spaces():
 # --------------------------------------------------------------------------- store
 
 
-def _space(name, origin, width, depth, wall):
-    """A space of the test building: 2.7 m high, one 1.5 m window on ``wall``."""
+def _space(name, origin, width, depth, wall, *more):
+    """A space of the test building: 2.7 m high, one 1.5 m window on ``wall`` (and the
+    windows ``more``)."""
     return {"name": name, "origin": origin, "width": width, "depth": depth, "height": 2.7,
             "thickness": 0.0, "reflectance": {"floor": 0.2, "walls": 0.5, "ceiling": 0.7},
             "windows": [{"wall": wall, "width": 1.5, "sill": 0.9, "head": 2.1,
-                         "glazing": "main"}]}
+                         "glazing": "main"}, *more]}
+
+
+# a glazed opening in the wall between the two spaces (north covers it): an internal opening
+INNER = {"wall": "back", "width": 1.0, "sill": 0.9, "head": 2.1, "offset": -0.5,
+         "glazing": "inner"}
 
 
 def _run_plan(plan, results, cache_root, job=None):
@@ -204,9 +208,10 @@ def stores(tmp_path_factory):
     room = folder / "room.zarr"
     _run_plan(plan, room, cache.root)
 
-    spaces = [_space("south", (0.0, 0.0, 0.0), 4.0, 3.0, "front"),
+    spaces = [_space("south", (0.0, 0.0, 0.0), 4.0, 3.0, "front", INNER),
               _space("north", (0.0, 3.0, 0.0), 3.0, 2.0, "back")]
-    geometry = parametric_building(spaces, {"main": 2})
+    geometry = parametric_building(spaces, {"main": 2, "inner": 1}, {"inner": 0.8})
+    assert geometry.internal_sets == ("inner",) or "inner" in geometry.internal_sets
     grids = []
     for s in spaces:
         g = sensor_grid(s["width"], s["depth"], 0.8, 1.0, 0.5)
@@ -226,8 +231,15 @@ def stores(tmp_path_factory):
         tasks=[dataclasses.replace(t, key=key, layout=layout) for t in plan.tasks])
     building = folder / "building.zarr"
     _run_plan(building_plan, building, cache.root)
+    # the study text the store keeps, as a study of these spaces would read (CONTRACT.md §1b)
+    import yaml
+
+    tree = yaml.safe_load(study.read_text())
+    tree.pop("room")
+    tree["spaces"] = [{**s, "origin": list(s["origin"])} for s in spaces]
+    tree["glazings"]["inner"] = {"transmittance": 0.8, "panes": 1}
     return {"room": xr.open_zarr(room), "building": xr.open_zarr(building), "layout": layout,
-            "folder": folder}
+            "folder": folder, "building_text": yaml.safe_dump(tree, sort_keys=False)}
 
 
 SPACE_VARIABLES = [f"space_{n}" for n in ("daylight_factor_mean", "daylight_autonomy_mean",
@@ -353,3 +365,41 @@ def test_rank_refuses_unknown_spaces_and_absent_named_spaces_fail(stores, tmp_pa
     assert named.set_index("variant").loc[0, "status"] == "fail"
     every = rank_table(lacking, {"require": [{"metric": "sda", "at_least": 0, "spaces": "all"}]})
     assert every.set_index("variant").loc[0, "status"] == "pass"
+
+
+# --------------------------------------------------------------------------- report
+
+
+def test_report_of_a_building_has_spaces_table_and_a_plan_per_level(stores):
+    from luxsweep.sweep.report import build_report
+    from luxsweep.sweep.store import SPACE_ABSENT_LEVEL
+
+    ds = stores["building"].copy()
+    ds.attrs = {**ds.attrs, "study": stores["building_text"]}
+    html = build_report(ds)
+    spaces = html.split('<section class="spaces">')[1].split("</section>")[0]
+    # building totals first, then each space by name, a column per top variant
+    assert spaces.index("Building (all spaces)") < spaces.index(">south<") < spaces.index(
+        ">north<")
+    assert spaces.count("<tr>") == 1 + 1 + 2  # header, building, two spaces
+    # the building's plan: one level (both spaces at z = 0), drawn as one image
+    maps = html.split('<section class="maps">')[1].split("</section>")[0]
+    assert maps.count("data:image/png") == 1 and "internal openings" in maps
+    assert "Daylight across the building" in html
+    # pass/fail per space against a criterion on every space
+    ds.attrs["study"] = stores["building_text"] + (
+        "rank:\n  require:\n    - {metric: sda, at_least: 99, spaces: all}\n")
+    spaces = build_report(ds).split('<section class="spaces">')[1].split("</section>")[0]
+    want_fail = (ds.space_sda.values < 99).any()
+    assert ("✗ misses sDA" in spaces) == bool(want_fail) and "✓ meets its criteria" in spaces
+    assert SPACE_ABSENT_LEVEL < 0  # absent spaces are told apart from level 0
+
+
+def test_report_of_a_room_keeps_its_room_maps_and_has_no_spaces_table(stores):
+    # one space: the report stays as it was (the table of one space would repeat the
+    # building row), the maps are the room maps of the top variants
+    from luxsweep.sweep.report import build_report
+
+    html = build_report(stores["room"])
+    assert '<section class="spaces">' not in html
+    assert "Daylight across the room for the top variants" in html
