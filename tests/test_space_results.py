@@ -308,6 +308,49 @@ def test_one_room_store_keeps_its_results_and_adds_its_one_space(stores):
         np.testing.assert_array_equal(ds[name].values[:, 0], ds[base].values, err_msg=name)
 
 
+def test_variants_with_other_grids_and_other_spaces(tmp_path):
+    # Grids differ between variants (a room size varies, a space is left out): sensor_space
+    # is (variant, sensor) with '' in unused slots; a space a variant lacks holds NaN, and
+    # level -1 (CONTRACT.md §3 extension, documented in sweep.store)
+    from luxsweep.sweep import store
+    from luxsweep.sweep.spaces import SpaceLayout
+
+    pts = [np.column_stack([np.arange(9.0), np.zeros(9), np.full(9, 0.8)]),
+           np.column_stack([np.arange(6.0), np.ones(6), np.full(6, 0.8)])]
+    spaces = [SpaceLayout(("hall", "studio"), np.repeat([0, 1], [5, 4]), np.array([10.0, 8.0])),
+              SpaceLayout(("hall",), np.zeros(6, np.int32), np.array([12.0]))]
+    layout = store.StoreLayout(
+        variant_ids=["a" * 16, "b" * 16], labels=["one", "two"],
+        axes={"room.width": [4.0, 3.0]}, sensors=pts,
+        sensor_variables=["daylight_autonomy"], variant_variables=["sda", "en17037_level"],
+        times=None, series_chunk=8, attrs={"study_hash": "x", "study": "name: x\n"},
+        spaces=spaces, space_variables=["space_sda", "space_en17037_level"])
+    path = tmp_path / "r.zarr"
+    store.create_store(path, layout)
+    store.write_variants(path, [0], {"daylight_autonomy": np.full((1, 9), 0.5)},
+                         {"sda": np.array([60.0]), "en17037_level": np.array([1])},
+                         space_values={"space_sda": np.array([[80.0, 35.0]]),
+                                       "space_en17037_level": np.array([[2, 1]])},
+                         spaces=("hall", "studio"))
+    store.write_variants(path, [1], {"daylight_autonomy": np.full((1, 6), 0.4)},
+                         {"sda": np.array([50.0]), "en17037_level": np.array([0])},
+                         space_values={"space_sda": np.array([[50.0]]),
+                                       "space_en17037_level": np.array([[0]])},
+                         spaces=("hall",))
+    ds = xr.open_zarr(path, consolidated=False)
+    assert ds.sensor_space.dims == ("variant", "sensor")
+    owners = [[str(v) for v in row] for row in ds.sensor_space.values]
+    assert owners == [["hall"] * 5 + ["studio"] * 4, ["hall"] * 6 + [""] * 3]
+    assert [str(v) for v in ds.space.values] == ["hall", "studio"]
+    np.testing.assert_array_equal(ds.space_area.values, [[10.0, 8.0], [12.0, np.nan]])
+    np.testing.assert_array_equal(ds.space_sda.values, [[80.0, 35.0], [50.0, np.nan]])
+    np.testing.assert_array_equal(ds.space_en17037_level.values, [[2, 1], [0, -1]])
+    assert ds.space_en17037_level.dtype == np.int8
+    with pytest.raises(Exception, match="no space"):
+        store.write_variants(path, [1], {}, {}, space_values={"space_sda": np.array([[1.0]])},
+                             spaces=("attic",))
+
+
 # --------------------------------------------------------------------------- rank
 
 
