@@ -22,6 +22,16 @@ pyplot state, no scripts, no external links), in this order:
    other choices (glazing, geometry);
 10. room plans coloured by per-sensor daylight autonomy, useful daylight and
     daylight factor for the top variants, with the room outline and windows;
+    for a store of several spaces instead one plan per level of the best
+    variant with every space's grid coloured by daylight autonomy, walls,
+    windows, internal openings (a window on a wall another space covers) and
+    an arrow to north (drawn from the study text's ``spaces:``, copies
+    expanded; a sensor whose space is not in the text is placed by its
+    height). A store of several spaces also gets, after the ranking, a table
+    of the building total then each space for the top variants, with each
+    space's verdict on the criteria that name spaces. A room study (one
+    space) keeps the report as it was: its table of one space would repeat
+    the building row, so it is left out;
 11. a day-of-year × hour-of-day map of illuminance at the sensor nearest the
     room centre for the best variant (only when the series were stored);
 12. notes on the metrics.

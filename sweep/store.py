@@ -37,8 +37,19 @@ Layout:
   vary key) on ``variant``; ``x``, ``y``, ``z`` [m, building frame] on ``sensor``,
   or on ``(variant, sensor)`` padded with NaN when the grids differ; ``n_sensors``
   on ``variant``; ``time`` (local standard time, hour-ending stamps);
-- data variables listed in :data:`SENSOR_VARIABLES`, :data:`VARIANT_VARIABLES`
-  and :data:`SERIES_VARIABLES`, each with ``units`` and ``long_name`` attributes;
+- dimension ``space`` (index coordinate: the occupied spaces' names, every
+  variant's spaces, first seen first; one space ``room`` for a room study) and
+  the coordinate ``sensor_space`` (the name of the space that owns each
+  sensor) on ``sensor``, or on ``(variant, sensor)`` with ``""`` in unused
+  slots when the variants' grids or their owners differ;
+- ``space_area`` (variant, space) [m²]: the floor area of each space's grid,
+  written with the metadata (known at planning), NaN where a variant lacks the
+  space;
+- data variables listed in :data:`SENSOR_VARIABLES`, :data:`VARIANT_VARIABLES`,
+  :data:`SPACE_VARIABLES` (``space_<name>``, (variant, space): NaN, or level
+  :data:`SPACE_ABSENT_LEVEL` = −1, where the variant lacks the space; chunked
+  like the per-variant arrays with the whole ``space`` dimension) and
+  :data:`SERIES_VARIABLES`, each with ``units`` and ``long_name`` attributes;
 - attributes ``study_hash``, ``luxsweep_version``, ``study`` (the study file's
   text), ``study_name``, ``axes``, ``store_layout`` (:data:`LAYOUT`) and
   ``variant_block``.
