@@ -733,8 +733,9 @@ def prepare(study_path: str | Path, out: str | Path | None, cache_dir: str | Pat
     elif results.exists():
         sensor_vars, variant_vars = store_variables(list(plan.loaded.study.metrics))
         series = list(results_store.SERIES_VARIABLES) if plan.times is not None else []
+        spaced = ["space_area", *space_variables(list(plan.loaded.study.metrics))]
         done = results_store.open_existing(results, plan.study_hash,
-                                           [*sensor_vars, *variant_vars, *series])
+                                           [*sensor_vars, *variant_vars, *spaced, *series])
     return plan, results, cache, done
 
 

@@ -123,6 +123,18 @@ def test_one_space_gives_the_results_of_a_grid_without_spaces():
             np.testing.assert_array_equal(spaced[f"space_{name}"][..., 0], value, err_msg=name)
 
 
+def test_per_space_results_are_the_registrys():
+    # every per-variant result the kernels finalize has its space_ form, and no other
+    from luxsweep.sweep.registry import METRICS, space_metrics
+
+    total, direct, _ = _year(n_steps=40)
+    space = np.repeat([0, 1], [20, 10])
+    out = finalize(accumulate(None, total, direct, _masks(40), P, space=space), P, space,
+                   np.array([2.0, 1.0]))
+    want = {f"space_{m}" for m in space_metrics() if METRICS[m].source == "finalize"}
+    assert {k for k in out if k.startswith("space_")} == want
+
+
 def test_building_hand_example_pooled_weighted_lowest():
     # Two spaces, a whole year of steady light, hand-computable:
     # A: 6 sensors at 1000 lx, B: 4 sensors at 150 lx, every step occupied, analysed, daylit.
