@@ -420,8 +420,12 @@ class _Fold:
         self.space = space
         self.n_sp = int(space.max()) + 1 if space.size else 1
         self.space_size = np.bincount(space, minlength=self.n_sp).astype(np.int64)[:, None]
-        self.space_starts = (np.flatnonzero(np.r_[True, np.diff(space) != 0])
-                             if self.n_sp > 1 and np.all(np.diff(space) >= 0) else None)
+        # spaces in sensor order: each a run of sensors [start, stop)
+        self.space_runs = None
+        if self.n_sp > 1 and np.all(np.diff(space) >= 0):
+            cuts = np.flatnonzero(np.diff(space)) + 1
+            self.space_runs = list(zip([0, *cuts.tolist()], [*cuts.tolist(), n_sensors],
+                                       strict=True))
         self.members = (np.arange(self.n_sp)[:, None] == space[None, :]).astype(dtype)
         self.da = _Comparison(float(params.da_threshold))
         self.udi_low, self.udi_mid = _Comparison(float(e0)), _Comparison(float(e1))
@@ -468,14 +472,12 @@ class _Fold:
     def per_space(self, ix: np.ndarray) -> np.ndarray:
         """Sensors of each space whose indicator is 1, per step: ``(n_v, n_spaces, w)`` int64.
 
-        One space: a sum over all sensors; spaces in sensor order: sums over runs of
-        sensors; otherwise a product with the 0/1 membership matrix. All exact
-        (sums of 0/1 in the indicators' precision, below 2**24 sensors).
+        One space: a sum over all sensors; several: a product with the 0/1
+        membership matrix (one GEMM). Both exact (sums of 0/1 in the indicators'
+        precision, below 2**24 sensors).
         """
         if self.n_sp == 1:
             return (self.every_sensor @ ix).astype(np.int64)[:, None, :]
-        if self.space_starts is not None:
-            return np.add.reduceat(ix, self.space_starts, axis=1).astype(np.int64)
         return (self.members @ ix).astype(np.int64)
 
     def sums(self, rows: slice, e: np.ndarray, m_occ: np.ndarray, m_all: np.ndarray) -> None:
@@ -539,9 +541,15 @@ class _Fold:
         edge = np.broadcast_to(limit[:, :, 0, None], (self.n_v, self.n_sp, e.shape[1]))
         if closed is not None and self.limit_shut is not None:  # per space and step
             edge = np.where(closed, self.limit_shut[:, None, None], edge)
-        # per sensor: its space's edge (one space: broadcast over the sensors)
-        np.greater_equal(e, edge if self.n_sp == 1 else edge[:, self.space, :], out=ix,
-                         casting="unsafe")
+        # per sensor: its space's edge (one space: broadcast over the sensors; spaces in
+        # sensor order: run by run; otherwise gathered per sensor)
+        if self.n_sp == 1:
+            np.greater_equal(e, edge, out=ix, casting="unsafe")
+        elif self.space_runs is not None:
+            for k, (a, b) in enumerate(self.space_runs):
+                np.greater_equal(e[a:b], edge[:, k, None, :], out=ix[:, a:b], casting="unsafe")
+        else:
+            np.greater_equal(e, edge[:, self.space, :], out=ix, casting="unsafe")
         if closed is not None and shut_e is not None:  # closed steps from the shaded grid
             for v, shut in enumerate(closed):
                 if self.n_sp == 1:
