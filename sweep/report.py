@@ -1204,13 +1204,55 @@ def _covered(point: tuple[float, float], z: float, others: list[dict], reach: fl
     return False
 
 
+def _window_marks(space: dict, others: list[dict]) -> list[tuple[list[float], list[float], str]]:
+    """Plan marks of a space's windows: (xs, ys, kind) [m, building frame], kind
+    ``window`` (an outside wall), ``internal`` (a wall another space covers: an
+    internal opening, found by probing just beyond the wall at sill height) or
+    ``roof`` (the outline of a roof window)."""
+    x0, y0, z0 = (float(v) for v in space["origin"])
+    walls = {k: (a, b) for k, a, b in _wall_segments(space)}
+    marks = []
+    for win in space.get("windows") or []:
+        try:
+            wall, width = win.get("wall"), float(win["width"])
+            if wall == "roof":
+                length, cx, cy = float(win["length"]), float(win["x"]), float(win["y"])
+                xs = [x0 + cx - width / 2, x0 + cx + width / 2]
+                ys = [y0 + cy - length / 2, y0 + cy + length / 2]
+                marks.append(([xs[0], xs[1], xs[1], xs[0], xs[0]],
+                              [ys[0], ys[0], ys[1], ys[1], ys[0]], "roof"))
+                continue
+            off = float(win.get("offset", 0.0) or 0.0)
+            sill = float(win.get("sill", 0.0) or 0.0)
+        except (AttributeError, KeyError, TypeError, ValueError):
+            continue
+        if wall not in walls:
+            continue
+        (ax_, ay), (bx, by) = walls[wall]
+        along_x = ay == by
+        c = (ax_ + bx) / 2 + off if along_x else (ay + by) / 2 + off
+        out = {"front": (0, -1), "back": (0, 1), "left": (-1, 0), "right": (1, 0)}[wall]
+        reach = 0.01 + float(space.get("thickness", 0.0) or 0.0)
+        px, py = (c, ay) if along_x else (ax_, c)
+        inner = _covered((px + out[0] * reach, py + out[1] * reach), z0 + sill + 0.01, others,
+                         0.0)
+        xs = [c - width / 2, c + width / 2] if along_x else [ax_, ax_]
+        ys = [ay, ay] if along_x else [c - width / 2, c + width / 2]
+        marks.append((xs, ys, "internal" if inner else "window"))
+    return marks
+
+
 def _draw_spaces(ax: Any, spaces: list[dict]) -> bool:
-    """Walls, windows (blue), internal openings (orange, dashed) and names of spaces."""
+    """Walls, windows (blue), internal openings (orange, dashed), roof windows (dashed
+    outline) and names of spaces."""
     drawn = False
+    styles = {"window": {"color": "#1f77b4", "lw": 3},
+              "internal": {"color": "#d97706", "lw": 3, "ls": (0, (2, 1))}}
     for s in spaces:
         try:
-            x0, y0, z0 = (float(v) for v in s["origin"])
+            x0, y0, _ = (float(v) for v in s["origin"])
             w, d = float(s["width"]), float(s["depth"])
+            marks = _window_marks(s, [o for o in spaces if o is not s])
         except (KeyError, TypeError, ValueError):
             continue
         drawn = True
@@ -1220,31 +1262,12 @@ def _draw_spaces(ax: Any, spaces: list[dict]) -> bool:
         ax.text(x0 + w / 2, y0 + d / 2, str(s.get("name", "")), ha="center", va="center",
                 fontsize=7, color="black",
                 bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none", "alpha": 0.7})
-        others = [o for o in spaces if o is not s]
-        walls = {k: (a, b) for k, a, b in _wall_segments(s)}
-        for win in s.get("windows") or []:
-            try:
-                wall, width = win.get("wall"), float(win["width"])
-                off = float(win.get("offset", 0.0) or 0.0)
-                sill = float(win.get("sill", 0.0) or 0.0)
-            except (AttributeError, KeyError, TypeError, ValueError):
+        for xs, ys, kind in marks:
+            if kind == "roof":
+                ax.plot(xs, ys, color="white", lw=1.5, ls="--")
                 continue
-            if wall not in walls:
-                continue
-            (ax_, ay), (bx, by) = walls[wall]
-            along_x = ay == by
-            c = (ax_ + bx) / 2 + off if along_x else (ay + by) / 2 + off
-            out = {"front": (0, -1), "back": (0, 1), "left": (-1, 0), "right": (1, 0)}[wall]
-            reach = 0.01 + float(s.get("thickness", 0.0) or 0.0)
-            probe = ((c, ay) if along_x else (ax_, c))
-            probe = (probe[0] + out[0] * reach, probe[1] + out[1] * reach)
-            inner = _covered(probe, z0 + sill + 0.01, others, 0.0)
-            style = ({"color": "#d97706", "lw": 3, "ls": (0, (2, 1))} if inner
-                     else {"color": "#1f77b4", "lw": 3})
-            xs = [c - width / 2, c + width / 2] if along_x else [ax_, ax_]
-            ys = [ay, ay] if along_x else [c - width / 2, c + width / 2]
             ax.plot(xs, ys, color="white", lw=6, solid_capstyle="butt")
-            ax.plot(xs, ys, solid_capstyle="butt", **style)
+            ax.plot(xs, ys, solid_capstyle="butt", **styles[kind])
     return drawn
 
 
@@ -1387,8 +1410,8 @@ def _space_plans(ds: xr.Dataset, table: pd.DataFrame, study: dict) -> str:
             + f'<p class="note">The first-ranked variant '
               f"({_esc(_name_of(best, axes_of(ds), labels))}). Blue bars: windows in "
               "outside walls; orange dashed bars: internal openings between spaces; "
-              "hatched: spaces without sensors (not occupied); the arrow points to "
-              "north.</p>")
+              "dashed outlines: roof windows; hatched: spaces without sensors (not "
+              "occupied); the arrow points to north.</p>")
 
 
 def build_report(ds: xr.Dataset, source: str | None = None, paper: str | None = None) -> str:

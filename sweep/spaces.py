@@ -112,6 +112,11 @@ def check_rank_spaces(loaded: StudyFile, layouts: Sequence[SpaceLayout]) -> None
         return
     known = list(dict.fromkeys(n for lay in layouts for n in lay.names))
     for i, req in enumerate(rank.require):
+        if req.spaces == ALL_SPACES and ALL_SPACES in known:
+            raise loaded.error(
+                ("rank", "require", i, "spaces"),
+                f"'spaces: {ALL_SPACES}' means every space, but a space is named "
+                f"'{ALL_SPACES}'; rename that space")
         if req.spaces is None or req.spaces == ALL_SPACES:
             continue
         names = [req.spaces] if isinstance(req.spaces, str) else list(req.spaces)

@@ -460,3 +460,25 @@ def test_report_of_a_room_keeps_its_room_maps_and_has_no_spaces_table(stores):
     html = build_report(stores["room"])
     assert '<section class="spaces">' not in html
     assert "Daylight across the room for the top variants" in html
+
+
+def test_building_plan_expands_copies_and_tells_internal_openings_apart():
+    # CONTRACT.md §1b: copies are name-1 … name-n, the k-th shifted by (k − 1) × step; a
+    # window on a wall that another space covers is an internal opening
+    from luxsweep.sweep.report import _expanded_spaces, _window_marks
+
+    tree = {"spaces": [
+        {**_space("classroom", [0.0, 0.0, 0.0], 7.2, 8.0, "front", INNER),
+         "copies": {"count": 3, "step": [7.4, 0.0, 0.0]}},
+        {**_space("corridor", [0.0, 8.0, 0.0], 22.0, 2.0, "right"), "occupied": False}]}
+    spaces = _expanded_spaces(tree)
+    assert [s["name"] for s in spaces] == ["classroom-1", "classroom-2", "classroom-3",
+                                           "corridor"]
+    np.testing.assert_allclose([s["origin"][0] for s in spaces], [0.0, 7.4, 14.8, 0.0])
+    kinds = [[k for _, _, k in _window_marks(s, [o for o in spaces if o is not s])]
+             for s in spaces]
+    # each classroom: its front window outside, the back one into the corridor
+    assert kinds == [["window", "internal"]] * 3 + [["window"]]
+    xs, ys, _ = _window_marks(spaces[1], spaces)[1]
+    np.testing.assert_allclose(xs, [7.4 + 3.6 - 0.5 - 0.5, 7.4 + 3.6 - 0.5 + 0.5])
+    np.testing.assert_allclose(ys, [8.0, 8.0])
