@@ -118,6 +118,7 @@ __all__ = [
     "StepMasks",
     "accumulate",
     "accumulate_dark",
+    "area_weighted",
     "daylight_factor_stats",
     "en17037_pass",
     "en17037_time_fractions",
@@ -125,6 +126,7 @@ __all__ = [
     "lm83_analysis_mask",
     "merge_counts",
     "occupancy_mask",
+    "space_mean",
 ]
 
 # EN 17037:2018 Table A.1, vertical and inclined openings: (target, minimum target) [lx].
@@ -409,9 +411,22 @@ class _Fold:
     """
 
     def __init__(self, params: MetricParams, tau: np.ndarray, tau_shut: np.ndarray | None,
-                 n_out: int, n_sensors: int, like: np.ndarray, dtype: np.dtype) -> None:
+                 n_out: int, n_sensors: int, like: np.ndarray, dtype: np.dtype,
+                 space: np.ndarray) -> None:
         e0, e1, e2 = params.udi_edges
         self.params, self.n_sensors = params, n_sensors
+        # grid-level counts (shading rule, EN 17037) are per space: sums over each space's
+        # sensors of the 0/1 indicators; one space is the whole grid
+        self.space = space
+        self.n_sp = int(space.max()) + 1 if space.size else 1
+        self.space_size = np.bincount(space, minlength=self.n_sp).astype(np.int64)[:, None]
+        # spaces in sensor order: each a run of sensors [start, stop)
+        self.space_runs = None
+        if self.n_sp > 1 and np.all(np.diff(space) >= 0):
+            cuts = np.flatnonzero(np.diff(space)) + 1
+            self.space_runs = list(zip([0, *cuts.tolist()], [*cuts.tolist(), n_sensors],
+                                       strict=True))
+        self.members = (np.arange(self.n_sp)[:, None] == space[None, :]).astype(dtype)
         self.da = _Comparison(float(params.da_threshold))
         self.udi_low, self.udi_mid = _Comparison(float(e0)), _Comparison(float(e1))
         self.udi_high = _Comparison(float(e2), True)
@@ -443,9 +458,9 @@ class _Fold:
             "occ_udi_high", "occ_sun", "ana_sda", "ana_ase")}
         self.lux = {name: np.zeros((n_out, n_sensors), np.float64)
                     for name in ("occ_cda_lux", "occ_sum_lux", "all_sum_lux")}
-        self.shaded = np.zeros(n_out, np.int64)
-        self.target = np.zeros((n_out, len(self.levels)), np.int64)
-        self.minimum = np.zeros((n_out, len(self.levels)), np.int64)
+        self.shaded = np.zeros((n_out, self.n_sp), np.int64)
+        self.target = np.zeros((n_out, self.n_sp, len(self.levels)), np.int64)
+        self.minimum = np.zeros((n_out, self.n_sp, len(self.levels)), np.int64)
         width = like.shape[1]
         order = [0, *(1 + np.argsort(like.strides)[::-1])]  # buffers follow the input layout
         shape = (self.n_v, n_sensors, width)
@@ -453,6 +468,17 @@ class _Fold:
             np.empty([shape[i] for i in order], dtype=dtype).transpose(np.argsort(order))
             for _ in range(2))
         self.every_sensor = np.ones(n_sensors, dtype=dtype)
+
+    def per_space(self, ix: np.ndarray) -> np.ndarray:
+        """Sensors of each space whose indicator is 1, per step: ``(n_v, n_spaces, w)`` int64.
+
+        One space: a sum over all sensors; several: a product with the 0/1
+        membership matrix (one GEMM). Both exact (sums of 0/1 in the indicators'
+        precision, below 2**24 sensors).
+        """
+        if self.n_sp == 1:
+            return (self.every_sensor @ ix).astype(np.int64)[:, None, :]
+        return (self.members @ ix).astype(np.int64)
 
     def sums(self, rows: slice, e: np.ndarray, m_occ: np.ndarray, m_all: np.ndarray) -> None:
         """Lux sums of the piece: Σ E over occupied and all steps (and cDA's first term)."""
@@ -484,7 +510,7 @@ class _Fold:
         for k in self.compared:
             np.greater_equal(e, self.limit[k], out=ix, casting="unsafe")  # 0/1 indicators
             if k in self.per_step:
-                step_counts[k] = (self.every_sensor @ ix).astype(np.int64)  # (n_v, w)
+                step_counts[k] = self.per_space(ix)  # (n_v, n_spaces, w)
             if k in self.per_sensor or k == self.sda:
                 n_occ = ix @ m_occ  # (n_v, S)
                 for name in self.per_sensor.get(k, ()):
@@ -499,27 +525,40 @@ class _Fold:
 
     def _direct_sun(self, rows: slice, d: np.ndarray, m_occ: np.ndarray, m_ana: np.ndarray,
                     ana_g: np.ndarray, ix: np.ndarray) -> np.ndarray:
-        """Direct-sun counts and ASE; returns the steps the LM-83 rule closes ``(n_v, w)``."""
+        """Direct-sun counts and ASE; returns the steps the LM-83 rule closes in each
+        space ``(n_v, n_spaces, w)`` (one shading group per space)."""
         np.greater_equal(d, self.limit[self.sun], out=ix, casting="unsafe")
-        n_sunlit = (self.every_sensor @ ix).astype(np.int64)  # (n_v, w)
+        n_sunlit = self.per_space(ix)  # (n_v, n_spaces, w)
         self.sensor["occ_sun"][rows] += (ix @ m_occ).astype(np.int64)
         self.sensor["ana_ase"][rows] += (ix @ m_ana).astype(np.int64)
-        return (_share_more_than(n_sunlit, self.n_sensors,
+        return (_share_more_than(n_sunlit, self.space_size,
                                  self.params.shading_sensor_fraction) & ana_g)
 
     def _sda_with_shading(self, rows: slice, e: np.ndarray, shut_e: np.ndarray | None,
                           closed: np.ndarray | None, m_ana: np.ndarray, ix: np.ndarray) -> None:
         """sDA counts where closed steps take the shaded illuminance (IES LM-83-12)."""
         limit = self.limit[self.sda]
-        edge = np.broadcast_to(limit[:, :, 0], (self.n_v, e.shape[1])).copy()  # per step
-        if closed is not None and self.limit_shut is not None:
-            edge = np.where(closed, self.limit_shut[:, None], edge)
-        np.greater_equal(e, edge[:, None, :], out=ix, casting="unsafe")
+        edge = np.broadcast_to(limit[:, :, 0, None], (self.n_v, self.n_sp, e.shape[1]))
+        if closed is not None and self.limit_shut is not None:  # per space and step
+            edge = np.where(closed, self.limit_shut[:, None, None], edge)
+        # per sensor: its space's edge (one space: broadcast over the sensors; spaces in
+        # sensor order: run by run; otherwise gathered per sensor)
+        if self.n_sp == 1:
+            np.greater_equal(e, edge, out=ix, casting="unsafe")
+        elif self.space_runs is not None:
+            for k, (a, b) in enumerate(self.space_runs):
+                np.greater_equal(e[a:b], edge[:, k, None, :], out=ix[:, a:b], casting="unsafe")
+        else:
+            np.greater_equal(e, edge[:, self.space, :], out=ix, casting="unsafe")
         if closed is not None and shut_e is not None:  # closed steps from the shaded grid
             for v, shut in enumerate(closed):
-                ix[v][:, shut] = shut_e[:, shut] >= limit[v]
+                if self.n_sp == 1:
+                    ix[v][:, shut[0]] = shut_e[:, shut[0]] >= limit[v]
+                else:
+                    shut_s = shut[self.space]  # (S, w): the sensor's space is closed
+                    ix[v][shut_s] = (shut_e >= limit[v])[shut_s]
         if closed is not None:
-            self.shaded[rows] += np.count_nonzero(closed, axis=1)
+            self.shaded[rows] += np.count_nonzero(closed, axis=-1)
         self.sensor["ana_sda"][rows] += (ix @ m_ana).astype(np.int64)
 
     def _en17037(self, rows: slice, step_counts: dict[_Comparison, np.ndarray],
@@ -527,20 +566,23 @@ class _Fold:
         """EN 17037:2018 daylight provision: daylight steps meeting each level's shares."""
         p = self.params
         for i, (kt, km) in enumerate(self.levels):
-            ok_t = _share_at_least(step_counts[kt], self.n_sensors, p.en17037_target_area)
-            ok_m = _share_at_least(step_counts[km], self.n_sensors, p.en17037_minimum_area)
-            self.target[rows, i] += np.count_nonzero(ok_t & day_g, axis=1)
-            self.minimum[rows, i] += np.count_nonzero(ok_m & day_g, axis=1)
+            ok_t = _share_at_least(step_counts[kt], self.space_size, p.en17037_target_area)
+            ok_m = _share_at_least(step_counts[km], self.space_size, p.en17037_minimum_area)
+            self.target[rows, :, i] += np.count_nonzero(ok_t & day_g, axis=-1)
+            self.minimum[rows, :, i] += np.count_nonzero(ok_m & day_g, axis=-1)
 
-    def counts(self, steps: dict[str, np.ndarray], batch: tuple[int, ...]) -> Counts:
-        """The folded counts as :class:`Counts` of batch shape ``batch``."""
+    def counts(self, steps: dict[str, np.ndarray], batch: tuple[int, ...],
+               spaced: bool) -> Counts:
+        """The folded counts as :class:`Counts` of batch shape ``batch`` (grid-level
+        counts with a space axis when ``spaced``)."""
         n_s, n_l = self.n_sensors, len(self.levels)
+        sp = (self.n_sp,) if spaced else ()
         return Counts(
             **steps,
             **{k: v.reshape(*batch, n_s) for k, v in (*self.sensor.items(), *self.lux.items())},
-            ana_shaded=self.shaded.reshape(batch),
-            day_target_ok=self.target.reshape(*batch, n_l),
-            day_minimum_ok=self.minimum.reshape(*batch, n_l),
+            ana_shaded=self.shaded.reshape((*batch, *sp)),
+            day_target_ok=self.target.reshape(*batch, *sp, n_l),
+            day_minimum_ok=self.minimum.reshape(*batch, *sp, n_l),
         )
 
 
@@ -554,6 +596,7 @@ def accumulate(
     *,
     transmittance: np.ndarray | None = None,
     shaded_transmittance: np.ndarray | None = None,
+    space: np.ndarray | None = None,
 ) -> Counts:
     """Fold one time chunk of illuminance into the additive counts.
 
@@ -584,6 +627,17 @@ def accumulate(
         With ``transmittance``: the closed-shading transmittance of each variant
         (the LM-83 closed state is ``shaded_transmittance[v] × total``), instead
         of ``total_shaded``.
+    space : ndarray (n_sensors,) of int, optional
+        Index of the space that owns each sensor (0 … n_spaces − 1, every index
+        present). Each space is its own grid for the grid-level counts: its own
+        LM-83 shading group (its shading closes when more than 2 % of *its*
+        sensors get direct sun; blinds are operated space by space, common
+        practice) and its own EN 17037 reference plane. The counts
+        ``ana_shaded``, ``day_target_ok`` and ``day_minimum_ok`` then gain a
+        space axis before the level axis: ``(..., n_spaces)`` and
+        ``(..., n_spaces, n_levels)``. None: the whole grid is one space and
+        those counts have no space axis. A grid of one space gives the same
+        counts either way.
 
     Returns
     -------
@@ -627,8 +681,10 @@ def accumulate(
                      for m in (masks.occupied, masks.analysis, masks.daylight))
     n_grids = grids[0].shape[0]
     width = min(FOLD_STEPS, n_steps)
+    own = (np.zeros(n_sensors, np.intp) if space is None
+           else np.asarray(space, dtype=np.intp).reshape(n_sensors))
     fold = _Fold(params, tau, tau_shut, n_grids * tau.size, n_sensors,
-                 grids[0][0][:, :width], dtype)
+                 grids[0][0][:, :width], dtype, own)
     step_vec = np.empty((3, width), dtype=dtype)  # rows: occupied, analysis, every step
     for g in range(n_grids):
         rows = slice(g * tau.size, (g + 1) * tau.size)
@@ -642,7 +698,7 @@ def accumulate(
             lit = bool(np.any(d))  # no direct sun in the piece: nothing to count or close
             fold.piece(rows, e, d if lit else None, shut_e, m_occ, m_ana, ana[g, lo:hi],
                        day[g, lo:hi])
-    return _plus(counts, fold.counts(steps, batch))
+    return _plus(counts, fold.counts(steps, batch, space is not None))
 
 
 def _first_passing(x: float, tau: float, strict: bool, dtype: np.dtype) -> float:
@@ -675,6 +731,7 @@ def accumulate_dark(
     params: MetricParams,
     batch_shape: tuple[int, ...],
     n_sensors: int,
+    n_spaces: int | None = None,
 ) -> Counts:
     """Fold steps that the engine skipped because no light reaches the room.
 
@@ -694,6 +751,9 @@ def accumulate_dark(
         Leading batch shape of the other chunks.
     n_sensors : int
         Sensors of the grid.
+    n_spaces : int, optional
+        Spaces of the grid when the other chunks were folded with ``space``
+        (grid-level counts per space, :func:`accumulate`); None otherwise.
 
     Returns
     -------
@@ -705,11 +765,12 @@ def accumulate_dark(
                                    np.float64 if f.name.endswith("_lux") else np.int64)
                   for f in fields(Counts)
                   if f.name.startswith(("occ_", "all_", "ana_sda", "ana_ase"))}
+    grid = (*batch_shape, *(() if n_spaces is None else (n_spaces,)))
     chunk = Counts(
         **_step_counts(masks), **per_sensor,
-        ana_shaded=np.zeros(batch_shape, np.int64),
-        day_target_ok=np.zeros((*batch_shape, n_levels), np.int64),
-        day_minimum_ok=np.zeros((*batch_shape, n_levels), np.int64),
+        ana_shaded=np.zeros(grid, np.int64),
+        day_target_ok=np.zeros((*grid, n_levels), np.int64),
+        day_minimum_ok=np.zeros((*grid, n_levels), np.int64),
     )
     return _plus(counts, chunk)
 
@@ -733,7 +794,69 @@ def _per_step(count: np.ndarray, steps: np.ndarray) -> np.ndarray:
     return np.divide(count, steps, out=np.zeros(shape), where=steps > 0)
 
 
-def finalize(counts: Counts, params: MetricParams) -> dict[str, np.ndarray]:
+def space_mean(values: np.ndarray, space: np.ndarray | None = None) -> np.ndarray:
+    """Mean of per-sensor values over each space's sensors.
+
+    Parameters
+    ----------
+    values : ndarray (..., n_sensors)
+        Per-sensor values (any unit).
+    space : ndarray (n_sensors,) of int, optional
+        Index of each sensor's space (0 … n_spaces − 1, every index present);
+        None: one space holding every sensor.
+
+    Returns
+    -------
+    ndarray (..., n_spaces)
+        The plain mean over each space's sensors (its grid mean). One space:
+        ``np.mean(values, axis=-1)`` itself, bit for bit.
+    """
+    values = np.asarray(values)
+    if space is None or not np.any(space):
+        return np.mean(values, axis=-1)[..., None]
+    own = np.asarray(space)
+    # each space's values as their own contiguous grid: the same sums, in the same order,
+    # as a grid of that space alone
+    return np.stack([np.mean(np.ascontiguousarray(values[..., own == k]), axis=-1)
+                     for k in range(int(own.max()) + 1)], axis=-1)
+
+
+def area_weighted(space_values: np.ndarray, area: np.ndarray | None = None) -> np.ndarray:
+    """Building value of per-space grid means: their mean weighted by grid area.
+
+    Parameters
+    ----------
+    space_values : ndarray (..., n_spaces)
+        A grid mean of each space.
+    area : ndarray (n_spaces,) [m²], optional
+        Floor area covered by each space's grid. Needed for more than one space;
+        one space needs none (and may be NaN: sensors read from a file).
+
+    Returns
+    -------
+    ndarray (...)
+        Σ_k w_k v_k with w_k = A_k / Σ A: the mean over the building's floor
+        area of the spaces' grid means (CONTRACT.md §3). One space: its value
+        exactly (w = 1).
+
+    Raises
+    ------
+    ValueError
+        When several spaces have no positive finite area.
+    """
+    v = np.asarray(space_values, dtype=np.float64)
+    n = v.shape[-1]
+    if n == 1:
+        return v[..., 0] * 1.0
+    a = np.asarray(area, dtype=np.float64).reshape(n) if area is not None else None
+    if a is None or not np.all(np.isfinite(a) & (a > 0)):
+        raise ValueError(f"{n} spaces need a positive grid area each to weight their means, "
+                         f"got {None if a is None else a.tolist()}")
+    return np.sum(v * (a / a.sum()), axis=-1)
+
+
+def finalize(counts: Counts, params: MetricParams, space: np.ndarray | None = None,
+             area: np.ndarray | None = None) -> dict[str, np.ndarray]:
     """Metrics from accumulated counts (definitions in the module docstring).
 
     Parameters
@@ -742,6 +865,12 @@ def finalize(counts: Counts, params: MetricParams) -> dict[str, np.ndarray]:
         From :func:`accumulate` / :func:`accumulate_dark` / :func:`merge_counts`.
     params : MetricParams
         The same thresholds used to accumulate.
+    space : ndarray (n_sensors,) of int, optional
+        The sensors' spaces, as given to :func:`accumulate` (its counts then
+        have a space axis). Adds the per-space results.
+    area : ndarray (n_spaces,) [m²], optional
+        Floor area of each space's grid (the weight of its means in the
+        building's); needed with more than one space.
 
     Returns
     -------
@@ -753,7 +882,13 @@ def finalize(counts: Counts, params: MetricParams) -> dict[str, np.ndarray]:
         ``sda_fraction`` [0–1], ``ase_hours`` [h]. Per grid ``(...)``:
         ``sda``, ``ase`` [%], ``udi_useful_mean``, ``daylight_autonomy_mean``
         [0–1], ``shading_hours`` [h],
-        ``en17037_level`` (int8, 0–3).
+        ``en17037_level`` (int8, 0–3). With ``space``, also each of these per
+        space ``(..., n_spaces)`` named ``space_<name>``, and the per-grid
+        results are the building's: ``sda`` and ``ase`` over the sensors of all
+        spaces together (IES LM-83-12 pools the analysis area), the means and
+        ``shading_hours`` weighted by grid area (:func:`area_weighted`),
+        ``en17037_level`` the lowest level among the spaces. One space gives
+        the same per-grid results with or without ``space``.
     """
     occ = counts.n_occupied
     h = params.step_hours
@@ -774,33 +909,54 @@ def finalize(counts: Counts, params: MetricParams) -> dict[str, np.ndarray]:
         "sda_fraction": _per_step(counts.ana_sda, counts.n_analysis),
         "ase_hours": counts.ana_ase * h,
     }
-    out["udi_useful_mean"] = np.mean(out["udi_supplementary"] + out["udi_autonomous"], axis=-1)
-    out["daylight_autonomy_mean"] = np.mean(out["daylight_autonomy"], axis=-1)
+    # per space (one space without `space`), then the building
+    spaces: dict[str, np.ndarray] = {
+        "udi_useful_mean": space_mean(out["udi_supplementary"] + out["udi_autonomous"], space),
+        "daylight_autonomy_mean": space_mean(out["daylight_autonomy"], space),
+    }
+    for name in ("udi_useful_mean", "daylight_autonomy_mean"):
+        out[name] = area_weighted(spaces[name], area)
 
     n_ana = np.asarray(counts.n_analysis)[..., None]
     sda_ok = _share_at_least(counts.ana_sda, n_ana, params.sda_time_fraction)
     sda_ok &= n_ana > 0
-    out["sda"] = 100.0 * np.mean(sda_ok, axis=-1)
+    spaces["sda"] = 100.0 * space_mean(sda_ok, space)
+    out["sda"] = 100.0 * np.mean(sda_ok, axis=-1)  # pooled over every sensor (LM-83-12)
     # "more than 250 hours", compared exactly: count · step_hours > ase_hours_limit
     step = Fraction(str(h)).limit_denominator(10**6)
     limit = Fraction(str(params.ase_hours_limit)).limit_denominator(10**6)
     over = counts.ana_ase * (step.numerator * limit.denominator) > (
         limit.numerator * step.denominator
     )
+    spaces["ase"] = 100.0 * space_mean(over, space)
     out["ase"] = 100.0 * np.mean(over, axis=-1)
-    out["shading_hours"] = counts.ana_shaded * h
+    shaded = counts.ana_shaded if space is not None else counts.ana_shaded[..., None]
+    spaces["shading_hours"] = shaded * h
+    out["shading_hours"] = area_weighted(spaces["shading_hours"], area)
 
     target_ok, minimum_ok = en17037_pass(counts, params)
     met = np.cumprod(target_ok & minimum_ok, axis=-1)  # a level counts only with all below it
-    out["en17037_level"] = met.sum(axis=-1).astype(np.int8)
+    level = met.sum(axis=-1).astype(np.int8)
+    spaces["en17037_level"] = level if space is not None else level[..., None]
+    out["en17037_level"] = spaces["en17037_level"].min(axis=-1)  # the lowest space's level
+    if space is not None:
+        out.update({f"space_{name}": value for name, value in spaces.items()})
     return out
+
+
+def _per_day(count: np.ndarray, counts: Counts) -> np.ndarray:
+    """Daylight steps shaped to broadcast against a grid-level count ``(..., [n_spaces,]
+    n_levels)``."""
+    n_day = np.asarray(counts.n_daylight)
+    return n_day.reshape(n_day.shape + (1,) * (np.ndim(count) - n_day.ndim))
 
 
 def en17037_pass(
     counts: Counts, params: MetricParams
 ) -> tuple[np.ndarray, np.ndarray]:
-    """EN 17037 target and minimum-target tests per level, ``(..., n_levels)`` bool."""
-    n_day = np.asarray(counts.n_daylight)[..., None]
+    """EN 17037 target and minimum-target tests per level, ``(..., [n_spaces,] n_levels)``
+    bool (per space when the counts were folded with spaces)."""
+    n_day = _per_day(counts.day_target_ok, counts)
     ok_t = _share_at_least(counts.day_target_ok, n_day, params.en17037_time) & (n_day > 0)
     ok_m = _share_at_least(counts.day_minimum_ok, n_day, params.en17037_time) & (n_day > 0)
     return ok_t, ok_m
@@ -813,14 +969,14 @@ def en17037_time_fractions(
 
     Returns
     -------
-    target, minimum : ndarray (..., n_levels) [0–1]
+    target, minimum : ndarray (..., [n_spaces,] n_levels) [0–1]
         Share of daylight steps with E ≥ target over ≥ 50 % of the grid, and
         with E ≥ minimum target over ≥ 95 % of it (EN 17037:2018).
     """
-    return (
-        _per_step(counts.day_target_ok, counts.n_daylight),
-        _per_step(counts.day_minimum_ok, counts.n_daylight),
-    )
+    n_day = _per_day(counts.day_target_ok, counts).astype(np.float64)
+    return tuple(np.divide(c, n_day, out=np.zeros(np.broadcast_shapes(c.shape, n_day.shape)),
+                           where=n_day > 0)
+                 for c in (counts.day_target_ok, counts.day_minimum_ok))
 
 
 def daylight_factor_stats(daylight_factor: np.ndarray) -> dict[str, np.ndarray]:

@@ -33,6 +33,11 @@ Extensions to CONTRACT.md §1 (all optional; documented on the models below):
   presentation only.
 - mesh rooms: ``mesh:`` (OBJ), ``materials:`` (group -> reflectance or glazing
   set), ``grid.floors:`` (floor groups for the grid) or ``sensors:`` (CSV).
+- ``rank.require.<i>.spaces``: a criterion on spaces instead of the building
+  total: ``all`` (every occupied space on its own), a space name or a list of
+  names (``{metric: sda, at_least: 55, spaces: all}``). Names are checked
+  against the study's occupied spaces at plan time
+  (:func:`sweep.spaces.check_rank_spaces`, called by ``make_plan``).
 """
 
 from __future__ import annotations
@@ -63,8 +68,10 @@ from pydantic import (
 
 from luxsweep.sweep import registry
 from luxsweep.sweep.errors import LuxsweepError, StudyFileError
+from luxsweep.sweep.spaces import ALL_SPACES
 
 __all__ = [
+    "ALL_SPACES",
     "MAX_NODES",
     "METRIC_FAMILIES",
     "NOT_VARIABLE",
@@ -531,16 +538,35 @@ def _rank_metric(v: str) -> str:
 
 
 class Requirement(_Model):
-    """A ranking criterion: ``{metric, at_least}`` or ``{metric, at_most}``."""
+    """A ranking criterion: ``{metric, at_least}`` or ``{metric, at_most}``, on the
+    building total (default) or on spaces (``spaces: all``, a name or a list of names;
+    names are checked against the study's spaces by :func:`sweep.spaces.check_rank_spaces`)."""
 
     metric: str
     at_least: float | None = None
     at_most: float | None = None
+    spaces: str | list[str] | None = None
 
     @field_validator("metric")
     @classmethod
     def _metric(cls, v: str) -> str:
         return _rank_metric(v)
+
+    @field_validator("spaces")
+    @classmethod
+    def _spaces(cls, v: str | list[str] | None) -> str | list[str] | None:
+        names = [v] if isinstance(v, str) else (v or [])
+        if isinstance(v, list) and not v:
+            raise ValueError("give at least one space name, or 'all'")
+        if isinstance(v, list) and ALL_SPACES in v:
+            raise ValueError(f"'{ALL_SPACES}' stands alone: spaces: {ALL_SPACES}")
+        for name in names:
+            if not _NAME.match(name):
+                raise ValueError(f"space name '{name}' may hold only letters, digits, '-' and "
+                                 "'_'")
+        if len(set(names)) != len(names):
+            raise ValueError(f"space names repeat: {names}")
+        return v
 
     @field_validator("at_most")
     @classmethod
@@ -1334,6 +1360,9 @@ _SCHEMA_TEXT: dict[str, tuple[str, dict[str, str]]] = {
             "metric": f"The metric, one of: {', '.join(RANK_METRICS)}.",
             "at_least": "Lowest acceptable value (give this or at_most).",
             "at_most": "Highest acceptable value (give this or at_least).",
+            "spaces": "Where the criterion applies: left out, the building total; all, every "
+                      "occupied space on its own; or one space name or a list of names. Each "
+                      "named space must be an occupied space of the study.",
         },
     ),
     "Preference": (

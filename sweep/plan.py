@@ -34,7 +34,7 @@ from luxsweep.sweep.cache import CoefficientCache
 from luxsweep.sweep.config import Study, StudyFile, canonical_json
 from luxsweep.sweep.errors import StudyFileError
 from luxsweep.sweep.expand import Variant, axis_names, expand, study_hash
-from luxsweep.sweep.spaces import SpaceLayout, single_space
+from luxsweep.sweep.spaces import SpaceLayout, check_rank_spaces, single_space
 
 __all__ = [
     "BYTES_PER_VALUE",
@@ -96,6 +96,9 @@ class SeriesTask:
         The resolved study of the first member (time step, occupancy, ...).
     climate_sha256 : str
         sha256 of the weather file as the client read it (workers check theirs).
+    layout : SpaceLayout or None
+        The space of every sensor of the set and each space's grid area (the
+        coefficient job's); None in hand-made tasks: one space.
     """
 
     task_id: str
@@ -109,6 +112,7 @@ class SeriesTask:
     study: Study
     variant_ids: tuple[str, ...]
     climate_sha256: str = ""
+    layout: SpaceLayout | None = None
 
     @property
     def shading(self) -> bool:
@@ -495,7 +499,7 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
             climate_file=loaded.study.climates[climate], orientations=orientations,
             rows=tuple(rows), glazing_sets=sets, members=tuple(placed),
             study=members[0].study, variant_ids=tuple(m.variant_id for m in members),
-            climate_sha256=members[0].params["climate_file"],
+            climate_sha256=members[0].params["climate_file"], layout=jobs[key].layout,
         ))
 
     n_steps = {label: len(c) * c.interval // loaded.study.timestep
@@ -503,6 +507,7 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
     times = None
     if loaded.study.store_series and climates:
         times = occupied_times(loaded, climates)
+    check_rank_spaces(loaded, layouts)
     return Plan(loaded=loaded, variants=variants, study_hash=study_hash(loaded, variants),
                 sensors=sensors, layouts=layouts, keys=keys, jobs=jobs, tasks=tasks,
                 n_steps=n_steps, times=times)

@@ -3,9 +3,15 @@
 Reads a results store (CONTRACT.md §3) opened with :func:`xarray.open_zarr` and
 the ``rank:`` section of the study file text kept in its attributes:
 
-- ``require``: ``{metric, at_least | at_most}``. Each completed variant passes or
-  fails each criterion; the *margin* is ``value − at_least`` or
-  ``at_most − value`` (≥ 0 passes, same unit as the metric).
+- ``require``: ``{metric, at_least | at_most, spaces}``. Each completed variant
+  passes or fails each criterion; the *margin* is ``value − at_least`` or
+  ``at_most − value`` (≥ 0 passes, same unit as the metric). Without ``spaces``
+  the criterion is on the building total (the per-variant variable); with
+  ``spaces: all``, a name or a list of names it is on each of those spaces
+  (``space_<metric>``) and the margin is the smallest of theirs. ``all`` means
+  every space the variant has; a named space that the variant lacks fails the
+  criterion (it cannot be shown to pass). The spaces that fail are listed per
+  criterion (``spaces failing: <criterion>``) and together (``failed_spaces``).
 - ``prefer``: ``{metric, goal: max | min, weight}``. Each objective is min-max
   normalised over the completed variants (1 = best, 0 = worst; 1 for every
   variant when all values are equal) and the score is the weighted mean of the
@@ -42,6 +48,8 @@ import xarray as xr
 import yaml
 
 from luxsweep.sweep.errors import ResultsStoreError, StudyFileError
+from luxsweep.sweep.registry import SPACE_PREFIX
+from luxsweep.sweep.spaces import ALL_SPACES
 
 __all__ = [
     "MAIN_METRICS",
@@ -62,6 +70,7 @@ __all__ = [
     "rank_spec_from_store",
     "rank_table",
     "shown_metrics",
+    "space_names",
     "study_from_store",
     "study_text",
     "variant_names",
@@ -69,7 +78,8 @@ __all__ = [
 
 # attribute names under which the store may keep the study file's text
 _STUDY_TEXT_ATTRS = ("study_text", "study", "study_yaml", "study_file_text", "study_file")
-_NOT_AXES = {"variant", "variant_id", "label", "n_sensors", "x", "y", "z", "sensor", "time"}
+_NOT_AXES = {"variant", "variant_id", "label", "n_sensors", "x", "y", "z", "sensor", "time",
+             "space", "sensor_space"}
 
 
 # ---------------------------------------------------------------------------
@@ -161,15 +171,30 @@ def _variant_ids(ds: xr.Dataset) -> np.ndarray:
 
 @dataclass(frozen=True)
 class Requirement:
-    """A criterion: ``metric`` must be ``≥ bound`` (``at_least``) or ``≤ bound``."""
+    """A criterion: ``metric`` must be ``≥ bound`` (``at_least``) or ``≤ bound``.
+
+    ``spaces``: None for the building total, ``"all"`` for every space of the
+    variant, or a tuple of space names.
+    """
 
     metric: str
     bound: float
     at_least: bool
+    spaces: str | tuple[str, ...] | None = None
+
+    @property
+    def scope(self) -> str:
+        """Where the criterion applies, in words ('' for the building total)."""
+        if self.spaces is None:
+            return ""
+        if self.spaces == ALL_SPACES:
+            return "in every space"
+        return "in " + ", ".join(self.spaces)
 
     @property
     def label(self) -> str:
-        return f"{self.metric} {'≥' if self.at_least else '≤'} {self.bound:g}"
+        text = f"{self.metric} {'≥' if self.at_least else '≤'} {self.bound:g}"
+        return f"{text} {self.scope}" if self.scope else text
 
     def margin(self, values: np.ndarray) -> np.ndarray:
         """Distance to the bound on the passing side (≥ 0 passes) [metric unit]."""
@@ -203,8 +228,9 @@ def _spec_error(place: str, message: str) -> StudyFileError:
     return StudyFileError(f"study file (kept in the results store), key '{place}': {message}")
 
 
-def parse_rank_spec(section: Any, valid: list[str]) -> RankSpec:
-    """Check a ``rank:`` mapping against the store's metrics.
+def parse_rank_spec(section: Any, valid: list[str], spaces: list[str] | None = None,
+                    spaced: list[str] | None = None) -> RankSpec:
+    """Check a ``rank:`` mapping against the store's metrics and spaces.
 
     Parameters
     ----------
@@ -212,6 +238,10 @@ def parse_rank_spec(section: Any, valid: list[str]) -> RankSpec:
         ``{"require": [...], "prefer": [...]}`` as in CONTRACT.md §1.
     valid : list of str
         Metric names the store holds (:func:`metric_names`).
+    spaces : list of str, optional
+        The store's spaces (its ``space`` coordinate); None: not checked.
+    spaced : list of str, optional
+        Metrics the store holds per space (``space_<metric>``); None: all of ``valid``.
 
     Raises
     ------
@@ -247,7 +277,8 @@ def parse_rank_spec(section: Any, valid: list[str]) -> RankSpec:
         bound = item["at_least"] if has_low else item["at_most"]
         if not isinstance(bound, int | float) or isinstance(bound, bool):
             raise _spec_error(place, f"the bound must be a number, got {bound!r}")
-        require.append(Requirement(name, float(bound), has_low))
+        require.append(Requirement(name, float(bound), has_low,
+                                   _scope(item.get("spaces"), name, place, spaces, spaced)))
     prefer = []
     for i, item in enumerate(section.get("prefer") or []):
         place = f"rank.prefer.{i}"
@@ -262,9 +293,39 @@ def parse_rank_spec(section: Any, valid: list[str]) -> RankSpec:
     return RankSpec(tuple(require), tuple(prefer))
 
 
+def _scope(value: Any, metric: str, place: str, spaces: list[str] | None,
+           spaced: list[str] | None) -> str | tuple[str, ...] | None:
+    """The ``spaces`` of a criterion: None, ``"all"`` or a tuple of known names."""
+    if value is None:
+        return None
+    if spaced is not None and metric not in spaced:
+        raise _spec_error(f"{place}.spaces", f"the results store holds no per-space "
+                          f"'{metric}' ({SPACE_PREFIX}{metric}); drop 'spaces' to check the "
+                          "building total")
+    if value == ALL_SPACES:
+        return ALL_SPACES
+    names = [value] if isinstance(value, str) else value
+    if (not isinstance(names, list) or not names
+            or not all(isinstance(n, str) for n in names)):
+        raise _spec_error(f"{place}.spaces", f"give '{ALL_SPACES}', a space name or a list of "
+                          f"space names, got {value!r}")
+    for name in names:
+        if spaces is not None and name not in spaces:
+            raise _spec_error(f"{place}.spaces", f"no space '{name}' in the results store; "
+                              f"its spaces are: {', '.join(spaces)} (or '{ALL_SPACES}')")
+    return tuple(names)
+
+
+def space_names(ds: xr.Dataset) -> list[str]:
+    """The store's occupied spaces (its ``space`` coordinate; [] in stores without one)."""
+    return [str(n) for n in coord_values(ds, "space")] if "space" in ds.coords else []
+
+
 def rank_spec_from_store(ds: xr.Dataset) -> RankSpec:
     """The checked ``rank:`` section of the study kept in the store."""
-    return parse_rank_spec(study_from_store(ds).get("rank"), metric_names(ds))
+    valid = metric_names(ds)
+    spaced = [m for m in valid if SPACE_PREFIX + m in ds.data_vars]
+    return parse_rank_spec(study_from_store(ds).get("rank"), valid, space_names(ds), spaced)
 
 
 # ---------------------------------------------------------------------------
@@ -332,7 +393,9 @@ def rank_table(ds: xr.Dataset, rank_spec: RankSpec | dict | None = None) -> pd.D
     if rank_spec is None:
         spec = rank_spec_from_store(ds)
     elif isinstance(rank_spec, dict):
-        spec = parse_rank_spec(rank_spec, metric_names(ds))
+        valid = metric_names(ds)
+        spec = parse_rank_spec(rank_spec, valid, space_names(ds),
+                               [m for m in valid if SPACE_PREFIX + m in ds.data_vars])
     else:
         spec = rank_spec
     done = completed_mask(ds)
@@ -348,8 +411,18 @@ def rank_table(ds: xr.Dataset, rank_spec: RankSpec | dict | None = None) -> pd.D
     passes = done.copy()
     n_failed = np.zeros(n, int)
     failed_text = [[] for _ in range(n)]
+    failed_spaces: list[dict[str, None]] = [{} for _ in range(n)]
+    names = space_names(ds)
     for req in spec.require:
-        margin = np.where(done, req.margin(values[req.metric]), np.nan)
+        if req.spaces is None:
+            margin = np.where(done, req.margin(values[req.metric]), np.nan)
+        else:
+            per_space, failing = _space_margins(ds, req, names)
+            margin = np.where(done, per_space, np.nan)
+            table[f"spaces failing: {req.label}"] = [
+                ", ".join(f) if d else "" for f, d in zip(failing, done, strict=True)]
+            for i in np.flatnonzero(done):
+                failed_spaces[i].update(dict.fromkeys(failing[i]))
         ok = margin >= 0  # NaN fails
         table[f"margin: {req.label}"] = margin
         passes &= ok
@@ -357,6 +430,7 @@ def rank_table(ds: xr.Dataset, rank_spec: RankSpec | dict | None = None) -> pd.D
         for i in np.flatnonzero(done & ~ok):
             failed_text[i].append(req.label)
     table["failed"] = ["; ".join(t) for t in failed_text]
+    table["failed_spaces"] = [", ".join(f) for f in failed_spaces]
 
     score = np.full(n, np.nan)
     weights = np.array([o.weight for o in spec.prefer])
@@ -380,8 +454,34 @@ def rank_table(ds: xr.Dataset, rank_spec: RankSpec | dict | None = None) -> pd.D
     ranked = (table["status"] != "incomplete").to_numpy()
     table.insert(0, "rank", pd.array(np.where(ranked, np.cumsum(ranked), 0), dtype="Int64"))
     table.loc[~ranked, "rank"] = pd.NA
-    first = ["rank", "variant_id", *axes_of(ds), "status", "failed", *shown]
+    first = ["rank", "variant_id", *axes_of(ds), "status", "failed", "failed_spaces", *shown]
     return table[first + [c for c in table.columns if c not in first]]
+
+
+def _space_margins(ds: xr.Dataset, req: Requirement, names: list[str]
+                   ) -> tuple[np.ndarray, list[list[str]]]:
+    """Smallest margin over a criterion's spaces, and the failing spaces, per variant.
+
+    A space the variant lacks (NaN, or a negative level) is skipped by ``all`` and
+    fails when named.
+    """
+    raw = np.asarray(ds[SPACE_PREFIX + req.metric].values)
+    values = raw.astype(float)
+    if raw.dtype.kind in "iu":
+        values[raw < 0] = np.nan  # sweep.store.SPACE_ABSENT_LEVEL
+    cols = (list(range(len(names))) if req.spaces == ALL_SPACES
+            else [names.index(n) for n in req.spaces])
+    m = req.margin(values[:, cols])  # (n, k), NaN where absent
+    present = ~np.isnan(values[:, cols])
+    failing_mask = (m < 0) | (~present if req.spaces != ALL_SPACES else False)
+    counted = np.where(present, m, np.inf)
+    worst = np.min(counted, axis=1) if cols else np.full(len(values), np.inf)
+    if req.spaces == ALL_SPACES:
+        worst = np.where(present.any(axis=1), worst, np.nan)  # no space at all: fails
+    else:
+        worst = np.where(present.all(axis=1), worst, np.nan)  # a named space is missing
+    failing = [[names[cols[j]] for j in np.flatnonzero(row)] for row in failing_mask]
+    return worst, failing
 
 
 def main_effects(ds: xr.Dataset, metric: str) -> pd.DataFrame:
@@ -477,13 +577,25 @@ def variant_names(table: pd.DataFrame, ds: xr.Dataset) -> list[str]:
 
 
 def criterion_text(req: Requirement) -> str:
-    """``sDA ≥ 55 %`` — a criterion in the shown units."""
+    """``sDA ≥ 55 %`` (``sDA ≥ 55 % in every space``) — a criterion in the shown units."""
     from luxsweep.sweep.labels import display_unit, format_number, metric_heading
 
     scale, unit = display_unit(req.metric)
     bound = format_number(req.bound * scale)
     name = metric_heading(req.metric).split(" [")[0]
-    return f"{name} {'≥' if req.at_least else '≤'} {bound}" + (f" {unit}" if unit else "")
+    text = f"{name} {'≥' if req.at_least else '≤'} {bound}" + (f" {unit}" if unit else "")
+    return f"{text} {req.scope}" if req.scope else text
+
+
+def _missed_text(req: Requirement, row: pd.Series) -> str:
+    """A missed criterion in a table cell: its metric, and the spaces that fail it."""
+    from luxsweep.sweep.labels import metric_heading
+
+    name = metric_heading(req.metric).split(" [")[0]
+    if req.spaces is None:
+        return name
+    failing = str(row.get(f"spaces failing: {req.label}", "") or "")
+    return f"{name} in {failing}" if failing else f"{name} ({req.scope})"
 
 
 def print_table(table: pd.DataFrame, ds: xr.Dataset, spec: RankSpec, top: int | None,
@@ -552,10 +664,10 @@ def print_table(table: pd.DataFrame, ds: xr.Dataset, spec: RankSpec, top: int | 
             if wide:
                 cells.append("yes" if row["pareto"] else "")
         if spec.require:
-            missed = [r.metric for r in spec.require if r.label in str(row["failed"]).split("; ")]
+            missed = [r for r in spec.require if r.label in str(row["failed"]).split("; ")]
             cells.append("not finished" if status == "incomplete" else
                          "all met" if status == "pass" else "misses " + ", ".join(
-                             metric_heading(m).split(" [")[0] for m in missed))
+                             _missed_text(r, row) for r in missed))
         elif status == "incomplete":
             cells[1] += " (not finished)"
         grid.add_row(*cells, style=style)

@@ -51,9 +51,11 @@ __all__ = [
     "FAMILIES",
     "METRICS",
     "RENAMED_OPTIONS",
+    "SPACE_PREFIX",
     "THRESHOLDS",
     "Metric",
     "Threshold",
+    "base_metric",
     "display_unit",
     "finalize_names",
     "label",
@@ -63,6 +65,8 @@ __all__ = [
     "rank_metrics",
     "renamed_options",
     "sensor_metrics",
+    "space_metrics",
+    "space_variables",
     "store_variables",
     "thresholds",
     "variant_metrics",
@@ -265,16 +269,40 @@ def thresholds(options: Mapping[str, Any] | None = None) -> dict[str, Any]:
     return values
 
 
+SPACE_PREFIX = "space_"
+"""Prefix of the per-space form of a per-variant result (``space_sda``, CONTRACT.md §3)."""
+
+
+def base_metric(name: str) -> Metric | None:
+    """The registry entry of a result or of its per-space form (None if unregistered)."""
+    if name in METRICS:
+        return METRICS[name]
+    if name.startswith(SPACE_PREFIX):
+        metric = METRICS.get(name[len(SPACE_PREFIX):])
+        if metric is not None and metric.per == "variant" and metric.stored:
+            return metric
+    return None
+
+
 def label(name: str, options: Mapping[str, Any] | None = None) -> str:
-    """Short human label of a result, thresholds filled (its name if unregistered)."""
-    metric = METRICS.get(name)
+    """Short human label of a result, thresholds filled (its name if unregistered).
+
+    The per-space form ``space_<name>`` has its result's label.
+    """
+    metric = base_metric(name)
     if metric is None:
         return name.replace("_", " ")
     return metric.label.format(**thresholds(options))
 
 
 def long_name(name: str, options: Mapping[str, Any] | None = None) -> str:
-    """Store ``long_name`` of a result, thresholds filled."""
+    """Store ``long_name`` of a result (or of its per-space form), thresholds filled."""
+    if name not in METRICS and base_metric(name) is not None:
+        base = name[len(SPACE_PREFIX):]
+        text = f"per space: {long_name(base, options)}"
+        if METRICS[base].dtype.startswith("int"):
+            text += " (-1 where the variant has no such space)"
+        return text
     return METRICS[name].description.format(**thresholds(options))
 
 
@@ -283,7 +311,7 @@ def display_unit(name: str) -> str:
 
     ``"1"`` is written ``0–1`` (a fraction), the EN 17037 level ``0–3``.
     """
-    metric = METRICS.get(name)
+    metric = base_metric(name)
     if metric is None:
         return ""
     if metric.display:
@@ -293,7 +321,8 @@ def display_unit(name: str) -> str:
 
 def percent_scale(name: str) -> float:
     """Factor that turns a stored value into the percent the report's plans show (or 1)."""
-    return 100.0 if METRICS[name].share else 1.0
+    metric = base_metric(name)
+    return 100.0 if metric is not None and metric.share else 1.0
 
 
 def sensor_metrics() -> list[str]:
@@ -304,6 +333,19 @@ def sensor_metrics() -> list[str]:
 def variant_metrics() -> list[str]:
     """Stored per-variant results (the store's ``done`` flag is not a metric)."""
     return [m.name for m in _ENTRIES if m.per == "variant" and m.stored]
+
+
+def space_metrics() -> list[str]:
+    """Stored per-variant results that the store also holds per space, as
+    ``space_<name>`` with dimensions (variant, space) (CONTRACT.md §3): every one."""
+    return variant_metrics()
+
+
+def space_variables(metrics: list[str]) -> list[str]:
+    """Per-space variables kept for the study's metric families (``space_<name>``), in
+    the order of :func:`store_variables`' per-variant variables."""
+    _, variant = store_variables(metrics)
+    return [SPACE_PREFIX + name for name in variant if name in space_metrics()]
 
 
 def rank_metrics() -> tuple[str, ...]:

@@ -22,6 +22,16 @@ pyplot state, no scripts, no external links), in this order:
    other choices (glazing, geometry);
 10. room plans coloured by per-sensor daylight autonomy, useful daylight and
     daylight factor for the top variants, with the room outline and windows;
+    for a store of several spaces instead one plan per level of the best
+    variant with every space's grid coloured by daylight autonomy, walls,
+    windows, internal openings (a window on a wall another space covers) and
+    an arrow to north (drawn from the study text's ``spaces:``, copies
+    expanded; a sensor whose space is not in the text is placed by its
+    height). A store of several spaces also gets, after the ranking, a table
+    of the building total then each space for the top variants, with each
+    space's verdict on the criteria that name spaces. A room study (one
+    space) keeps the report as it was: its table of one space would repeat
+    the building row, so it is left out;
 11. a day-of-year × hour-of-day map of illuminance at the sensor nearest the
     room centre for the best variant (only when the series were stored);
 12. notes on the metrics.
@@ -200,6 +210,7 @@ def resolved_study(study: dict, ds: xr.Dataset, variant: int) -> dict:
     tree = copy.deepcopy(study)
     for axis in axes_of(ds):
         _set_path(tree, axis, _plain(coord_values(ds, axis)[variant]))
+        _set_named(tree, axis, _plain(coord_values(ds, axis)[variant]))
     return tree
 
 
@@ -1131,6 +1142,278 @@ header .subtitle { font-size: 15px; }
 """
 
 
+# ---------------------------------------------------------------------------
+# spaces (CONTRACT.md §1b, §3): a table of spaces × top variants, plan maps per level
+
+
+SPACE_COLUMNS = 5
+"""Top variants shown side by side in the table of spaces."""
+SPACE_PLAN_METRIC = "daylight_autonomy"
+"""Per-sensor result coloured on the building plans."""
+
+
+def _store_spaces(ds: xr.Dataset) -> list[str]:
+    return [str(n) for n in coord_values(ds, "space")] if "space" in ds.coords else []
+
+
+def _expanded_spaces(tree: dict) -> list[dict]:
+    """The study's ``spaces:`` with copies expanded (``name-1`` … shifted by ``step``)."""
+    out = []
+    for item in tree.get("spaces") or []:
+        if not isinstance(item, dict):
+            continue
+        copies = item.get("copies") if isinstance(item.get("copies"), dict) else None
+        origin = np.asarray(item.get("origin", (0.0, 0.0, 0.0)), dtype=float)
+        if copies is None:
+            out.append({**item, "origin": origin})
+            continue
+        step = np.asarray(copies.get("step", (0.0, 0.0, 0.0)), dtype=float)
+        for k in range(int(copies.get("count", 1))):
+            out.append({**item, "name": f"{item.get('name')}-{k + 1}", "origin": origin + k * step})
+    return out
+
+
+def _set_named(tree: Any, path: str, value: Any) -> None:
+    """Set ``spaces.<name>.…`` in every copy of the space named (CONTRACT.md §1b)."""
+    keys = path.split(".")
+    if len(keys) < 3 or keys[0] != "spaces" or not isinstance(tree.get("spaces"), list):
+        return
+    for item in tree["spaces"]:
+        if isinstance(item, dict) and item.get("name") == keys[1]:
+            _set_path(item, ".".join(keys[2:]), value)
+
+
+def _wall_segments(space: dict) -> list[tuple[str, tuple[float, float], tuple[float, float]]]:
+    """The four walls of a space in plan: (wall, start, end) [m, building frame]."""
+    x0, y0 = float(space["origin"][0]), float(space["origin"][1])
+    w, d = float(space["width"]), float(space["depth"])
+    return [("front", (x0, y0), (x0 + w, y0)), ("back", (x0, y0 + d), (x0 + w, y0 + d)),
+            ("left", (x0, y0), (x0, y0 + d)), ("right", (x0 + w, y0), (x0 + w, y0 + d))]
+
+
+def _covered(point: tuple[float, float], z: float, others: list[dict], reach: float) -> bool:
+    """Whether a point just outside a wall lies in another space's footprint at height z."""
+    px, py = point
+    for s in others:
+        x0, y0, z0 = (float(v) for v in s["origin"])
+        grow = reach + float(s.get("thickness", 0.0) or 0.0)
+        if (x0 - grow <= px <= x0 + float(s["width"]) + grow
+                and y0 - grow <= py <= y0 + float(s["depth"]) + grow
+                and z0 <= z <= z0 + float(s.get("height", 0.0) or 0.0)):
+            return True
+    return False
+
+
+def _window_marks(space: dict, others: list[dict]) -> list[tuple[list[float], list[float], str]]:
+    """Plan marks of a space's windows: (xs, ys, kind) [m, building frame], kind
+    ``window`` (an outside wall), ``internal`` (a wall another space covers: an
+    internal opening, found by probing just beyond the wall at sill height) or
+    ``roof`` (the outline of a roof window)."""
+    x0, y0, z0 = (float(v) for v in space["origin"])
+    walls = {k: (a, b) for k, a, b in _wall_segments(space)}
+    marks = []
+    for win in space.get("windows") or []:
+        try:
+            wall, width = win.get("wall"), float(win["width"])
+            if wall == "roof":
+                length, cx, cy = float(win["length"]), float(win["x"]), float(win["y"])
+                xs = [x0 + cx - width / 2, x0 + cx + width / 2]
+                ys = [y0 + cy - length / 2, y0 + cy + length / 2]
+                marks.append(([xs[0], xs[1], xs[1], xs[0], xs[0]],
+                              [ys[0], ys[0], ys[1], ys[1], ys[0]], "roof"))
+                continue
+            off = float(win.get("offset", 0.0) or 0.0)
+            sill = float(win.get("sill", 0.0) or 0.0)
+        except (AttributeError, KeyError, TypeError, ValueError):
+            continue
+        if wall not in walls:
+            continue
+        (ax_, ay), (bx, by) = walls[wall]
+        along_x = ay == by
+        c = (ax_ + bx) / 2 + off if along_x else (ay + by) / 2 + off
+        out = {"front": (0, -1), "back": (0, 1), "left": (-1, 0), "right": (1, 0)}[wall]
+        reach = 0.01 + float(space.get("thickness", 0.0) or 0.0)
+        px, py = (c, ay) if along_x else (ax_, c)
+        inner = _covered((px + out[0] * reach, py + out[1] * reach), z0 + sill + 0.01, others,
+                         0.0)
+        xs = [c - width / 2, c + width / 2] if along_x else [ax_, ax_]
+        ys = [ay, ay] if along_x else [c - width / 2, c + width / 2]
+        marks.append((xs, ys, "internal" if inner else "window"))
+    return marks
+
+
+def _draw_spaces(ax: Any, spaces: list[dict]) -> bool:
+    """Walls, windows (blue), internal openings (orange, dashed), roof windows (dashed
+    outline) and names of spaces."""
+    drawn = False
+    styles = {"window": {"color": "#1f77b4", "lw": 3},
+              "internal": {"color": "#d97706", "lw": 3, "ls": (0, (2, 1))}}
+    for s in spaces:
+        try:
+            x0, y0, _ = (float(v) for v in s["origin"])
+            w, d = float(s["width"]), float(s["depth"])
+            marks = _window_marks(s, [o for o in spaces if o is not s])
+        except (KeyError, TypeError, ValueError):
+            continue
+        drawn = True
+        occupied = s.get("occupied", True) is not False
+        ax.add_patch(Rectangle((x0, y0), w, d, fill=not occupied, lw=1.6, ec="black",
+                               fc="#dddddd", hatch=None if occupied else "//"))
+        ax.text(x0 + w / 2, y0 + d / 2, str(s.get("name", "")), ha="center", va="center",
+                fontsize=7, color="black",
+                bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none", "alpha": 0.7})
+        for xs, ys, kind in marks:
+            if kind == "roof":
+                ax.plot(xs, ys, color="white", lw=1.5, ls="--")
+                continue
+            ax.plot(xs, ys, color="white", lw=6, solid_capstyle="butt")
+            ax.plot(xs, ys, solid_capstyle="butt", **styles[kind])
+    return drawn
+
+
+def _short(metric: str, options: dict | None) -> str:
+    return metric_heading(metric, options).split(" [")[0]
+
+
+def _unit(metric: str) -> str:
+    unit = display_unit(metric)[1]
+    return f" {unit}" if unit and metric != "en17037_level" else ""
+
+
+def _space_table(ds: xr.Dataset, table: pd.DataFrame, spec: RankSpec, labels: dict[str, str],
+                 options: dict | None = None) -> str:
+    """The building total first, then every space, for the top variants side by side."""
+    names = _store_spaces(ds)
+    done = table[table["status"] != "incomplete"].head(SPACE_COLUMNS)
+    if done.empty:
+        return '<p class="note">No variant has finished yet.</p>'
+    metrics = [m for m in (spec.metrics or ["sda", "ase", "udi_useful_mean"])
+               if f"space_{m}" in ds.data_vars]
+    axes = axes_of(ds)
+    spaced = [r for r in spec.require if r.spaces is not None]
+    head = ["Space", "Grid area [m²]"] + [
+        f"#{_esc(format_number(row['rank']))} {_esc(_name_of(row, axes, labels))}"
+        for _, row in done.iterrows()]
+    area = np.asarray(ds["space_area"].values, float) if "space_area" in ds else None
+
+    def cell(values: list[str], verdict: str) -> str:
+        return "<br>".join(_esc(v) for v in values) + (f"<br>{verdict}" if verdict else "")
+
+    rows = []
+    building = []
+    total_criteria = [r for r in spec.require if r.spaces is None]
+    for _, row in done.iterrows():
+        values = [f"{_short(m, options)} {metric_text(m, row.get(m))}{_unit(m)}"
+                  for m in metrics]
+        missed = [r for r in total_criteria if r.label in str(row["failed"]).split("; ")]
+        verdict = ("" if not total_criteria else
+                   '<span class="fail">✗ misses ' + _esc("; ".join(
+                       criterion_text(r) for r in missed)) + "</span>"
+                   if missed else '<span class="pass">✓ meets its criteria</span>')
+        building.append(cell(values, verdict))
+    total = (float(np.nansum(area[int(done.iloc[0]["variant"])])) if area is not None
+             else float("nan"))
+    rows.append(f"<tr><th>Building (all spaces)</th><td>{_esc(format_number(total))}</td>"
+                + "".join(f"<td>{c}</td>" for c in building) + "</tr>")
+    for k, name in enumerate(names):
+        cells = []
+        for _, row in done.iterrows():
+            v = int(row["variant"])
+            values = []
+            for m in metrics:
+                value = np.asarray(ds[f"space_{m}"].values)[v, k]
+                absent = (np.isnan(value) if np.issubdtype(np.asarray(value).dtype, np.floating)
+                          else value < 0)
+                values.append(f"{_short(m, options)} "
+                              + ("–" if absent else metric_text(m, float(value)) + _unit(m)))
+            applies = [r for r in spaced if r.spaces == "all" or name in r.spaces]
+            failing = [r for r in applies
+                       if name in str(row.get(f"spaces failing: {r.label}", "")).split(", ")]
+            verdict = ("" if not applies else
+                       '<span class="fail">✗ misses ' + _esc("; ".join(
+                           criterion_text(r).split(" in ")[0] for r in failing)) + "</span>"
+                       if failing else '<span class="pass">✓ meets its criteria</span>')
+            cells.append(cell(values, verdict))
+        a = area[int(done.iloc[0]["variant"]), k] if area is not None else float("nan")
+        rows.append(f"<tr><th>{_esc(name)}</th><td>{_esc(format_number(a))}</td>"
+                    + "".join(f"<td>{c}</td>" for c in cells) + "</tr>")
+    note = ("Building totals: sDA and ASE over the sensors of all spaces together (IES "
+            "LM-83-12 takes the whole analysis area), means weighted by each space's grid "
+            "area, the EN 17037 level of the lowest space. – marks a space the variant "
+            "does not have. Grid areas are those of the first column's variant.")
+    if spaced:
+        note += " Criteria on spaces: " + "; ".join(criterion_text(r) for r in spaced) + "."
+    return ('<table class="rank spaces"><thead><tr>'
+            + "".join(f"<th>{h}</th>" for h in head) + "</tr></thead><tbody>"
+            + "".join(rows) + "</tbody></table>" + f'<p class="note">{_esc(note)}</p>')
+
+
+def _space_plans(ds: xr.Dataset, table: pd.DataFrame, study: dict) -> str:
+    """Plans of the best variant, one per level: every space's grid coloured by daylight
+    autonomy, walls, windows, internal openings and an arrow to north."""
+    done = table[table["status"] != "incomplete"]
+    values = _per_sensor(ds, SPACE_PLAN_METRIC, int(done.iloc[0]["variant"])) if len(done) \
+        else None
+    if values is None or "x" not in ds or "sensor_space" not in ds.coords:
+        return '<p class="note">No per-sensor results to draw.</p>'
+    best = done.iloc[0]
+    variant = int(best["variant"])
+    tree = resolved_study(study, ds, variant)
+    spaces = _expanded_spaces(tree)
+    x, y = _sensor_xy(ds, variant)
+    z = ds["z"].isel(variant=variant) if "variant" in ds["z"].dims else ds["z"]
+    z = np.asarray(z.values, float)
+    own = ds["sensor_space"]
+    own = np.array([str(n) for n in
+                    (own.isel(variant=variant) if "variant" in own.dims else own).values],
+                   dtype=object)
+    level_of = {str(s.get("name")): float(s["origin"][2]) for s in spaces}
+    # a sensor's level: its space's floor; spaces not in the study text by the sensor height
+    floor = np.array([level_of.get(n, np.nan) for n in own])
+    floor = np.where(np.isnan(floor), np.round(z - 0.8, 1), floor)
+    levels = sorted({float(f) for f in floor[np.isfinite(x)]}
+                    | {float(s["origin"][2]) for s in spaces})
+    scale = display_unit(SPACE_PLAN_METRIC)[0]
+    norm = colors.Normalize(0.0, 100.0)
+    orient = tree.get("orientation", 180 if "orientation" not in axes_of(ds) else None)
+    fig = Figure(figsize=(9.0, 5.2 * len(levels) + 0.6))
+    grid = fig.subplots(len(levels), 1, squeeze=False)
+    mappable = None
+    for i, level in enumerate(levels):
+        ax = grid[i, 0]
+        on = np.isfinite(x) & (floor == level)
+        if on.any():
+            for name in dict.fromkeys(own[on]):
+                sel = on & (own == name)
+                mappable = _field(ax, x[sel], y[sel], values[sel] * scale, norm)
+        here = [s for s in spaces if float(s["origin"][2]) == level]
+        _draw_spaces(ax, here)
+        xs = [float(s["origin"][0]) + e for s in here for e in (0.0, float(s["width"]))]
+        ys = [float(s["origin"][1]) + e for s in here for e in (0.0, float(s["depth"]))]
+        xs += list(x[on]) if on.any() else []
+        ys += list(y[on]) if on.any() else []
+        x0, x1, y0, y1 = min(xs), max(xs), min(ys), max(ys)
+        _north_arrow(ax, float(orient) if orient is not None else None, (x1 + 1.0, y1 - 0.8))
+        ax.set_xlim(x0 - 0.4, x1 + 1.8)
+        ax.set_ylim(y0 - 0.4, y1 + 0.4)
+        ax.set_aspect("equal")
+        ax.tick_params(labelsize=7)
+        ax.set_title(f"Level at z = {level:g} m: {_plan_title(SPACE_PLAN_METRIC, _options(ds))}",
+                     fontsize=9)
+        ax.set_xlabel("x along the front façade [m]", fontsize=8)
+        ax.set_ylabel("y [m]", fontsize=8)
+    if mappable is not None:
+        fig.colorbar(mappable, ax=grid[:, 0].tolist(), orientation="horizontal",
+                     fraction=0.04, pad=0.08, label=_plan_unit(SPACE_PLAN_METRIC))
+    labels = _labels(study)
+    return (_png(fig, "building plans per level coloured by daylight autonomy")
+            + f'<p class="note">The first-ranked variant '
+              f"({_esc(_name_of(best, axes_of(ds), labels))}). Blue bars: windows in "
+              "outside walls; orange dashed bars: internal openings between spaces; "
+              "dashed outlines: roof windows; hatched: spaces without sensors (not "
+              "occupied); the arrow points to north.</p>")
+
+
 def build_report(ds: xr.Dataset, source: str | None = None, paper: str | None = None) -> str:
     """The report of a results store as one HTML string.
 
@@ -1146,7 +1429,7 @@ def build_report(ds: xr.Dataset, source: str | None = None, paper: str | None = 
     """
     # per-variant results and coordinates: one whole-array read each; per-sensor maps
     # and series stay lazy and are read only for the variants drawn
-    small = [n for n in ds.variables if set(ds[n].dims) <= {"variant"}
+    small = [n for n in ds.variables if set(ds[n].dims) <= {"variant", "space"}
              or ds[n].dims == ("sensor",)]
     ds = ds.assign({n: ds[n].load() for n in small if n in ds.data_vars})
     ds = ds.assign_coords({n: ds[n].load() for n in small if n in ds.coords})
@@ -1157,17 +1440,23 @@ def build_report(ds: xr.Dataset, source: str | None = None, paper: str | None = 
     name = study.get("name") or ds.attrs.get("study_name") or "daylight study"
     project = study.get("project") if isinstance(study.get("project"), dict) else {}
     title = project.get("project") or name
+    several = len(_store_spaces(ds)) > 1  # one space: the room report as it was
     sections = [
         ("summary", "Summary", _summary(ds, study, source, table, spec)),
         ("ranking", "Ranking of the variants", _ranking(table, spec, axes_of(ds), labels,
                                                         options=_options(ds))),
+        *([("spaces", "Spaces of the top variants",
+            _space_table(ds, table, spec, labels, _options(ds)))] if several else []),
         ("inputs", "Inputs", _inputs(ds, study)),
         ("geometry", "Geometry", _geometry_sketch(ds, table, study, source)),
         ("tradeoff", "Trade-off between two objectives", _pareto_chart(ds, table, spec)),
         ("effects", "What each choice changes", _main_effect_plots(ds, spec, labels)),
         ("orientation", "Orientation and climate",
          _orientation_climate_map(ds, table, spec, labels)),
-        ("maps", "Daylight across the room for the top variants", _plan_maps(ds, table, study)),
+        (("maps", "Daylight across the building, level by level",
+          _space_plans(ds, table, study)) if several else
+         ("maps", "Daylight across the room for the top variants",
+          _plan_maps(ds, table, study))),
         ("hourly", "Hour by hour at one point", _hourly_map(ds, table, study)),
         ("notes", "What the metrics mean", NOTES.format(**registry.thresholds(_options(ds)))),
     ]

@@ -84,7 +84,8 @@ from luxsweep.sweep.errors import (
 from luxsweep.sweep.plan import CoefficientJob, Plan, SeriesTask, make_plan
 from luxsweep.sweep.preflight import Transport, preflight
 from luxsweep.sweep.progress import PLAIN_EVERY, Progress
-from luxsweep.sweep.registry import store_variables
+from luxsweep.sweep.registry import space_variables, store_variables
+from luxsweep.sweep.spaces import SpaceLayout, single_space
 
 log = logging.getLogger("luxsweep")
 
@@ -479,6 +480,7 @@ class _SeriesInputs:
     params: Any
     open_rows: np.ndarray
     closed_rows: np.ndarray
+    layout: SpaceLayout
     recomputed: int = 0
 
     @property
@@ -526,6 +528,8 @@ def _load_series(task: SeriesTask, cache_root: str | None, coefficient_result: A
         occupied=km.occupancy_mask(stamps, occ.start, occ.end, occ.days, study.timestep),
         analysis=km.lm83_analysis_mask(stamps, study.timestep), params=_metric_params(task),
         open_rows=task.open_rows(), closed_rows=task.closed_rows(), recomputed=recomputed,
+        layout=(task.layout if task.layout is not None
+                else single_space(coeffs.n_sensors, float("nan"))),
     )
 
 
@@ -575,7 +579,8 @@ def _count_block(inp: _SeriesInputs, counts: Any, a: int, b: int, workspace: Wor
     if dark.size:
         with timer("metrics"):
             masks = km.StepMasks(inp.occupied[dark], inp.analysis[dark], inp.daylight[dark])
-            counts = km.accumulate_dark(counts, masks, inp.params, (n_o, n_r), n_s)
+            counts = km.accumulate_dark(counts, masks, inp.params, (n_o, n_r), n_s,
+                                        inp.layout.n_spaces)
     if not lit.size:
         return counts, lit, None
     unit = _unit_series(inp, lit, workspace, timer)
@@ -585,14 +590,16 @@ def _count_block(inp: _SeriesInputs, counts: Any, a: int, b: int, workspace: Wor
             counts = km.accumulate(
                 counts, unit[0][:, 0].swapaxes(-1, -2), unit[1][:, 0].swapaxes(-1, -2),
                 masks, inp.params, transmittance=inp.open_rows[:, 0],
-                shaded_transmittance=inp.closed_rows[:, 0] if task.shading else None)
+                shaded_transmittance=inp.closed_rows[:, 0] if task.shading else None,
+                space=inp.layout.sensor_space)
         return counts, lit, unit
     with timer("illuminance"):
         total, direct = (combine(u, inp.open_rows).swapaxes(-1, -2) for u in unit)
         shaded = (combine(unit[0], inp.closed_rows).swapaxes(-1, -2) if task.shading
                   else None)
     with timer("metrics"):
-        counts = km.accumulate(counts, total, direct, masks, inp.params, shaded)
+        counts = km.accumulate(counts, total, direct, masks, inp.params, shaded,
+                               space=inp.layout.sensor_space)
     return counts, lit, unit
 
 
@@ -625,7 +632,8 @@ def _write_series(inp: _SeriesInputs, members: tuple, store_path: str | None, a:
 
 
 def _final_results(inp: _SeriesInputs, counts: Any) -> dict[str, np.ndarray]:
-    """Metrics from the counts of the whole year, plus the daylight factor."""
+    """Metrics from the counts of the whole year, plus the daylight factor; per space
+    (``space_<name>``, spaces of ``inp.layout``) and for the building."""
     from luxsweep.kernels import metrics as km
     from luxsweep.kernels.coefficients import daylight_factor_error
     from luxsweep.kernels.sky import overcast_sky_vector
@@ -633,16 +641,18 @@ def _final_results(inp: _SeriesInputs, counts: Any) -> dict[str, np.ndarray]:
 
     study = inp.task.study
     n_o, n_r = len(inp.task.orientations), len(inp.task.rows)
-    results = km.finalize(counts, inp.params)
+    own, area = inp.layout.sensor_space, inp.layout.area
+    results = km.finalize(counts, inp.params, own, area)
     df = daylight_factor(inp.coeffs, overcast_sky_vector(inp.scheme, study.ground_reflectance),
                          inp.open_rows)
-    df_stats = km.daylight_factor_stats(df)
+    df_space = km.space_mean(np.asarray(df, dtype=np.float64), own)  # (n_r, n_spaces)
     results["daylight_factor"] = np.broadcast_to(df[None], (n_o, *df.shape))
     error = daylight_factor_error(inp.coeffs, study.ground_reflectance, inp.open_rows)
     results["daylight_factor_error"] = np.broadcast_to(error.astype(np.float32)[None],
                                                        (n_o, *error.shape))
-    results["daylight_factor_mean"] = np.broadcast_to(df_stats["daylight_factor_mean"][None],
+    results["daylight_factor_mean"] = np.broadcast_to(km.area_weighted(df_space, area)[None],
                                                       (n_o, n_r))
+    results["space_daylight_factor_mean"] = np.broadcast_to(df_space[None], (n_o, *df_space.shape))
     return results
 
 
@@ -686,12 +696,18 @@ def _series(
     with timer("write"):
         _, ois, ris = members
         sensor_vars, variant_vars = store_variables(list(task.study.metrics))
-        rows = (vis,
-                {name: np.asarray(results[name][ois, ris], dtype=np.float32)
-                 for name in sensor_vars},
-                {name: np.asarray(results[name][ois, ris]) for name in variant_vars})
+        rows = {
+            "indices": vis,
+            "sensor_values": {name: np.asarray(results[name][ois, ris], dtype=np.float32)
+                              for name in sensor_vars},
+            "variant_values": {name: np.asarray(results[name][ois, ris])
+                               for name in variant_vars},
+            "space_values": {name: np.asarray(results[name][ois, ris])
+                             for name in space_variables(list(task.study.metrics))},
+            "spaces": inp.layout.names,
+        }
         if store_path is not None:  # every variant's data, then their `done` flags
-            results_store.write_variants(store_path, *rows)
+            results_store.write_variants(store_path, **rows)
     out = {"variants": len(todo), "recomputed": inp.recomputed, "timing": timer.seconds}
     if store_path is None:  # the client writes them (no shared disk)
         out.update(rows=rows, series=kept)
@@ -782,6 +798,8 @@ def _layout(plan: Plan) -> results_store.StoreLayout:
         attrs=_attrs(plan),
         metric_options=plan.loaded.study.metric_options.model_dump(),
         tasks=plan.task_bounds(),
+        spaces=plan.layouts,
+        space_variables=space_variables(list(study.metrics)),
     )
 
 
@@ -834,8 +852,9 @@ def prepare(study_path: str | Path, out: str | Path | None, cache_dir: str | Pat
     elif results.exists():
         sensor_vars, variant_vars = store_variables(list(plan.loaded.study.metrics))
         series = list(results_store.SERIES_VARIABLES) if plan.times is not None else []
+        spaced = ["space_area", *space_variables(list(plan.loaded.study.metrics))]
         done = results_store.open_existing(results, plan.study_hash,
-                                           [*sensor_vars, *variant_vars, *series])
+                                           [*sensor_vars, *variant_vars, *spaced, *series])
     return plan, results, cache, done
 
 
@@ -1294,11 +1313,11 @@ class Collector:
     def _written(self, result: dict[str, Any]) -> None:
         if "rows" in result:  # the client writes the store: series first, `done` last
             t0 = time.perf_counter()
-            indices = result["rows"][0]
+            indices = result["rows"]["indices"]
             for start, illuminance, direct in result["series"]:
                 results_store.write_series_block(self.results, indices, start, illuminance,
                                                  direct)
-            results_store.write_variants(self.results, *result["rows"])
+            results_store.write_variants(self.results, **result["rows"])
             self.timing["write"] = (self.timing.get("write", 0.0)
                                     + time.perf_counter() - t0)
         self.summary.written += result["variants"]

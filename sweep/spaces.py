@@ -10,15 +10,23 @@ the report.
 
 from __future__ import annotations
 
+import difflib
+from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-__all__ = ["ROOM", "SpaceLayout", "single_space"]
+if TYPE_CHECKING:
+    from luxsweep.sweep.config import StudyFile
+
+__all__ = ["ALL_SPACES", "ROOM", "SpaceLayout", "check_rank_spaces", "single_space"]
 
 ROOM = "room"
 """Name of the one space of a ``room:`` study (CONTRACT.md §1b)."""
+
+ALL_SPACES = "all"
+"""``spaces: all`` in a ranking criterion: every occupied space on its own."""
 
 
 @dataclass(frozen=True, eq=False)
@@ -77,3 +85,47 @@ def single_space(n_sensors: int, area: float, name: str = ROOM) -> SpaceLayout:
     """
     return SpaceLayout(names=(name,), sensor_space=np.zeros(n_sensors, dtype=np.int32),
                        area=np.array([area], dtype=np.float64))
+
+
+def check_rank_spaces(loaded: StudyFile, layouts: Sequence[SpaceLayout]) -> None:
+    """Refuse ranking criteria that name a space the study does not have.
+
+    Called at the end of :func:`sweep.plan.make_plan` (so by ``luxsweep check``,
+    ``plan`` and ``run``): a criterion on a misspelt space would otherwise never be
+    checked, and its variants would pass without it.
+
+    Parameters
+    ----------
+    loaded : StudyFile
+        The study (its ``rank.require`` entries and their lines).
+    layouts : sequence of SpaceLayout
+        The occupied spaces of every variant; a name is known when any variant has it.
+
+    Raises
+    ------
+    StudyFileError
+        Naming the file, ``rank.require.<i>.spaces`` with its line, the unknown
+        name, the closest known one and the study's occupied spaces.
+    """
+    rank = loaded.study.rank
+    if rank is None:
+        return
+    known = list(dict.fromkeys(n for lay in layouts for n in lay.names))
+    for i, req in enumerate(rank.require):
+        if req.spaces == ALL_SPACES and ALL_SPACES in known:
+            raise loaded.error(
+                ("rank", "require", i, "spaces"),
+                f"'spaces: {ALL_SPACES}' means every space, but a space is named "
+                f"'{ALL_SPACES}'; rename that space")
+        if req.spaces is None or req.spaces == ALL_SPACES:
+            continue
+        names = [req.spaces] if isinstance(req.spaces, str) else list(req.spaces)
+        for name in names:
+            if name in known:
+                continue
+            close = difflib.get_close_matches(name, known, n=1)
+            hint = f"did you mean '{close[0]}'? " if close else ""
+            raise loaded.error(
+                ("rank", "require", i, "spaces"),
+                f"no occupied space is named '{name}'; {hint}the study's occupied spaces are: "
+                f"{', '.join(known)} (or write 'spaces: {ALL_SPACES}')")

@@ -37,8 +37,19 @@ Layout:
   vary key) on ``variant``; ``x``, ``y``, ``z`` [m, building frame] on ``sensor``,
   or on ``(variant, sensor)`` padded with NaN when the grids differ; ``n_sensors``
   on ``variant``; ``time`` (local standard time, hour-ending stamps);
-- data variables listed in :data:`SENSOR_VARIABLES`, :data:`VARIANT_VARIABLES`
-  and :data:`SERIES_VARIABLES`, each with ``units`` and ``long_name`` attributes;
+- dimension ``space`` (index coordinate: the occupied spaces' names, every
+  variant's spaces, first seen first; one space ``room`` for a room study) and
+  the coordinate ``sensor_space`` (the name of the space that owns each
+  sensor) on ``sensor``, or on ``(variant, sensor)`` with ``""`` in unused
+  slots when the variants' grids or their owners differ;
+- ``space_area`` (variant, space) [m²]: the floor area of each space's grid,
+  written with the metadata (known at planning), NaN where a variant lacks the
+  space;
+- data variables listed in :data:`SENSOR_VARIABLES`, :data:`VARIANT_VARIABLES`,
+  :data:`SPACE_VARIABLES` (``space_<name>``, (variant, space): NaN, or level
+  :data:`SPACE_ABSENT_LEVEL` = −1, where the variant lacks the space; chunked
+  like the per-variant arrays with the whole ``space`` dimension) and
+  :data:`SERIES_VARIABLES`, each with ``units`` and ``long_name`` attributes;
 - attributes ``study_hash``, ``luxsweep_version``, ``study`` (the study file's
   text), ``study_name``, ``axes``, ``store_layout`` (:data:`LAYOUT`) and
   ``variant_block``.
@@ -71,13 +82,23 @@ import zarr
 
 from luxsweep.sweep import __version__
 from luxsweep.sweep.errors import ResultsStoreError
-from luxsweep.sweep.registry import METRICS, long_name, sensor_metrics, variant_metrics
+from luxsweep.sweep.registry import (
+    METRICS,
+    SPACE_PREFIX,
+    long_name,
+    sensor_metrics,
+    space_metrics,
+    variant_metrics,
+)
+from luxsweep.sweep.spaces import SpaceLayout, single_space
 
 __all__ = [
     "CREATING",
     "FLAT_KEYS",
     "SENSOR_VARIABLES",
     "SERIES_VARIABLES",
+    "SPACE_ABSENT_LEVEL",
+    "SPACE_VARIABLES",
     "VARIANT_VARIABLES",
     "StoreLayout",
     "check_alignment",
@@ -104,6 +125,15 @@ VARIANT_VARIABLES: dict[str, tuple[str, str, str]] = {
        for name in variant_metrics()},
     "done": ("bool", "1", "all results of this variant are written"),
 }
+SPACE_VARIABLES: dict[str, tuple[str, str, str]] = {
+    SPACE_PREFIX + name: (METRICS[name].dtype, METRICS[name].unit,
+                          long_name(SPACE_PREFIX + name))
+    for name in space_metrics()
+}
+"""Per-space results ``space_<name>`` (variant, space); a space that a variant lacks
+holds NaN, or :data:`SPACE_ABSENT_LEVEL` in integer results."""
+SPACE_ABSENT_LEVEL = -1
+"""``space_en17037_level`` of a space that the variant does not have (levels are 0–3)."""
 SERIES_VARIABLES: dict[str, tuple[str, str, str]] = {
     "illuminance": ("float32", "lx", "illuminance on the sensors"),
     "direct_sun_illuminance": ("float32", "lx", "illuminance from direct sun only"),
@@ -137,6 +167,12 @@ class StoreLayout:
         ``(start, stop)`` of each task's contiguous range of variants (they tile
         ``0..n_variants``); chunks along ``variant`` follow them. Default: one
         task per variant.
+    spaces : sequence of SpaceLayout, optional
+        The space of every sensor and each space's grid area, one per variant
+        (:attr:`sweep.plan.Plan.layouts`). Default: every variant one space
+        ``room`` of unknown area.
+    space_variables : sequence of str
+        Per-space results the store holds (:data:`SPACE_VARIABLES`).
     """
 
     variant_ids: Sequence[str]
@@ -150,6 +186,8 @@ class StoreLayout:
     attrs: Mapping[str, Any]
     metric_options: Mapping[str, Any] | None = None
     tasks: Sequence[tuple[int, int]] | None = None
+    spaces: Sequence[SpaceLayout] | None = None
+    space_variables: Sequence[str] = ()
 
     @property
     def n_variants(self) -> int:
@@ -169,6 +207,41 @@ class StoreLayout:
     def shared_grid(self) -> bool:
         first = np.asarray(self.sensors[0])[:, :3]
         return all(np.array_equal(np.asarray(s)[:, :3], first) for s in self.sensors[1:])
+
+    @property
+    def layouts(self) -> list[SpaceLayout]:
+        """One :class:`SpaceLayout` per variant (the default: one space ``room``)."""
+        if self.spaces is not None:
+            return list(self.spaces)
+        return [single_space(len(s), float("nan")) for s in self.sensors]
+
+    @property
+    def space_names(self) -> list[str]:
+        """The store's ``space`` coordinate: every variant's spaces, first seen first."""
+        return list(dict.fromkeys(n for lay in self.layouts for n in lay.names))
+
+
+def _space_coords(layout: StoreLayout) -> dict[str, Any]:
+    """``space``, ``sensor_space`` (on ``sensor``, or on (variant, sensor) with "" in
+    unused slots when the variants' grids or ownership differ) and ``space_area``."""
+    names = layout.space_names
+    layouts = layout.layouts
+    owners = [np.asarray(lay.names, dtype=object)[lay.sensor_space] for lay in layouts]
+    coords: dict[str, Any] = {"space": ("space", np.asarray(names, dtype=object),
+                                        {"long_name": "occupied space"})}
+    text = "name of the space that owns the sensor"
+    if layout.shared_grid and all(np.array_equal(o, owners[0]) for o in owners[1:]):
+        coords["sensor_space"] = ("sensor", owners[0], {"long_name": text})
+    else:
+        pad = np.full((layout.n_variants, layout.n_sensors), "", dtype=object)
+        for v, o in enumerate(owners):
+            pad[v, : o.size] = o
+        coords["sensor_space"] = (("variant", "sensor"), pad,
+                                  {"long_name": text + " ('' in unused sensor slots)"})
+    area = np.full((layout.n_variants, len(names)), np.nan)
+    for v, lay in enumerate(layouts):
+        area[v, [names.index(n) for n in lay.names]] = lay.area
+    return {**coords, "space_area": area}
 
 
 def _coordinate_values(values: Sequence[Any]) -> np.ndarray:
@@ -254,9 +327,28 @@ def _template(layout: StoreLayout) -> tuple[xr.Dataset, dict[str, dict[str, Any]
             coords[name] = (("variant", "sensor"), pad[..., i])
     for name in ("x", "y", "z"):
         coords[name] = (*coords[name], {"units": "m", "long_name": f"{name} (building frame)"})
+    spaces = _space_coords(layout)
+    area = spaces.pop("space_area")
+    coords.update(spaces)
+    n_sp = area.shape[1]
 
     data: dict[str, Any] = {}
     encoding: dict[str, dict[str, Any]] = {}
+    # known at planning: written with the metadata (NaN where a variant lacks the space)
+    chunks = (_variant_chunk(block, n_sp * 8), n_sp)
+    data["space_area"] = (("variant", "space"), area,
+                          {"units": "m²", "long_name": "floor area covered by the space's "
+                           "sensor grid (the weight of its means in the building totals)"})
+    encoding["space_area"] = {"chunks": chunks, "chunk_key_encoding": FLAT_KEYS}
+    for name in layout.space_variables:
+        dtype, units, text = SPACE_VARIABLES[name]
+        text = long_name(name, layout.metric_options)
+        fill = np.nan if dtype.startswith("float") else SPACE_ABSENT_LEVEL
+        chunks = (_variant_chunk(block, n_sp * np.dtype(dtype).itemsize), n_sp)
+        data[name] = (("variant", "space"), da.full((nv, n_sp), fill, dtype=dtype,
+                                                    chunks=chunks),
+                      {"units": units, "long_name": text})
+        encoding[name] = {"chunks": chunks, "chunk_key_encoding": FLAT_KEYS}
     for name in layout.sensor_variables:
         dtype, units, _ = SENSOR_VARIABLES[name]
         chunks = (_variant_chunk(block, ns * np.dtype(dtype).itemsize), ns)
@@ -352,7 +444,7 @@ def check_alignment(path: str | Path, *, series_chunk: int | None = None,
         The run's task ranges (:meth:`sweep.plan.Plan.task_bounds`).
     """
     group = zarr.open_group(str(path), mode="r")
-    for name in [*SENSOR_VARIABLES, *VARIANT_VARIABLES, *SERIES_VARIABLES]:
+    for name in [*SENSOR_VARIABLES, *VARIANT_VARIABLES, *SPACE_VARIABLES, *SERIES_VARIABLES]:
         if name not in group:
             continue
         arr = group[name]
@@ -369,8 +461,8 @@ def check_alignment(path: str | Path, *, series_chunk: int | None = None,
                     f"{off[:3]} (start, stop) do not begin and end on chunk boundaries, so two "
                     "tasks would write one chunk. Start a new store (delete the folder or "
                     "choose another --out).")
-        if len(dims) > 1 and dims[1] == "sensor" and arr.chunks[1] != arr.shape[1]:
-            raise ResultsStoreError(f"{path}: array '{name}' splits the sensor dimension "
+        if len(dims) > 1 and dims[1] in ("sensor", "space") and arr.chunks[1] != arr.shape[1]:
+            raise ResultsStoreError(f"{path}: array '{name}' splits the {dims[1]} dimension "
                                     f"({arr.chunks}); start a new store.")
         if len(dims) > 2 and series_chunk is not None and arr.chunks[2] != min(series_chunk,
                                                                                 arr.shape[2]):
@@ -560,6 +652,8 @@ def write_variants(
     n_sensors: int | None = None,
     *,
     mark_done: bool = True,
+    space_values: Mapping[str, np.ndarray] | None = None,
+    spaces: Sequence[str] = (),
 ) -> None:
     """Write several variants' results into their task's chunks; all ``done`` flags last.
 
@@ -586,8 +680,15 @@ def write_variants(
         store's sensor slots beyond them are NaN.
     mark_done : bool
         Set the variants' ``done`` flags after their data (default True).
+    space_values : mapping of name to ndarray (n, len(spaces)), optional
+        Per-space results (``space_<name>``), columns in the order of ``spaces``;
+        the store's other spaces (absent from these variants) get NaN, or
+        :data:`SPACE_ABSENT_LEVEL` in integer results.
+    spaces : sequence of str
+        The spaces of ``space_values``' columns (names on the store's ``space``).
     """
-    group, arrays = _open_arrays(path, [*sensor_values, *variant_values])
+    space_values = dict(space_values or {})
+    group, arrays = _open_arrays(path, [*sensor_values, *variant_values, *space_values])
     idx = _indices(path, indices, arrays["done"].shape[0])
     blocks: dict[str, np.ndarray] = {}
     for name, values in sensor_values.items():
@@ -601,6 +702,20 @@ def write_variants(
         array = arrays[name]
         values = _rows(path, name, values, idx.size).reshape(idx.size)
         blocks[name] = values.astype(array.dtype)
+    if space_values:
+        stored = [str(n) for n in group["space"][:]]
+        missing = [n for n in spaces if n not in stored]
+        if missing:
+            raise ResultsStoreError(f"{path}: the results store has no space(s) "
+                                    f"{', '.join(missing)}; it was made for another study")
+        cols = [stored.index(n) for n in spaces]
+        for name, values in space_values.items():
+            array = arrays[name]
+            values = _rows(path, name, values, idx.size).reshape(idx.size, len(cols))
+            fill = np.nan if array.dtype.kind == "f" else SPACE_ABSENT_LEVEL
+            rows = np.full((idx.size, array.shape[1]), fill, dtype=array.dtype)
+            rows[:, cols] = values
+            blocks[name] = rows
     if not idx.size:
         return
     with _block_locks(path, group, idx):

@@ -18,6 +18,7 @@ import pytest
 import test_building
 import test_metrics
 import test_sky
+import test_space_results
 
 from luxsweep.kernels import metrics, raytrace, sky
 
@@ -97,3 +98,20 @@ def test_an_ignored_internal_pane_is_noticed(monkeypatch):
            "factor[idx[~out]] *= 0 * self._internal_factor")
     with pytest.raises(AssertionError):
         test_building.test_borrowed_light_is_linear_in_transmittance(0.0)
+
+
+def test_a_shading_group_of_the_whole_building_is_noticed(monkeypatch):
+    # each space is its own LM-83 shading group: counting the sunlit share over every sensor
+    # of the building must fail the space-alone comparison
+    mutate(monkeypatch, metrics, "_Fold", "return (_share_more_than(n_sunlit, self.space_size,",
+           "return (_share_more_than(n_sunlit, self.n_sensors,")
+    with pytest.raises(AssertionError):
+        test_space_results.test_each_space_is_its_own_grid("runs", False)
+
+
+def test_an_area_weighted_building_sda_is_noticed(monkeypatch):
+    # IES LM-83-12 pools the analysis area: weighting the spaces' sDA by area must fail
+    mutate(monkeypatch, metrics, "finalize", 'out["sda"] = 100.0 * np.mean(sda_ok, axis=-1)',
+           'out["sda"] = area_weighted(spaces["sda"], area)')
+    with pytest.raises(AssertionError):
+        test_space_results.test_building_hand_example_pooled_weighted_lowest()

@@ -38,7 +38,10 @@ def test_new_store_opens_with_xarray(tmp_path):
     store.create_store(path, layout())
     store.consolidate(path)
     ds = xr.open_zarr(path, consolidated=False)
-    assert dict(ds.sizes) == {"variant": 3, "sensor": 4}
+    # CONTRACT.md §3: every store has a `space` dimension (one space `room` by default)
+    assert dict(ds.sizes) == {"variant": 3, "sensor": 4, "space": 1}
+    assert [str(s) for s in ds.space.values] == ["room"]
+    assert [str(s) for s in ds.sensor_space.values] == ["room"] * 4
     assert list(ds.variant_id.values) == [f"{i:016x}" for i in range(3)]
     assert ds["glazings.main.transmittance"].dims == ("variant",)
     assert ds.x.dims == ("sensor",) and ds.x.attrs["units"] == "m"
