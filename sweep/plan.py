@@ -283,7 +283,7 @@ def _wrap_geometry_error(loaded: StudyFile, variant: Variant | None, exc: InputE
     """
     loc = tuple(int(p) if p.isdigit() else p for p in (exc.field or "").split(".") if p)
     elsewhere = bool(exc.file) and Path(os.path.abspath(str(exc.file))) != loaded.path
-    if elsewhere and not (exc.field or "").startswith(("materials.", "grid.")):
+    if elsewhere and not (exc.field or "").startswith(("materials.", "grid.", "mesh_spaces.")):
         return exc
     where = ""
     if variant is not None and variant.axes:

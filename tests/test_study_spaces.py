@@ -298,3 +298,75 @@ def test_bad_space_inputs(tmp_path, what, spaces, extra, vary, expect):
     assert "study.yaml" in message
     for fragment in expect:
         assert fragment in message, (fragment, message)
+
+
+# ------------------------------------------------------------------ mesh studies
+
+# a 6 × 3 × 2.7 m box whose floor is two groups (two rooms' floors), one window in front
+TWO_FLOORS_OBJ = """\
+v 0 0 0
+v 3 0 0
+v 6 0 0
+v 6 3 0
+v 3 3 0
+v 0 3 0
+v 0 0 2.7
+v 6 0 2.7
+v 6 3 2.7
+v 0 3 2.7
+v 1 0 1
+v 5 0 1
+v 5 0 2
+v 1 0 2
+g floor_a
+f 1 2 5 6
+g floor_b
+f 2 3 4 5
+g ceiling
+f 7 10 9 8
+g walls
+f 1 7 8 3
+f 3 8 9 4
+f 4 9 10 6
+f 6 10 7 1
+g glass
+f 11 12 13 14
+"""
+
+
+def _mesh_study(tmp_path, spaces: str) -> Path:
+    (tmp_path / "building.obj").write_text(TWO_FLOORS_OBJ)
+    text = HEAD + ("mesh: building.obj\nmaterials:\n  floor_a: {reflectance: 0.2}\n"
+                   "  floor_b: {reflectance: 0.2}\n  ceiling: {reflectance: 0.7}\n"
+                   "  walls: {reflectance: 0.5}\n  glass: {glazing: main}\n" + spaces)
+    return write(tmp_path, text)
+
+
+def test_mesh_spaces_own_the_grid_over_their_floors(tmp_path):
+    spaces = ("mesh_spaces:\n  - {name: west, floors: [floor_a]}\n"
+              "  - {name: east, floors: [floor_b], grid: {height: 0.7, spacing: 0.5, "
+              "margin: 0.25}}\n")
+    study = load_study(_mesh_study(tmp_path, spaces)).study
+    _, sensors, layout = build_geometry(study)
+    assert layout.names == ("west", "east")
+    np.testing.assert_allclose(layout.area, [9.0, 9.0])  # each floor group 3 × 3 m
+    west, east = (sensors[layout.sensor_space == k] for k in range(2))
+    # each space's sensors lie over its own floor (x < 3 m west, x > 3 m east), at its height
+    assert np.all(west[:, 0] < 3.0) and np.all(east[:, 0] > 3.0)
+    np.testing.assert_allclose(west[:, 2], 0.8)
+    np.testing.assert_allclose(east[:, 2], 0.7)
+    assert len(east) > len(west)  # the finer grid of its own
+
+
+@pytest.mark.parametrize(("spaces", "expect"), [
+    ("mesh_spaces:\n  - {name: west, floors: [floor_a]}\n  - {name: east, floors: [floor_a]}\n",
+     ["mesh_spaces.1.floors.0", "'floor_a'", "already belongs"]),
+    ("mesh_spaces:\n  - {name: west, floors: [flor_a]}\n", ["mesh_spaces.0.floors", "flor_a"]),
+    ("mesh_spaces:\n  - {name: west, floors: [floor_a]}\n  - {name: west, floors: [floor_b]}\n",
+     ["mesh_spaces.1.name", "'west'"]),
+])
+def test_bad_mesh_spaces(tmp_path, spaces, expect):
+    with pytest.raises(StudyFileError) as info:
+        make_plan(load_study(_mesh_study(tmp_path, spaces)), read_climates=False)
+    for fragment in expect:
+        assert fragment in str(info.value), (fragment, str(info.value))
