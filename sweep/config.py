@@ -33,6 +33,10 @@ Extensions to CONTRACT.md §1 (all optional; documented on the models below):
   presentation only.
 - mesh rooms: ``mesh:`` (OBJ), ``materials:`` (group -> reflectance or glazing
   set), ``grid.floors:`` (floor groups for the grid) or ``sensors:`` (CSV).
+- buildings (CONTRACT.md §1b): ``spaces:`` (:class:`Space`, with ``copies``,
+  ``occupied`` and a per-space ``grid``) and top-level ``obstructions:``
+  instead of ``room:``; for a mesh, ``mesh_spaces:`` (:class:`MeshSpace`: a
+  name and the OBJ floor groups it owns) instead of ``grid.floors``.
 """
 
 from __future__ import annotations
