@@ -592,6 +592,13 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
             except InputError as exc:
                 raise _wrap_geometry_error(loaded, v, exc) from exc
             internal[shape] = tuple(geometry.internal_sets)
+            for name in internal[shape]:
+                if v.study.glazings[name].shaded_transmittance is not None:
+                    raise loaded.error(
+                        ("glazings", name, "shaded_transmittance"),
+                        f"glazing set '{name}' is used on internal openings (windows between "
+                        "two spaces), where operable shading is not modelled; remove "
+                        "'shaded_transmittance' or give the internal windows a set without it")
             doc = shape + canonical_json(_internal_inputs(v.study, internal[shape]))
             built[doc] = (geometry, pts, coefficient_key(geometry, pts, settings), settings,
                           layout)

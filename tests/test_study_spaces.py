@@ -281,6 +281,12 @@ BAD = [
      "", "", ["spaces.0.windows.0", "line 18", "classroom-1"]),
     ("internal and outside set mixed", SPACES.replace("glazing: inner", "glazing: main"), "", "",
      ["spaces.0.windows", "'main'", "internal"]),
+    ("vary makes a window too wide", None, "", "spaces.classroom.windows.0.width: [4.0, 7.0]\n",
+     ["spaces.0.windows.0.width", "line 18", "from 'vary'", "classroom-1"]),
+    ("vary makes spaces overlap", None, "", "spaces.classroom.origin: [[0, 0, 0], [0, 2, 0]]\n",
+     ["vary.spaces.classroom.origin.1", "'classroom-1'", "'corridor'", "overlap"]),
+    ("shading on an internal set", None, "", "",
+     ["glazings.inner.shaded_transmittance", "line 6", "internal"]),
     ("obstructions with a room", "room:\n  width: 3.0\n  depth: 3.0\n  height: 3.0\n"
      "  windows: [{wall: front, width: 1, sill: 1, head: 2, glazing: main}]\n",
      "obstructions: [{x: 1, y: -9, width: 3, depth: 3, height: 9}]\n", "",
@@ -291,7 +297,11 @@ BAD = [
 @pytest.mark.parametrize(("what", "spaces", "extra", "vary", "expect"), BAD,
                          ids=[b[0] for b in BAD])
 def test_bad_space_inputs(tmp_path, what, spaces, extra, vary, expect):
-    path = write(tmp_path, study_text(vary, spaces if spaces is not None else SPACES, extra))
+    text = study_text(vary, spaces if spaces is not None else SPACES, extra)
+    if what == "shading on an internal set":
+        text = text.replace("inner: {transmittance: 0.8,", "inner: {shaded_transmittance: 0.1, "
+                            "transmittance: 0.8,")
+    path = write(tmp_path, text)
     with pytest.raises(StudyFileError) as info:
         make_plan(load_study(path), read_climates=False)
     message = str(info.value)
