@@ -380,3 +380,25 @@ def test_bad_mesh_spaces(tmp_path, spaces, expect):
         make_plan(load_study(_mesh_study(tmp_path, spaces)), read_climates=False)
     for fragment in expect:
         assert fragment in str(info.value), (fragment, str(info.value))
+
+
+# ------------------------------------------------------------------ the example building
+
+
+def test_example_building_plans(tmp_path):
+    # examples/school-wing.yaml: 4 variants (orientation × façade glazing) share one
+    # coefficient set; 8 classrooms and the hall carry sensors, the corridors do not
+    from conftest import REPO
+
+    folder = tmp_path / "examples"
+    (folder / "climates").mkdir(parents=True)
+    shutil.copyfile(REPO / "examples" / "school-wing.yaml", folder / "school-wing.yaml")
+    shutil.copyfile(TMY3_GREENSBORO, folder / "climates" / "piedmont.csv")
+    plan = make_plan(load_study(folder / "school-wing.yaml"), read_climates=False)
+    assert len(plan.variants) == 4 and len(plan.jobs) == 1
+    layout = plan.layouts[0]
+    assert layout.names == (*[f"classroom-ground-{k}" for k in range(1, 5)],
+                            *[f"classroom-upper-{k}" for k in range(1, 5)], "hall")
+    job = next(iter(plan.jobs.values()))
+    assert job.geometry.internal_sets == ("borrowed",)
+    assert job.geometry.glazing_sets == ("facade", "rooflight")
