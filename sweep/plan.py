@@ -592,6 +592,10 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
             except InputError as exc:
                 raise _wrap_geometry_error(loaded, v, exc) from exc
             internal[shape] = tuple(geometry.internal_sets)
+            if v.study.spaces is not None and not geometry.glazing_sets:
+                raise loaded.error(("spaces",), "no window of the building opens to the "
+                                   "outside (every window is missing or an internal opening), "
+                                   "so no daylight reaches any space; add an outside window")
             for name in internal[shape]:
                 if v.study.glazings[name].shaded_transmittance is not None:
                     raise loaded.error(

@@ -287,6 +287,10 @@ BAD = [
      ["vary.spaces.classroom.origin.1", "'classroom-1'", "'corridor'", "overlap"]),
     ("shading on an internal set", None, "", "",
      ["glazings.inner.shaded_transmittance", "line 6", "internal"]),
+    ("no outside window", SPACES.replace(
+        "      - {wall: front, width: 4.0, sill: 0.9, head: 2.7, glazing: main}\n", "").replace(
+        "    windows:\n      - {wall: roof, width: 1.2, length: 1.2, x: 4.0, y: 3.6, glazing: main}"
+        "\n", ""), "", "", ["spaces", "no window of the building opens to the outside"]),
     ("obstructions with a room", "room:\n  width: 3.0\n  depth: 3.0\n  height: 3.0\n"
      "  windows: [{wall: front, width: 1, sill: 1, head: 2, glazing: main}]\n",
      "obstructions: [{x: 1, y: -9, width: 3, depth: 3, height: 9}]\n", "",
