@@ -1134,6 +1134,9 @@ def _describe(err: dict[str, Any]) -> tuple[tuple, str]:
     kind = err["type"]
     if kind == "extra_forbidden":
         key = str(loc[-1])
+        if key == "obstructions" and loc[0] == "spaces":
+            return loc, ("'obstructions' of a building stand at the top level of the study, "
+                         "in building axes (they shade every space); move them there")
         valid = _keys_at(loc[:-1])
         close = difflib.get_close_matches(key, valid, n=1, cutoff=0.6)
         hint = f" — did you mean '{close[0]}'?" if close else ""

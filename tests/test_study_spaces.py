@@ -291,6 +291,9 @@ BAD = [
         "      - {wall: front, width: 4.0, sill: 0.9, head: 2.7, glazing: main}\n", "").replace(
         "    windows:\n      - {wall: roof, width: 1.2, length: 1.2, x: 4.0, y: 3.6, glazing: main}"
         "\n", ""), "", "", ["spaces", "no window of the building opens to the outside"]),
+    ("obstructions in a space", SPACES.replace("    occupied: false", "    occupied: false\n"
+                                               "    obstructions: []"), "", "",
+     ["spaces.1.obstructions", "top level"]),
     ("obstructions with a room", "room:\n  width: 3.0\n  depth: 3.0\n  height: 3.0\n"
      "  windows: [{wall: front, width: 1, sill: 1, head: 2, glazing: main}]\n",
      "obstructions: [{x: 1, y: -9, width: 3, depth: 3, height: 9}]\n", "",
