@@ -38,6 +38,10 @@ Extensions to CONTRACT.md §1 (all optional; documented on the models below):
   names (``{metric: sda, at_least: 55, spaces: all}``). Names are checked
   against the study's occupied spaces at plan time
   (:func:`sweep.spaces.check_rank_spaces`, called by ``make_plan``).
+- buildings (CONTRACT.md §1b): ``spaces:`` (:class:`Space`, with ``copies``,
+  ``occupied`` and a per-space ``grid``) and top-level ``obstructions:``
+  instead of ``room:``; for a mesh, ``mesh_spaces:`` (:class:`MeshSpace`: a
+  name and the OBJ floor groups it owns) instead of ``grid.floors``.
 """
 
 from __future__ import annotations
@@ -78,9 +82,11 @@ __all__ = [
     "RANK_FAMILY",
     "RANK_METRICS",
     "Compute",
+    "Copies",
     "Glazing",
     "Grid",
     "MeshMaterial",
+    "MeshSpace",
     "MetricOptions",
     "Obstruction",
     "Occupancy",
@@ -92,6 +98,7 @@ __all__ = [
     "Reflectance",
     "Requirement",
     "Room",
+    "Space",
     "Study",
     "StudyFile",
     "WeatherFile",
@@ -264,6 +271,78 @@ class Room(_Model):
     def _thickness(cls, v: float) -> float:
         if v < 0:
             raise ValueError(f"wall thickness must be >= 0 m, got {v}")
+        return v
+
+
+class Copies(_Model):
+    """CONTRACT.md §1b ``copies:``: ``count`` copies, the k-th shifted by (k-1)·step [m]."""
+
+    count: int = Field(ge=1, le=1000)
+    step: tuple[float, float, float]
+
+
+class Space(_Model):
+    """A parametric space of a building (CONTRACT.md §1b) [m], in its own frame.
+
+    Every key of :class:`Room` except ``obstructions`` (top level in a spaces
+    study), plus ``name``, ``origin`` (building-frame position of the space's
+    front-left interior floor corner), ``copies``, ``occupied`` and its own
+    ``grid``. A space may have no windows (a corridor lit through internal
+    openings, or an unoccupied space that only shades).
+    """
+
+    name: str
+    origin: tuple[float, float, float] = (0.0, 0.0, 0.0)
+    width: Positive
+    depth: Positive
+    height: Positive
+    thickness: float = 0.0
+    reflectance: Reflectance = Reflectance()
+    windows: list[Window] = []
+    overhang: Overhang | None = None
+    copies: Copies | None = None
+    occupied: bool = True
+    grid: Grid | None = None
+
+    @field_validator("name")
+    @classmethod
+    def _name(cls, v: str) -> str:
+        if not _NAME.match(v):
+            raise ValueError(f"space name '{v}' may hold only letters, digits, '-' and '_'")
+        return v
+
+    @field_validator("thickness")
+    @classmethod
+    def _thickness(cls, v: float) -> float:
+        if v < 0:
+            raise ValueError(f"wall thickness must be >= 0 m, got {v}")
+        return v
+
+    def expanded(self) -> list[tuple[str, tuple[float, float, float]]]:
+        """``(name, origin)`` of every copy: ``name`` alone, or ``name-1`` … ``name-N``."""
+        if self.copies is None:
+            return [(self.name, self.origin)]
+        return [(f"{self.name}-{k + 1}",
+                 tuple(o + k * d for o, d in zip(self.origin, self.copies.step, strict=True)))
+                for k in range(self.copies.count)]  # type: ignore[misc]
+
+
+class MeshSpace(_Model):
+    """Extension ``mesh_spaces:``: a space of a mesh study, named by its OBJ floor groups.
+
+    Each space owns the sensor grid laid over its ``floors`` (the study's
+    ``grid:`` settings, or its own ``grid:`` without ``floors``).
+    """
+
+    name: str
+    floors: list[str] = Field(min_length=1)
+    grid: Grid | None = None
+
+    @field_validator("name")
+    @classmethod
+    def _name(cls, v: str) -> str:
+        if not _NAME.match(v):
+            raise ValueError(f"space name '{v}' may hold only letters, digits, '-' and '_'")
         return v
 
 
@@ -618,7 +697,10 @@ class Study(_Model):
     name: str
     climates: dict[str, WeatherFile] = Field(min_length=1)
     room: Room | None = None
+    spaces: list[Space] | None = None
+    obstructions: list[Obstruction] = []
     mesh: str | None = None
+    mesh_spaces: list[MeshSpace] | None = None
     materials: dict[str, MeshMaterial] | None = None
     sensors: str | None = None
     glazings: dict[str, Glazing] = Field(min_length=1)
@@ -753,6 +835,20 @@ class Study(_Model):
     def _rank(cls, v: Rank | None) -> Rank | None:
         return v
 
+    @field_validator("spaces")
+    @classmethod
+    def _spaces(cls, v: list[Space] | None) -> list[Space] | None:
+        if v is not None and not v:
+            raise ValueError("list at least one space, or use 'room:'")
+        return v
+
+    @field_validator("mesh_spaces")
+    @classmethod
+    def _mesh_spaces(cls, v: list[MeshSpace] | None) -> list[MeshSpace] | None:
+        if v is not None and not v:
+            raise ValueError("list at least one space {name, floors}, or leave it out")
+        return v
+
     # -- derived ------------------------------------------------------------
     @property
     def default_climate(self) -> str:
@@ -760,8 +856,22 @@ class Study(_Model):
         return self.climate if self.climate is not None else next(iter(self.climates))
 
     def canonical(self) -> dict[str, Any]:
-        """The canonical JSON-able dict (round-trips through :meth:`model_validate`)."""
-        return self.model_dump(mode="json")
+        """The canonical JSON-able dict (round-trips through :meth:`model_validate`).
+
+        The building keys added after the first stores (``spaces``,
+        ``obstructions``, ``mesh_spaces``) appear only when given, so a study
+        without them has the same canonical form, and the same variant ids,
+        as before they existed.
+        """
+        data = self.model_dump(mode="json")
+        for key, empty in _LATER_KEYS.items():
+            if data.get(key) == empty:
+                del data[key]
+        return data
+
+
+_LATER_KEYS: dict[str, Any] = {"spaces": None, "obstructions": [], "mesh_spaces": None}
+"""Study keys left out of the canonical form when at their default (see Study.canonical)."""
 
 
 # ---------------------------------------------------------------------------
@@ -771,8 +881,21 @@ class Study(_Model):
 def cross_check(study: Study) -> list[tuple[tuple, str]]:
     """Problems that involve several fields, as ``(key path, message)`` pairs."""
     problems: list[tuple[tuple, str]] = []
-    if (study.room is None) == (study.mesh is None):
-        problems.append(((), "give either 'room:' (a parametric room) or 'mesh:' (an OBJ file)"))
+    given = [k for k in ("room", "spaces", "mesh") if getattr(study, k) is not None]
+    if len(given) != 1:
+        where = (given[1],) if len(given) > 1 else ()
+        both = f" (this study gives {' and '.join(given)})" if given else ""
+        problems.append((where, "give exactly one of 'room:' (a parametric room), 'spaces:' "
+                         f"(a building of parametric spaces) or 'mesh:' (an OBJ file){both}"))
+    if study.obstructions and study.spaces is None:
+        problems.append((("obstructions",), "top-level 'obstructions' belong to a 'spaces:' "
+                         "study; put them under 'room.obstructions' for a room, or in the "
+                         "OBJ file for a mesh"))
+    if study.mesh_spaces is not None and study.mesh is None:
+        problems.append((("mesh_spaces",), "'mesh_spaces' names OBJ groups of a mesh study; "
+                         "use 'spaces:' for parametric spaces"))
+    if study.spaces is not None:
+        problems += _space_problems(study)
     if study.room is not None:
         for key in ("materials", "sensors"):
             if getattr(study, key) is not None:
@@ -787,23 +910,7 @@ def cross_check(study: Study) -> list[tuple[tuple, str]]:
                              f"the working plane at {study.grid.height:g} m lies at or above the "
                              f"ceiling (room height {study.room.height:g} m), where every sensor "
                              "would read 0 lx; give a height between 0 and the room height"))
-        for i, w in enumerate(study.room.windows):
-            if w.glazing not in study.glazings:
-                problems.append(
-                    (("room", "windows", i, "glazing"),
-                     f"glazing set '{w.glazing}' is not defined under 'glazings' "
-                     f"({', '.join(study.glazings)})")
-                )
-            if w.wall == "roof":
-                for key in ("length", "x", "y"):
-                    if getattr(w, key) is None:
-                        problems.append((("room", "windows", i), f"a roof window needs '{key}'"))
-            else:
-                for key in ("sill", "head"):
-                    if getattr(w, key) is None:
-                        problems.append(
-                            (("room", "windows", i), f"a {w.wall} window needs '{key}'")
-                        )
+        problems += _window_problems(study, study.room.windows, ("room",))
     if study.mesh is not None:
         if not study.materials:
             problems.append((("mesh",), "a mesh room needs 'materials:' mapping its OBJ groups"))
@@ -816,9 +923,11 @@ def cross_check(study: Study) -> list[tuple[tuple, str]]:
                     (("materials", group, "glazing"),
                      f"glazing set '{m.glazing}' is not defined under 'glazings'")
                 )
-        if study.sensors is None and study.grid.floors is None:
-            problems.append((("grid",), "a mesh room needs 'grid: {floors: [group, ...]}' "
-                             "or 'sensors: points.csv'"))
+        if study.mesh_spaces is not None:
+            problems += _mesh_space_problems(study)
+        elif study.sensors is None and study.grid.floors is None:
+            problems.append((("grid",), "a mesh room needs 'grid: {floors: [group, ...]}', "
+                             "'mesh_spaces:' or 'sensors: points.csv'"))
     for i, req in enumerate(study.rank.require if study.rank else []):
         if req.at_least is None and req.at_most is None:
             problems.append((("rank", "require", i), "give 'at_least' or 'at_most'"))
@@ -829,6 +938,121 @@ def cross_check(study: Study) -> list[tuple[tuple, str]]:
                 problems.append(((("rank", part, i, "metric")),
                                  f"'{item.metric}' is computed by the metric family "
                                  f"'{family}', which is not listed under 'metrics'; add it"))
+    return problems
+
+
+def _window_problems(study: Study, windows: list[Window], prefix: tuple
+                     ) -> list[tuple[tuple, str]]:
+    """Glazing set defined, and the keys a wall or roof window needs."""
+    problems: list[tuple[tuple, str]] = []
+    for i, w in enumerate(windows):
+        if w.glazing not in study.glazings:
+            problems.append(((*prefix, "windows", i, "glazing"),
+                             f"glazing set '{w.glazing}' is not defined under 'glazings' "
+                             f"({', '.join(study.glazings)})"))
+        needed = ("length", "x", "y") if w.wall == "roof" else ("sill", "head")
+        for key in needed:
+            if getattr(w, key) is None:
+                kind = "roof" if w.wall == "roof" else w.wall
+                problems.append(((*prefix, "windows", i), f"a {kind} window needs '{key}'"))
+    return problems
+
+
+_TOUCH = 1e-9  # [m] interiors that share less than this along an axis only touch
+
+
+def _space_problems(study: Study) -> list[tuple[tuple, str]]:
+    """Cross checks of a ``spaces:`` study (CONTRACT.md §1b).
+
+    Names unique after copies are expanded, copies that do not collide, no
+    two spaces overlapping (naming both), windows' glazing sets defined, a
+    working plane below every occupied space's ceiling, at least one occupied
+    space.
+    """
+    problems: list[tuple[tuple, str]] = []
+    spaces = study.spaces or []
+    for key in ("materials", "sensors"):
+        if getattr(study, key) is not None:
+            problems.append(((key,), f"'{key}' belongs to a mesh study; remove it or use "
+                             "'mesh:'"))
+    if study.grid.floors is not None:
+        problems.append((("grid", "floors"), "'floors' names OBJ groups of a mesh study; "
+                         "remove it for parametric spaces"))
+    owner: dict[str, tuple[int, str]] = {}
+    boxes: list[tuple[int, str, Any, Any]] = []
+    for j, sp in enumerate(spaces):
+        problems += _window_problems(study, sp.windows, ("spaces", j))
+        if sp.grid is not None and sp.grid.floors is not None:
+            problems.append((("spaces", j, "grid", "floors"), "'floors' names OBJ groups of "
+                             "a mesh study; remove it for a parametric space"))
+        grid = sp.grid or study.grid
+        if sp.occupied and grid.height >= sp.height:
+            place = ("spaces", j, "grid", "height") if sp.grid else ("grid", "height")
+            problems.append((place, f"the working plane at {grid.height:g} m lies at or above "
+                             f"the ceiling of space '{sp.name}' (height {sp.height:g} m), where "
+                             "every sensor would read 0 lx; give a height between 0 and the "
+                             "space's height"))
+        size = (sp.width, sp.depth, sp.height)
+        for k, (name, origin) in enumerate(sp.expanded()):
+            place = ("spaces", j, "copies") if sp.copies is not None else ("spaces", j, "name")
+            if name in owner:
+                other_j, other_name = owner[name]
+                made = (f" (copy {k + 1} of '{sp.name}')" if sp.copies is not None else "")
+                problems.append((place, f"space name '{name}'{made} is already used by space "
+                                 f"{other_j} ('{other_name}'); give every space, after its "
+                                 "copies are numbered name-1 … name-N, its own name"))
+            else:
+                owner[name] = (j, sp.name)
+            lo = tuple(float(o) for o in origin)
+            boxes.append((j, name, lo, tuple(a + b for a, b in zip(lo, size, strict=True))))
+    for n, (ja, na, loa, hia) in enumerate(boxes):
+        for jb, nb, lob, hib in boxes[n + 1:]:
+            common = [min(hia[a], hib[a]) - max(loa[a], lob[a]) for a in range(3)]
+            if not all(c > _TOUCH for c in common):
+                continue
+            by = " × ".join(f"{c:g}" for c in common)
+            if ja == jb:
+                step = spaces[ja].copies.step  # type: ignore[union-attr]
+                problems.append((("spaces", ja, "copies", "step"),
+                                 f"copies '{na}' and '{nb}' overlap (by {by} m): the step "
+                                 f"{list(step)} is shorter than the space along every axis; "
+                                 "make the step at least the width (or depth, or height) of "
+                                 "the space"))
+            else:
+                problems.append((("spaces", jb, "origin"),
+                                 f"spaces '{na}' and '{nb}' overlap (by {by} m); move one of "
+                                 "them or make it smaller (spaces may touch, not overlap)"))
+            if len(problems) > 20:
+                return problems
+    if spaces and not any(sp.occupied for sp in spaces):
+        problems.append((("spaces",), "no space is occupied, so there is nothing to measure; "
+                         "set 'occupied: true' (the default) on at least one space"))
+    return problems
+
+
+def _mesh_space_problems(study: Study) -> list[tuple[tuple, str]]:
+    """Cross checks of ``mesh_spaces:``: unique names, each floor group owned once."""
+    problems: list[tuple[tuple, str]] = []
+    if study.sensors is not None or study.grid.floors is not None:
+        key = "sensors" if study.sensors is not None else "grid"
+        problems.append(((key,), f"give either 'mesh_spaces:' or '{key}"
+                         f"{'' if key == 'sensors' else '.floors'}:', not both"))
+    names: dict[str, int] = {}
+    floors: dict[str, str] = {}
+    for j, sp in enumerate(study.mesh_spaces or []):
+        if sp.name in names:
+            problems.append((("mesh_spaces", j, "name"), f"space name '{sp.name}' is already "
+                             f"used by mesh space {names[sp.name]}; give each its own name"))
+        names.setdefault(sp.name, j)
+        if sp.grid is not None and sp.grid.floors is not None:
+            problems.append((("mesh_spaces", j, "grid", "floors"), "a mesh space's floor "
+                             "groups are its 'floors:' key; remove 'grid.floors'"))
+        for i, group in enumerate(sp.floors):
+            if group in floors:
+                problems.append((("mesh_spaces", j, "floors", i), f"floor group '{group}' "
+                                 f"already belongs to space '{floors[group]}'; a floor is "
+                                 "owned by one space"))
+            floors.setdefault(group, sp.name)
     return problems
 
 
@@ -960,6 +1184,9 @@ def _describe(err: dict[str, Any]) -> tuple[tuple, str]:
     kind = err["type"]
     if kind == "extra_forbidden":
         key = str(loc[-1])
+        if key == "obstructions" and loc[0] == "spaces":
+            return loc, ("'obstructions' of a building stand at the top level of the study, "
+                         "in building axes (they shade every space); move them there")
         valid = _keys_at(loc[:-1])
         close = difflib.get_close_matches(key, valid, n=1, cutoff=0.6)
         hint = f" — did you mean '{close[0]}'?" if close else ""
@@ -1132,7 +1359,16 @@ _SCHEMA_TEXT: dict[str, tuple[str, dict[str, str]]] = {
                     "store.",
             "climates": "Weather files by label: each value is the path of an EPW or TMY3 CSV "
                         "file, relative to the study file's folder or absolute.",
-            "room": "A parametric box room. Give either room or mesh.",
+            "room": "A parametric box room. Give one of room, spaces or mesh.",
+            "spaces": "A building of parametric box spaces (classrooms, corridors, halls) "
+                      "in one building frame, as an alternative to room; spaces may touch "
+                      "but not overlap, and a window on a wall that another space covers "
+                      "opens into that space.",
+            "obstructions": "For a building of spaces: boxes standing on the ground "
+                            "outside, such as neighbouring buildings.",
+            "mesh_spaces": "For a mesh study: the spaces of the building, each named and "
+                           "given by the OBJ groups of its floor; each owns the sensor grid "
+                           "over its floor groups.",
             "mesh": "Path of an OBJ file holding the room as triangles, as an alternative to "
                     "room; its coordinates are in the building axes, in metres.",
             "materials": "For a mesh room: each OBJ group name mapped to an opaque surface "
@@ -1198,6 +1434,48 @@ _SCHEMA_TEXT: dict[str, tuple[str, dict[str, str]]] = {
             "overhang": "An optional horizontal slab above every front window.",
             "obstructions": "Optional boxes standing on the ground outside, such as "
                             "neighbouring buildings.",
+        },
+    ),
+    "Space": (
+        "A parametric box space of a building. In its own axes it is like a room (x "
+        "along its front wall, y into it, z up from its floor); origin places that "
+        "frame in the building. Every space faces the building's front.",
+        {
+            "name": "Name of the space: letters, digits, '-' and '_'; unique in the "
+                    "building, also after its copies are numbered name-1 to name-N.",
+            "origin": "Building x, y, z of the space's front-left interior floor corner, in "
+                      "metres (z above 0 is an upper storey).",
+            "width": "Interior size along the front wall (building x), in metres.",
+            "depth": "Interior size from the front wall to the back wall (building y), in "
+                     "metres.",
+            "height": "Interior height from floor to ceiling, in metres.",
+            "thickness": "Thickness of the space's walls and roof in metres; they grow "
+                         "outwards.",
+            "reflectance": "Diffuse reflectances of the floor, walls and ceiling.",
+            "windows": "The windows of the space, in its own axes; a window on a wall that "
+                       "another space covers is an opening into that space.",
+            "overhang": "An optional horizontal slab above every front window.",
+            "copies": "Repeat the space: count copies named name-1 to name-N, the k-th "
+                      "shifted by k - 1 times step.",
+            "occupied": "Whether the space is measured: false for a corridor or store that "
+                        "only shades and reflects (no sensors, not in any total).",
+            "grid": "The space's own sensor grid settings, instead of the study's grid.",
+        },
+    ),
+    "Copies": (
+        "Identical copies of a space in a row or a stack.",
+        {
+            "count": "Number of copies, 1 or more.",
+            "step": "Building x, y, z shift from one copy to the next, in metres.",
+        },
+    ),
+    "MeshSpace": (
+        "A space of a mesh study, named and given by the OBJ groups of its floor.",
+        {
+            "name": "Name of the space: letters, digits, '-' and '_'; unique.",
+            "floors": "The OBJ groups that form the space's floor under its grid.",
+            "grid": "The space's own grid settings (height, spacing, margin), instead of "
+                    "the study's grid.",
         },
     ),
     "Reflectance": (

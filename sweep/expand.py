@@ -46,6 +46,7 @@ __all__ = [
     "file_sha256",
     "get_path",
     "has_path",
+    "named_parts",
     "set_path",
     "split_path",
     "study_hash",
@@ -99,6 +100,65 @@ class Variant:
 def split_path(path: str) -> tuple:
     """``'room.windows.0.width'`` -> ``('room', 'windows', 0, 'width')``."""
     return tuple(int(p) if p.isdigit() else p for p in path.split("."))
+
+
+_NAMED_LISTS = ("spaces", "mesh_spaces")
+"""Study lists whose items ``vary`` reaches by ``name`` (CONTRACT.md §1b)."""
+
+_FIXED_SPACE_KEYS = ("name", "occupied", "copies")
+"""Keys of a space that cannot be varied: they would rename spaces or change which
+spaces exist or are measured, and the spaces of a study are the same in every
+variant (one ``space`` coordinate in the store). ``copies.step`` may be varied."""
+
+
+def named_parts(data: Any, parts: tuple) -> tuple:
+    """A path with a space named by ``name`` turned into its list index.
+
+    ``('spaces', 'classroom', 'windows', 0, 'width')`` ->
+    ``('spaces', 1, 'windows', 0, 'width')`` when ``classroom`` is the second
+    space of ``data`` (a canonical study dict). A name that is not found stays a
+    string (so the path does not exist, even for a name made of digits).
+    """
+    if len(parts) < 2 or parts[0] not in _NAMED_LISTS or not isinstance(data, dict):
+        return parts
+    items = data.get(parts[0])
+    if not isinstance(items, list):
+        return parts
+    names = [str(item.get("name")) if isinstance(item, dict) else None for item in items]
+    name = str(parts[1])
+    if name in names:
+        return (parts[0], names.index(name), *parts[2:])
+    return (parts[0], name, *parts[2:])
+
+
+def _space_path_problem(base: dict[str, Any], parts: tuple) -> str | None:
+    """Why a ``vary`` path into ``spaces``/``mesh_spaces`` is refused (None when it is fine)."""
+    head = parts[0]
+    items = base.get(head)
+    if not isinstance(items, list):
+        return None  # "does not exist" with the usual hint
+    names = [str(item["name"]) for item in items]
+    example = f"{head}.{names[0]}.width" if head == "spaces" else f"{head}.{names[0]}.grid"
+    if len(parts) < 3:
+        return (f"vary a key inside one space, named by its name (for example '{example}'); "
+                f"a whole space or list of spaces cannot be varied")
+    name = str(parts[1])
+    if name not in names:
+        copy_of = [n for n in names if name.startswith(n + "-") and name[len(n) + 1:].isdigit()]
+        if copy_of:
+            return (f"'{name}' is a copy of space '{copy_of[0]}', and the copies of a space "
+                    f"change together: vary '{head}.{copy_of[0]}."
+                    f"{'.'.join(map(str, parts[2:]))}'")
+        return (f"there is no space named '{name}' under '{head}'; the spaces are "
+                f"{', '.join(names)} (a vary path names a space by its name, not its "
+                "position)")
+    key = parts[2]
+    if key in _FIXED_SPACE_KEYS and not (key == "copies" and parts[3:4] == ("step",)):
+        return (f"'{key}' of a space cannot be varied: every variant must hold the same "
+                "spaces under the same names (the results are compared space by space); "
+                "make separate studies instead"
+                + ("; 'copies.step' may be varied" if key == "copies" else ""))
+    return None
 
 
 def has_path(data: Any, parts: tuple) -> bool:
@@ -162,7 +222,7 @@ def _substitute(base: dict[str, Any], assignment: dict[str, Any], folder: Path) 
     # of the expansion's time); the validated Study never shares these dicts
     data = base
     for path, value in assignment.items():
-        data = _replaced(data, split_path(path), value)
+        data = _replaced(data, named_parts(base, split_path(path)), value)
     data = {**data, "vary": {}, "vary_together": [], "exclude": []}
     return Study.model_validate(data, context={"base": str(folder)})
 
@@ -192,6 +252,11 @@ def check_vary(loaded: StudyFile) -> None:
                 raise loaded.error(place, f"'{parts[0]}' cannot be varied; vary a room, "
                                    "glazing, grid, occupancy or compute key, 'orientation' or "
                                    "'climate'")
+            if parts[0] in _NAMED_LISTS:
+                problem = _space_path_problem(base, parts)
+                if problem:
+                    raise loaded.error(place, problem)
+                parts = named_parts(base, parts)
             if not has_path(base, parts):
                 raise loaded.error(place, f"vary path '{path}' does not exist in this study; "
                                    f"{_path_hint(base, parts)}")
@@ -341,7 +406,8 @@ def expand(loaded: StudyFile) -> list[Variant]:
         canon = resolved.canonical()
         # file paths as written in the study file (portable, no machine paths);
         # other values in canonical form (90 -> 90.0)
-        axis_values = {p: str(v) if p in _FILE_KEYS else get_path(canon, split_path(p))
+        axis_values = {p: str(v) if p in _FILE_KEYS
+                       else get_path(canon, named_parts(canon, split_path(p)))
                        for p, v in assignment.items()}
         params = variant_params(resolved, hashes)
         variant_id = hashlib.sha256(canonical_json(params).encode()).hexdigest()[:16]

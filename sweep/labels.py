@@ -100,13 +100,18 @@ def orientation_text(azimuth: Any) -> str:
 
 
 def _auto_label(axis: str) -> str:
-    """Short automatic name of a dotted path: ``room.windows.0.width`` -> ``window width``."""
+    """Short automatic name of a dotted path: ``room.windows.0.width`` -> ``window width``,
+    ``spaces.classroom.windows.0.width`` -> ``classroom window width``."""
     if axis == "orientation":
         return "orientation"
     if axis == "climate":
         return "climate"
     parts = axis.split(".")
     last = parts[-1]
+    if parts[0] in ("spaces", "mesh_spaces") and len(parts) >= 3:
+        # a key of a named space: the space's name, then the key as for a room
+        inner = _auto_label(".".join(["room", *parts[2:]])).removeprefix("room ")
+        return f"{parts[1]} {inner}"
     if parts[0] == "glazings" and len(parts) == 3:
         return f"glazing {parts[1]} {last.replace('_', ' ')}"
     owner = next((p for p in reversed(parts[:-1]) if not p.isdigit()), "")

@@ -33,7 +33,14 @@ from luxsweep.kernels.errors import InputError
 from luxsweep.sweep.cache import CoefficientCache
 from luxsweep.sweep.config import Study, StudyFile, canonical_json
 from luxsweep.sweep.errors import StudyFileError
-from luxsweep.sweep.expand import Variant, axis_names, expand, study_hash
+from luxsweep.sweep.expand import (
+    Variant,
+    axis_names,
+    expand,
+    named_parts,
+    split_path,
+    study_hash,
+)
 from luxsweep.sweep.spaces import SpaceLayout, check_rank_spaces, single_space
 
 __all__ = [
@@ -49,6 +56,7 @@ __all__ = [
     "order_by_task",
     "room_key",
     "settings_of",
+    "space_key",
 ]
 
 BYTES_PER_VALUE = 4  # float32 results
@@ -245,11 +253,28 @@ def _estimate_rays(geometry: Any, sensors: np.ndarray, settings: Any) -> int:
 
 
 def _geometry_inputs(study: Study) -> dict[str, Any]:
+    """What fixes the built geometry and sensors, except internal openings' transmittances.
+
+    Which glazing sets sit on internal openings is known only once the building
+    is built; :func:`make_plan` adds their transmittances (:func:`_internal_inputs`).
+    """
     data = study.canonical()
     keys = ("room", "mesh", "materials", "sensors", "grid", "compute")
     doc = {k: data[k] for k in keys}
+    for key in ("spaces", "obstructions", "mesh_spaces"):  # only when given
+        if key in data:
+            doc[key] = data[key]
     doc["panes"] = {name: g["panes"] for name, g in data["glazings"].items()}
     return doc
+
+
+def _internal_inputs(study: Study, internal_sets: Iterable[str]) -> dict[str, float]:
+    """Normal transmittance of every glazing set used on an internal opening.
+
+    They are baked into the coefficients (``kernels.geometry`` module notes), so
+    a variant that changes one needs its own geometry and coefficient set.
+    """
+    return {s: study.glazings[s].transmittance for s in sorted(internal_sets)}
 
 
 def _wrap_geometry_error(loaded: StudyFile, variant: Variant | None, exc: InputError) -> Exception:
@@ -262,12 +287,14 @@ def _wrap_geometry_error(loaded: StudyFile, variant: Variant | None, exc: InputE
     """
     loc = tuple(int(p) if p.isdigit() else p for p in (exc.field or "").split(".") if p)
     elsewhere = bool(exc.file) and Path(os.path.abspath(str(exc.file))) != loaded.path
-    if elsewhere and not (exc.field or "").startswith(("materials.", "grid.")):
+    if elsewhere and not (exc.field or "").startswith(("materials.", "grid.", "mesh_spaces.")):
         return exc
     where = ""
     if variant is not None and variant.axes:
         key = ".".join(str(p) for p in loc)
-        varied = [path for path in variant.axes
+        base = loaded.study.canonical()  # a space in a vary path is named, in `loc` numbered
+        indexed = [".".join(map(str, named_parts(base, split_path(p)))) for p in variant.axes]
+        varied = [path for path in indexed
                   if key == path or key.startswith(path + ".") or path.startswith(key + ".")]
         if varied:
             where = f" (in variant '{variant.label}', from 'vary')"
@@ -332,6 +359,120 @@ def _parametric_room(study: Study, panes: dict[str, int]) -> Any:
                         field=room_key(exc.field)) from exc
 
 
+def space_key(field: str | None, study: Study) -> str | None:
+    """The study-file key path of a ``parametric_building`` error field.
+
+    The kernel numbers the spaces after copies are expanded (``spaces.7.windows.0``);
+    the study file holds the space that was copied (``spaces.2.windows.0``; an
+    origin of a later copy is its ``copies.step``). ``internal_transmittance.<set>``
+    is ``glazings.<set>.transmittance``; ``glazing_panes.<set>`` is ``glazings.<set>.panes``.
+    """
+    if not field:
+        return field
+    parts = field.split(".")
+    if parts[0] == "internal_transmittance" and len(parts) > 1:
+        return f"glazings.{parts[1]}.transmittance"
+    if parts[0] == "glazing_panes" and len(parts) > 1:
+        return f"glazings.{parts[1]}.panes"
+    if parts[0] != "spaces" or len(parts) < 2 or not parts[1].isdigit():
+        return field
+    i = int(parts[1])
+    for j, sp in enumerate(study.spaces or []):
+        n = sp.copies.count if sp.copies is not None else 1
+        if i < n:
+            rest = parts[2:]
+            if i > 0 and rest[:1] == ["origin"]:
+                rest = ["copies", "step"]
+            elif rest[:1] == ["name"] and sp.copies is not None:
+                rest = ["copies"]
+            return ".".join(["spaces", str(j), *rest])
+        i -= n
+    return field
+
+
+def _building(study: Study, panes: dict[str, int]) -> tuple[Any, list[dict[str, Any]]]:
+    """``kernels.geometry.parametric_building`` of the study's ``spaces`` (copies expanded).
+
+    Returns the geometry and the expanded spaces (``name``, ``origin``, the
+    study's :class:`~sweep.config.Space` as ``model``). Kernel errors name the
+    study-file key (:func:`space_key`).
+    """
+    from luxsweep.kernels import geometry as kg
+
+    expanded: list[dict[str, Any]] = []
+    for sp in study.spaces or []:
+        body = sp.model_dump(exclude={"name", "origin", "copies", "occupied", "grid"})
+        for name, origin in sp.expanded():
+            expanded.append({**body, "name": name, "origin": origin, "model": sp})
+    used = {w.glazing for sp in study.spaces or [] for w in sp.windows}
+    try:
+        geometry = kg.parametric_building(
+            [{k: v for k, v in e.items() if k != "model"} for e in expanded],
+            glazing_panes={k: v for k, v in panes.items() if k in used},
+            internal_transmittance={k: study.glazings[k].transmittance for k in used},
+            obstructions=[o.model_dump() for o in study.obstructions],
+        )
+    except InputError as exc:
+        raise type(exc)(exc.message, file=exc.file, line=exc.line,
+                        field=space_key(exc.field, study)) from exc
+    return geometry, expanded
+
+
+def _space_sensors(study: Study, expanded: list[dict[str, Any]]
+                   ) -> tuple[np.ndarray, SpaceLayout]:
+    """Sensor grid of every occupied space in the building frame, and the layout."""
+    from luxsweep.kernels import geometry as kg
+
+    blocks, names, owner, area = [], [], [], []
+    for j, e in enumerate(expanded):
+        sp = e["model"]
+        if not sp.occupied:
+            continue
+        grid = sp.grid or study.grid
+        try:
+            pts = kg.sensor_grid(sp.width, sp.depth, grid.height, grid.spacing, grid.margin)
+        except InputError as exc:
+            where = space_key(f"spaces.{j}", study) if sp.grid else None
+            field = f"{where}.{exc.field}" if where and exc.field else exc.field
+            raise type(exc)(f"space '{e['name']}': {exc.message}", file=exc.file,
+                            line=exc.line, field=field) from exc
+        pts[:, :3] += np.asarray(e["origin"], dtype=np.float64)
+        owner.append(np.full(pts.shape[0], len(names), dtype=np.int32))
+        names.append(e["name"])
+        area.append(sp.width * sp.depth)
+        blocks.append(pts)
+    layout = SpaceLayout(names=tuple(names), sensor_space=np.concatenate(owner),
+                         area=np.asarray(area, dtype=np.float64))
+    return np.concatenate(blocks), layout
+
+
+def _mesh_space_sensors(study: Study, geometry: Any) -> tuple[np.ndarray, SpaceLayout]:
+    """Sensor grid over each mesh space's floor groups, and the layout."""
+    from luxsweep.kernels import geometry as kg
+
+    blocks, owner, area = [], [], []
+    spaces = study.mesh_spaces or []
+    for j, sp in enumerate(spaces):
+        grid = sp.grid or study.grid
+        try:
+            pts = kg.sensor_grid_on(geometry, sp.floors, grid.height, grid.spacing,
+                                    grid.margin)
+            mask = geometry.group_mask(sp.floors, "grid.floors")
+        except InputError as exc:
+            base = f"mesh_spaces.{j}"
+            field = {"grid.floors": f"{base}.floors"}.get(exc.field or "", exc.field)
+            if sp.grid is not None and field and field.startswith("grid."):
+                field = f"{base}.{field}"
+            raise type(exc)(f"mesh space '{sp.name}': {exc.message}", file=exc.file,
+                            line=exc.line, field=field) from exc
+        owner.append(np.full(pts.shape[0], j, dtype=np.int32))
+        area.append(float(geometry.areas[mask].sum()))
+        blocks.append(pts)
+    layout = SpaceLayout(names=tuple(sp.name for sp in spaces),
+                         sensor_space=np.concatenate(owner), area=np.asarray(area))
+    return np.concatenate(blocks), layout
+
+
 def build_geometry(study: Study) -> tuple[Any, np.ndarray, SpaceLayout]:
     """The geometry, sensors (n, 6) and space layout of a resolved study.
 
@@ -346,6 +487,10 @@ def build_geometry(study: Study) -> tuple[Any, np.ndarray, SpaceLayout]:
     from luxsweep.kernels import geometry as kg
 
     panes = {name: g.panes for name, g in study.glazings.items()}
+    if study.spaces is not None:
+        geometry, expanded = _building(study, panes)
+        sensors, layout = _space_sensors(study, expanded)
+        return geometry, sensors, layout
     if study.room is not None:
         room = study.room
         geometry = _parametric_room(study, panes)
@@ -359,6 +504,9 @@ def build_geometry(study: Study) -> tuple[Any, np.ndarray, SpaceLayout]:
             for name, m in (study.materials or {}).items()
         }
         geometry = kg.read_obj(study.mesh, materials, panes)
+        if study.mesh_spaces is not None:
+            sensors, layout = _mesh_space_sensors(study, geometry)
+            return geometry, np.asarray(sensors, dtype=np.float64), layout
         if study.sensors is not None:
             sensors = kg.read_sensors(study.sensors)
             area = float("nan")
@@ -436,14 +584,30 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
     layouts: list[SpaceLayout] = []
     keys: list[str] = []
     series_of: list[str] = []
+    internal: dict[str, tuple[str, ...]] = {}  # geometry inputs -> sets on internal openings
     for v in variants:
-        doc = canonical_json(_geometry_inputs(v.study))
+        shape = canonical_json(_geometry_inputs(v.study))
+        doc = (shape if shape not in internal  # internal transmittances are baked in
+               else shape + canonical_json(_internal_inputs(v.study, internal[shape])))
         if doc not in built:
             try:
                 settings = settings_of(v.study)
                 geometry, pts, layout = build_geometry(v.study)
             except InputError as exc:
                 raise _wrap_geometry_error(loaded, v, exc) from exc
+            internal[shape] = tuple(geometry.internal_sets)
+            if v.study.spaces is not None and not geometry.glazing_sets:
+                raise loaded.error(("spaces",), "no window of the building opens to the "
+                                   "outside (every window is missing or an internal opening), "
+                                   "so no daylight reaches any space; add an outside window")
+            for name in internal[shape]:
+                if v.study.glazings[name].shaded_transmittance is not None:
+                    raise loaded.error(
+                        ("glazings", name, "shaded_transmittance"),
+                        f"glazing set '{name}' is used on internal openings (windows between "
+                        "two spaces), where operable shading is not modelled; remove "
+                        "'shaded_transmittance' or give the internal windows a set without it")
+            doc = shape + canonical_json(_internal_inputs(v.study, internal[shape]))
             built[doc] = (geometry, pts, coefficient_key(geometry, pts, settings), settings,
                           layout)
         geometry, pts, key, settings, layout = built[doc]

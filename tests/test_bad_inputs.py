@@ -29,7 +29,7 @@ from conftest import (
 
 CORPUS = Path(__file__).parent / "bad_inputs"
 CASES = sorted(p.name for p in CORPUS.iterdir() if p.is_dir() and p.name[0].isdigit())
-VALID = ("_valid", "_valid_mesh", "_valid_sensors")
+VALID = ("_valid", "_valid_mesh", "_valid_sensors", "_valid_spaces")
 
 
 def _mangle():
