@@ -867,11 +867,23 @@ class Study(_Model):
         for key, empty in _LATER_KEYS.items():
             if data.get(key) == empty:
                 del data[key]
+        compute = data.get("compute")
+        if isinstance(compute, dict):
+            for key in _LATER_COMPUTE_KEYS:
+                if compute.get(key, 0) is None:
+                    del compute[key]
+        for item in (data.get("rank") or {}).get("require") or []:
+            if isinstance(item, dict) and item.get("spaces", 0) is None:
+                del item["spaces"]
         return data
 
 
 _LATER_KEYS: dict[str, Any] = {"spaces": None, "obstructions": [], "mesh_spaces": None}
 """Study keys left out of the canonical form when at their default (see Study.canonical)."""
+
+_LATER_COMPUTE_KEYS = ("max_elements", "memory_limit", "target_error")
+"""``compute`` keys left out of the canonical form when not given (likewise a
+criterion's ``spaces``)."""
 
 
 # ---------------------------------------------------------------------------
