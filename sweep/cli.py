@@ -160,7 +160,7 @@ def cmd_check(args: argparse.Namespace) -> int:
     loaded = load_study(args.study)
     plan = make_plan(loaded, None)
     print(f"{loaded.path}: ok — {len(plan.variants)} variants, {len(plan.jobs)} distinct "
-          f"geometries, {len({v.climate for v in plan.variants})} climates, axes: "
+          f"geometries, {len({t.climate for t in plan.tasks})} climates, axes: "
           f"{', '.join(plan.axes) or '(none)'}")
     return 0
 

@@ -653,10 +653,10 @@ def default_cache(loaded: StudyFile) -> Path:
 def _layout(plan: Plan) -> results_store.StoreLayout:
     study = plan.loaded.study
     sensor_vars, variant_vars = store_variables(list(study.metrics))
-    axes = {a: [v.axes[a] for v in plan.variants] for a in plan.axes}
+    axes = {a: plan.axis_values(a) for a in plan.axes}
     return results_store.StoreLayout(
-        variant_ids=[v.variant_id for v in plan.variants],
-        labels=[v.label for v in plan.variants],
+        variant_ids=plan.variant_ids(),
+        labels=plan.labels(),
         axes=axes,
         sensors=plan.sensors,
         sensor_variables=sensor_vars,
