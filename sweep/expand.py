@@ -737,13 +737,24 @@ def study_hash(loaded: StudyFile, variants: Sequence[Variant]) -> str:
     from luxsweep.kernels import RESULTS_VERSION
 
     study = loaded.study
-    ids = (variants.ids.tolist() if isinstance(variants, Variants)
-           else [v.variant_id for v in variants])
+    ids = variants.ids if isinstance(variants, Variants) else [v.variant_id for v in variants]
     payload = {
-        "variants": ids,
+        "variants": "\x00",
         "axes": axis_names(study),
         "metrics": list(study.metrics),
         "store_series": study.store_series,
         "results_version": RESULTS_VERSION,
     }
-    return hashlib.sha256(canonical_json(payload).encode()).hexdigest()
+    # the canonical JSON of the payload with the list of ids, hashed piece by piece
+    # (ids are hex digits: their JSON is the quoted text)
+    head, tail = canonical_json(payload).split(canonical_json("\x00"))
+    digest = hashlib.sha256(head.encode())
+    digest.update(b"[")
+    step = 1 << 16
+    for a in range(0, len(ids), step):
+        part = ids[a:a + step]
+        text = ",".join(f'"{v}"' for v in (part.tolist() if isinstance(part, np.ndarray)
+                                           else part))
+        digest.update((b"," if a else b"") + text.encode())
+    digest.update(b"]" + tail.encode())
+    return digest.hexdigest()

@@ -18,6 +18,7 @@ Building the plan also validates every input that ``luxsweep run`` will read
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import json
 import os
@@ -326,17 +327,23 @@ def _n_basis(subdivision: int) -> int:
 
 def _estimate_rays(geometry: Any, sensors: np.ndarray, settings: Any) -> int:
     """Rough ray count of one coefficient set (for the plan's cost line only)."""
-    from luxsweep.kernels.sun import SunPoints
-
     n_s = sensors.shape[0]
     n_basis = _n_basis(settings.subdivision)
-    n_sun = SunPoints(settings.sun_spacing).n
+    n_sun = _sun_points(settings.sun_spacing)
     area = float(np.sum(geometry.areas[~geometry.is_glazing]))
     n_elements = max(1, min(int(area / settings.element_size**2), settings.max_elements))
     rays = n_s * ((n_basis - 1) * settings.sky_rays_per_patch + settings.ground_rays + n_sun)
     rays += n_s * settings.sensor_rays + n_elements * settings.element_rays
-    rays += n_elements * (n_basis + SunPoints(settings.reflected_sun_spacing).n)
+    rays += n_elements * (n_basis + _sun_points(settings.reflected_sun_spacing))
     return int(rays)
+
+
+@functools.lru_cache(maxsize=8)
+def _sun_points(spacing: float) -> int:
+    """Number of sun points at ``spacing`` [deg] (made once per spacing)."""
+    from luxsweep.kernels.sun import SunPoints
+
+    return int(SunPoints(spacing).n)
 
 
 # ---------------------------------------------------------------------------
