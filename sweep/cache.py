@@ -38,6 +38,7 @@ from luxsweep.sweep.errors import CacheIntegrityError
 
 __all__ = [
     "CoefficientCache",
+    "default_cache",
 ]
 
 _TMP = ".tmp-"
@@ -268,3 +269,13 @@ class CoefficientCache:
                 shutil.rmtree(path, ignore_errors=True)
                 removed += 1
         return removed
+
+
+def default_cache(loaded: Any) -> Path:
+    """``$LUXSWEEP_CACHE`` or ``<study folder>/.luxsweep-cache`` of a loaded study.
+
+    Here rather than in :mod:`sweep.run` so that ``luxsweep plan`` finds it without
+    importing the run's Dask and Zarr stack.
+    """
+    env = os.environ.get("LUXSWEEP_CACHE")
+    return Path(env).expanduser() if env else loaded.folder / ".luxsweep-cache"

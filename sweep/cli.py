@@ -56,6 +56,12 @@ def _positive_float(text: str) -> float:
     return value
 
 
+def _has_module(module: str) -> bool:
+    """Whether ``sweep.<module>`` exists (found without importing it, so that building
+    the parser does not import the report's plotting stack for every command)."""
+    return importlib.util.find_spec(f"luxsweep.sweep.{module}") is not None
+
+
 def _optional_command(module: str, function: str) -> Callable[..., int] | None:
     """``sweep.<module>.<function>`` when that module exists and defines it."""
     if importlib.util.find_spec(f"luxsweep.sweep.{module}") is None:
@@ -123,14 +129,14 @@ def build_parser() -> argparse.ArgumentParser:
                    help="interval of the progress lines when stderr is not a terminal "
                    "(default 15)")
 
-    if _optional_command("rank", "rank_command"):
+    if _has_module("rank"):
         p = sub.add_parser("rank", help="criteria, scores and ranking of a results store")
         p.add_argument("results", help="results store (.zarr folder)")
         p.add_argument("--top", type=_positive_int, default=None, help="show the best N")
         p.add_argument("--csv", default=None, help="also write the table to this CSV file")
         p.add_argument("--wide", action="store_true",
                        help="show every column (variant id, each axis, Pareto set)")
-    if _optional_command("report", "report_command"):
+    if _has_module("report"):
         p = sub.add_parser("report", help="self-contained HTML report of a results store")
         p.add_argument("results", help="results store (.zarr folder)")
         p.add_argument("--html", default=None, help="output file (default beside the store)")
@@ -166,12 +172,11 @@ def cmd_check(args: argparse.Namespace) -> int:
 
 
 def cmd_plan(args: argparse.Namespace) -> int:
-    from luxsweep.sweep.cache import CoefficientCache
+    from luxsweep.sweep.cache import CoefficientCache, default_cache
     from luxsweep.sweep.config import load_study
     from luxsweep.sweep.costs import estimated_seconds, format_duration, measure_rates
     from luxsweep.sweep.labels import plural
     from luxsweep.sweep.plan import make_plan
-    from luxsweep.sweep.run import default_cache
 
     loaded = load_study(args.study)
     cache = CoefficientCache(args.cache or default_cache(loaded))

@@ -144,7 +144,7 @@ class CoefficientJob:
         return int(self.sensors.shape[0])
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)  # members and ids are arrays: identity, not value
 class SeriesTask:
     """One (coefficient key, climate, series settings) group of variants.
 

@@ -58,7 +58,7 @@ import numpy as np
 
 from luxsweep.sweep import registry
 from luxsweep.sweep import store as results_store
-from luxsweep.sweep.cache import CoefficientCache
+from luxsweep.sweep.cache import CoefficientCache, default_cache
 from luxsweep.sweep.cluster import (
     ALLOWED_FAILURES,
     CONNECT_TIMEOUT,
@@ -642,12 +642,6 @@ def default_results(loaded: StudyFile) -> Path:
         raise UserInputError(f"{loaded.path}: study name '{loaded.study.name}' would place the "
                              "results outside the study folder; use a plain name")
     return path
-
-
-def default_cache(loaded: StudyFile) -> Path:
-    """``$LUXSWEEP_CACHE`` or ``<study folder>/.luxsweep-cache``."""
-    env = os.environ.get("LUXSWEEP_CACHE")
-    return Path(env).expanduser() if env else loaded.folder / ".luxsweep-cache"
 
 
 def _layout(plan: Plan) -> results_store.StoreLayout:
