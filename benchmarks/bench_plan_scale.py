@@ -14,7 +14,9 @@ climates and coarse compute settings):
 Each figure is measured in a fresh subprocess: wall time of ``make_plan`` (the
 study already loaded, the kernel imports it triggers included) and its peak
 memory: ``VmHWM`` after ``make_plan`` minus ``VmRSS`` before it, with the
-high-water mark reset through ``/proc/self/clear_refs``. Then the cold wall time
+high-water mark reset through ``/proc/self/clear_refs``; then the same for a
+second ``make_plan`` in that process (``warm_*``: kernels imported, weather files
+in the page cache). Then the cold wall time
 of the command ``luxsweep plan STUDY`` (a new interpreter, imports included),
 and its import share (``python -X importtime``).
 
@@ -60,17 +62,27 @@ t0 = time.perf_counter()
 plan = make_plan(loaded, None)
 seconds = time.perf_counter() - t0
 peak = status("VmHWM:")
-print(seconds, (peak - base) / 1024, len(plan.variants), len(plan.tasks), len(plan.jobs))
+n, tasks, sets = len(plan.variants), len(plan.tasks), len(plan.jobs)
+del plan
+with open("/proc/self/clear_refs", "w") as f:  # again, the kernels now imported
+    f.write("5")
+base_warm = status("VmRSS:")
+t0 = time.perf_counter()
+plan = make_plan(loaded, None)
+warm = time.perf_counter() - t0
+peak_warm = status("VmHWM:")
+print(seconds, (peak - base) / 1024, n, tasks, sets, warm, (peak_warm - base_warm) / 1024)
 """
 
 
 def plan_cost(study: Path) -> dict[str, Any]:
     out = subprocess.run([sys.executable, "-c", PROBE, str(study)], check=True,
                          capture_output=True, text=True).stdout.split()
-    seconds, mb, n, tasks, sets = float(out[0]), float(out[1]), *map(int, out[2:])
+    seconds, mb, n, tasks, sets = float(out[0]), float(out[1]), *map(int, out[2:5])
     return {"seconds": seconds, "peak_mb": mb, "variants": n, "series_tasks": tasks,
             "coefficient_sets": sets, "us_per_variant": 1e6 * seconds / n,
-            "bytes_per_variant": 2**20 * mb / n}
+            "bytes_per_variant": 2**20 * mb / n,
+            "warm_seconds": float(out[5]), "warm_peak_mb": float(out[6])}
 
 
 def cold_plan(study: Path) -> dict[str, Any]:
