@@ -471,11 +471,13 @@ class _Expansion:
             present, inverse = np.unique(combo, return_inverse=True)
             studies = []
             for code in present.tolist():
-                assignment: dict[str, Any] = {}
+                picks = {}
                 for a in reversed(axes):
-                    code, j = divmod(code, int(self.lengths[a]))
+                    code, picks[a] = divmod(code, int(self.lengths[a]))
+                assignment: dict[str, Any] = {}
+                for a in axes:  # in study-file order
                     _, paths, rows = self.axes[a]
-                    assignment.update(zip(paths, rows[j], strict=True))
+                    assignment.update(zip(paths, rows[picks[a]], strict=True))
                 studies.append(self._resolve(assignment))
             params = [variant_params(s, self.hashes) for s in studies]
             for k in keys:

@@ -21,6 +21,7 @@ from __future__ import annotations
 import functools
 import hashlib
 import json
+import logging
 import os
 from collections.abc import Iterable, Iterator, Sequence
 from dataclasses import dataclass, field
@@ -55,6 +56,8 @@ __all__ = [
 ]
 
 BYTES_PER_VALUE = 4  # float32 results
+
+log = logging.getLogger("luxsweep")
 
 
 class Members(Sequence[tuple[int, int, int]]):
@@ -566,47 +569,59 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
 
     variants = expand(loaded)
     n = len(variants)
-    roles = axis_roles(variants)
-    combo = np.zeros(n, dtype=np.int64)
-    for a, role in enumerate(roles):
-        if role != "member":
-            combo = combo * variants.axis_length(a) + variants.codes(a)
-    _, first, inverse = np.unique(combo, return_index=True, return_inverse=True)
-    inverse = inverse.reshape(-1)
-    last = np.zeros(len(first), dtype=np.int64)
-    np.maximum.at(last, inverse, np.arange(n))
-
     built: dict[str, int] = {}  # geometry document -> geometry number
     geometries: list[tuple[Any, np.ndarray, str, Any, SpaceLayout]] = []
     groups: dict[tuple[str, str, str], int] = {}
     group_info: list[tuple[int, str, str, Study]] = []  # geometry, climate, series, study
-    group_of_combo = np.empty(len(first), dtype=np.int64)
-    for c in np.argsort(first, kind="stable").tolist():  # in order of first appearance
-        rep = variants[int(first[c])]
-        doc = canonical_json(_geometry_inputs(rep.study))
-        series = canonical_json(_series_params(rep.study))
-        tail = variants[int(last[c])] if last[c] != first[c] else rep
-        if (canonical_json(_geometry_inputs(tail.study)) != doc or tail.climate != rep.climate
-                or canonical_json(_series_params(tail.study)) != series):
-            raise RuntimeError(f"{loaded.path}: variants '{rep.label}' and '{tail.label}' "
-                               "should share a series task but do not; a luxsweep bug in "
-                               "deciding which axes change the geometry, please report it")
-        if doc not in built:
-            try:
-                settings = settings_of(rep.study)
-                geometry, pts, layout = build_geometry(rep.study)
-            except InputError as exc:
-                raise _wrap_geometry_error(loaded, rep, exc) from exc
-            built[doc] = len(geometries)
-            geometries.append((geometry, pts, coefficient_key(geometry, pts, settings),
-                               settings, layout))
-        g = built[doc]
-        label = (geometries[g][2], rep.climate, series)
-        if label not in groups:
-            groups[label] = len(group_info)
-            group_info.append((g, rep.climate, series, rep.study))
-        group_of_combo[c] = groups[label]
-    group = group_of_combo[inverse]
+
+    def group_variants(roles: list[str]) -> np.ndarray | None:
+        """Series-task number of every variant (factorial order), or None when a task
+        combination's first and last variants differ in geometry or series settings
+        (an axis taken as ``member`` is not one in some combination)."""
+        combo = np.zeros(n, dtype=np.int64)
+        for a, role in enumerate(roles):
+            if role != "member":
+                combo = combo * variants.axis_length(a) + variants.codes(a)
+        _, first, inverse = np.unique(combo, return_index=True, return_inverse=True)
+        inverse = inverse.reshape(-1)
+        last = np.zeros(len(first), dtype=np.int64)
+        np.maximum.at(last, inverse, np.arange(n))
+        group_of_combo = np.empty(len(first), dtype=np.int64)
+        for c in np.argsort(first, kind="stable").tolist():  # in order of first appearance
+            rep = variants[int(first[c])]
+            doc = canonical_json(_geometry_inputs(rep.study))
+            series = canonical_json(_series_params(rep.study))
+            if last[c] != first[c]:
+                tail = variants[int(last[c])]
+                if (canonical_json(_geometry_inputs(tail.study)) != doc
+                        or tail.climate != rep.climate
+                        or canonical_json(_series_params(tail.study)) != series):
+                    return None
+            if doc not in built:
+                try:
+                    settings = settings_of(rep.study)
+                    geometry, pts, layout = build_geometry(rep.study)
+                except InputError as exc:
+                    raise _wrap_geometry_error(loaded, rep, exc) from exc
+                built[doc] = len(geometries)
+                geometries.append((geometry, pts, coefficient_key(geometry, pts, settings),
+                                   settings, layout))
+            g = built[doc]
+            label = (geometries[g][2], rep.climate, series)
+            if label not in groups:
+                groups[label] = len(group_info)
+                group_info.append((g, rep.climate, series, rep.study))
+            group_of_combo[c] = groups[label]
+        return group_of_combo[inverse]
+
+    group = group_variants(axis_roles(variants))
+    if group is None:  # axes interact: one resolved study per variant (slow, exact)
+        log.warning("%s: which axes change the geometry depends on other axes; planning "
+                    "variant by variant", loaded.path)
+        groups.clear()
+        group_info.clear()
+        group = group_variants(["geometry"] * variants.n_axes)
+        assert group is not None
 
     # store order: every series task (key, climate, series settings) a contiguous
     # range of indices, so that chunks along `variant` can follow task boundaries

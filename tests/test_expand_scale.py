@@ -9,6 +9,7 @@ and place every variant as the per-variant rules say.
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import shutil
 import textwrap
@@ -20,16 +21,15 @@ import pytest
 from conftest import SEALED_ROOM, TINY_COMPUTE, TMY3_GREENSBORO, TMY3_SAND_POINT
 
 from luxsweep.sweep import expand as expand_module
+from luxsweep.sweep import plan as plan_module
 from luxsweep.sweep.config import canonical_json, load_study
 from luxsweep.sweep.errors import StudyFileError
 from luxsweep.sweep.expand import Variants, expand, expand_eager, study_hash
 from luxsweep.sweep.plan import (
-    _geometry_inputs,
     _series_params,
     build_geometry,
     make_plan,
     order_by_task,
-    settings_of,
 )
 
 BASE = textwrap.dedent(
@@ -177,10 +177,10 @@ def eager_plan_reference(loaded):
     variants = expand_eager(loaded)
     keys, built = [], {}
     for v in variants:
-        doc = canonical_json(_geometry_inputs(v.study))
+        doc = canonical_json(plan_module._geometry_inputs(v.study))
         if doc not in built:
             geometry, pts, _ = build_geometry(v.study)
-            built[doc] = coefficient_key(geometry, pts, settings_of(v.study))
+            built[doc] = coefficient_key(geometry, pts, plan_module.settings_of(v.study))
         keys.append(built[doc])
     groups = [f"{k} {v.climate} {canonical_json(_series_params(v.study))}"
               for k, v in zip(keys, variants, strict=True)]
@@ -218,6 +218,71 @@ def test_plan_on_codes_places_every_variant_as_the_per_variant_rules(tmp_path, c
         assert list(job.variants) == [i for i, k in enumerate(keys) if k == job.key]
     for i in (0, len(variants) - 1):
         assert len(plan.sensors[i]) == len(plan.layouts[i].sensor_space)
+
+
+def check_plan(loaded) -> None:
+    plan = make_plan(loaded, None, read_climates=False)
+    variants, keys = eager_plan_reference(loaded)
+    assert plan.variant_ids() == [v.variant_id for v in variants]
+    assert list(plan.keys) == keys
+    for task in plan.tasks:
+        for vi, oi, ri in task.members:
+            v = variants[vi]
+            assert plan.keys[vi] == task.key and v.climate == task.climate
+            assert v.orientation == task.orientations[oi]
+            assert task.rows[ri][0] == v.study.glazings["main"].transmittance
+
+
+def test_axes_whose_role_depends_on_other_axes_are_planned_variant_by_variant(
+        tmp_path, monkeypatch, caplog):
+    """When an axis changes the geometry only in some combinations (as a glazing set
+    on an internal opening does), the plan must notice and still group exactly."""
+    loaded = load_study(write(tmp_path, study_text("factorial")))
+    plain, plain_settings = plan_module._geometry_inputs, plan_module.settings_of
+
+    def baked(study):  # the set bakes into the coefficients in narrow windows only
+        return study.room.windows[0].width < 1.5
+
+    def interacting(study):
+        doc = plain(study)
+        if baked(study):
+            doc["tau"] = study.glazings["main"].transmittance
+        return doc
+
+    def settings(study):  # so that the coefficient key follows τ there
+        out = plain_settings(study)
+        if baked(study):
+            out = dataclasses.replace(out, seed=round(100 * study.glazings["main"].transmittance))
+        return out
+
+    monkeypatch.setattr(plan_module, "_geometry_inputs", interacting)
+    monkeypatch.setattr(plan_module, "settings_of", settings)
+    with caplog.at_level("WARNING", logger="luxsweep"):
+        check_plan(loaded)
+    assert "variant by variant" in caplog.text
+    plan = make_plan(loaded, None, read_climates=False)
+    # width 1.8 (τ 0.5 excluded) and width 1.2 at τ 0.7 and 0.5, each with two side sills
+    assert len(plan.jobs) == 6
+
+
+def test_a_combination_of_valid_values_that_is_not_valid_is_refused(tmp_path):
+    """Each value is valid alone (checked when loading), the pair is not: the lazy
+    expansion validates each combination of a block once and names it; an
+    exclusion of that pair removes the problem."""
+    vary = textwrap.dedent(
+        """        vary:
+          room.windows.0.sill: [0.9, 2.0]
+          room.windows.0.head: [2.1, 1.5]
+          orientation: [0, 90]
+        """)
+    loaded = load_study(write(tmp_path / "a", BASE + vary))
+    with pytest.raises(StudyFileError, match=r"combination room\.windows\.0\.sill=2 "
+                                             r"room\.windows\.0\.head=1\.5 is not valid"):
+        expand(loaded)
+    excluded = BASE + vary + "exclude:\n  - {room.windows.0.sill: 2.0, room.windows.0.head: 1.5}\n"
+    loaded = load_study(write(tmp_path / "b", excluded))
+    same_variants(expand(loaded), expand_eager(loaded))
+    check_plan(loaded)
 
 
 def test_a_varied_item_and_a_key_inside_it_are_refused(tmp_path):
