@@ -451,7 +451,9 @@ class _Expansion:
                 assignment = dict(zip(paths, row, strict=True))
                 resolved = self._resolve(assignment)
                 params = variant_params(resolved, self.hashes)
-                keys |= {k for k in params if params[k] != file_params[k]}
+                # compared as canonical text (90 and 90.0 are equal, not the same text)
+                keys |= {k for k in params
+                         if canonical_json(params[k]) != canonical_json(file_params[k])}
                 studies.append(resolved)
                 values.append(_axis_values(resolved, assignment))
                 pieces.append(_label(values[-1]))
