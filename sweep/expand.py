@@ -526,7 +526,8 @@ class _Expansion:
             loc, message = validation_problems(exc)[0]
             shown = " ".join(f"{p}={_format(v)}" for p, v in assignment.items())
             raise self.loaded.error(("vary",), f"the combination {shown} is not valid at "
-                                    f"'{dotted(loc)}': {message}") from exc
+                                    f"'{dotted(loc)}': {message}; change the values or "
+                                    "leave the combination out with 'exclude'") from exc
 
     # -- ids ----------------------------------------------------------------------
     def _bulk_ids(self, file_params: dict[str, Any], fills: dict[str, list[str]]) -> np.ndarray:
