@@ -232,11 +232,12 @@ class Plan:
         """
         bounds = []
         for t in self.tasks:
-            idx = sorted(m[0] for m in t.members)
-            if idx[-1] - idx[0] + 1 != len(idx):
+            idx = np.sort(t.members.array[:, 0] if isinstance(t.members, Members)
+                          else np.asarray([m[0] for m in t.members], dtype=np.int64))
+            if idx[-1] - idx[0] + 1 != len(idx) or len(np.unique(idx)) != len(idx):
                 raise RuntimeError(f"series task {t.task_id}: variants {idx[0]}..{idx[-1]} are "
                                    "not contiguous in the store; tasks would share chunks")
-            bounds.append((idx[0], idx[-1] + 1))
+            bounds.append((int(idx[0]), int(idx[-1]) + 1))
         return bounds
 
     # -- per variant, in bulk -------------------------------------------------
