@@ -672,15 +672,14 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
         values = orientation[orient_index[start:stop]]
         orientations = np.unique(values)
         o_index = np.searchsorted(orientations, values)
-        r_index = _row_index(glazing_studies, glazing_index[start:stop], sets)
-        rows = r_index[1]
+        r_index, rows = _row_index(glazing_studies, glazing_index[start:stop], sets)
         digest = hashlib.sha256(json.dumps([climate, series]).encode()).hexdigest()[:8]
         tasks.append(SeriesTask(
             task_id=f"series-{key[:12]}-{digest}", key=key, climate=climate,
             climate_file=loaded.study.climates[climate],
             orientations=tuple(float(o) for o in orientations),
             rows=rows, glazing_sets=sets,
-            members=Members(np.column_stack([np.arange(start, stop), o_index, r_index[0]])),
+            members=Members(np.column_stack([np.arange(start, stop), o_index, r_index])),
             study=study, variant_ids=ids[start:stop],
             climate_sha256=variants.file_hash(loaded.study.climates[climate]),
         ))
