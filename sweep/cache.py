@@ -47,6 +47,7 @@ from luxsweep.sweep.errors import CacheIntegrityError
 __all__ = [
     "CoefficientCache",
     "UrlCache",
+    "default_cache",
     "is_url",
     "local_path",
     "open_cache",
@@ -519,3 +520,15 @@ class UrlCache:
     def clean_temporary(self, older_than: float = 3600.0) -> int:
         """Nothing to clean: entries are written in place, published by their manifest."""
         return 0
+
+
+def default_cache(loaded: Any) -> Path | str:
+    """``$LUXSWEEP_CACHE`` (a folder or an fsspec URL) or ``<study folder>/.luxsweep-cache``.
+
+    Here rather than in :mod:`sweep.run` so that ``luxsweep plan`` finds it without
+    importing the run's Dask and Zarr stack.
+    """
+    env = os.environ.get("LUXSWEEP_CACHE")
+    if env and is_url(env):
+        return env
+    return Path(env).expanduser() if env else loaded.folder / ".luxsweep-cache"

@@ -56,6 +56,12 @@ def _positive_float(text: str) -> float:
     return value
 
 
+def _has_module(module: str) -> bool:
+    """Whether ``sweep.<module>`` exists (found without importing it, so that building
+    the parser does not import the report's plotting stack for every command)."""
+    return importlib.util.find_spec(f"luxsweep.sweep.{module}") is not None
+
+
 def _optional_command(module: str, function: str) -> Callable[..., int] | None:
     """``sweep.<module>.<function>`` when that module exists and defines it."""
     if importlib.util.find_spec(f"luxsweep.sweep.{module}") is None:
@@ -127,14 +133,14 @@ def build_parser() -> argparse.ArgumentParser:
                    help="interval of the progress lines when stderr is not a terminal "
                    "(default 15)")
 
-    if _optional_command("rank", "rank_command"):
+    if _has_module("rank"):
         p = sub.add_parser("rank", help="criteria, scores and ranking of a results store")
         p.add_argument("results", help="results store (.zarr folder)")
         p.add_argument("--top", type=_positive_int, default=None, help="show the best N")
         p.add_argument("--csv", default=None, help="also write the table to this CSV file")
         p.add_argument("--wide", action="store_true",
                        help="show every column (variant id, each axis, Pareto set)")
-    if _optional_command("report", "report_command"):
+    if _has_module("report"):
         p = sub.add_parser("report", help="self-contained HTML report of a results store")
         p.add_argument("results", help="results store (.zarr folder)")
         p.add_argument("--html", default=None, help="output file (default beside the store)")
@@ -164,18 +170,17 @@ def cmd_check(args: argparse.Namespace) -> int:
     loaded = load_study(args.study)
     plan = make_plan(loaded, None)
     print(f"{loaded.path}: ok — {len(plan.variants)} variants, {len(plan.jobs)} distinct "
-          f"geometries, {len({v.climate for v in plan.variants})} climates, axes: "
+          f"geometries, {len({t.climate for t in plan.tasks})} climates, axes: "
           f"{', '.join(plan.axes) or '(none)'}")
     return 0
 
 
 def cmd_plan(args: argparse.Namespace) -> int:
-    from luxsweep.sweep.cache import open_cache
+    from luxsweep.sweep.cache import default_cache, open_cache
     from luxsweep.sweep.config import load_study
     from luxsweep.sweep.costs import estimated_seconds, format_duration, measure_rates
     from luxsweep.sweep.labels import plural
     from luxsweep.sweep.plan import make_plan
-    from luxsweep.sweep.run import default_cache
 
     loaded = load_study(args.study)
     cache = open_cache(args.cache or default_cache(loaded))

@@ -1405,7 +1405,9 @@ _SCHEMA_TEXT: dict[str, tuple[str, dict[str, str]]] = {
             "vary": "The options to sweep: each key is a dotted path into this file (for "
                     "example room.windows.0.width or glazings.main.transmittance) or one of "
                     "the axes orientation and climate, with the list of values to try. "
-                    "Every combination of the lists is one variant.",
+                    "Every combination of the lists is one variant. A path may not lie "
+                    "inside another varied path (room.windows.0 and "
+                    "room.windows.0.offset): vary the whole item or the key, not both.",
             "vary_together": "Groups of paths whose value lists have equal lengths and "
                              "change in step (the first values together, then the second "
                              "values, and so on) instead of in every combination.",

@@ -18,11 +18,12 @@ Building the plan also validates every input that ``luxsweep run`` will read
 
 from __future__ import annotations
 
-import dataclasses
+import functools
 import hashlib
 import json
+import logging
 import os
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -35,6 +36,7 @@ from luxsweep.sweep.config import Study, StudyFile, canonical_json
 from luxsweep.sweep.errors import StudyFileError
 from luxsweep.sweep.expand import (
     Variant,
+    Variants,
     axis_names,
     expand,
     named_parts,
@@ -47,8 +49,11 @@ __all__ = [
     "BYTES_PER_VALUE",
     "ROOM_PARAMETERS",
     "CoefficientJob",
+    "Members",
+    "PerVariant",
     "Plan",
     "SeriesTask",
+    "axis_roles",
     "build_geometry",
     "check_climates",
     "make_plan",
@@ -61,6 +66,75 @@ __all__ = [
 
 BYTES_PER_VALUE = 4  # float32 results
 
+log = logging.getLogger("luxsweep")
+
+
+class Members(Sequence[tuple[int, int, int]]):
+    """A series task's members: ``(variant index, orientation index, row index)`` rows.
+
+    Held as one (n, 3) integer array; iterating or indexing yields tuples of ints,
+    so it reads like the tuple of tuples it replaces.
+    """
+
+    def __init__(self, rows: Any) -> None:
+        arr = np.ascontiguousarray(np.asarray(rows, dtype=np.int64).reshape(-1, 3))
+        arr.flags.writeable = False
+        self.array = arr
+
+    def __len__(self) -> int:
+        return int(self.array.shape[0])
+
+    def __getitem__(self, i: Any) -> Any:
+        if isinstance(i, slice):
+            return Members(self.array[i])
+        vi, oi, ri = self.array[i].tolist()
+        return (vi, oi, ri)
+
+    def __iter__(self) -> Iterator[tuple[int, int, int]]:
+        yield from map(tuple, self.array.tolist())
+
+    def __eq__(self, other: object) -> bool:
+        if isinstance(other, Members):
+            return bool(np.array_equal(self.array, other.array))
+        if isinstance(other, tuple | list):
+            return list(self) == [tuple(m) for m in other]
+        return NotImplemented
+
+    __hash__ = None  # type: ignore[assignment]
+
+    def __repr__(self) -> str:
+        return f"Members({len(self)} variants)"
+
+
+class PerVariant(Sequence[Any]):
+    """One item per variant without one object per variant: ``items[index[i]]``.
+
+    The plan's sensors, layouts and keys are shared by every variant of a
+    geometry; this holds each once and an index array.
+    """
+
+    def __init__(self, items: list[Any], index: np.ndarray) -> None:
+        self.items = items
+        self.index = np.asarray(index, dtype=np.int32)
+
+    def __len__(self) -> int:
+        return int(self.index.shape[0])
+
+    def __getitem__(self, i: Any) -> Any:
+        if isinstance(i, slice):
+            return PerVariant(self.items, self.index[i])
+        return self.items[int(self.index[i])]
+
+    def __iter__(self) -> Iterator[Any]:
+        items = self.items
+        for j in self.index.tolist():
+            yield items[j]
+
+    def counts(self) -> np.ndarray:
+        """How many variants hold each item."""
+        return np.bincount(self.index, minlength=len(self.items))
+
+
 
 @dataclass(frozen=True)
 class CoefficientJob:
@@ -70,7 +144,8 @@ class CoefficientJob:
     geometry: Any
     sensors: np.ndarray
     settings: Any
-    variants: tuple[int, ...]
+    variants: Sequence[int]
+    """Store indices of the variants using the set (an int array from :func:`make_plan`)."""
     cached: bool
     rays: int
     layout: SpaceLayout | None = None
@@ -81,7 +156,7 @@ class CoefficientJob:
         return int(self.sensors.shape[0])
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)  # members and ids are arrays: identity, not value
 class SeriesTask:
     """One (coefficient key, climate, series settings) group of variants.
 
@@ -99,7 +174,8 @@ class SeriesTask:
         Distinct glazing rows ``(τ_open per set..., τ_closed per set...)``.
     glazing_sets : tuple of str
         Order of the sets within a row.
-    members : tuple of (variant index, orientation index, row index)
+    members : Members
+        ``(variant index, orientation index, row index)`` of each member.
     study : Study
         The resolved study of the first member (time step, occupancy, ...).
     climate_sha256 : str
@@ -116,9 +192,9 @@ class SeriesTask:
     orientations: tuple[float, ...]
     rows: tuple[tuple[float, ...], ...]
     glazing_sets: tuple[str, ...]
-    members: tuple[tuple[int, int, int], ...]
+    members: Sequence[tuple[int, int, int]]
     study: Study
-    variant_ids: tuple[str, ...]
+    variant_ids: Sequence[str]
     climate_sha256: str = ""
     layout: SpaceLayout | None = None
 
@@ -141,11 +217,14 @@ class Plan:
     """What a run will do."""
 
     loaded: StudyFile
-    variants: list[Variant]
+    variants: Sequence[Variant]
+    """:class:`~sweep.expand.Variants` in store order (lazy: bulk ``ids``, ``labels()``,
+    ``axis_values(path)``)."""
     study_hash: str
-    sensors: list[np.ndarray]
-    layouts: list[SpaceLayout]
-    keys: list[str]
+    sensors: Sequence[np.ndarray]
+    """Per variant (a :class:`PerVariant`: one array per geometry, shared)."""
+    layouts: Sequence[SpaceLayout]
+    keys: Sequence[str]
     jobs: dict[str, CoefficientJob]
     tasks: list[SeriesTask]
     n_steps: dict[str, int] = field(default_factory=dict)
@@ -166,12 +245,39 @@ class Plan:
         """
         bounds = []
         for t in self.tasks:
-            idx = sorted(m[0] for m in t.members)
-            if idx[-1] - idx[0] + 1 != len(idx):
+            idx = np.sort(t.members.array[:, 0] if isinstance(t.members, Members)
+                          else np.asarray([m[0] for m in t.members], dtype=np.int64))
+            if idx[-1] - idx[0] + 1 != len(idx) or len(np.unique(idx)) != len(idx):
                 raise RuntimeError(f"series task {t.task_id}: variants {idx[0]}..{idx[-1]} are "
                                    "not contiguous in the store; tasks would share chunks")
-            bounds.append((idx[0], idx[-1] + 1))
+            bounds.append((int(idx[0]), int(idx[-1]) + 1))
         return bounds
+
+    # -- per variant, in bulk -------------------------------------------------
+    def variant_ids(self) -> list[str]:
+        """``variant_id`` of every variant in store order."""
+        if isinstance(self.variants, Variants):
+            return self.variants.ids.tolist()
+        return [v.variant_id for v in self.variants]
+
+    def labels(self) -> list[str]:
+        """Label of every variant in store order."""
+        if isinstance(self.variants, Variants):
+            return self.variants.labels()
+        return [v.label for v in self.variants]
+
+    def axis_values(self, axis: str) -> list[Any]:
+        """Coordinate of ``axis`` for every variant in store order."""
+        if isinstance(self.variants, Variants):
+            return self.variants.axis_values(axis)
+        return [v.axes[axis] for v in self.variants]
+
+    def n_sensors_total(self) -> int:
+        """Sensors summed over all variants."""
+        if isinstance(self.sensors, PerVariant):
+            return int(sum(len(s) * int(c) for s, c in
+                           zip(self.sensors.items, self.sensors.counts(), strict=True)))
+        return sum(len(s) for s in self.sensors)
 
     # -- cost -----------------------------------------------------------------
     def estimate(self) -> dict[str, Any]:
@@ -186,10 +292,11 @@ class Plan:
             per_set = 2 * job.n_sensors * n_basis * len(t.orientations) * n_steps
             flops += per_set * n_sets * (2 if t.shading else 1)
         n_sensor_vars, n_variant_vars = 12, 10
-        written = sum(len(s) for s in self.sensors) * n_sensor_vars * BYTES_PER_VALUE
+        total = self.n_sensors_total()
+        written = total * n_sensor_vars * BYTES_PER_VALUE
         written += len(self.variants) * n_variant_vars * BYTES_PER_VALUE
         if self.times is not None:
-            written += 2 * sum(len(s) for s in self.sensors) * len(self.times) * BYTES_PER_VALUE
+            written += 2 * total * len(self.times) * BYTES_PER_VALUE
         return {
             "variants": len(self.variants),
             "coefficient_sets": len(self.jobs),
@@ -222,9 +329,11 @@ class Plan:
                 for t in self.tasks
             ],
             "variants": [
-                {"index": v.index, "variant_id": v.variant_id, "label": v.label,
-                 "key": self.keys[v.index], "axes": v.axes}
-                for v in self.variants
+                {"index": i, "variant_id": vid, "label": label, "key": key,
+                 "axes": dict(zip(self.axes, values, strict=True))}
+                for i, (vid, label, key, *values) in enumerate(zip(
+                    self.variant_ids(), self.labels(), self.keys,
+                    *[self.axis_values(a) for a in self.axes], strict=True))
             ],
         }
 
@@ -235,17 +344,23 @@ def _n_basis(subdivision: int) -> int:
 
 def _estimate_rays(geometry: Any, sensors: np.ndarray, settings: Any) -> int:
     """Rough ray count of one coefficient set (for the plan's cost line only)."""
-    from luxsweep.kernels.sun import SunPoints
-
     n_s = sensors.shape[0]
     n_basis = _n_basis(settings.subdivision)
-    n_sun = SunPoints(settings.sun_spacing).n
+    n_sun = _sun_points(settings.sun_spacing)
     area = float(np.sum(geometry.areas[~geometry.is_glazing]))
     n_elements = max(1, min(int(area / settings.element_size**2), settings.max_elements))
     rays = n_s * ((n_basis - 1) * settings.sky_rays_per_patch + settings.ground_rays + n_sun)
     rays += n_s * settings.sensor_rays + n_elements * settings.element_rays
-    rays += n_elements * (n_basis + SunPoints(settings.reflected_sun_spacing).n)
+    rays += n_elements * (n_basis + _sun_points(settings.reflected_sun_spacing))
     return int(rays)
+
+
+@functools.lru_cache(maxsize=8)
+def _sun_points(spacing: float) -> int:
+    """Number of sun points at ``spacing`` [deg] (made once per spacing)."""
+    from luxsweep.kernels.sun import SunPoints
+
+    return int(SunPoints(spacing).n)
 
 
 # ---------------------------------------------------------------------------
@@ -541,13 +656,13 @@ def check_climates(loaded: StudyFile, labels: Iterable[str]) -> dict[str, Any]:
     return out
 
 
-def order_by_task(groups: list[str]) -> np.ndarray:
+def order_by_task(groups: list[str] | np.ndarray) -> np.ndarray:
     """Store order of variants given each one's series-task group: tasks contiguous.
 
     Parameters
     ----------
-    groups : list of str
-        One group label per variant, in factorial order.
+    groups : list of str or ndarray
+        One group label (or integer group number) per variant, in factorial order.
 
     Returns
     -------
@@ -557,19 +672,50 @@ def order_by_task(groups: list[str]) -> np.ndarray:
         the greatest common divisor of the task boundaries, stays large when
         tasks differ in size); the factorial order within a group.
     """
-    labels, first, inverse, counts = np.unique(np.asarray(groups, dtype=object),
-                                               return_index=True, return_inverse=True,
-                                               return_counts=True)
-    del labels
+    values = groups if isinstance(groups, np.ndarray) else np.asarray(groups, dtype=object)
+    _, first, inverse, counts = np.unique(values, return_index=True, return_inverse=True,
+                                          return_counts=True)
+    inverse = inverse.reshape(-1)
     # rank of each group: by size (descending), then by first appearance
     rank = np.empty(len(first), dtype=np.int64)
     rank[np.lexsort((first, -counts))] = np.arange(len(first))
     return np.argsort(rank[inverse], kind="stable")
 
 
+def axis_roles(variants: Variants,
+               geometry_doc: Callable[[Study], str] | None = None) -> list[str]:
+    """What each axis changes: ``"geometry"``, ``"series"`` or ``"member"``.
+
+    ``geometry``: some value changes the geometry document (``geometry_doc``:
+    :func:`_geometry_inputs`, plus the transmittances of the glazing sets on
+    internal openings, which are baked into the coefficients); ``series``: else
+    some value changes the climate or the series settings; ``member``: neither —
+    the axis only moves a variant within its series task (orientation, glazing
+    transmittance of outside windows). Decided on the resolved study of each
+    value of the axis with every other key as in the study file; the plan then
+    checks every task's first and last variant against it.
+    """
+    doc = geometry_doc or (lambda s: canonical_json(_geometry_inputs(s)))
+    roles = []
+    for a in range(variants.n_axes):
+        studies = variants.axis_studies(a)
+        if len({doc(s) for s in studies}) > 1:
+            roles.append("geometry")
+        elif len({(s.default_climate, canonical_json(_series_params(s)))
+                  for s in studies}) > 1:
+            roles.append("series")
+        else:
+            roles.append("member")
+    return roles
+
+
 def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
               *, read_climates: bool = True) -> Plan:
     """Expand, build every geometry, group by coefficient key, split into series tasks.
+
+    Works on the variants' axis codes: one resolved study per combination of the
+    axes that change the geometry or the series settings (a *task combination*),
+    one geometry per distinct geometry document, no Python object per variant.
 
     Raises
     ------
@@ -579,57 +725,124 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
     from luxsweep.kernels.coefficients import coefficient_key
 
     variants = expand(loaded)
-    built: dict[str, tuple[Any, np.ndarray, str, Any, SpaceLayout]] = {}
-    sensors: list[np.ndarray] = []
-    layouts: list[SpaceLayout] = []
-    keys: list[str] = []
-    series_of: list[str] = []
+    n = len(variants)
+    built: dict[str, int] = {}  # geometry document -> geometry number
+    geometries: list[tuple[Any, np.ndarray, str, Any, SpaceLayout]] = []
+    groups: dict[tuple[str, str, str], int] = {}
+    group_info: list[tuple[int, str, str, Study]] = []  # geometry, climate, series, study
+
     internal: dict[str, tuple[str, ...]] = {}  # geometry inputs -> sets on internal openings
-    for v in variants:
-        shape = canonical_json(_geometry_inputs(v.study))
-        doc = (shape if shape not in internal  # internal transmittances are baked in
-               else shape + canonical_json(_internal_inputs(v.study, internal[shape])))
+
+    def geometry_doc(study: Study, fallback: tuple[str, ...] | None = None
+                     ) -> tuple[str, str | None]:
+        """Geometry inputs and the full document (with the internal openings'
+        transmittances; None while that geometry's internal sets are unknown and
+        no ``fallback`` sets are given)."""
+        shape = canonical_json(_geometry_inputs(study))
+        sets = internal.get(shape, fallback)
+        if sets is None:
+            return shape, None
+        return shape, shape + canonical_json(_internal_inputs(study, sets))
+
+    def build(rep: Variant) -> str:
+        """Build ``rep``'s geometry (when new); its full geometry document."""
+        shape, doc = geometry_doc(rep.study)
+        if doc is not None and doc in built:
+            return doc
+        try:
+            settings = settings_of(rep.study)
+            geometry, pts, layout = build_geometry(rep.study)
+        except InputError as exc:
+            raise _wrap_geometry_error(loaded, rep, exc) from exc
+        internal[shape] = tuple(geometry.internal_sets)
+        if rep.study.spaces is not None and not geometry.glazing_sets:
+            raise loaded.error(("spaces",), "no window of the building opens to the "
+                               "outside (every window is missing or an internal opening), "
+                               "so no daylight reaches any space; add an outside window")
+        for name in internal[shape]:
+            if rep.study.glazings[name].shaded_transmittance is not None:
+                raise loaded.error(
+                    ("glazings", name, "shaded_transmittance"),
+                    f"glazing set '{name}' is used on internal openings (windows between "
+                    "two spaces), where operable shading is not modelled; remove "
+                    "'shaded_transmittance' or give the internal windows a set without it")
+        _, doc = geometry_doc(rep.study)
+        assert doc is not None
         if doc not in built:
-            try:
-                settings = settings_of(v.study)
-                geometry, pts, layout = build_geometry(v.study)
-            except InputError as exc:
-                raise _wrap_geometry_error(loaded, v, exc) from exc
-            internal[shape] = tuple(geometry.internal_sets)
-            if v.study.spaces is not None and not geometry.glazing_sets:
-                raise loaded.error(("spaces",), "no window of the building opens to the "
-                                   "outside (every window is missing or an internal opening), "
-                                   "so no daylight reaches any space; add an outside window")
-            for name in internal[shape]:
-                if v.study.glazings[name].shaded_transmittance is not None:
-                    raise loaded.error(
-                        ("glazings", name, "shaded_transmittance"),
-                        f"glazing set '{name}' is used on internal openings (windows between "
-                        "two spaces), where operable shading is not modelled; remove "
-                        "'shaded_transmittance' or give the internal windows a set without it")
-            doc = shape + canonical_json(_internal_inputs(v.study, internal[shape]))
-            built[doc] = (geometry, pts, coefficient_key(geometry, pts, settings), settings,
-                          layout)
-        geometry, pts, key, settings, layout = built[doc]
-        sensors.append(pts)
-        layouts.append(layout)
-        keys.append(key)
-        series_of.append(canonical_json(_series_params(v.study)))
+            built[doc] = len(geometries)
+            geometries.append((geometry, pts, coefficient_key(geometry, pts, settings),
+                               settings, layout))
+        return doc
+
+    def group_variants(roles: list[str]) -> np.ndarray | None:
+        """Series-task number of every variant (factorial order), or None when a task
+        combination's first and last variants differ in geometry or series settings
+        (an axis taken as ``member`` is not one in some combination)."""
+        combo = np.zeros(n, dtype=np.int64)
+        for a, role in enumerate(roles):
+            if role != "member":
+                combo = combo * variants.axis_length(a) + variants.codes(a)
+        _, first, inverse = np.unique(combo, return_index=True, return_inverse=True)
+        inverse = inverse.reshape(-1)
+        last = np.zeros(len(first), dtype=np.int64)
+        np.maximum.at(last, inverse, np.arange(n))
+        group_of_combo = np.empty(len(first), dtype=np.int64)
+        for c in np.argsort(first, kind="stable").tolist():  # in order of first appearance
+            rep = variants[int(first[c])]
+            doc = build(rep)
+            series = canonical_json(_series_params(rep.study))
+            if last[c] != first[c]:
+                tail = variants[int(last[c])]
+                if (geometry_doc(tail.study)[1] != doc
+                        or tail.climate != rep.climate
+                        or canonical_json(_series_params(tail.study)) != series):
+                    return None
+            g = built[doc]
+            label = (geometries[g][2], rep.climate, series)
+            if label not in groups:
+                groups[label] = len(group_info)
+                group_info.append((g, rep.climate, series, rep.study))
+            group_of_combo[c] = groups[label]
+        return group_of_combo[inverse]
+
+    # the internal sets of the first variant's building stand for every building when
+    # the roles of the axes are decided (each task is checked against its own below)
+    build(variants[0])
+    base_sets = internal[canonical_json(_geometry_inputs(variants[0].study))]
+    roles = axis_roles(variants, lambda st: str(geometry_doc(st, base_sets)[1]))
+    group = group_variants(roles)
+    if group is None:  # axes interact: one resolved study per variant (slow, exact)
+        log.warning("%s: which axes change the geometry depends on other axes; planning "
+                    "variant by variant", loaded.path)
+        groups.clear()
+        group_info.clear()
+        group = group_variants(["geometry"] * variants.n_axes)
+        assert group is not None
+
     # store order: every series task (key, climate, series settings) a contiguous
     # range of indices, so that chunks along `variant` can follow task boundaries
-    order = order_by_task([f"{k} {v.climate} {s}"
-                           for k, v, s in zip(keys, variants, series_of, strict=True)])
-    variants = [dataclasses.replace(variants[j], index=i) for i, j in enumerate(order)]
-    sensors = [sensors[j] for j in order]
-    layouts = [layouts[j] for j in order]
-    keys = [keys[j] for j in order]
-    series_of = [series_of[j] for j in order]
+    order = order_by_task(group)
+    variants = variants.reordered(order)
+    group = group[order]
+    geometry_of = np.asarray([info[0] for info in group_info], dtype=np.int64)[group]
+    key_names: list[str] = []
+    key_number: dict[str, int] = {}
+    for _, _, key, _, _ in geometries:
+        key_number.setdefault(key, len(key_names))
+        if len(key_names) < len(key_number):
+            key_names.append(key)
+    key_of_geometry = np.asarray([key_number[geo[2]] for geo in geometries], dtype=np.int64)
+    key_index = key_of_geometry[geometry_of]
+    sensors = PerVariant([geo[1] for geo in geometries], geometry_of)
+    layouts = PerVariant([geo[4] for geo in geometries], geometry_of)
+    keys = PerVariant(key_names, key_index)
 
     jobs: dict[str, CoefficientJob] = {}
-    for geometry, pts, key, settings, layout in built.values():
+    for geometry, pts, key, settings, layout in geometries:
         if key in jobs:
             continue
-        members = tuple(i for i, k in enumerate(keys) if k == key)
+        members = np.flatnonzero(key_index == key_number[key])
+        members.flags.writeable = False
         jobs[key] = CoefficientJob(
             key=key, geometry=geometry, sensors=pts, settings=settings, variants=members,
             cached=bool(cache is not None and cache.contains(key)),
@@ -638,32 +851,33 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
 
     climates: dict[str, Any] = {}
     if read_climates:
-        climates = check_climates(loaded, sorted({v.climate for v in variants}))
+        climates = check_climates(loaded, sorted({info[1] for info in group_info}))
 
-    groups: dict[tuple[str, str, str], list[Variant]] = {}
-    for v in variants:
-        groups.setdefault((keys[v.index], v.climate, series_of[v.index]), []).append(v)
+    ids = variants.ids
+    orient_studies, orient_index = variants.studies_for("orientation")
+    orientation = np.asarray([s.orientation for s in orient_studies], dtype=np.float64)
+    glazing_studies, glazing_index = variants.studies_for("glazings")
+    starts = np.flatnonzero(np.r_[True, group[1:] != group[:-1]])
+    stops = np.r_[starts[1:], n]
     tasks = []
-    for (key, climate, series), members in groups.items():
+    for start, stop in zip(starts.tolist(), stops.tolist(), strict=True):
+        g, climate, series, study = group_info[int(group[start])]
+        key = geometries[g][2]
         sets = tuple(jobs[key].geometry.glazing_sets)
-        orientations = tuple(sorted({m.orientation for m in members}))
-        rows: list[tuple[float, ...]] = []
-        placed = []
-        for m in members:
-            g = m.study.glazings
-            row = tuple(g[s].transmittance for s in sets) + tuple(
-                g[s].shaded_transmittance if g[s].shaded_transmittance is not None
-                else g[s].transmittance for s in sets)
-            if row not in rows:
-                rows.append(row)
-            placed.append((m.index, orientations.index(m.orientation), rows.index(row)))
+        values = orientation[orient_index[start:stop]]
+        orientations = np.unique(values)
+        o_index = np.searchsorted(orientations, values)
+        r_index, rows = _row_index(glazing_studies, glazing_index[start:stop], sets)
         digest = hashlib.sha256(json.dumps([climate, series]).encode()).hexdigest()[:8]
         tasks.append(SeriesTask(
             task_id=f"series-{key[:12]}-{digest}", key=key, climate=climate,
-            climate_file=loaded.study.climates[climate], orientations=orientations,
-            rows=tuple(rows), glazing_sets=sets, members=tuple(placed),
-            study=members[0].study, variant_ids=tuple(m.variant_id for m in members),
-            climate_sha256=members[0].params["climate_file"], layout=jobs[key].layout,
+            climate_file=loaded.study.climates[climate],
+            orientations=tuple(float(o) for o in orientations),
+            rows=rows, glazing_sets=sets,
+            members=Members(np.column_stack([np.arange(start, stop), o_index, r_index])),
+            study=study, variant_ids=ids[start:stop],
+            climate_sha256=variants.file_hash(loaded.study.climates[climate]),
+            layout=jobs[key].layout,
         ))
 
     n_steps = {label: len(c) * c.interval // loaded.study.timestep
@@ -675,6 +889,27 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
     return Plan(loaded=loaded, variants=variants, study_hash=study_hash(loaded, variants),
                 sensors=sensors, layouts=layouts, keys=keys, jobs=jobs, tasks=tasks,
                 n_steps=n_steps, times=times)
+
+
+def _row_index(studies: list[Study], index: np.ndarray,
+               sets: tuple[str, ...]) -> tuple[np.ndarray, tuple[tuple[float, ...], ...]]:
+    """Glazing row of every member and the distinct rows in order of first appearance.
+
+    A row is ``(τ_open per set..., τ_closed per set...)``; ``studies[index[i]]``
+    holds member ``i``'s glazings.
+    """
+    present, first, inverse = np.unique(index, return_index=True, return_inverse=True)
+    rows: list[tuple[float, ...]] = []
+    number = np.empty(len(present), dtype=np.int64)
+    for u in np.argsort(first, kind="stable").tolist():
+        g = studies[int(present[u])].glazings
+        row = tuple(g[s].transmittance for s in sets) + tuple(
+            g[s].shaded_transmittance if g[s].shaded_transmittance is not None
+            else g[s].transmittance for s in sets)
+        if row not in rows:
+            rows.append(row)
+        number[u] = rows.index(row)
+    return number[inverse.reshape(-1)], tuple(rows)
 
 
 def occupied_times(loaded: StudyFile, climates: dict[str, Any]) -> Any:

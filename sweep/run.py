@@ -61,7 +61,13 @@ import numpy as np
 
 from luxsweep.sweep import registry
 from luxsweep.sweep import store as results_store
-from luxsweep.sweep.cache import CoefficientCache, UrlCache, is_url, local_path, open_cache
+from luxsweep.sweep.cache import (
+    CoefficientCache,
+    UrlCache,
+    default_cache,
+    local_path,
+    open_cache,
+)
 from luxsweep.sweep.cluster import (
     ALLOWED_FAILURES,
     CONNECT_TIMEOUT,
@@ -749,14 +755,6 @@ def default_results(loaded: StudyFile) -> Path:
     return path
 
 
-def default_cache(loaded: StudyFile) -> Path | str:
-    """``$LUXSWEEP_CACHE`` (a folder or an fsspec URL) or ``<study folder>/.luxsweep-cache``."""
-    env = os.environ.get("LUXSWEEP_CACHE")
-    if env and is_url(env):
-        return env
-    return Path(env).expanduser() if env else loaded.folder / ".luxsweep-cache"
-
-
 def results_path(out: str | Path) -> Path:
     """The results store's folder for ``--out``: a path, or a ``file://`` URL.
 
@@ -785,10 +783,10 @@ def results_path(out: str | Path) -> Path:
 def _layout(plan: Plan) -> results_store.StoreLayout:
     study = plan.loaded.study
     sensor_vars, variant_vars = store_variables(list(study.metrics))
-    axes = {a: [v.axes[a] for v in plan.variants] for a in plan.axes}
+    axes = {a: plan.axis_values(a) for a in plan.axes}
     return results_store.StoreLayout(
-        variant_ids=[v.variant_id for v in plan.variants],
-        labels=[v.label for v in plan.variants],
+        variant_ids=plan.variant_ids(),
+        labels=plan.labels(),
         axes=axes,
         sensors=plan.sensors,
         sensor_variables=sensor_vars,
