@@ -5,8 +5,11 @@ settings) is computed the way ``luxsweep run`` computes a set of more than
 ``SENSOR_PART`` sensors: an element stage, one direct and one reflected task
 per sensor range, an assembly that publishes the set to a fresh cache
 (:func:`sweep.run.submit_split`). Timed from submission to the assembled set on
-a ``LocalCluster`` of 1 and then 2 worker processes (one thread and one BLAS
-thread each; the workers are started and warmed up before the clock starts).
+luxsweep's own local cluster (:func:`sweep.cluster.dask_client`) of 1 and then
+2 worker processes (one thread and one BLAS thread each; the workers are
+started and warmed up before the clock starts). The same set computed by
+``compute_coefficients`` in this process (one BLAS thread) is timed too: the
+split on one worker against it is the split's own overhead.
 The machine's own two-process speed-up for a fixed CPU-bound job
 (``bench_sweep.machine_parallelism``) is measured in the same run, before and
 after, because these machines are shared: the split's speed-up is only
@@ -41,16 +44,12 @@ def _warm() -> int:
 
 def split_once(job: Any, n_workers: int) -> dict[str, Any]:
     """Wall time of one split set on ``n_workers`` single-threaded workers."""
-    from distributed import Client, LocalCluster
-
+    from luxsweep.sweep.cluster import dask_client
     from luxsweep.sweep.run import split_ranges, submit_split
 
     ranges = split_ranges(job)
-    env = {k: "1" for k in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")}
     with tempfile.TemporaryDirectory(prefix="luxsweep-bench-split-") as cache, \
-            LocalCluster(n_workers=n_workers, threads_per_worker=1, processes=True,
-                         dashboard_address=None, env=env, memory_limit=0) as cluster, \
-            Client(cluster) as client:
+            dask_client(n_workers, None) as client:
         client.run(_warm)
         load0 = bc.load_average()
         t0 = time.perf_counter()
@@ -69,7 +68,15 @@ def main(room: str = "30x18") -> dict[str, Any]:
     job = CoefficientJob(key=f"bench-split-{room}", geometry=geometry,
                          sensors=np.asarray(sensors, dtype=np.float64), settings=Settings(),
                          variants=(), cached=False, rays=0)
+    from luxsweep.kernels.coefficients import compute_coefficients
+
     before = machine_parallelism()
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(1):
+        t0 = time.perf_counter()
+        compute_coefficients(geometry, job.sensors, job.settings)
+        plain = time.perf_counter() - t0
     one = split_once(job, 1)
     two = split_once(job, 2)
     after = machine_parallelism()
@@ -78,15 +85,18 @@ def main(room: str = "30x18") -> dict[str, Any]:
                          "overcast_error"))
     out = {
         "room": room, "sensors": int(sensors.shape[0]), "parts": one["parts"],
-        "one_worker_seconds": one["seconds"], "two_workers_seconds": two["seconds"],
+        "one_process_seconds": plain, "one_worker_seconds": one["seconds"],
+        "two_workers_seconds": two["seconds"],
         "speedup": one["seconds"] / two["seconds"],
         "machine_two_process_speedup": [before["speedup"], after["speedup"]],
         "load": [one["load"], two["load"]], "bit_identical": bool(same),
         "environment": bc.environment(),
     }
     print(f"{room}: {out['sensors']} sensors, {out['parts']} sensor ranges; "
-          f"1 worker {one['seconds']:.1f} s, 2 workers {two['seconds']:.1f} s: "
-          f"speed-up {out['speedup']:.2f} (machine gave two processes "
+          f"one process (unsplit) {plain:.1f} s; 1 worker {one['seconds']:.1f} s, "
+          f"2 workers {two['seconds']:.1f} s: "
+          f"speed-up {out['speedup']:.2f}, {plain / two['seconds']:.2f} against the unsplit "
+          f"process (machine gave two processes "
           f"{before['speedup']:.2f} before, {after['speedup']:.2f} after); "
           f"sets bit-identical: {same}; load {one['load']} / {two['load']}")
     return out

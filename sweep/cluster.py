@@ -260,6 +260,19 @@ def dask_setup(worker: Any) -> None:
         signal.signal(signal.SIGINT, signal.SIG_IGN)
 
 
+def worker_environment() -> dict[str, Any]:
+    """Environment of the local cluster's worker processes (set before they start).
+
+    Dask's default (``distributed.nanny.pre-spawn-environ``) without
+    ``MALLOC_TRIM_THRESHOLD_``: one BLAS thread per worker slot, glibc's own
+    adaptive malloc thresholds (see :func:`dask_client`).
+    """
+    import dask
+
+    default = dask.config.get("distributed.nanny.pre-spawn-environ", {}) or {}
+    return {k: v for k, v in default.items() if k != "MALLOC_TRIM_THRESHOLD_"}
+
+
 @contextlib.contextmanager
 def dask_client(workers: int | None, scheduler: str | None, *,
                 connect_timeout: float = CONNECT_TIMEOUT,
@@ -315,9 +328,15 @@ def dask_client(workers: int | None, scheduler: str | None, *,
     # its worker ALLOWED_FAILURES + 1 times fails (Dask's default is 3); and a
     # worker that is being restarted by its nanny when the lost-worker check
     # fires (15 s by default) must not have its nanny closed for good, which
-    # a task killing fresh workers in a row could otherwise do to every worker
+    # a task killing fresh workers in a row could otherwise do to every worker.
+    # The workers keep glibc's own malloc tuning: Dask's nanny sets
+    # MALLOC_TRIM_THRESHOLD_ (64 KiB) by default, which also fixes the mmap
+    # threshold, so every large temporary array is mapped and faulted in afresh;
+    # that made the coefficient and series kernels 1.7-2x slower on a worker than
+    # in a plain process (benchmarks/bench_split.py; worker_environment)
     settings = {"distributed.scheduler.allowed-failures": ALLOWED_FAILURES,
-                "distributed.deploy.lost-worker-timeout": "1h"}
+                "distributed.deploy.lost-worker-timeout": "1h",
+                "distributed.nanny.pre-spawn-environ": worker_environment()}
     with dask.config.set(settings):
         with _children_ignore_sigint():
             cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
@@ -331,4 +350,5 @@ def dask_client(workers: int | None, scheduler: str | None, *,
 __all__ = [
     "ALLOWED_FAILURES", "CONNECT_TIMEOUT", "TlsFiles", "check_target", "dashboard_link",
     "dask_client", "dask_setup", "is_loopback", "is_plain_link", "scheduler_address",
+    "worker_environment",
 ]

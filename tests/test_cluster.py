@@ -324,3 +324,19 @@ def test_paths_go_to_workers_as_given(tmp_path):
     for path in plan.loaded.study.climates.values():
         assert str(path).startswith(str(link / "study")), path
     assert all(str(t.climate_file).startswith(str(link)) for t in plan.tasks)
+
+
+def test_local_workers_keep_glibcs_malloc_tuning_and_one_blas_thread():
+    # Dask's nanny sets MALLOC_TRIM_THRESHOLD_ by default, which fixes glibc's mmap
+    # threshold and made every kernel 1.7-2x slower on a worker (benchmarks/bench_split.py);
+    # the local cluster leaves it out and keeps the one-BLAS-thread settings
+    from luxsweep.sweep.cluster import dask_client
+
+    def env():
+        return {k: os.environ.get(k) for k in ("MALLOC_TRIM_THRESHOLD_", "OMP_NUM_THREADS",
+                                                "OPENBLAS_NUM_THREADS")}
+
+    with dask_client(1, None) as client:
+        (seen,) = client.run(env).values()
+    assert seen == {"MALLOC_TRIM_THRESHOLD_": None, "OMP_NUM_THREADS": "1",
+                    "OPENBLAS_NUM_THREADS": "1"}
