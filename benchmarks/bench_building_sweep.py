@@ -7,7 +7,8 @@ The building (invented, ours): three storeys, each a row of twelve classrooms
 orientation (8 × 45°), the climate (the two TMY3 years bundled with pvlib) and
 the façade glazing's transmittance (3 values) = 48 variants, one coefficient
 set (the building), all metric families, hourly, default compute settings
-unless ``--quick``. ``luxsweep``'s own ``run_study`` on a ``LocalCluster`` of
+unless ``--quick``; ``--spacing 0.28 --memory-limit 6`` gives the 21,528-sensor
+version. ``luxsweep``'s own ``run_study`` on a ``LocalCluster`` of
 2 single-threaded worker processes, fresh cache and store: wall time, worker
 time by stage, peak resident memory of the workers (sampled) and of this
 process. Goal of the issue: ≤ 30 min on 2 cores.
@@ -37,7 +38,7 @@ QUICK = {"subdivision": 1, "sun_spacing": 6.0, "sky_rays_per_patch": 8, "ground_
          "sensor_rays": 256, "element_rays": 64}
 
 
-def study_text(settings: dict[str, Any]) -> str:
+def study_text(settings: dict[str, Any], spacing: float = 0.5) -> str:
     """The study file of the building (module notes)."""
     step = WIDTH + WALL
     lines = ["name: kestrel-row-school", "climates:", "  coastal: climates/coastal.csv",
@@ -61,7 +62,7 @@ def study_text(settings: dict[str, Any]) -> str:
     lines += [
         "glazings:", "  facade: {transmittance: 0.70, panes: 2}",
         "ground_reflectance: 0.2",
-        "grid: {height: 0.8, spacing: 0.5, margin: 0.5}",
+        f"grid: {{height: 0.8, spacing: {spacing}, margin: 0.5}}",
         'occupancy: {start: "08:00", end: "16:00", days: weekdays}',
         "timestep: 60",
         "vary:",
@@ -88,7 +89,7 @@ def _sample_worker_memory(stop: threading.Event, peak: dict[str, float]) -> None
         stop.wait(0.5)
 
 
-def main(settings: dict[str, Any], workers: int) -> dict[str, Any]:
+def main(settings: dict[str, Any], workers: int, spacing: float = 0.5) -> dict[str, Any]:
     from luxsweep.sweep.run import run_study
 
     logging.getLogger("distributed").setLevel(logging.ERROR)
@@ -97,7 +98,7 @@ def main(settings: dict[str, Any], workers: int) -> dict[str, Any]:
         shutil.copyfile(bc.TMY3_GREENSBORO, work / "climates" / "coastal.csv")
         shutil.copyfile(bc.TMY3_SAND_POINT, work / "climates" / "inland.csv")
         study = work / "study.yaml"
-        study.write_text(study_text(settings))
+        study.write_text(study_text(settings, spacing))
         peak: dict[str, float] = {}
         stop = threading.Event()
         sampler = threading.Thread(target=_sample_worker_memory, args=(stop, peak), daemon=True)
@@ -133,8 +134,14 @@ if __name__ == "__main__":
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="coarse ray counts")
     parser.add_argument("--workers", type=int, default=2)
+    parser.add_argument("--spacing", type=float, default=0.5, help="grid spacing [m]")
+    parser.add_argument("--memory-limit", type=float,
+                        help="compute.memory_limit [GiB] (a finer grid needs more than 2)")
     parser.add_argument("--json", help="write the figures to this file")
     args = parser.parse_args()
-    result = main(QUICK if args.quick else {}, args.workers)
+    chosen = dict(QUICK) if args.quick else {}
+    if args.memory_limit:
+        chosen["memory_limit"] = args.memory_limit
+    result = main(chosen, args.workers, args.spacing)
     if args.json:
         Path(args.json).write_text(json.dumps(result, indent=2))
