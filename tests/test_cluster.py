@@ -257,7 +257,9 @@ def test_ctrl_c_prints_one_line_and_a_rerun_resumes(tmp_path):
     """SIGINT to the CLI's whole process group (as Ctrl-C in a terminal sends it,
     workers of the local cluster included) once work is under way: exit 130, one
     line and no traceback from any process; the same command again completes."""
-    study = write_tiny_study(tmp_path / "study")
+    # four coefficient sets: the run lasts a few seconds, so the interrupt lands
+    # while work is under way however fast the machine (one set took ~1 s here)
+    study = write_tiny_study(tmp_path / "study", widths=(1.2, 1.5, 1.8, 2.1))
     argv = ("run", study, "--out", tmp_path / "r.zarr", "--cache", tmp_path / "cache",
             "--workers", "2", "--progress-every", "0.5")
     proc = luxsweep_process(*argv, new_session=True)
@@ -269,7 +271,8 @@ def test_ctrl_c_prints_one_line_and_a_rerun_resumes(tmp_path):
     while time.monotonic() < deadline and not any(x.startswith("progress:") for x in lines):
         assert proc.poll() is None, "".join(lines)
         time.sleep(0.05)
-    time.sleep(1.0)
+    time.sleep(0.3)
+    assert proc.poll() is None, "the run ended before the interrupt: " + "".join(lines)
     os.killpg(proc.pid, signal.SIGINT)
     proc.wait(timeout=60)
     reader.join(timeout=10)
