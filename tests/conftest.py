@@ -11,6 +11,7 @@ import json
 import logging
 import os
 import shutil
+import signal
 import socket
 import subprocess
 import sys
@@ -86,7 +87,9 @@ def luxsweep_process(
     """Start ``python -m luxsweep.sweep.cli ARGV`` as a child process (text pipes).
 
     ``new_session`` puts it in its own process group (``os.killpg`` kills it with
-    everything it started).
+    everything it started) with Ctrl-C's default meaning: a test runner started in
+    the background of a non-interactive shell inherits SIGINT ignored, and so would
+    the child, which would then never see the interrupt a test sends.
     """
     full_env = {**os.environ, "PYTHONUNBUFFERED": "1", **(env or {})}
     return subprocess.Popen(
@@ -97,7 +100,12 @@ def luxsweep_process(
         stderr=subprocess.PIPE,
         text=True,
         start_new_session=new_session,
+        preexec_fn=_default_sigint if new_session else None,
     )
+
+
+def _default_sigint() -> None:
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
 
 
 def run_luxsweep(*argv: str | Path, cwd: Path | None = None, timeout: float = 120.0,

@@ -257,9 +257,11 @@ def test_ctrl_c_prints_one_line_and_a_rerun_resumes(tmp_path):
     """SIGINT to the CLI's whole process group (as Ctrl-C in a terminal sends it,
     workers of the local cluster included) once work is under way: exit 130, one
     line and no traceback from any process; the same command again completes."""
-    # four coefficient sets: the run lasts a few seconds, so the interrupt lands
-    # while work is under way however fast the machine (one set took ~1 s here)
-    study = write_tiny_study(tmp_path / "study", widths=(1.2, 1.5, 1.8, 2.1))
+    # eight coefficient sets: the run lasts several seconds, so the interrupt lands
+    # while work is under way however fast the machine (a run of one set ended
+    # within the second the test waited; one of four, within 3 s)
+    study = write_tiny_study(tmp_path / "study",
+                             widths=(1.0, 1.2, 1.4, 1.6, 1.8, 2.0, 2.2, 2.4))
     argv = ("run", study, "--out", tmp_path / "r.zarr", "--cache", tmp_path / "cache",
             "--workers", "2", "--progress-every", "0.5")
     proc = luxsweep_process(*argv, new_session=True)
@@ -271,7 +273,7 @@ def test_ctrl_c_prints_one_line_and_a_rerun_resumes(tmp_path):
     while time.monotonic() < deadline and not any(x.startswith("progress:") for x in lines):
         assert proc.poll() is None, "".join(lines)
         time.sleep(0.05)
-    time.sleep(0.3)
+    time.sleep(1.0)
     assert proc.poll() is None, "the run ended before the interrupt: " + "".join(lines)
     os.killpg(proc.pid, signal.SIGINT)
     proc.wait(timeout=60)
