@@ -34,6 +34,8 @@ included in its ``z``):
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 
 from luxsweep.kernels.raytrace import Scene
@@ -53,6 +55,7 @@ DISTANCE_LEVELS = (6.0, 20.0, 50.0)
 """Outside distance of view [m] for EN 17037 view-out levels 1, 2, 3 (from memory)."""
 
 
+@dataclass(frozen=True)
 class ViewOut:
     """What each view position sees out (arrays over the positions).
 
@@ -65,13 +68,11 @@ class ViewOut:
         Layers seen.
     """
 
-    def __init__(self, sight_angle: np.ndarray, distance: np.ndarray, sky: np.ndarray,
-                 landscape: np.ndarray, ground: np.ndarray) -> None:
-        self.sight_angle = sight_angle
-        self.distance = distance
-        self.sky = sky
-        self.landscape = landscape
-        self.ground = ground
+    sight_angle: np.ndarray
+    distance: np.ndarray
+    sky: np.ndarray
+    landscape: np.ndarray
+    ground: np.ndarray
 
     @property
     def layers(self) -> np.ndarray:
@@ -117,6 +118,9 @@ def view_out(scene: Scene, positions: np.ndarray, step: float = 0.25,
     ce, se = np.cos(el)[None, :], np.sin(el)[None, :]
     sphere = np.stack([np.cos(az2)[:, None] * ce, np.sin(az2)[:, None] * ce,
                        np.broadcast_to(se, (az2.size, el.size))], axis=-1).reshape(-1, 3)
+    up, down = sphere[:, 2] > 0.0, sphere[:, 2] < 0.0
+    with np.errstate(divide="ignore"):
+        ground_per_height = np.where(down, 1.0 / -sphere[:, 2], 0.0)  # [m per m of z]
     m = p.shape[0]
     sight = np.zeros(m)
     distance = np.full(m, np.nan)
@@ -127,11 +131,9 @@ def view_out(scene: Scene, positions: np.ndarray, step: float = 0.25,
             sight[i] = out.sum() * step
             distance[i] = float(np.median(to_opaque[out] - to_glass[out]))
         looks, _, hit = _looking_out(scene, np.broadcast_to(p[i], sphere.shape), sphere)
-        d = sphere
-        with np.errstate(divide="ignore"):
-            to_ground = np.where(d[:, 2] < 0.0, p[i, 2] / -d[:, 2], np.inf)
+        to_ground = np.where(down, p[i, 2] * ground_per_height, np.inf)
         ground_first = to_ground < hit
-        sky = looks & ~np.isfinite(hit) & (d[:, 2] > 0.0)
+        sky = looks & ~np.isfinite(hit) & up
         ground = looks & ground_first & (to_ground <= horizon_distance)
         landscape = looks & ((np.isfinite(hit) & ~ground_first)
                              | (ground_first & (to_ground > horizon_distance)))

@@ -78,7 +78,34 @@ def _fsync_dir(path: Path) -> None:
         os.close(fd)
 
 
-class CoefficientCache:
+class _CoefficientSets:
+    """Coefficient sets over a cache's ``load_arrays`` / ``save_arrays`` (both caches)."""
+
+    def load_arrays(self, key: str) -> tuple[dict[str, np.ndarray], dict[str, Any]] | None:
+        raise NotImplementedError
+
+    def save_arrays(self, key: str, arrays: dict[str, np.ndarray],
+                    metadata: dict[str, Any]) -> Any:
+        raise NotImplementedError
+
+    def load(self, key: str) -> Any | None:
+        """The :class:`kernels.coefficients.CoefficientSet` of ``key``, or ``None`` on a miss."""
+        from luxsweep.kernels.coefficients import CoefficientSet
+
+        found = self.load_arrays(key)
+        if found is None:
+            return None
+        arrays, metadata = found
+        return CoefficientSet.from_parts(arrays, metadata)
+
+    def save(self, coefficients: Any) -> Any:
+        """Publish a :class:`kernels.coefficients.CoefficientSet` under its own key
+        (the entry's path or URL)."""
+        return self.save_arrays(coefficients.key, coefficients.to_arrays(),
+                                coefficients.metadata())
+
+
+class CoefficientCache(_CoefficientSets):
     """A folder of coefficient entries keyed by :func:`kernels.coefficients.coefficient_key`.
 
     Parameters
@@ -257,21 +284,6 @@ class CoefficientCache:
                 self._remove_entry(final)
         raise OSError(f"coefficient cache: could not publish entry {final}")
 
-    # -- coefficient sets ---------------------------------------------------------
-    def load(self, key: str) -> Any | None:
-        """The :class:`kernels.coefficients.CoefficientSet` of ``key``, or ``None`` on a miss."""
-        from luxsweep.kernels.coefficients import CoefficientSet
-
-        found = self.load_arrays(key)
-        if found is None:
-            return None
-        arrays, metadata = found
-        return CoefficientSet.from_parts(arrays, metadata)
-
-    def save(self, coefficients: Any) -> Path:
-        """Publish a :class:`kernels.coefficients.CoefficientSet` under its own key."""
-        return self.save_arrays(coefficients.key, coefficients.to_arrays(), coefficients.metadata())
-
     # -- housekeeping -------------------------------------------------------------
     def clean_temporary(self, older_than: float = 3600.0) -> int:
         """Remove temporary and trash folders older than ``older_than`` [s]; returns the count."""
@@ -340,7 +352,7 @@ def open_cache(location: str | os.PathLike) -> CoefficientCache | UrlCache:
     return UrlCache(os.fspath(location))
 
 
-class UrlCache:
+class UrlCache(_CoefficientSets):
     """A coefficient cache at an fsspec URL (module doc: manifest-last publishing).
 
     Parameters
@@ -501,21 +513,6 @@ class UrlCache:
         self._fs.pipe_file(f"{entry}/manifest.json",
                            json.dumps(manifest, indent=1, sort_keys=True).encode())
         return self.entry(key)
-
-    def load(self, key: str) -> Any | None:
-        """The :class:`kernels.coefficients.CoefficientSet` of ``key``, or ``None``."""
-        from luxsweep.kernels.coefficients import CoefficientSet
-
-        found = self.load_arrays(key)
-        if found is None:
-            return None
-        arrays, metadata = found
-        return CoefficientSet.from_parts(arrays, metadata)
-
-    def save(self, coefficients: Any) -> str:
-        """Publish a :class:`kernels.coefficients.CoefficientSet` under its own key."""
-        return self.save_arrays(coefficients.key, coefficients.to_arrays(),
-                                coefficients.metadata())
 
     def clean_temporary(self, older_than: float = 3600.0) -> int:
         """Nothing to clean: entries are written in place, published by their manifest."""
