@@ -92,8 +92,10 @@ def test_two_geometries_compute_exactly_two_coefficient_sets(finished):
     assert ds.done.values.all()
     assert set(ds.coords) >= {"variant_id", "orientation", "climate",
                               "glazings.main.transmittance", "room.windows.0.width", "x", "y"}
-    # the sampling error is stored beside the daylight factor (issue 13 item 4): an
-    # estimate from the rays, so positive and a small fraction of the value itself
+    # the sampling error is stored beside the daylight factor; its value is checked
+    # against the kernel in test_batched_results_equal_each_variant_alone and the
+    # estimator against seed scatter and scipy in test_sampling_error.py. Here only
+    # a sanity bound of our own: positive, and a small fraction of the value itself
     err, df = ds.daylight_factor_error.values, ds.daylight_factor.values
     assert ds.daylight_factor_error.attrs["units"] == "%"
     assert np.isfinite(err).all() and (err > 0).all()
