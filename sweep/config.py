@@ -616,6 +616,22 @@ def _rank_metric(v: str) -> str:
     return v
 
 
+def _space_scope(v: str | list[str] | None) -> str | list[str] | None:
+    """The ``spaces`` of a criterion or objective: ``all``, a name or a list of names."""
+    names = [v] if isinstance(v, str) else (v or [])
+    if isinstance(v, list) and not v:
+        raise ValueError("give at least one space name, or 'all'")
+    if isinstance(v, list) and ALL_SPACES in v:
+        raise ValueError(f"'{ALL_SPACES}' stands alone: spaces: {ALL_SPACES}")
+    for name in names:
+        if not _NAME.match(name):
+            raise ValueError(f"space name '{name}' may hold only letters, digits, '-' and "
+                             "'_'")
+    if len(set(names)) != len(names):
+        raise ValueError(f"space names repeat: {names}")
+    return v
+
+
 class Requirement(_Model):
     """A ranking criterion: ``{metric, at_least}`` or ``{metric, at_most}``, on the
     building total (default) or on spaces (``spaces: all``, a name or a list of names;
@@ -634,18 +650,7 @@ class Requirement(_Model):
     @field_validator("spaces")
     @classmethod
     def _spaces(cls, v: str | list[str] | None) -> str | list[str] | None:
-        names = [v] if isinstance(v, str) else (v or [])
-        if isinstance(v, list) and not v:
-            raise ValueError("give at least one space name, or 'all'")
-        if isinstance(v, list) and ALL_SPACES in v:
-            raise ValueError(f"'{ALL_SPACES}' stands alone: spaces: {ALL_SPACES}")
-        for name in names:
-            if not _NAME.match(name):
-                raise ValueError(f"space name '{name}' may hold only letters, digits, '-' and "
-                                 "'_'")
-        if len(set(names)) != len(names):
-            raise ValueError(f"space names repeat: {names}")
-        return v
+        return _space_scope(v)
 
     @field_validator("at_most")
     @classmethod
@@ -656,16 +661,24 @@ class Requirement(_Model):
 
 
 class Preference(_Model):
-    """A ranking objective: ``{metric, goal: max|min, weight}``."""
+    """A ranking objective: ``{metric, goal: max|min, weight}``, on the building total
+    (default), on one space (``spaces: name``) or on the worst of several (``spaces:
+    all`` or a list of names; :class:`sweep.rank.Objective`)."""
 
     metric: str
     goal: Literal["max", "min"] = "max"
     weight: float = 1.0
+    spaces: str | list[str] | None = None
 
     @field_validator("metric")
     @classmethod
     def _metric(cls, v: str) -> str:
         return _rank_metric(v)
+
+    @field_validator("spaces")
+    @classmethod
+    def _spaces(cls, v: str | list[str] | None) -> str | list[str] | None:
+        return _space_scope(v)
 
     @field_validator("weight")
     @classmethod
@@ -1663,6 +1676,9 @@ _SCHEMA_TEXT: dict[str, tuple[str, dict[str, str]]] = {
             "metric": f"The metric, one of: {', '.join(RANK_METRICS)}.",
             "goal": "max to prefer high values, min to prefer low ones.",
             "weight": "Weight of this objective in the score, 0 or more.",
+            "spaces": "What the objective scores: left out, the building total; one space "
+                      "name, that space's value; all or a list of names, the worst of those "
+                      "spaces (the lowest for max, the highest for min).",
         },
     ),
 }

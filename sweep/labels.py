@@ -40,6 +40,7 @@ __all__ = [
     "metric_text",
     "orientation_text",
     "plural",
+    "scoped_metric",
     "value_text",
     "variant_name",
 ]
@@ -199,6 +200,17 @@ _SHORT = {
 }
 
 
+_SCOPED = re.compile(r"^(\w+) \((.+)\)$")
+
+
+def scoped_metric(column: str) -> tuple[str, str]:
+    """A ranking column split into its metric and its space scope:
+    ``"sda (worst space)"`` → ``("sda", "worst space")``, ``"sda"`` → ``("sda", "")``
+    (:attr:`sweep.rank.Objective.column`)."""
+    match = _SCOPED.match(column)
+    return (match.group(1), match.group(2)) if match else (column, "")
+
+
 def display_unit(metric: str) -> tuple[float, str]:
     """Scale and unit a metric is shown in: shares of time and of the grid in percent.
 
@@ -208,6 +220,7 @@ def display_unit(metric: str) -> tuple[float, str]:
     """
     from luxsweep.sweep.registry import METRICS
 
+    metric = scoped_metric(metric)[0]
     entry = METRICS.get(metric)
     if entry is None or metric == "en17037_level":
         return 1.0, ""
@@ -222,13 +235,16 @@ def metric_heading(metric: str, options: Mapping[str, Any] | None = None) -> str
     """
     from luxsweep.sweep.registry import label
 
+    metric, scope = scoped_metric(metric)
     short = _SHORT.get(metric) or label(metric, options)
+    short = f"{short}, {scope}" if scope else short
     unit = display_unit(metric)[1]
     return f"{short} [{unit}]" if unit else short
 
 
 def metric_text(metric: str, value: Any) -> str:
     """A stored metric value as shown (percent for shares, EN 17037 level in words)."""
+    metric = scoped_metric(metric)[0]
     if metric == "en17037_level":
         return en17037_text(value)
     try:

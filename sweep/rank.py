@@ -62,6 +62,7 @@ __all__ = [
     "criterion_text",
     "main_effects",
     "metric_names",
+    "objective_values",
     "open_store",
     "pareto_front",
     "parse_rank_spec",
@@ -203,11 +204,30 @@ class Requirement:
 
 @dataclass(frozen=True)
 class Objective:
-    """A preference: ``goal`` is "max" or "min", ``weight`` ≥ 0."""
+    """A preference: ``goal`` is "max" or "min", ``weight`` ≥ 0.
+
+    ``spaces``: None for the building total; a space name for that space's value;
+    ``"all"`` or a tuple of names for the worst of those spaces (the lowest value
+    for ``max``, the highest for ``min``), so that no space is traded away for the
+    others.
+    """
 
     metric: str
     goal: str
     weight: float
+    spaces: str | tuple[str, ...] | None = None
+
+    @property
+    def column(self) -> str:
+        """Its column in the ranking table: the metric, or ``sda (worst space)``,
+        ``sda (worst of a, b)``, ``sda (hall)``."""
+        if self.spaces is None:
+            return self.metric
+        if self.spaces == ALL_SPACES:
+            return f"{self.metric} (worst space)"
+        if len(self.spaces) == 1:
+            return f"{self.metric} ({self.spaces[0]})"
+        return f"{self.metric} (worst of {', '.join(self.spaces)})"
 
 
 @dataclass(frozen=True)
@@ -221,6 +241,13 @@ class RankSpec:
     def metrics(self) -> list[str]:
         """Metrics named by the section, in order, without repeats."""
         names = [r.metric for r in self.require] + [o.metric for o in self.prefer]
+        return list(dict.fromkeys(names))
+
+    @property
+    def columns(self) -> list[str]:
+        """The ranking table's value columns the section names: each criterion's
+        metric and each objective's :attr:`Objective.column`, without repeats."""
+        names = [r.metric for r in self.require] + [o.column for o in self.prefer]
         return list(dict.fromkeys(names))
 
 
@@ -289,7 +316,8 @@ def parse_rank_spec(section: Any, valid: list[str], spaces: list[str] | None = N
         weight = item.get("weight", 1.0)
         if not isinstance(weight, int | float) or isinstance(weight, bool) or weight < 0:
             raise _spec_error(f"{place}.weight", f"weight must be a number ≥ 0, got {weight!r}")
-        prefer.append(Objective(name, goal, float(weight)))
+        prefer.append(Objective(name, goal, float(weight),
+                                _scope(item.get("spaces"), name, place, spaces, spaced)))
     return RankSpec(tuple(require), tuple(prefer))
 
 
@@ -404,15 +432,20 @@ def rank_table(ds: xr.Dataset, rank_spec: RankSpec | dict | None = None) -> pd.D
     for axis in axes_of(ds):
         table[axis] = coord_values(ds, axis)
     shown = shown_metrics(spec, metric_names(ds))
-    values = {m: np.asarray(ds[m].values, dtype=float) for m in shown}
-    for m, v in values.items():
-        table[m] = np.where(done, v, np.nan)
+    names = space_names(ds)
+    values = {m: np.asarray(ds[m].values, dtype=float) for m in shown if m in ds.data_vars}
+    for o in spec.prefer:
+        if o.spaces is not None:
+            values[o.column] = objective_values(ds, o, names)
+    for m in shown:
+        table[m] = np.where(done, values[m], np.nan)
+    values.update({r.metric: np.asarray(ds[r.metric].values, dtype=float)
+                   for r in spec.require if r.metric not in values})
 
     passes = done.copy()
     n_failed = np.zeros(n, int)
     failed_text = [[] for _ in range(n)]
     failed_spaces: list[dict[str, None]] = [{} for _ in range(n)]
-    names = space_names(ds)
     for req in spec.require:
         if req.spaces is None:
             margin = np.where(done, req.margin(values[req.metric]), np.nan)
@@ -435,15 +468,15 @@ def rank_table(ds: xr.Dataset, rank_spec: RankSpec | dict | None = None) -> pd.D
     score = np.full(n, np.nan)
     weights = np.array([o.weight for o in spec.prefer])
     if spec.prefer and weights.sum() > 0:
-        norm = np.stack([_normalised(np.where(done, values[o.metric], np.nan), o.goal)
+        norm = np.stack([_normalised(np.where(done, values[o.column], np.nan), o.goal)
                          for o in spec.prefer], axis=1)
         score = norm @ weights / weights.sum()
     table["score"] = score
 
     pareto = np.zeros(n, bool)
     if spec.prefer and passes.any():
-        objectives = np.stack([values[o.metric] for o in spec.prefer], axis=1)
-        idx = np.flatnonzero(passes)
+        objectives = np.stack([values[o.column] for o in spec.prefer], axis=1)
+        idx = np.flatnonzero(passes & np.isfinite(objectives).all(axis=1))
         pareto[idx] = pareto_front(objectives[idx], [o.goal for o in spec.prefer])
     table["pareto"] = pareto
     table["status"] = np.where(~done, "incomplete", np.where(passes, "pass", "fail"))
@@ -465,10 +498,7 @@ def _space_margins(ds: xr.Dataset, req: Requirement, names: list[str]
     A space the variant lacks (NaN, or a negative level) is skipped by ``all`` and
     fails when named.
     """
-    raw = np.asarray(ds[SPACE_PREFIX + req.metric].values)
-    values = raw.astype(float)
-    if raw.dtype.kind in "iu":
-        values[raw < 0] = np.nan  # sweep.store.SPACE_ABSENT_LEVEL
+    values = _space_values(ds, req.metric)
     cols = (list(range(len(names))) if req.spaces == ALL_SPACES
             else [names.index(n) for n in req.spaces])
     m = req.margin(values[:, cols])  # (n, k), NaN where absent
@@ -482,6 +512,38 @@ def _space_margins(ds: xr.Dataset, req: Requirement, names: list[str]
         worst = np.where(present.all(axis=1), worst, np.nan)  # a named space is missing
     failing = [[names[cols[j]] for j in np.flatnonzero(row)] for row in failing_mask]
     return worst, failing
+
+
+def _space_values(ds: xr.Dataset, metric: str) -> np.ndarray:
+    """``space_<metric>`` as floats (variant, space), NaN where the variant lacks the space."""
+    raw = np.asarray(ds[SPACE_PREFIX + metric].values)
+    values = raw.astype(float)
+    if raw.dtype.kind in "iu":
+        values[raw < 0] = np.nan  # sweep.store.SPACE_ABSENT_LEVEL
+    return values
+
+
+def objective_values(ds: xr.Dataset, objective: Objective, names: list[str] | None = None
+                     ) -> np.ndarray:
+    """An objective's value per variant (:class:`Objective`), in the metric's unit.
+
+    Scoped to spaces it is the worst of them; NaN when a named space is missing
+    from the variant (or, for ``all``, when it has none): such a variant scores
+    no better than the worst (its normalised objective is NaN, so is its score).
+    """
+    if objective.spaces is None:
+        return np.asarray(ds[objective.metric].values, dtype=float)
+    names = space_names(ds) if names is None else names
+    values = _space_values(ds, objective.metric)
+    cols = (list(range(len(names))) if objective.spaces == ALL_SPACES
+            else [names.index(n) for n in objective.spaces])
+    part = values[:, cols]
+    present = ~np.isnan(part)
+    fill = np.inf if objective.goal == "max" else -np.inf
+    worst = (np.min if objective.goal == "max" else np.max)(np.where(present, part, fill),
+                                                           axis=1, initial=fill)
+    ok = present.any(axis=1) if objective.spaces == ALL_SPACES else present.all(axis=1)
+    return np.where(ok, worst, np.nan)
 
 
 def main_effects(ds: xr.Dataset, metric: str) -> pd.DataFrame:
@@ -561,7 +623,7 @@ MAIN_METRICS = ("sda", "ase", "udi_useful_mean", "daylight_factor_mean", "en1703
 def shown_metrics(spec: RankSpec, names: list[str] | pd.Index) -> list[str]:
     """The metrics of a ranking table: those the criteria and objectives name, else the
     main ones the store holds."""
-    return list(spec.metrics) or [m for m in MAIN_METRICS if m in names]
+    return list(spec.columns) or [m for m in MAIN_METRICS if m in names]
 
 
 def variant_names(table: pd.DataFrame, ds: xr.Dataset) -> list[str]:

@@ -85,6 +85,7 @@ from luxsweep.sweep.labels import (
     metric_text,
     orientation_text,
     plural,
+    scoped_metric,
     value_text,
     variant_name,
 )
@@ -157,7 +158,8 @@ def _options(ds: xr.Dataset) -> dict:
 
 def _label(metric: str, options: dict | None = None) -> str:
     """Registry label with the shown unit, thresholds from ``options``."""
-    label = registry.label(metric, options)
+    metric, scope = scoped_metric(metric)
+    label = registry.label(metric, options) + (f", {scope}" if scope else "")
     unit = display_unit(metric)[1]
     return f"{label} [{unit}]" if unit else label
 
@@ -276,7 +278,7 @@ def _summary(ds: xr.Dataset, study: dict, source: str | None, table: pd.DataFram
         findings.append("No variant has finished yet; run the study to completion.")
     else:
         best = ranked.iloc[0]
-        metrics = spec.metrics or [m for m in ("sda", "ase", "udi_useful_mean") if m in table]
+        metrics = spec.columns or [m for m in ("sda", "ase", "udi_useful_mean") if m in table]
         values = ", ".join(f"{metric_heading(m).split(' [')[0]} {metric_text(m, best[m])}"
                            + (f" {display_unit(m)[1]}" if display_unit(m)[1] and
                               m != "en17037_level" else "")
@@ -327,7 +329,7 @@ def _ranking(table: pd.DataFrame, spec: RankSpec, axes: list[str], labels: dict[
     ranked = table[table["status"] != "incomplete"].head(top)
     n_incomplete = int((table["status"] == "incomplete").sum())
     incomplete = table[table["status"] == "incomplete"].head(INCOMPLETE_ROWS)
-    metrics = spec.metrics or [m for m in ("sda", "ase", "udi_useful_mean") if m in table]
+    metrics = spec.columns or [m for m in ("sda", "ase", "udi_useful_mean") if m in table]
     head = ["Rank", "Variant",
             *[f'<span title="{_esc(_label(m, options))}">{_esc(metric_heading(m, options))}</span>'
               for m in metrics]]
@@ -367,7 +369,7 @@ def _ranking(table: pd.DataFrame, spec: RankSpec, axes: list[str], labels: dict[
         note.append(f"{INCOMPLETE_ROWS} of the {n_incomplete:,} unfinished variants are "
                     "shown.")
     crit = "; ".join(criterion_text(r) for r in spec.require) or "none given"
-    pref = "; ".join(f"{metric_heading(o.metric)} ({'higher' if o.goal == 'max' else 'lower'}"
+    pref = "; ".join(f"{metric_heading(o.column)} ({'higher' if o.goal == 'max' else 'lower'}"
                      f" is better, weight {o.weight:g})" for o in spec.prefer) or "none given"
     note.append(f"Criteria: {crit}. Objectives: {pref}. Shares of time and of the grid "
                 "are in percent.")
@@ -733,7 +735,7 @@ def _geometry_sketch(ds: xr.Dataset, table: pd.DataFrame, study: dict,
 
 
 def _objective_pair(spec: RankSpec, names: list[str]) -> list[tuple[str, str]]:
-    pair = [(o.metric, o.goal) for o in spec.prefer]
+    pair = [(o.column, o.goal) for o in spec.prefer]
     for name, goal in (("sda", "max"), ("ase", "min"), ("udi_useful_mean", "max"),
                        ("daylight_factor_mean", "max")):
         if len(pair) >= 2:
@@ -743,14 +745,24 @@ def _objective_pair(spec: RankSpec, names: list[str]) -> list[tuple[str, str]]:
     return pair[:2]
 
 
+def _column_values(ds: xr.Dataset, table: pd.DataFrame, column: str) -> np.ndarray:
+    """A ranking column per store variant: the store variable, or an objective scoped
+    to spaces (:attr:`sweep.rank.Objective.column`) as the ranking table holds it."""
+    if column in ds.data_vars:
+        return np.asarray(ds[column].values, float)
+    out = np.full(ds.sizes["variant"], np.nan)
+    out[table["variant"].to_numpy()] = table[column].to_numpy(dtype=float)
+    return out
+
+
 def _pareto_chart(ds: xr.Dataset, table: pd.DataFrame, spec: RankSpec) -> str:
     pair = _objective_pair(spec, metric_names(ds))
     done = table[table["status"] != "incomplete"]
     if len(pair) < 2 or done.empty:
         return '<p class="note">Fewer than two metrics to compare: no trade-off chart.</p>'
     (mx, gx), (my, gy) = pair
-    x = np.asarray(ds[mx].values, float)[done["variant"]] * display_unit(mx)[0]
-    y = np.asarray(ds[my].values, float)[done["variant"]] * display_unit(my)[0]
+    x = _column_values(ds, table, mx)[done["variant"]] * display_unit(mx)[0]
+    y = _column_values(ds, table, my)[done["variant"]] * display_unit(my)[0]
     ok = (done["status"] == "pass").to_numpy()
     front = np.zeros(len(done), bool)
     if ok.any():
@@ -840,7 +852,7 @@ def _orientation_climate_map(ds: xr.Dataset, table: pd.DataFrame, spec: RankSpec
                              labels: dict[str, str]) -> str:
     axes = axes_of(ds)
     names = metric_names(ds)
-    metric = next((o.metric for o in spec.prefer),
+    metric = next((o.column for o in spec.prefer),
                   next((m for m in ("sda", "udi_useful_mean") if m in names), None))
     done = table[table["status"] != "incomplete"]
     if metric is None or done.empty:
@@ -853,7 +865,7 @@ def _orientation_climate_map(ds: xr.Dataset, table: pd.DataFrame, spec: RankSpec
     sel = done
     for a in others:
         sel = sel[sel[a] == best[a]]
-    values = np.asarray(ds[metric].values, float) * display_unit(metric)[0]
+    values = _column_values(ds, table, metric) * display_unit(metric)[0]
     sel = sel.assign(value=values[sel["variant"]])
     rows = sorted(pd.unique(sel["orientation"])) if "orientation" in axes else ["(fixed)"]
     cols = list(pd.unique(sel["climate"])) if "climate" in axes else ["(fixed)"]

@@ -1219,7 +1219,10 @@ class Collector:
 
     def _coefficient_finished(self, fut: Any) -> None:
         key = self.coefficient_keys.pop(fut)
-        if fut.status == "finished":
+        if fut.status not in ("error", "cancelled"):
+            # "finished", or "lost"/"pending" again when a worker holding the result died
+            # after it was done: Dask makes it again and result() waits for it (a set
+            # treated as failed here would never be published to the client's cache)
             res = fut.result()
             if self.transport.client_cache and res["computed"]:
                 # the client keeps the cache: publish the set the worker returned

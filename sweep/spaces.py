@@ -104,17 +104,19 @@ def check_rank_spaces(loaded: StudyFile, layouts: Sequence[SpaceLayout]) -> None
     Raises
     ------
     StudyFileError
-        Naming the file, ``rank.require.<i>.spaces`` with its line, the unknown
+        Naming the file, ``rank.require.<i>.spaces`` (or ``rank.prefer.<i>.spaces``) with its line, the unknown
         name, the closest known one and the study's occupied spaces.
     """
     rank = loaded.study.rank
     if rank is None:
         return
     known = list(dict.fromkeys(n for lay in layouts for n in lay.names))
-    for i, req in enumerate(rank.require):
+    scoped = [("require", i, r) for i, r in enumerate(rank.require)]
+    scoped += [("prefer", i, o) for i, o in enumerate(rank.prefer)]
+    for part, i, req in scoped:
         if req.spaces == ALL_SPACES and ALL_SPACES in known:
             raise loaded.error(
-                ("rank", "require", i, "spaces"),
+                ("rank", part, i, "spaces"),
                 f"'spaces: {ALL_SPACES}' means every space, but a space is named "
                 f"'{ALL_SPACES}'; rename that space")
         if req.spaces is None or req.spaces == ALL_SPACES:
@@ -126,6 +128,6 @@ def check_rank_spaces(loaded: StudyFile, layouts: Sequence[SpaceLayout]) -> None
             close = difflib.get_close_matches(name, known, n=1)
             hint = f"did you mean '{close[0]}'? " if close else ""
             raise loaded.error(
-                ("rank", "require", i, "spaces"),
+                ("rank", part, i, "spaces"),
                 f"no occupied space is named '{name}'; {hint}the study's occupied spaces are: "
                 f"{', '.join(known)} (or write 'spaces: {ALL_SPACES}')")

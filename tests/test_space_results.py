@@ -424,6 +424,51 @@ def test_rank_refuses_unknown_spaces_and_absent_named_spaces_fail(stores, tmp_pa
     assert every.set_index("variant").loc[0, "status"] == "pass"
 
 
+def test_objectives_on_one_space_and_on_the_worst_space(stores):
+    """``prefer: [{metric, goal, spaces}]`` scores a named space's value, or the worst of
+    several (lowest for max, highest for min): the score and order follow a recount
+    from the store's per-space values with the min-max normalisation of sweep.rank."""
+    import io
+
+    from luxsweep.sweep.rank import parse_rank_spec, print_table, rank_table
+
+    ds = stores["building"]
+    names = [str(s) for s in ds.space.values]
+    df = ds.space_daylight_factor_mean.values.astype(float)
+    ase = ds.space_ase.values.astype(float)
+    cases = {  # spaces -> (objective column, its values by hand)
+        ("daylight_factor_mean", "max", "north"): ("daylight_factor_mean (north)",
+                                                   df[:, names.index("north")]),
+        ("daylight_factor_mean", "max", "all"): ("daylight_factor_mean (worst space)",
+                                                 df.min(axis=1)),
+        ("ase", "min", "all"): ("ase (worst space)", ase.max(axis=1)),
+        ("ase", "min", ("south", "north")): ("ase (worst of south, north)", ase.max(axis=1)),
+    }
+    for (metric, goal, scope), (column, want) in cases.items():
+        spec = {"prefer": [{"metric": metric, "goal": goal,
+                            "spaces": list(scope) if isinstance(scope, tuple) else scope}]}
+        table = rank_table(ds, spec).set_index("variant").sort_index()
+        np.testing.assert_allclose(table[column], want, rtol=1e-6, err_msg=column)
+        span = want.max() - want.min()
+        assert span > 0, f"{column}: the case must separate the variants: {want}"
+        norm = (want - want.min()) / span
+        np.testing.assert_allclose(table["score"], norm if goal == "max" else 1 - norm,
+                                   rtol=1e-9, err_msg=column)
+    # a variant lacking a named space scores NaN and ranks after the others
+    lacking = ds.copy(deep=True)
+    lacking["space_daylight_factor_mean"][0, names.index("north")] = np.nan
+    table = rank_table(lacking, {"prefer": [{"metric": "daylight_factor_mean",
+                                             "spaces": "north"}]})
+    assert table["variant"].iloc[-1] == 0 and np.isnan(table["score"].iloc[-1])
+    # shown with its scope in the terminal table
+    spec = parse_rank_spec({"prefer": [{"metric": "sda", "spaces": "all"}]}, ["sda", "ase"],
+                           names, ["sda", "ase"])
+    out = io.StringIO()
+    print_table(rank_table(ds, spec), ds, spec, None, file=out)
+    text = out.getvalue()
+    assert "sDA, worst" in text and "space [%]" in text, text  # the heading folds
+
+
 # --------------------------------------------------------------------------- report
 
 
