@@ -118,10 +118,17 @@ def count_rays() -> RayCounts:
 
 
 def raw_occlusion_rate(geo, n_rays: int) -> float:
-    """Rays per second of bare embreex occlusion queries on the opaque scene."""
+    """Rays per second of bare embreex occlusion queries on the opaque scene.
+
+    Origins are uniform in the room (7.2 × 8 × 3 m), or in the spaces' bounding
+    box for a building (``geo.space_boxes``), directions uniform on the sphere.
+    """
     scene = raytrace.Scene(geo)
     rng = np.random.default_rng(0)
-    origins = (rng.random((n_rays, 3)) * [7.2, 8.0, 3.0]).astype(np.float32)
+    boxes = np.asarray(getattr(geo, "space_boxes", ()), dtype=float).reshape(-1, 2, 3)
+    lo, hi = ((boxes[:, 0].min(axis=0), boxes[:, 1].max(axis=0)) if len(boxes) > 1
+              else (np.zeros(3), np.array([7.2, 8.0, 3.0])))
+    origins = (lo + rng.random((n_rays, 3)) * (hi - lo)).astype(np.float32)
     dirs = rng.normal(size=(n_rays, 3))
     dirs = (dirs / np.linalg.norm(dirs, axis=1, keepdims=True)).astype(np.float32)
     embree = scene._opaque[0]

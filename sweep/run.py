@@ -105,6 +105,13 @@ FAMILIES = registry.FAMILIES
 """Metric families (:data:`sweep.registry.FAMILIES`)."""
 
 
+SCATTER_ATTEMPTS = 3
+"""Tries to send a cached set to the workers when none is running (:meth:`Collector._send_set`)."""
+
+WORKER_WAIT = 120.0
+"""Seconds to wait for a worker to come back between those tries."""
+
+
 # ---------------------------------------------------------------------------
 # worker tasks
 
@@ -1122,8 +1129,18 @@ class Collector:
         coefficients = self.cache.load(key)
         if coefficients is None:
             return None
-        # a list of one: scatter would place a dict's values one by one
-        (fut,) = self.client.scatter([{"coefficients": coefficients}], hash=False)
+        for attempt in range(SCATTER_ATTEMPTS):
+            try:  # a list of one: scatter would place a dict's values one by one
+                (fut,) = self.client.scatter([{"coefficients": coefficients}], hash=False)
+                break
+            except (TimeoutError, OSError):
+                # every worker just died (a poison variant) and the nannies are still
+                # starting new ones: wait for one rather than end the run
+                if attempt == SCATTER_ATTEMPTS - 1:
+                    raise
+                log.warning("no worker to send coefficient set %s to; waiting for one",
+                            key[:16])
+                self.client.wait_for_workers(1, timeout=WORKER_WAIT)
         self.coefficients[key] = fut
         self.sent.add(key)
         return fut
