@@ -88,7 +88,7 @@ def single_space(n_sensors: int, area: float, name: str = ROOM) -> SpaceLayout:
 
 
 def check_rank_spaces(loaded: StudyFile, layouts: Sequence[SpaceLayout]) -> None:
-    """Refuse ranking criteria that name a space the study does not have.
+    """Refuse ranking criteria and objectives that name a space the study does not have.
 
     Called at the end of :func:`sweep.plan.make_plan` (so by ``luxsweep check``,
     ``plan`` and ``run``): a criterion on a misspelt space would otherwise never be
@@ -104,8 +104,9 @@ def check_rank_spaces(loaded: StudyFile, layouts: Sequence[SpaceLayout]) -> None
     Raises
     ------
     StudyFileError
-        Naming the file, ``rank.require.<i>.spaces`` (or ``rank.prefer.<i>.spaces``) with its line, the unknown
-        name, the closest known one and the study's occupied spaces.
+        Naming the file, ``rank.require.<i>.spaces`` (or ``rank.prefer.<i>.spaces``)
+        with its line, the unknown name, the closest known one and the study's occupied
+        spaces.
     """
     rank = loaded.study.rank
     if rank is None:
