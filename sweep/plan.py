@@ -281,7 +281,9 @@ class Plan:
 
     # -- cost -----------------------------------------------------------------
     def estimate(self) -> dict[str, Any]:
-        """Rays for the missing coefficient sets, GEMM flops, bytes written."""
+        """Rays for the missing coefficient sets, GEMM flops, bytes written (the study's
+        per-sensor, per-variant and per-space variables, :mod:`sweep.registry`, before
+        compression)."""
         missing = [j for j in self.jobs.values() if not j.cached]
         flops = 0
         for t in self.tasks:
@@ -291,10 +293,17 @@ class Plan:
             n_sets = len(t.glazing_sets)
             per_set = 2 * job.n_sensors * n_basis * len(t.orientations) * n_steps
             flops += per_set * n_sets * (2 if t.shading else 1)
-        n_sensor_vars, n_variant_vars = 12, 10
+        from luxsweep.sweep.registry import space_variables, store_variables
+
+        metrics = list(self.loaded.study.metrics)
+        sensor_vars, variant_vars = store_variables(metrics)
+        distinct = (self.layouts.items if isinstance(self.layouts, PerVariant)
+                    else self.layouts)
+        n_spaces = max((len(lay.names) for lay in distinct), default=1)
+        per_variant = len(variant_vars) + 1 + len(space_variables(metrics)) * n_spaces  # + done
         total = self.n_sensors_total()
-        written = total * n_sensor_vars * BYTES_PER_VALUE
-        written += len(self.variants) * n_variant_vars * BYTES_PER_VALUE
+        written = total * len(sensor_vars) * BYTES_PER_VALUE
+        written += len(self.variants) * per_variant * BYTES_PER_VALUE
         if self.times is not None:
             written += 2 * total * len(self.times) * BYTES_PER_VALUE
         return {
