@@ -554,7 +554,8 @@ def open_store(results: str | Path) -> xr.Dataset:
     return ds
 
 
-MAIN_METRICS = ("sda", "ase", "udi_useful_mean", "daylight_factor_mean", "en17037_level")
+MAIN_METRICS = ("sda", "ase", "udi_useful_mean", "daylight_factor_mean", "en17037_level",
+                "sunlight_level", "view_level")
 """What ``luxsweep rank`` shows when the study's rank section names no metric."""
 
 
