@@ -475,13 +475,14 @@ class Sunlight(_Model):
 
     ``day`` is "MM-DD" between 1 February and 21 March (EN 17037:2018, from
     memory), default "03-21"; ``min_altitude`` [deg] is the sun altitude below
-    which the sun does not count. The standard tabulates it by site latitude
-    in a national-annex table that luxsweep does not reproduce, so it has no
-    default: a study that asks for sunlight must give it.
+    which the sun does not count: one value, or one per climate label (the
+    climates of a study may lie at different latitudes). The standard tabulates
+    it by site latitude in a national-annex table that luxsweep does not
+    reproduce, so it has no default: a study that asks for sunlight must give it.
     """
 
     day: str = "03-21"
-    min_altitude: float
+    min_altitude: float | dict[str, float]
 
     @field_validator("day", mode="before")
     @classmethod
@@ -495,11 +496,18 @@ class Sunlight(_Model):
 
     @field_validator("min_altitude")
     @classmethod
-    def _min_altitude(cls, v: float) -> float:
-        if not 0.0 <= v <= 45.0:
-            raise ValueError(f"min_altitude is a sun altitude in degrees from 0 to 45 (the "
-                             f"standard's value for the site's latitude), got {v}")
+    def _min_altitude(cls, v: float | dict[str, float]) -> float | dict[str, float]:
+        for label, value in (v.items() if isinstance(v, dict) else [("", v)]):
+            if not 0.0 <= value <= 45.0:
+                where = f" for climate '{label}'" if label else ""
+                raise ValueError(f"min_altitude{where} is a sun altitude in degrees from 0 to "
+                                 f"45 (the standard's value for the site's latitude), got {value}")
         return v
+
+    def altitude(self, climate: str) -> float:
+        """Minimum sun altitude [deg] for the climate labelled ``climate``."""
+        m = self.min_altitude
+        return float(m[climate] if isinstance(m, dict) else m)
 
 
 class Project(_Model):
@@ -1015,6 +1023,17 @@ def _geometry_family_problems(study: Study) -> list[tuple[tuple, str]]:
         problems.append((("metrics", i), "'sunlight' needs a 'sunlight:' section with the "
                          "minimum sun altitude of the site, e.g. 'sunlight: {day: \"03-21\", "
                          "min_altitude: 12}' (EN 17037 tabulates it by latitude)"))
+    altitudes = study.sunlight.min_altitude if study.sunlight is not None else None
+    if isinstance(altitudes, dict):
+        for label in study.climates:
+            if label not in altitudes:
+                problems.append((("sunlight", "min_altitude"), f"no minimum sun altitude for "
+                                 f"climate '{label}'; give one per climate label "
+                                 f"({', '.join(study.climates)}) or a single number"))
+        for label in altitudes:
+            if label not in study.climates:
+                problems.append((("sunlight", "min_altitude", label), f"'{label}' is not a "
+                                 f"climate label ({', '.join(study.climates)})"))
     if study.sunlight is not None and "sunlight" not in study.metrics:
         problems.append((("sunlight",), "'sunlight:' settings are given but 'metrics' does "
                          "not list 'sunlight'; add it to 'metrics' or remove the section"))
@@ -1667,7 +1686,9 @@ _SCHEMA_TEXT: dict[str, tuple[str, dict[str, str]]] = {
         {
             "day": "The day, \"MM-DD\" (quoted), from \"02-01\" to \"03-21\".",
             "min_altitude": "Sun altitude in degrees below which the sun does not count: "
-                            "the value the standard gives for the site's latitude.",
+                            "the value the standard gives for the site's latitude. One "
+                            "number, or one per climate label when the climates lie at "
+                            "different latitudes.",
         },
     ),
     "MetricOptions": (

@@ -710,7 +710,7 @@ def _geometry_results(inp: _SeriesInputs, job: CoefficientJob | None) -> dict[st
                                         SUNLIGHT_STEP)
         windows = ks.window_reference_points(geometry)
         hours = np.stack([ks.sunlight_hours(scene, windows.points, windows.normals, altitude,
-                                            azimuth, o, study.sunlight.min_altitude,
+                                            azimuth, o, study.sunlight.altitude(inp.task.climate),
                                             SUNLIGHT_STEP) for o in orientations])
         per_space = ks.space_sunlight_hours(hours, windows.space,
                                             len(geometry.space_names))[:, index]
