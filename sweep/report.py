@@ -295,6 +295,7 @@ def _summary(ds: xr.Dataset, study: dict, source: str | None, table: pd.DataFram
             lead = "First variant"
         findings.append(f"{lead}: <strong>{_esc(_name_of(best, axes, labels))}</strong>"
                         + (f" — {_esc(values)}." if values else "."))
+        findings += _geometry_line(ds, int(best["variant"]))
     rows = [
         ("Study", study.get("name") or ds.attrs.get("study_name", "(unnamed)")),
         ("Variants", f"{int(done.sum()):,} of {done.size:,} computed"
@@ -1306,6 +1307,21 @@ GEOMETRY_NOTES = {
         "its positions have (our own reading). The building takes its lowest space."),
 }
 """Notes on the EN 17037 sunlight and view-out results, shown when the store has them."""
+
+
+def _geometry_line(ds: xr.Dataset, v: int) -> list[str]:
+    """The EN 17037 sunlight and view-out results of variant ``v`` (building: lowest
+    space), as one summary line; none when the store lacks them."""
+    parts = []
+    if "sunlight_level" in ds.data_vars:
+        level = metric_text("sunlight_level", ds["sunlight_level"].values[v])
+        hours = format_number(float(ds["sunlight_hours"].values[v]))
+        parts.append(f"exposure to sunlight {level} ({hours} h)")
+    if "view_level" in ds.data_vars:
+        parts.append(f"view out {metric_text('view_level', ds['view_level'].values[v])}")
+    if not parts:
+        return []
+    return [f"Its EN 17037 levels (the lowest space): {_esc('; '.join(parts))}."]
 
 
 def _geometry_notes(ds: xr.Dataset) -> str:

@@ -234,3 +234,30 @@ def test_view_from_the_south_space_is_cut_by_the_wall(building):
     # distance 6–20 m: minimum (EN 17037, from memory) rules over angle and layers
     assert 6.0 < _met_by_three_quarters(distances) < 20.0 and _met_by_three_quarters(angles) > 14
     assert ds["space_view_level"].values[0, south] == 1
+
+
+def test_rank_and_report_read_the_space_results(building):
+    from luxsweep.sweep.rank import rank_table
+    from luxsweep.sweep.report import build_report
+
+    ds, _ = building
+    # a criterion on every space: 'inner' has no window, so the variant fails there only
+    spec = {"require": [{"metric": "view_level", "at_least": 1, "spaces": "all"}]}
+    row = rank_table(ds, spec).iloc[0]
+    assert row["status"] == "fail" and row["failed_spaces"] == "inner"
+    row = rank_table(ds, {"require": [{"metric": "view_level", "at_least": 1,
+                                       "spaces": "south"}]}).iloc[0]
+    assert row["status"] == "pass"
+    # without a rank section the table shows the levels among the main metrics
+    table = rank_table(ds, {})
+    assert {"sunlight_level", "view_level"} <= set(table.columns)
+    html = build_report(ds)
+    spaces = html.split('<section class="spaces">')[1].split("</section>")[0]
+    assert "sunlight level" in spaces and "view-out level" in spaces
+    inner = spaces.split(">inner<")[1]
+    assert "view-out level 0 none" in inner and "sunlight hours 0 h" in inner
+    # the summary's line for the best variant: the building's (lowest space's) levels
+    assert "Its EN 17037 levels (the lowest space): exposure to sunlight 0 none (0 h); " \
+           "view out 0 none." in html
+    notes = html.split('<section class="notes">')[1]
+    assert "EN 17037 exposure to sunlight" in notes and "EN 17037 view out" in notes
