@@ -261,3 +261,17 @@ def test_rank_and_report_read_the_space_results(building):
            "view out 0 none." in html
     notes = html.split('<section class="notes">')[1]
     assert "EN 17037 exposure to sunlight" in notes and "EN 17037 view out" in notes
+
+
+def test_an_open_view_ranks_as_the_longest_distance(room):
+    # nothing outside the room: the outside distance of view is infinite; as an objective
+    # it must still score (an infinite distance is at least as good as any other)
+    from luxsweep.sweep.rank import rank_table
+
+    ds, _ = room
+    assert np.isinf(ds["view_distance"].values).all()
+    table = rank_table(ds, {"prefer": [{"metric": "view_distance", "goal": "max"},
+                                       {"metric": "sunlight_hours", "goal": "max"}]})
+    best = table.iloc[0]
+    assert best["orientation"] == 180.0  # more sun on the equinox (pvlib check above)
+    np.testing.assert_allclose(table.sort_values("orientation")["score"], [0.5, 1.0])
