@@ -275,3 +275,31 @@ def test_an_open_view_ranks_as_the_longest_distance(room):
     best = table.iloc[0]
     assert best["orientation"] == 180.0  # more sun on the equinox (pvlib check above)
     np.testing.assert_allclose(table.sort_values("orientation")["score"], [0.5, 1.0])
+
+
+def test_space_value_is_met_from_three_quarters_of_its_positions():
+    # our own reading of EN 17037 (the view of the utilised area, from memory): a space has
+    # the largest value that at least 3/4 of its positions reach; counted by hand here
+    from luxsweep.kernels.view import ViewOut, space_view, view_positions
+
+    angles = np.array([60.0, 10.0, 30.0, 20.0, 50.0, 40.0, 70.0, 80.0, 90.0,  # space 0
+                       30.0, 30.0, 30.0, 5.0])  # space 1: 3 of 4 reach 30°
+    distance = np.array([np.inf] * 8 + [np.nan, 25.0, 25.0, 25.0, 25.0])
+    n = angles.size
+    view = ViewOut(angles, distance, np.ones(n, bool), np.ones(n, bool), np.ones(n, bool))
+    space = np.repeat([0, 1], [9, 4])
+    got = space_view(view, space, 3)
+    # space 0: 7 of 9 positions reach 30° (the sorted values from the top: 90 … 30);
+    # a position without view out counts as distance 0, so 8 of 9 reach inf
+    assert got.sight_angle.tolist() == [30.0, 30.0, 0.0]
+    assert got.distance.tolist() == [np.inf, 25.0, 0.0]  # space 2 has no positions: 0
+    # levels (EN 17037, from memory: 14/28/54°, 6/20/50 m) are those of the positions: in
+    # space 0 they are 3 (60°), 0 (10°), 2 (30°), 1 (20°), 2, 2, 3, 3 and 0 (no view out at
+    # 90°), so 7 of 9 reach level 1 only — lower than the level of its values (30°, inf);
+    # space 1: 30° and 25 m give medium at 3 of 4 positions
+    assert got.level.tolist() == [1, 2, 0] and got.layers.tolist() == [3, 3, 0]
+    # the nine positions: centres of a 3 × 3 cut of the floor, at eye height 1.2 m above it
+    p = view_positions(np.array([1.0, 2.0, 3.0]), np.array([4.0, 8.0, 6.0]))
+    assert p[:, 0].tolist() == [1.5, 2.5, 3.5] * 3
+    assert p[:, 1].tolist() == [3.0] * 3 + [5.0] * 3 + [7.0] * 3
+    assert (p[:, 2] == 4.2).all()
