@@ -303,3 +303,20 @@ def test_space_value_is_met_from_three_quarters_of_its_positions():
     assert p[:, 0].tolist() == [1.5, 2.5, 3.5] * 3
     assert p[:, 1].tolist() == [3.0] * 3 + [5.0] * 3 + [7.0] * 3
     assert (p[:, 2] == 4.2).all()
+
+
+def test_editing_the_sunlight_settings_changes_the_study_hash(tmp_path):
+    # a store begun with one sunlight day must not be finished with another (mixed results)
+    from luxsweep.sweep.config import load_study
+    from luxsweep.sweep.expand import expand, study_hash
+
+    hashes = []
+    for day in ("03-21", "02-01"):
+        study = write_tiny_study(tmp_path / day, transmittances=(0.7,), climates=("coastal",),
+                                 extra="metrics: [en17037, sunlight]\n"
+                                       f'sunlight: {{day: "{day}", min_altitude: 12}}\n')
+        loaded = load_study(study)
+        variants = expand(loaded)
+        hashes.append((study_hash(loaded, variants), list(variants.ids)))
+    assert hashes[0][0] != hashes[1][0]
+    assert hashes[0][1] == hashes[1][1]  # the variants themselves are the same
