@@ -801,10 +801,9 @@ def study_hash(loaded: StudyFile, variants: Sequence[Variant]) -> str:
     The variant ids (in store order), the axes, the metric families,
     ``store_series``, the ``sunlight`` settings when given and the version of the
     kernels that compute results (:data:`kernels.RESULTS_VERSION`, derived from
-    their sources), so a store is
-    never finished by code that computes differently from the code that began
-    it; not the study name or the ``rank`` section, so editing ranking criteria
-    keeps a store usable.
+    their sources), so a store is never finished by code that computes
+    differently from the code that began it; not the study name or the ``rank``
+    section, so editing ranking criteria keeps a store usable.
     """
     from luxsweep.kernels import RESULTS_VERSION
 
