@@ -42,10 +42,15 @@ from luxsweep.kernels.raytrace import Scene
 
 __all__ = [
     "DISTANCE_LEVELS",
+    "EYE_HEIGHT",
+    "POSITION_SHARE",
     "SIGHT_ANGLE_LEVELS",
+    "SpaceView",
     "ViewOut",
+    "space_view",
     "view_level",
     "view_out",
+    "view_positions",
 ]
 
 SIGHT_ANGLE_LEVELS = (14.0, 28.0, 54.0)
@@ -53,6 +58,14 @@ SIGHT_ANGLE_LEVELS = (14.0, 28.0, 54.0)
 
 DISTANCE_LEVELS = (6.0, 20.0, 50.0)
 """Outside distance of view [m] for EN 17037 view-out levels 1, 2, 3 (from memory)."""
+
+EYE_HEIGHT = 1.2
+"""Eye height [m] above the floor of a seated person (EN 17037:2018, from memory)."""
+
+POSITION_SHARE = 0.75
+"""Share of a space's view positions from which a view-out value must be met for the
+space to have it (EN 17037:2018 asks the view of the utilised area, from memory; the
+three-quarter share is our own reading)."""
 
 
 @dataclass(frozen=True)
@@ -158,3 +171,97 @@ def view_level(view: ViewOut) -> np.ndarray:
                                     side="right"))
     layers = np.where(view.landscape, view.layers, 0)
     return np.minimum(np.minimum(angle, dist), layers).astype(np.int8)
+
+
+def view_positions(lo: np.ndarray, hi: np.ndarray, eye_height: float = EYE_HEIGHT,
+                   n: int = 3) -> np.ndarray:
+    """View positions of a box space: an ``n`` × ``n`` plan grid at eye height.
+
+    The floor ``[lo, hi]`` is cut into ``n`` × ``n`` equal cells and each cell's
+    centre is a position (``n = 3``: at 1/6, 1/2 and 5/6 of the width and the
+    depth), so the positions cover the space evenly and none stands on a wall
+    (our own choice of positions, common practice for a room-wide check).
+
+    Parameters
+    ----------
+    lo, hi : ndarray (3,) [m]
+        Interior box corners of the space (building frame); ``lo[2]`` is the floor.
+    eye_height : float [m]
+        Above the floor.
+    n : int
+        Positions per side.
+
+    Returns
+    -------
+    ndarray (n * n, 3) [m]
+        Building frame, x fastest.
+    """
+    lo, hi = np.asarray(lo, dtype=np.float64), np.asarray(hi, dtype=np.float64)
+    f = (np.arange(n) + 0.5) / n
+    x = lo[0] + f * (hi[0] - lo[0])
+    y = lo[1] + f * (hi[1] - lo[1])
+    xx, yy = np.meshgrid(x, y)
+    return np.column_stack([xx.ravel(), yy.ravel(), np.full(xx.size, lo[2] + eye_height)])
+
+
+@dataclass(frozen=True)
+class SpaceView:
+    """View out of each space: the values met from :data:`POSITION_SHARE` of its positions.
+
+    Attributes
+    ----------
+    sight_angle : ndarray (k,) [deg]
+    distance : ndarray (k,) [m]
+        inf: nothing in the way; 0: no view out from those positions.
+    layers : ndarray (k,) int8
+        Layers seen (0–3).
+    level : ndarray (k,) int8
+        EN 17037 view-out level (0–3) met from that share of positions.
+    """
+
+    sight_angle: np.ndarray
+    distance: np.ndarray
+    layers: np.ndarray
+    level: np.ndarray
+
+
+def _met_by_share(values: np.ndarray, share: float) -> float:
+    """The largest v such that at least ``share`` of ``values`` are ≥ v."""
+    ordered = np.sort(np.asarray(values, dtype=np.float64))[::-1]
+    return float(ordered[int(np.ceil(share * ordered.size - 1e-9)) - 1])
+
+
+def space_view(view: ViewOut, space: np.ndarray, n_spaces: int,
+               share: float = POSITION_SHARE) -> SpaceView:
+    """View out of each space from that of its positions.
+
+    Each quantity of a space is the largest value met or exceeded from at least
+    ``share`` of its positions (with 9 positions and 3/4: from 7 of them); a
+    position without view out has distance 0. The level is likewise the level of
+    the positions (:func:`view_level`), not the level of the space's values.
+
+    Parameters
+    ----------
+    view : ViewOut
+        Of every position.
+    space : ndarray (m,) int
+        Space of each position, 0 … ``n_spaces`` − 1.
+    n_spaces : int
+    share : float
+        In (0, 1].
+
+    Returns
+    -------
+    SpaceView
+        A space without positions has 0 everywhere.
+    """
+    space = np.asarray(space)
+    level = view_level(view)
+    distance = np.where(np.isnan(view.distance), 0.0, view.distance)
+    out = np.zeros((4, n_spaces))
+    for k in range(n_spaces):
+        mine = space == k
+        if mine.any():
+            out[:, k] = [_met_by_share(q[mine], share)
+                         for q in (view.sight_angle, distance, view.layers, level)]
+    return SpaceView(out[0], out[1], out[2].astype(np.int8), out[3].astype(np.int8))

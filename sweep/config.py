@@ -42,6 +42,12 @@ Extensions to CONTRACT.md §1 (all optional; documented on the models below):
   ``occupied`` and a per-space ``grid``) and top-level ``obstructions:``
   instead of ``room:``; for a mesh, ``mesh_spaces:`` (:class:`MeshSpace`: a
   name and the OBJ floor groups it owns) instead of ``grid.floors``.
+- ``sunlight:`` the EN 17037 exposure-to-sunlight settings (:class:`Sunlight`:
+  the day, 1 February to 21 March, and the minimum sun altitude of the site),
+  needed when ``metrics:`` lists ``sunlight``; not varied, out of the variant hash.
+- ``metrics:`` may also list the opt-in families ``sunlight`` and ``view_out``
+  (EN 17037 exposure to sunlight and view out, per space; parametric rooms and
+  buildings only). Left out, ``metrics:`` is the five default families.
 """
 
 from __future__ import annotations
@@ -101,6 +107,7 @@ __all__ = [
     "Space",
     "Study",
     "StudyFile",
+    "Sunlight",
     "WeatherFile",
     "Window",
     "canonical_json",
@@ -119,7 +126,7 @@ METRIC_FAMILIES = registry.FAMILIES
 # Top-level keys that describe the sweep or the store layout rather than a
 # variant: they cannot be varied, and they stay out of a variant's hash.
 NOT_VARIABLE = ("name", "vary", "vary_together", "exclude", "rank", "metrics", "store_series",
-                "climates", "labels", "project")
+                "climates", "labels", "project", "sunlight")
 
 _NAME = re.compile(r"^[A-Za-z0-9_-]+$")
 _CLOCK = re.compile(r"^(([01]\d|2[0-3]):[0-5]\d|24:00)$")
@@ -460,6 +467,49 @@ class Occupancy(_Model):
         return v
 
 
+_MONTH_DAY = re.compile(r"^(\d\d)-(\d\d)$")
+
+
+class Sunlight(_Model):
+    """Extension ``sunlight:``: EN 17037 exposure to sunlight (``metrics: [..., sunlight]``).
+
+    ``day`` is "MM-DD" between 1 February and 21 March (EN 17037:2018, from
+    memory), default "03-21"; ``min_altitude`` [deg] is the sun altitude below
+    which the sun does not count: one value, or one per climate label (the
+    climates of a study may lie at different latitudes). The standard tabulates
+    it by site latitude in a national-annex table that luxsweep does not
+    reproduce, so it has no default: a study that asks for sunlight must give it.
+    """
+
+    day: str = "03-21"
+    min_altitude: float | dict[str, float]
+
+    @field_validator("day", mode="before")
+    @classmethod
+    def _day(cls, v: Any) -> Any:
+        match = _MONTH_DAY.match(str(v))
+        month, day = (int(match.group(1)), int(match.group(2))) if match else (0, 0)
+        if not match or not ((month == 2 and 1 <= day <= 28) or (month == 3 and 1 <= day <= 21)):
+            raise ValueError(f"day must be \"MM-DD\" (quoted) between \"02-01\" and \"03-21\" "
+                             f"(EN 17037 takes a day from 1 February to 21 March), got {v!r}")
+        return str(v)
+
+    @field_validator("min_altitude")
+    @classmethod
+    def _min_altitude(cls, v: float | dict[str, float]) -> float | dict[str, float]:
+        for label, value in (v.items() if isinstance(v, dict) else [("", v)]):
+            if not 0.0 <= value <= 45.0:
+                where = f" for climate '{label}'" if label else ""
+                raise ValueError(f"min_altitude{where} is a sun altitude in degrees from 0 to "
+                                 f"45 (the standard's value for the site's latitude), got {value}")
+        return v
+
+    def altitude(self, climate: str) -> float:
+        """Minimum sun altitude [deg] for the climate labelled ``climate``."""
+        m = self.min_altitude
+        return float(m[climate] if isinstance(m, dict) else m)
+
+
 class Project(_Model):
     """Extension ``project:``: what the report's cover names (presentation only).
 
@@ -726,8 +776,10 @@ class Study(_Model):
     vary: dict[str, list[Any]] = {}
     vary_together: list[dict[str, list[Any]]] = []
     exclude: list[dict[str, Any]] = []
-    metrics: list[Literal[METRIC_FAMILIES]] = list(METRIC_FAMILIES)  # type: ignore[valid-type]
+    metrics: list[Literal[METRIC_FAMILIES]] = list(  # type: ignore[valid-type]
+        registry.DEFAULT_FAMILIES)
     metric_options: MetricOptions = MetricOptions()
+    sunlight: Sunlight | None = None
     compute: Compute = Compute()
     store_series: bool = False
     rank: Rank | None = None
@@ -891,7 +943,8 @@ class Study(_Model):
         return data
 
 
-_LATER_KEYS: dict[str, Any] = {"spaces": None, "obstructions": [], "mesh_spaces": None}
+_LATER_KEYS: dict[str, Any] = {"spaces": None, "obstructions": [], "mesh_spaces": None,
+                               "sunlight": None}
 """Study keys left out of the canonical form when at their default (see Study.canonical)."""
 
 _LATER_COMPUTE_KEYS = ("max_elements", "memory_limit", "target_error")
@@ -953,6 +1006,7 @@ def cross_check(study: Study) -> list[tuple[tuple, str]]:
         elif study.sensors is None and study.grid.floors is None:
             problems.append((("grid",), "a mesh room needs 'grid: {floors: [group, ...]}', "
                              "'mesh_spaces:' or 'sensors: points.csv'"))
+    problems += _geometry_family_problems(study)
     for i, req in enumerate(study.rank.require if study.rank else []):
         if req.at_least is None and req.at_most is None:
             problems.append((("rank", "require", i), "give 'at_least' or 'at_most'"))
@@ -963,6 +1017,39 @@ def cross_check(study: Study) -> list[tuple[tuple, str]]:
                 problems.append(((("rank", part, i, "metric")),
                                  f"'{item.metric}' is computed by the metric family "
                                  f"'{family}', which is not listed under 'metrics'; add it"))
+    return problems
+
+
+def _geometry_family_problems(study: Study) -> list[tuple[tuple, str]]:
+    """The EN 17037 sunlight and view-out families: a parametric room or building (their
+    window reference points and view positions come from its boxes and windows), and
+    the ``sunlight:`` settings when sunlight is asked for."""
+    problems: list[tuple[tuple, str]] = []
+    for i, family in enumerate(study.metrics):
+        if family in registry.GEOMETRY_FAMILIES and study.mesh is not None:
+            problems.append((("metrics", i), f"'{family}' (EN 17037) needs a parametric "
+                             "'room:' or 'spaces:' study: a mesh has no window reference "
+                             "points or view positions luxsweep can place; remove it from "
+                             "'metrics'"))
+    if "sunlight" in study.metrics and study.sunlight is None:
+        i = study.metrics.index("sunlight")
+        problems.append((("metrics", i), "'sunlight' needs a 'sunlight:' section with the "
+                         "minimum sun altitude of the site, e.g. 'sunlight: {day: \"03-21\", "
+                         "min_altitude: 12}' (EN 17037 tabulates it by latitude)"))
+    altitudes = study.sunlight.min_altitude if study.sunlight is not None else None
+    if isinstance(altitudes, dict):
+        for label in study.climates:
+            if label not in altitudes:
+                problems.append((("sunlight", "min_altitude"), f"no minimum sun altitude for "
+                                 f"climate '{label}'; give one per climate label "
+                                 f"({', '.join(study.climates)}) or a single number"))
+        for label in altitudes:
+            if label not in study.climates:
+                problems.append((("sunlight", "min_altitude", label), f"'{label}' is not a "
+                                 f"climate label ({', '.join(study.climates)})"))
+    if study.sunlight is not None and "sunlight" not in study.metrics:
+        problems.append((("sunlight",), "'sunlight:' settings are given but 'metrics' does "
+                         "not list 'sunlight'; add it to 'metrics' or remove the section"))
     return problems
 
 
@@ -1426,8 +1513,13 @@ _SCHEMA_TEXT: dict[str, tuple[str, dict[str, str]]] = {
                              "values, and so on) instead of in every combination.",
             "exclude": "Partial assignments of varied paths to values; a variant that "
                        "matches every entry of one of them is left out.",
-            "metrics": f"Metric families to compute: {', '.join(METRIC_FAMILIES)}.",
+            "metrics": f"Metric families to compute: {', '.join(METRIC_FAMILIES)}. "
+                       "sunlight and view_out (EN 17037 exposure to sunlight and view out, "
+                       "per space) are computed only when listed; left out, the list is "
+                       f"{', '.join(registry.DEFAULT_FAMILIES)}.",
             "metric_options": "Thresholds of the metrics.",
+            "sunlight": "EN 17037 exposure to sunlight: the day and the minimum sun "
+                        "altitude. Needed when metrics lists sunlight.",
             "compute": "Ray-tracing settings; they change the daylight coefficients, so a "
                        "change recomputes them.",
             "store_series": "Also keep the annual illuminance of every sensor and occupied "
@@ -1598,6 +1690,18 @@ _SCHEMA_TEXT: dict[str, tuple[str, dict[str, str]]] = {
             "start": "Start of the occupied period, \"HH:MM\" (quoted).",
             "end": "End of the occupied period, \"HH:MM\" (quoted), after the start.",
             "days": "weekdays (Monday to Friday) or all.",
+        },
+    ),
+    "Sunlight": (
+        "EN 17037 exposure to sunlight: hours of possible sunlight on one day at a "
+        "reference point on each window of a space, counting the sun only above a minimum "
+        "altitude.",
+        {
+            "day": "The day, \"MM-DD\" (quoted), from \"02-01\" to \"03-21\".",
+            "min_altitude": "Sun altitude in degrees below which the sun does not count: "
+                            "the value the standard gives for the site's latitude. One "
+                            "number, or one per climate label when the climates lie at "
+                            "different latitudes.",
         },
     ),
     "MetricOptions": (

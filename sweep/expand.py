@@ -799,11 +799,11 @@ def study_hash(loaded: StudyFile, variants: Sequence[Variant]) -> str:
     """Hash of what fixes a results store's layout and contents.
 
     The variant ids (in store order), the axes, the metric families,
-    ``store_series`` and the version of the kernels that compute results
-    (:data:`kernels.RESULTS_VERSION`, derived from their sources), so a store is
-    never finished by code that computes differently from the code that began
-    it; not the study name or the ``rank`` section, so editing ranking criteria
-    keeps a store usable.
+    ``store_series``, the ``sunlight`` settings when given and the version of the
+    kernels that compute results (:data:`kernels.RESULTS_VERSION`, derived from
+    their sources), so a store is never finished by code that computes
+    differently from the code that began it; not the study name or the ``rank``
+    section, so editing ranking criteria keeps a store usable.
     """
     from luxsweep.kernels import RESULTS_VERSION
 
@@ -816,6 +816,8 @@ def study_hash(loaded: StudyFile, variants: Sequence[Variant]) -> str:
         "store_series": study.store_series,
         "results_version": RESULTS_VERSION,
     }
+    if study.sunlight is not None:  # EN 17037 sunlight settings (not in the variant ids)
+        payload["sunlight"] = study.sunlight.model_dump(mode="json")
     # the canonical JSON of the payload with the list of ids, hashed piece by piece
     # (ids are hex digits: their JSON is the quoted text)
     head, tail = canonical_json(payload).split(canonical_json("\x00"))

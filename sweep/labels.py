@@ -197,6 +197,12 @@ _SHORT = {
     "daylight_factor_mean": "daylight factor, mean",
     "daylight_autonomy_mean": "daylight autonomy, mean",
     "en17037_level": "EN 17037 level",
+    "sunlight_hours": "sunlight hours",
+    "sunlight_level": "sunlight level",
+    "view_angle": "sight angle",
+    "view_distance": "view distance",
+    "view_layers": "view layers",
+    "view_level": "view-out level",
 }
 
 
@@ -222,7 +228,7 @@ def display_unit(metric: str) -> tuple[float, str]:
 
     metric = scoped_metric(metric)[0]
     entry = METRICS.get(metric)
-    if entry is None or metric == "en17037_level":
+    if entry is None or entry.display == "0–3":  # levels and layer counts
         return 1.0, ""
     return (100.0, "%") if entry.share else (1.0, entry.unit)
 
@@ -243,9 +249,11 @@ def metric_heading(metric: str, options: Mapping[str, Any] | None = None) -> str
 
 
 def metric_text(metric: str, value: Any) -> str:
-    """A stored metric value as shown (percent for shares, EN 17037 level in words)."""
+    """A stored metric value as shown (percent for shares, EN 17037 levels in words)."""
+    from luxsweep.sweep.registry import LEVEL_METRICS
+
     metric = scoped_metric(metric)[0]
-    if metric == "en17037_level":
+    if metric in LEVEL_METRICS:
         return en17037_text(value)
     try:
         return format_number(float(value) * display_unit(metric)[0])

@@ -388,9 +388,14 @@ def pareto_front(values: np.ndarray, goals: list[str] | tuple[str, ...]) -> np.n
 
 
 def _normalised(values: np.ndarray, goal: str) -> np.ndarray:
-    lo, hi = np.nanmin(values), np.nanmax(values)
-    if not np.isfinite(hi - lo):
-        return np.full(values.shape, np.nan)
+    """Objective values scaled to 0–1 (1 best) over their finite range; an infinite value
+    (an outside distance of view with nothing in the way) counts as the end of the range
+    it lies beyond; NaN stays NaN."""
+    finite = values[np.isfinite(values)]
+    if finite.size == 0:
+        return np.where(np.isnan(values), np.nan, 1.0)
+    lo, hi = finite.min(), finite.max()
+    values = np.clip(values, lo, hi)
     if hi == lo:
         return np.where(np.isnan(values), np.nan, 1.0)
     n = (values - lo) / (hi - lo)
@@ -616,7 +621,8 @@ def open_store(results: str | Path) -> xr.Dataset:
     return ds
 
 
-MAIN_METRICS = ("sda", "ase", "udi_useful_mean", "daylight_factor_mean", "en17037_level")
+MAIN_METRICS = ("sda", "ase", "udi_useful_mean", "daylight_factor_mean", "en17037_level",
+                "sunlight_level", "view_level")
 """What ``luxsweep rank`` shows when the study's rank section names no metric."""
 
 

@@ -19,7 +19,8 @@ Unit convention
 - In the store, shares of time and of sensors are fractions 0–1 (unit ``"1"``),
   except the shares CONTRACT.md fixes as percentages: ``sda``, ``ase`` and the
   daylight factor (``"%"``). Hours are ``"h"``, illuminance ``"lx"``, light
-  exposure ``"lx·h"`` (middle dot, the only spelling).
+  exposure ``"lx·h"`` (middle dot, the only spelling), angles ``"deg"``,
+  distances ``"m"``; EN 17037 levels and layer counts ``"1"`` (shown ``0–3``).
 - Numbers a user compares with ranking criteria (``rank:`` bounds, the rank
   table and its CSV) are in store units; the table header names the unit
   (``[0–1]``, ``[%]``, ``[h]``). The report's room plans show time shares in
@@ -47,8 +48,11 @@ from dataclasses import dataclass
 from typing import Any, Literal
 
 __all__ = [
+    "DEFAULT_FAMILIES",
     "DEFAULT_THRESHOLDS",
     "FAMILIES",
+    "GEOMETRY_FAMILIES",
+    "LEVEL_METRICS",
     "METRICS",
     "RENAMED_OPTIONS",
     "SPACE_PREFIX",
@@ -72,8 +76,17 @@ __all__ = [
     "variant_metrics",
 ]
 
-FAMILIES: tuple[str, ...] = ("daylight_factor", "daylight_autonomy", "udi", "sda_ase", "en17037")
-"""Metric families a study lists under ``metrics:`` (CONTRACT.md §1), in store order."""
+DEFAULT_FAMILIES: tuple[str, ...] = ("daylight_factor", "daylight_autonomy", "udi", "sda_ase",
+                                     "en17037")
+"""The metric families of a study whose ``metrics:`` list is left out (CONTRACT.md §1)."""
+
+GEOMETRY_FAMILIES: tuple[str, ...] = ("sunlight", "view_out")
+"""Opt-in families of EN 17037 results that depend on geometry and the sun's path only
+(exposure to sunlight, view out): computed per space by :mod:`sweep.run` from
+:mod:`kernels.sunlight` and :mod:`kernels.view`, never by default."""
+
+FAMILIES: tuple[str, ...] = DEFAULT_FAMILIES + GEOMETRY_FAMILIES
+"""Metric families a study may list under ``metrics:``, in store order."""
 
 
 @dataclass(frozen=True)
@@ -205,7 +218,42 @@ _ENTRIES: tuple[Metric, ...] = (
            "EN 17037 daylight provision level",
            "EN 17037 daylight provision level: 0 none, 1 minimum, 2 medium, 3 high",
            rank=True, display="0–3"),
+    # EN 17037 exposure to sunlight (kernels.sunlight); building = the lowest occupied space
+    Metric("sunlight_hours", "sunlight", "variant", "float32", "h",
+           "EN 17037 sunlight hours",
+           "EN 17037 hours of possible sunlight on the chosen day at the best window "
+           "reference point (building: the fewest among the occupied spaces)",
+           source="engine", rank=True),
+    Metric("sunlight_level", "sunlight", "variant", "int8", "1",
+           "EN 17037 sunlight level",
+           "EN 17037 exposure to sunlight level: 0 none, 1 minimum, 2 medium, 3 high "
+           "(building: the lowest occupied space)", source="engine", rank=True,
+           display="0–3"),
+    # EN 17037 view out (kernels.view); a space's value is the one met from 3/4 of its
+    # view positions, the building's the lowest occupied space's
+    Metric("view_angle", "view_out", "variant", "float32", "deg",
+           "EN 17037 horizontal sight angle",
+           "EN 17037 horizontal sight angle of the view out, met from three quarters of the "
+           "view positions (building: the lowest occupied space)", source="engine", rank=True),
+    Metric("view_distance", "view_out", "variant", "float32", "m",
+           "EN 17037 outside distance of view",
+           "EN 17037 outside distance of view (median over the sight angle; inf: nothing in "
+           "the way; 0: no view out), met from three quarters of the view positions "
+           "(building: the lowest occupied space)", source="engine", rank=True),
+    Metric("view_layers", "view_out", "variant", "int8", "1",
+           "EN 17037 view layers seen",
+           "EN 17037 layers of the view seen (sky, landscape, ground; 0-3), met from three "
+           "quarters of the view positions (building: the lowest occupied space)",
+           source="engine", rank=True, display="0–3"),
+    Metric("view_level", "view_out", "variant", "int8", "1",
+           "EN 17037 view-out level",
+           "EN 17037 view out level: 0 none, 1 minimum, 2 medium, 3 high, met from three "
+           "quarters of the view positions (building: the lowest occupied space)",
+           source="engine", rank=True, display="0–3"),
 )
+
+LEVEL_METRICS: tuple[str, ...] = ("en17037_level", "sunlight_level", "view_level")
+"""Results that are EN 17037 levels (0 none, 1 minimum, 2 medium, 3 high), shown in words."""
 
 METRICS: dict[str, Metric] = {m.name: m for m in _ENTRIES}
 """Every result by name, families in :data:`FAMILIES` order."""

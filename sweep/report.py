@@ -106,6 +106,8 @@ from luxsweep.sweep.rank import (
 
 __all__ = [
     "CAUTION",
+    "GEOMETRY_COLUMNS",
+    "GEOMETRY_NOTES",
     "NOTES",
     "PLAN_METRICS",
     "build_report",
@@ -295,6 +297,7 @@ def _summary(ds: xr.Dataset, study: dict, source: str | None, table: pd.DataFram
             lead = "First variant"
         findings.append(f"{lead}: <strong>{_esc(_name_of(best, axes, labels))}</strong>"
                         + (f" — {_esc(values)}." if values else "."))
+        findings += _geometry_line(ds, int(best["variant"]))
     rows = [
         ("Study", study.get("name") or ds.attrs.get("study_name", "(unnamed)")),
         ("Variants", f"{int(done.sum()):,} of {done.size:,} computed"
@@ -1292,6 +1295,54 @@ def _unit(metric: str) -> str:
     return f" {unit}" if unit and metric != "en17037_level" else ""
 
 
+GEOMETRY_COLUMNS = ("sunlight_hours", "sunlight_level", "view_angle", "view_level")
+"""EN 17037 sunlight and view-out results the table of spaces adds when the store has them."""
+
+GEOMETRY_NOTES = {
+    "sunlight_level": (
+        "EN 17037 exposure to sunlight",
+        "Hours of possible sunlight on the study's chosen day (1 February to 21 March) at a "
+        "reference point on the inner face of each outside wall window of a space, counting "
+        "the sun only above the study's minimum altitude and only when no surface (reveal, "
+        "overhang, obstruction, other space) hides it; weather plays no part. A space takes "
+        "its best window. Levels: minimum 1.5 h, medium 3 h, high 4 h (EN 17037:2018, "
+        "values from memory). A space without an outside wall window has 0 h (roof windows "
+        "and internal openings are not reference points). The building takes its lowest "
+        "space."),
+    "view_level": (
+        "EN 17037 view out",
+        "From nine positions at seated eye height (1.2 m) spread over each space: the "
+        "horizontal sight angle through outside windows, the outside distance of view and "
+        "the layers seen (sky, landscape, ground). Levels: sight angle 14°/28°/54°, distance "
+        "6/20/50 m, and the landscape layer (minimum), one more layer (medium), all three "
+        "(high) (EN 17037:2018, values from memory); a space has what three quarters of "
+        "its positions have (our own reading). The building takes its lowest space."),
+}
+"""Notes on the EN 17037 sunlight and view-out results, shown when the store has them."""
+
+
+def _geometry_line(ds: xr.Dataset, v: int) -> list[str]:
+    """The EN 17037 sunlight and view-out results of variant ``v`` (building: lowest
+    space), as one summary line; none when the store lacks them."""
+    parts = []
+    if "sunlight_level" in ds.data_vars:
+        level = metric_text("sunlight_level", ds["sunlight_level"].values[v])
+        hours = format_number(float(ds["sunlight_hours"].values[v]))
+        parts.append(f"exposure to sunlight {level} ({hours} h)")
+    if "view_level" in ds.data_vars:
+        parts.append(f"view out {metric_text('view_level', ds['view_level'].values[v])}")
+    if not parts:
+        return []
+    return [f"Its EN 17037 levels (the lowest space): {_esc('; '.join(parts))}."]
+
+
+def _geometry_notes(ds: xr.Dataset) -> str:
+    """Definitions of the EN 17037 sunlight and view-out results the store holds."""
+    items = [f"<dt>{_esc(title)}</dt><dd>{_esc(text)}</dd>"
+             for name, (title, text) in GEOMETRY_NOTES.items() if name in ds.data_vars]
+    return f"<dl>{''.join(items)}</dl>" if items else ""
+
+
 def _space_table(ds: xr.Dataset, table: pd.DataFrame, spec: RankSpec, labels: dict[str, str],
                  options: dict | None = None) -> str:
     """The building total first, then every space, for the top variants side by side."""
@@ -1301,6 +1352,7 @@ def _space_table(ds: xr.Dataset, table: pd.DataFrame, spec: RankSpec, labels: di
         return '<p class="note">No variant has finished yet.</p>'
     metrics = [m for m in (spec.metrics or ["sda", "ase", "udi_useful_mean"])
                if f"space_{m}" in ds.data_vars]
+    metrics += [m for m in GEOMETRY_COLUMNS if f"space_{m}" in ds.data_vars and m not in metrics]
     axes = axes_of(ds)
     spaced = [r for r in spec.require if r.spaces is not None]
     head = ["Space", "Grid area [m²]"] + [
@@ -1315,8 +1367,9 @@ def _space_table(ds: xr.Dataset, table: pd.DataFrame, spec: RankSpec, labels: di
     building = []
     total_criteria = [r for r in spec.require if r.spaces is None]
     for _, row in done.iterrows():
-        values = [f"{_short(m, options)} {metric_text(m, row.get(m))}{_unit(m)}"
-                  for m in metrics]
+        values = [f"{_short(m, options)} "
+                  f"{metric_text(m, row[m] if m in row else ds[m].values[int(row['variant'])])}"
+                  f"{_unit(m)}" for m in metrics]
         missed = [r for r in total_criteria if r.label in str(row["failed"]).split("; ")]
         verdict = ("" if not total_criteria else
                    '<span class="fail">✗ misses ' + _esc("; ".join(
@@ -1470,7 +1523,8 @@ def build_report(ds: xr.Dataset, source: str | None = None, paper: str | None = 
          ("maps", "Daylight across the room for the top variants",
           _plan_maps(ds, table, study))),
         ("hourly", "Hour by hour at one point", _hourly_map(ds, table, study)),
-        ("notes", "What the metrics mean", NOTES.format(**registry.thresholds(_options(ds)))),
+        ("notes", "What the metrics mean",
+         NOTES.format(**registry.thresholds(_options(ds))) + _geometry_notes(ds)),
     ]
     body = "".join(f'<section class="{k}"><h2>{_esc(t)}</h2>{c}</section>'
                    for k, t, c in sections)

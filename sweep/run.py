@@ -42,6 +42,7 @@ from __future__ import annotations
 
 import contextlib
 import dataclasses
+import datetime as dt
 import functools
 import hashlib
 import itertools
@@ -87,7 +88,7 @@ from luxsweep.sweep.errors import (
     UserInputError,
     VariantFailedError,
 )
-from luxsweep.sweep.plan import CoefficientJob, Plan, SeriesTask, make_plan
+from luxsweep.sweep.plan import CoefficientJob, Plan, SeriesTask, build_geometry, make_plan
 from luxsweep.sweep.preflight import Transport, preflight
 from luxsweep.sweep.progress import PLAIN_EVERY, Progress
 from luxsweep.sweep.registry import space_variables, store_variables
@@ -461,7 +462,7 @@ def series_task(
 class _StageTimer:
     """Wall time [s] per stage of a series task: ``with timer("sky"): ...`` adds to ``sky``."""
 
-    STAGES = ("load", "sky", "illuminance", "metrics", "write")
+    STAGES = ("load", "sky", "illuminance", "metrics", "geometry", "write")
 
     def __init__(self) -> None:
         self.seconds = dict.fromkeys(self.STAGES, 0.0)
@@ -669,6 +670,73 @@ def _final_results(inp: _SeriesInputs, counts: Any) -> dict[str, np.ndarray]:
     return results
 
 
+SUNLIGHT_STEP = 1.0
+"""Step [min] of the sun's path on the EN 17037 sunlight day (kernels.sunlight)."""
+
+VIEW_STEPS = (0.5, 2.0)
+"""Horizontal fan step and layer-ray step [deg] of the view-out rays (kernels.view)."""
+
+
+def _geometry_results(inp: _SeriesInputs, job: CoefficientJob | None) -> dict[str, np.ndarray]:
+    """EN 17037 exposure to sunlight and view out of the task's occupied spaces, for the
+    families ``sunlight`` and ``view_out`` the study lists (none: empty).
+
+    Geometry and the sun's path only: the same for every glazing row; sunlight per
+    orientation (the day's sun path from the weather file's site, turned into the
+    building frame), view out the same for every orientation. Per space
+    ``space_<name>`` (n_o, n_r, n_spaces) and for the building ``<name>`` (n_o, n_r):
+    the lowest occupied space's value (a space without an outside wall window has
+    0 h, no view out and level 0).
+    """
+    study = inp.task.study
+    families = [f for f in study.metrics if f in registry.GEOMETRY_FAMILIES]
+    if not families:
+        return {}
+    from luxsweep.kernels.raytrace import Scene
+
+    geometry = job.geometry if job is not None else build_geometry(study)[0]
+    names = inp.layout.names
+    index = np.array([geometry.space_names.index(n) for n in names], dtype=np.intp)
+    scene = Scene(geometry)
+    orientations = inp.task.orientations
+    shape = (len(orientations), len(inp.task.rows), len(names))
+    results: dict[str, np.ndarray] = {}
+
+    def keep(name: str, per_space: np.ndarray) -> None:  # (n_o, n_spaces)
+        dtype = registry.METRICS[name].dtype
+        space = np.broadcast_to(np.asarray(per_space)[:, None, :], shape).astype(dtype)
+        results[registry.SPACE_PREFIX + name] = space
+        results[name] = space.min(axis=-1)
+
+    if "sunlight" in families:
+        from luxsweep.kernels import sunlight as ks
+        from luxsweep.kernels.climate import REFERENCE_YEAR
+
+        month, day = (int(v) for v in study.sunlight.day.split("-"))
+        altitude, azimuth = ks.sun_path(inp.climate.site, dt.date(REFERENCE_YEAR, month, day),
+                                        SUNLIGHT_STEP)
+        windows = ks.window_reference_points(geometry)
+        hours = np.stack([ks.sunlight_hours(scene, windows.points, windows.normals, altitude,
+                                            azimuth, o, study.sunlight.altitude(inp.task.climate),
+                                            SUNLIGHT_STEP) for o in orientations])
+        per_space = ks.space_sunlight_hours(hours, windows.space,
+                                            len(geometry.space_names))[:, index]
+        keep("sunlight_hours", per_space)
+        keep("sunlight_level", ks.sunlight_level(per_space))
+    if "view_out" in families:
+        from luxsweep.kernels import view as kv
+
+        boxes = geometry.space_boxes[index]
+        positions = [kv.view_positions(lo, hi) for lo, hi in boxes]
+        owner = np.repeat(np.arange(len(names)), [len(p) for p in positions])
+        view = kv.space_view(kv.view_out(scene, np.concatenate(positions), *VIEW_STEPS),
+                             owner, len(names))
+        for name, values in (("view_angle", view.sight_angle), ("view_distance", view.distance),
+                             ("view_layers", view.layers), ("view_level", view.level)):
+            keep(name, np.broadcast_to(values[None], (len(orientations), len(names))))
+    return results
+
+
 def _series(
     task: SeriesTask,
     todo: list[tuple[int, int, int]],
@@ -684,7 +752,8 @@ def _series(
     in exactly one stage): load (:func:`_load_series`), then per time block sky
     vectors, illuminance and metric counts (:func:`_count_block`) and, with
     ``store_series``, the series (:func:`_write_series`); finally the metrics
-    (:func:`_final_results`) and the variants' results.
+    (:func:`_final_results`), the EN 17037 sunlight and view-out results when
+    listed (:func:`_geometry_results`, stage ``geometry``) and the variants' results.
     """
     timer = _StageTimer()
     with timer("load"):
@@ -706,6 +775,8 @@ def _series(
         del unit  # the block's direct-sun array is fresh memory: free it before the next
     with timer("metrics"):
         results = _final_results(inp, counts)
+    with timer("geometry"):
+        results.update(_geometry_results(inp, job))
     with timer("write"):
         _, ois, ris = members
         sensor_vars, variant_vars = store_variables(list(task.study.metrics))

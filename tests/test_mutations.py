@@ -16,11 +16,12 @@ import textwrap
 
 import pytest
 import test_building
+import test_geometry_results
 import test_metrics
 import test_sky
 import test_space_results
 
-from luxsweep.kernels import metrics, raytrace, sky
+from luxsweep.kernels import metrics, raytrace, sky, view
 
 
 def mutate(monkeypatch: pytest.MonkeyPatch, module, name: str, old: str, new: str) -> None:
@@ -115,3 +116,12 @@ def test_an_area_weighted_building_sda_is_noticed(monkeypatch):
            'out["sda"] = area_weighted(spaces["sda"], area)')
     with pytest.raises(AssertionError):
         test_space_results.test_building_hand_example_pooled_weighted_lowest()
+
+
+def test_a_changed_share_of_view_positions_is_noticed(monkeypatch):
+    # a space's view value is met from 3/4 of its positions; taking the next position down
+    # (met from 8 of 9) must fail the hand count
+    test_geometry_results.test_space_value_is_met_from_three_quarters_of_its_positions()
+    mutate(monkeypatch, view, "_met_by_share", "- 1e-9)) - 1]", "- 1e-9))]")
+    with pytest.raises((AssertionError, IndexError)):
+        test_geometry_results.test_space_value_is_met_from_three_quarters_of_its_positions()

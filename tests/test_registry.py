@@ -43,7 +43,8 @@ def test_every_layer_reads_the_registry():
 
 def test_one_unit_convention():
     units = {m.unit for m in registry.METRICS.values()}
-    assert units <= {"1", "%", "h", "lx", "lx·h"}
+    # angles in degrees and distances in metres (EN 17037 view out) extend the set
+    assert units <= {"1", "%", "h", "lx", "lx·h", "deg", "m"}
     # CONTRACT.md §3: DA and UDI fractions 0–1, sDA / ASE / daylight factor in %
     for name in ("daylight_autonomy", "udi_low", "udi_supplementary", "udi_autonomous",
                  "udi_high", "udi_useful_mean"):
@@ -52,6 +53,8 @@ def test_one_unit_convention():
         assert registry.METRICS[name].unit == "%" and not registry.METRICS[name].share
     assert registry.display_unit("udi_useful_mean") == "0–1"
     assert registry.display_unit("en17037_level") == "0–3"
+    for name in registry.LEVEL_METRICS:  # EN 17037 levels: 0 none … 3 high
+        assert registry.METRICS[name].dtype == "int8" and registry.display_unit(name) == "0–3"
 
 
 def test_labels_follow_the_study_thresholds():
