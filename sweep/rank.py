@@ -376,7 +376,8 @@ def pareto_front(values: np.ndarray, goals: list[str] | tuple[str, ...]) -> np.n
         True for rows that no other row dominates (at least as good on every
         objective and strictly better on one). Equal rows are all kept.
     """
-    v = np.asarray(values, dtype=float).reshape(len(values), -1)
+    v = np.asarray(values, dtype=float)
+    v = v[:, None] if v.ndim == 1 else v
     sign = np.array([1.0 if g == "max" else -1.0 for g in goals])
     if v.shape[1] != sign.size:
         raise ValueError(f"{v.shape[1]} objective columns but {sign.size} goals")
@@ -481,7 +482,7 @@ def rank_table(ds: xr.Dataset, rank_spec: RankSpec | dict | None = None) -> pd.D
     pareto = np.zeros(n, bool)
     if spec.prefer and passes.any():
         objectives = np.stack([values[o.column] for o in spec.prefer], axis=1)
-        idx = np.flatnonzero(passes & np.isfinite(objectives).all(axis=1))
+        idx = np.flatnonzero(passes & ~np.isnan(objectives).any(axis=1))
         pareto[idx] = pareto_front(objectives[idx], [o.goal for o in spec.prefer])
     table["pareto"] = pareto
     table["status"] = np.where(~done, "incomplete", np.where(passes, "pass", "fail"))
