@@ -19,7 +19,8 @@ Unit convention
 - In the store, shares of time and of sensors are fractions 0–1 (unit ``"1"``),
   except the shares CONTRACT.md fixes as percentages: ``sda``, ``ase`` and the
   daylight factor (``"%"``). Hours are ``"h"``, illuminance ``"lx"``, light
-  exposure ``"lx·h"`` (middle dot, the only spelling).
+  exposure ``"lx·h"`` (middle dot, the only spelling), lighting energy per floor
+  area ``"kWh/m²"`` and its saving ``"%"``.
 - Numbers a user compares with ranking criteria (``rank:`` bounds, the rank
   table and its CSV) are in store units; the table header names the unit
   (``[0–1]``, ``[%]``, ``[h]``). The report's room plans show time shares in
@@ -47,6 +48,7 @@ from dataclasses import dataclass
 from typing import Any, Literal
 
 __all__ = [
+    "DEFAULT_FAMILIES",
     "DEFAULT_THRESHOLDS",
     "FAMILIES",
     "METRICS",
@@ -72,8 +74,14 @@ __all__ = [
     "variant_metrics",
 ]
 
-FAMILIES: tuple[str, ...] = ("daylight_factor", "daylight_autonomy", "udi", "sda_ase", "en17037")
-"""Metric families a study lists under ``metrics:`` (CONTRACT.md §1), in store order."""
+DEFAULT_FAMILIES: tuple[str, ...] = ("daylight_factor", "daylight_autonomy", "udi", "sda_ase",
+                                     "en17037")
+"""Metric families computed when a study gives no ``metrics:`` (CONTRACT.md §1)."""
+
+FAMILIES: tuple[str, ...] = (*DEFAULT_FAMILIES, "lighting")
+"""Metric families a study may list under ``metrics:``, in store order: the default
+ones, then the opt-in ones (``lighting``: electric lighting energy, needs the
+study's ``lighting:`` settings)."""
 
 
 @dataclass(frozen=True)
@@ -205,6 +213,16 @@ _ENTRIES: tuple[Metric, ...] = (
            "EN 17037 daylight provision level",
            "EN 17037 daylight provision level: 0 none, 1 minimum, 2 medium, 3 high",
            rank=True, display="0–3"),
+    # electric lighting with daylight-linked control (kernels.lighting)
+    Metric("lighting_energy", "lighting", "variant", "float32", "kWh/m²",
+           "electric lighting energy", "annual electric lighting energy per floor area with "
+           "daylight-linked control, occupied time (building: weighted by grid area)",
+           source="engine", rank=True),
+    Metric("lighting_saving", "lighting", "variant", "float32", "%",
+           "lighting energy saved by the control",
+           "annual electric lighting energy saved by the daylight-linked control against "
+           "the same lights without control (building: of the total energy)",
+           source="engine", rank=True),
 )
 
 METRICS: dict[str, Metric] = {m.name: m for m in _ENTRIES}
