@@ -1080,13 +1080,17 @@ def _lighting_problems(study: Study) -> list[tuple[tuple, str]]:
             if settings[key] is None:
                 problems.append((place, f"no '{key}' [{unit}] for space '{name}'; give it "
                                  "here or in the top-level 'lighting:'"))
-        dimming = settings["control"] in ("dimming", "dimming_off")
-        for block, where in ((study.lighting, ("lighting",)), (own, place)):
+        # dimming limits given beside a control that does not dim (a space's own
+        # control may differ from the top level's, whose limits then serve other spaces)
+        top = Lighting().over(study.lighting)["control"]
+        for block, where, control in ((study.lighting, ("lighting",), top),
+                                      (own, place, settings["control"])):
             for key in ("min_power", "min_light"):
-                if block is not None and getattr(block, key) is not None and not dimming:
+                if (block is not None and getattr(block, key) is not None
+                        and control not in ("dimming", "dimming_off")):
                     problems.append(((*where, key), f"'{key}' applies to a dimming control, "
-                                     f"but space '{name}' has control "
-                                     f"'{settings['control']}'; remove it or use dimming"))
+                                     f"but the control here is '{control}'; remove it or "
+                                     "use dimming"))
         point = settings["control_point"]
         if point == "median":
             continue
