@@ -196,6 +196,8 @@ _SHORT = {
     "daylight_factor_mean": "daylight factor, mean",
     "daylight_autonomy_mean": "daylight autonomy, mean",
     "en17037_level": "EN 17037 level",
+    "lighting_energy": "lighting energy",
+    "lighting_saving": "lighting saved",
 }
 
 

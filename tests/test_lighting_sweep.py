@@ -17,7 +17,6 @@ mocked. Definitions checked, each named beside its assertion:
 from __future__ import annotations
 
 import shutil
-import textwrap
 
 import numpy as np
 import pytest
@@ -113,7 +112,7 @@ def _recount(ds, v, k, sensors, control, target, min_power, min_light, tau, tau_
 
 
 def test_store_equals_a_recount_from_the_stored_series(store):
-    plan, ds = store
+    _, ds = store
     own = np.array([str(s) for s in ds.sensor_space.values])
     x, y = ds.x.values, ds.y.values
     df = ds.daylight_factor.values
@@ -147,6 +146,7 @@ def test_store_equals_a_recount_from_the_stored_series(store):
     # not vacuous: daylight saves energy, less at the higher target and the darker glass
     e = ds.space_lighting_energy.values
     assert np.all((e > 0.05 * full) & (e < 0.95 * full))
-    by = {(round(float(t), 2), float(g)): i for i, (t, g) in enumerate(zip(tau, target))}
+    pairs = zip(tau, target, strict=True)
+    by = {(round(float(t), 2), float(g)): i for i, (t, g) in enumerate(pairs)}
     assert e[by[(0.4, 300.0)]].sum() > e[by[(0.7, 300.0)]].sum()
     assert e[by[(0.7, 500.0)]].sum() > e[by[(0.7, 300.0)]].sum()
