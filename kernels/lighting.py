@@ -47,6 +47,7 @@ __all__ = [
     "power_fraction",
     "saving_percent",
     "shading_closed",
+    "shading_closed_scaled",
 ]
 
 CONTROLS = ("none", "on_off", "dimming", "dimming_off")
@@ -235,6 +236,51 @@ def shading_closed(direct_sun: np.ndarray, space: np.ndarray, sun_threshold: flo
     counts = np.rint(members @ sunlit).astype(np.int64)  # exact: sums of 0/1 below 2**24
     size = np.bincount(own, minlength=n_spaces).astype(np.int64)[:, None]
     return _share_more_than(counts, size, sensor_fraction)
+
+
+def shading_closed_scaled(direct_sun: np.ndarray, space: np.ndarray,
+                          transmittance: np.ndarray, sun_threshold: float = 1000.0,
+                          sensor_fraction: float = 0.02) -> np.ndarray:
+    """:func:`shading_closed` for variants that scale one unit-transmittance series.
+
+    The variants' direct sun is ``transmittance[v] × direct_sun`` (formed in the
+    series' precision, as :func:`kernels.timeseries.combine` forms it). A space's
+    shading closes when at least m = ⌊f·n⌋ + 1 of its n sensors exceed the
+    threshold (more than the share f, exactly); since fl(τ·x) never decreases as
+    x grows, that holds exactly when fl(τ·x_(m)) exceeds it, x_(m) being the
+    m-th largest unit value of the space in the step. So one partial sort per
+    space and step serves every variant, instead of one comparison per sensor
+    and variant.
+
+    Parameters
+    ----------
+    direct_sun : ndarray (..., n_steps, n_sensors) [lx]
+        Unit-transmittance direct sun, sensors last (the engine's layout).
+    space : ndarray (n_sensors,) of int
+    transmittance : ndarray (n_variants,)
+    sun_threshold, sensor_fraction : float
+        As in :func:`shading_closed`.
+
+    Returns
+    -------
+    ndarray of bool (..., n_variants, n_spaces, n_steps)
+        Identical to :func:`shading_closed` of the formed series (tested).
+    """
+    from luxsweep.kernels.metrics import _ratio
+
+    d = np.asarray(direct_sun)
+    own = np.asarray(space)
+    n_spaces = int(own.max()) + 1
+    num, den = _ratio(sensor_fraction)
+    tau = np.asarray(transmittance, dtype=d.dtype).reshape(-1, 1)
+    out = np.empty((*d.shape[:-2], tau.shape[0], n_spaces, d.shape[-2]), dtype=bool)
+    for k in range(n_spaces):
+        members = np.flatnonzero(own == k)
+        n = members.size
+        m = n * num // den + 1  # sensors above the threshold that close the shading
+        mth = np.partition(d[..., members], n - m, axis=-1)[..., n - m]  # (..., n_steps)
+        out[..., k, :] = mth[..., None, :] * tau > sun_threshold  # (..., n_variants, n_steps)
+    return out
 
 
 def control_daylight(total: np.ndarray, control_sensor: np.ndarray,

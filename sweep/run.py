@@ -715,9 +715,13 @@ def _lighting_block(inp: _SeriesInputs, state: _LightingState, a: int, b: int,
     e_open = combine(part, inp.open_rows).swapaxes(-1, -2)  # (n_o, n_r, n_used, n_sel)
     closed = e_shut = None
     if task.shading:
-        direct = combine(unit[1][:, :, sel], inp.open_rows).swapaxes(-1, -2)
-        closed = kl.shading_closed(direct, inp.layout.sensor_space, params.sun_threshold,
-                                   params.shading_sensor_fraction)
+        rule = (params.sun_threshold, params.shading_sensor_fraction)
+        if inp.n_sets == 1:  # the rows scale one series: one partial sort serves them all
+            closed = kl.shading_closed_scaled(unit[1][:, 0][:, sel], inp.layout.sensor_space,
+                                              inp.open_rows[:, 0], *rule)
+        else:
+            direct = combine(unit[1][:, :, sel], inp.open_rows).swapaxes(-1, -2)
+            closed = kl.shading_closed(direct, inp.layout.sensor_space, *rule)
         e_shut = combine(part, inp.closed_rows).swapaxes(-1, -2)
     daylight = kl.control_daylight(e_open, pos, closed, e_shut)  # (n_o, n_r, n_sp, n_sel)
     state.hours += kl.lighting_hours(daylight, np.ones(sel.size, bool), params.step_hours,

@@ -156,3 +156,21 @@ def test_study_file_controls_are_the_kernels():
     from luxsweep.sweep.config import LIGHTING_CONTROLS
 
     assert LIGHTING_CONTROLS == CONTROLS
+
+
+def test_scaled_shading_rule_equals_the_rule_on_formed_series():
+    # variants that scale one unit series (DESIGN §2.6): the order-statistic shortcut gives
+    # exactly the LM-83 rule on each variant's formed float32 series, thresholds included
+    from luxsweep.kernels.lighting import shading_closed, shading_closed_scaled
+
+    rng = np.random.default_rng(11)
+    unit = np.where(rng.random((2, 80, 70)) < 0.06,
+                    rng.uniform(0, 4000, (2, 80, 70)), 0).astype(np.float32)  # (o, steps, S)
+    unit[0, :5, :3] = np.float32(1000.0) / np.float32(0.5)  # fl(0.5 · x) = 1000: not above
+    space = np.repeat([0, 1, 2], [50, 11, 9])
+    tau = np.array([0.5, 0.37, 0.81], np.float32)
+    got = shading_closed_scaled(unit, space, tau)
+    formed = unit[:, None] * tau[:, None, None]  # (o, v, steps, S), float32 products
+    want = shading_closed(formed.swapaxes(-1, -2), space)
+    np.testing.assert_array_equal(got, want)
+    assert 0 < got.mean() < 1
