@@ -1365,7 +1365,9 @@ def _lighting(ds: xr.Dataset, table: pd.DataFrame, study: dict, labels: dict[str
              *(metric_text(m, np.asarray(ds[m].values)[int(row["variant"])])
                for m in LIGHTING_RESULTS)] for _, row in done.iterrows()]
     light = study.get("lighting") if isinstance(study.get("lighting"), dict) else {}
-    given = ", ".join(f"{k.replace('_', ' ')} {v}" for k, v in light.items() if v is not None)
+    units = {"power_density": " W/m²", "target": " lx"}
+    given = ", ".join(f"{k.replace('_', ' ')} {v}{units.get(k, '')}"
+                      for k, v in light.items() if v is not None)
     note = ("Annual electric lighting energy per m² of floor over the occupied time: the "
             "lights top daylight up to the target illuminance at each space's control point "
             "(the sensor of median daylight factor, or the sensor nearest the given point), "
