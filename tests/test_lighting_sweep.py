@@ -150,3 +150,27 @@ def test_store_equals_a_recount_from_the_stored_series(store):
     by = {(round(float(t), 2), float(g)): i for i, (t, g) in enumerate(pairs)}
     assert e[by[(0.4, 300.0)]].sum() > e[by[(0.7, 300.0)]].sum()
     assert e[by[(0.7, 500.0)]].sum() > e[by[(0.7, 300.0)]].sum()
+
+
+def test_rank_and_report_read_the_lighting_results(store):
+    from luxsweep.sweep.rank import rank_table
+    from luxsweep.sweep.report import build_report
+
+    _, ds = store
+    saving = ds.space_lighting_saving.values
+    bound = float(np.sort(saving.min(axis=1))[-2])  # two variants reach it in every space
+    table = rank_table(ds, {"require": [{"metric": "lighting_saving", "at_least": bound,
+                                         "spaces": "all"}],
+                            "prefer": [{"metric": "lighting_energy", "goal": "min"}]})
+    passing = table[table["status"] == "pass"]
+    assert set(passing["variant"]) == set(np.flatnonzero(saving.min(axis=1) >= bound))
+    assert len(passing) == 2
+    # the one objective: less building energy ranks first among the passing variants
+    assert list(passing["variant"]) == list(
+        passing["variant"].iloc[np.argsort(ds.lighting_energy.values[passing["variant"]])])
+    page = build_report(ds)
+    assert "Electric lighting with daylight control" in page
+    assert "lighting energy [kWh/m²]" in page and "lighting saved" in page
+    for name in ("east", "west"):  # the per-space table of a building shows lighting too
+        row = page[page.index(f"<th>{name}</th>"):]
+        assert "lighting energy" in row[:row.index("</tr>")]
