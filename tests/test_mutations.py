@@ -16,11 +16,12 @@ import textwrap
 
 import pytest
 import test_building
+import test_lighting
 import test_metrics
 import test_sky
 import test_space_results
 
-from luxsweep.kernels import metrics, raytrace, sky
+from luxsweep.kernels import lighting, metrics, raytrace, sky
 
 
 def mutate(monkeypatch: pytest.MonkeyPatch, module, name: str, old: str, new: str) -> None:
@@ -115,3 +116,22 @@ def test_an_area_weighted_building_sda_is_noticed(monkeypatch):
            'out["sda"] = area_weighted(spaces["sda"], area)')
     with pytest.raises(AssertionError):
         test_space_results.test_building_hand_example_pooled_weighted_lowest()
+
+
+def test_a_non_strict_shading_rule_for_lighting_is_noticed(monkeypatch):
+    # IES LM-83-12 closes the shading when *more than* 2 % of the sensors are sunlit: closing
+    # at exactly 2 % (one of 50) must fail the hand case of the lighting's shading rule
+    mutate(monkeypatch, lighting, "shading_closed",
+           "return _share_more_than(counts, size, sensor_fraction)",
+           "return counts * 50 >= size")
+    with pytest.raises(AssertionError):
+        test_lighting.test_shading_rule_matches_the_sda_counts()
+
+
+def test_a_dimmer_that_switches_off_is_noticed(monkeypatch):
+    # continuous dimming keeps its minimum power in bright daylight (the ballast stays on,
+    # common practice): dropping to zero must fail the all-bright hand case
+    mutate(monkeypatch, lighting, "power_fraction", "fraction = np.where(needed <= min_light, "
+           "min_power, ramp)", "fraction = np.where(needed <= min_light, 0.0, ramp)")
+    with pytest.raises(AssertionError):
+        test_lighting.test_all_bright_and_all_dark("dimming", 0.1, 1.0)
