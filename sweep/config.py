@@ -82,6 +82,8 @@ from luxsweep.sweep.spaces import ALL_SPACES
 
 __all__ = [
     "ALL_SPACES",
+    "LIGHTING_CONTROLS",
+    "LIGHTING_DEFAULTS",
     "MAX_NODES",
     "METRIC_FAMILIES",
     "NOT_VARIABLE",
@@ -91,6 +93,7 @@ __all__ = [
     "Copies",
     "Glazing",
     "Grid",
+    "Lighting",
     "MeshMaterial",
     "MeshSpace",
     "MetricOptions",
@@ -281,6 +284,76 @@ class Room(_Model):
         return v
 
 
+LIGHTING_CONTROLS = ("none", "on_off", "dimming", "dimming_off")
+"""Daylight-linked lighting controls (:data:`kernels.lighting.CONTROLS`, checked by a test)."""
+
+LIGHTING_DEFAULTS: dict[str, Any] = {"control": "dimming", "min_power": 0.1, "min_light": 0.1,
+                                     "control_point": "median"}
+"""Values of the ``lighting:`` keys a study leaves out (``power_density`` and ``target``
+have none: they must be given)."""
+
+
+class Lighting(_Model):
+    """Extension ``lighting:``: electric lighting with daylight-linked control.
+
+    At the top level it applies to every occupied space; a ``lighting:`` in a
+    ``spaces:`` item overrides the keys it gives for that space (and its
+    copies). ``power_density`` [W/m²] installed lighting power per floor area
+    and ``target`` [lx] the illuminance the lights top daylight up to must be
+    given (here or at the top level); ``control`` none | on_off | dimming |
+    dimming_off (default dimming); ``min_power`` [0–1) the power fraction of
+    dimmed lights at their lowest output ``min_light`` [0–1) (defaults 0.1
+    and 0.1, dimming controls only); ``control_point`` ``median`` (the sensor
+    of the space whose daylight factor is the space's median) or ``[x, y]``
+    [m] in the space's own frame (a ``room:`` study: the building frame), read
+    at the nearest sensor of the space's grid. Listed under ``metrics:`` as
+    ``lighting``; neither is accepted without the other.
+    """
+
+    power_density: float | None = None
+    target: float | None = None
+    control: Literal[LIGHTING_CONTROLS] | None = None  # type: ignore[valid-type]
+    min_power: float | None = None
+    min_light: float | None = None
+    control_point: Literal["median"] | tuple[float, float] | None = None
+
+    @field_validator("power_density")
+    @classmethod
+    def _power_density(cls, v: float | None) -> float | None:
+        if v is not None and not (math.isfinite(v) and 0.0 < v <= 100.0):
+            raise ValueError(f"power_density is installed lighting power in W per m² of floor "
+                             f"(typically 2 to 15), in (0, 100]; got {v}")
+        return v
+
+    @field_validator("target")
+    @classmethod
+    def _target(cls, v: float | None) -> float | None:
+        if v is not None and not (math.isfinite(v) and 0.0 < v <= 5000.0):
+            raise ValueError(f"target is the illuminance the lights keep, in lux (typically "
+                             f"300 or 500), in (0, 5000]; got {v}")
+        return v
+
+    @field_validator("min_power", "min_light")
+    @classmethod
+    def _fraction(cls, v: float | None, info: ValidationInfo) -> float | None:
+        return None if v is None else _unit_interval(v, str(info.field_name))
+
+    @field_validator("control_point")
+    @classmethod
+    def _control_point(cls, v: Any) -> Any:
+        if isinstance(v, tuple) and not all(math.isfinite(c) for c in v):
+            raise ValueError(f"control_point [x, y] must be finite metres, got {list(v)}")
+        return v
+
+    def over(self, base: Lighting | None) -> dict[str, Any]:
+        """These settings over ``base`` (a top-level block) over the defaults, as a dict."""
+        out = dict(LIGHTING_DEFAULTS, power_density=None, target=None)
+        for block in (base, self):
+            if block is not None:
+                out.update({k: v for k, v in block.model_dump().items() if v is not None})
+        return out
+
+
 class Copies(_Model):
     """CONTRACT.md §1b ``copies:``: ``count`` copies, the k-th shifted by (k-1)·step [m]."""
 
@@ -310,6 +383,7 @@ class Space(_Model):
     copies: Copies | None = None
     occupied: bool = True
     grid: Grid | None = None
+    lighting: Lighting | None = None
 
     @field_validator("name")
     @classmethod
@@ -782,6 +856,7 @@ class Study(_Model):
     sunlight: Sunlight | None = None
     compute: Compute = Compute()
     store_series: bool = False
+    lighting: Lighting | None = None
     rank: Rank | None = None
     labels: dict[str, str] = {}
     project: Project | None = None
@@ -940,11 +1015,14 @@ class Study(_Model):
         for item in (data.get("rank") or {}).get("require") or []:
             if isinstance(item, dict) and item.get("spaces", 0) is None:
                 del item["spaces"]
+        for item in data.get("spaces") or []:
+            if isinstance(item, dict) and item.get("lighting", 0) is None:
+                del item["lighting"]
         return data
 
 
 _LATER_KEYS: dict[str, Any] = {"spaces": None, "obstructions": [], "mesh_spaces": None,
-                               "sunlight": None}
+                               "sunlight": None, "lighting": None}
 """Study keys left out of the canonical form when at their default (see Study.canonical)."""
 
 _LATER_COMPUTE_KEYS = ("max_elements", "memory_limit", "target_error")
@@ -1010,6 +1088,7 @@ def cross_check(study: Study) -> list[tuple[tuple, str]]:
     for i, req in enumerate(study.rank.require if study.rank else []):
         if req.at_least is None and req.at_most is None:
             problems.append((("rank", "require", i), "give 'at_least' or 'at_most'"))
+    problems += _lighting_problems(study)
     for part in ("require", "prefer"):
         for i, item in enumerate(getattr(study.rank, part) if study.rank else []):
             family = RANK_FAMILY[item.metric]
@@ -1050,6 +1129,79 @@ def _geometry_family_problems(study: Study) -> list[tuple[tuple, str]]:
     if study.sunlight is not None and "sunlight" not in study.metrics:
         problems.append((("sunlight",), "'sunlight:' settings are given but 'metrics' does "
                          "not list 'sunlight'; add it to 'metrics' or remove the section"))
+    return problems
+
+
+def _lighting_problems(study: Study) -> list[tuple[tuple, str]]:
+    """``lighting:`` and the ``lighting`` metric together; every occupied space's
+    settings complete; no lighting on an unoccupied space; ``min_power`` and
+    ``min_light`` only with a dimming control; ``[x, y]`` control points inside
+    their parametric space (mesh studies: ``median`` only)."""
+    problems: list[tuple[tuple, str]] = []
+    spaces = study.spaces or []
+    given = ([("lighting",)] if study.lighting is not None else []) + [
+        ("spaces", j, "lighting") for j, sp in enumerate(spaces) if sp.lighting is not None]
+    wanted = "lighting" in study.metrics
+    if given and not wanted:
+        return [(given[0], "lighting settings are given but 'lighting' is not listed under "
+                 "'metrics', so they would be ignored; add lighting to 'metrics' or remove "
+                 "the settings")]
+    if not wanted:
+        return problems
+    if not given:
+        return [(("metrics",), "the metric 'lighting' needs lighting settings: add a "
+                 "top-level 'lighting:' with power_density [W/m²] and target [lx]")]
+    # (place, space name, settings, width, depth) of every occupied space
+    items: list[tuple[tuple, str, Lighting | None, float | None, float | None]] = []
+    if study.spaces is not None:
+        for j, sp in enumerate(spaces):
+            if not sp.occupied:
+                if sp.lighting is not None:
+                    problems.append((("spaces", j, "lighting"), f"space '{sp.name}' is not "
+                                     "occupied, so it has no lighting result; remove its "
+                                     "'lighting:'"))
+                continue
+            items.append((("spaces", j, "lighting") if sp.lighting is not None
+                          else ("lighting",), sp.name, sp.lighting, sp.width, sp.depth))
+    else:
+        room = study.room
+        items.append((("lighting",), "room", None, room.width if room else None,
+                      room.depth if room else None))
+    for place, name, own, width, depth in items:
+        if own is None and study.lighting is None:
+            problems.append((("spaces",), f"occupied space '{name}' has no lighting settings; "
+                             "give it a 'lighting:' or add a top-level 'lighting:' for all "
+                             "spaces"))
+            continue
+        settings = (own or Lighting()).over(study.lighting)
+        for key, unit in (("power_density", "W/m²"), ("target", "lx")):
+            if settings[key] is None:
+                problems.append((place, f"no '{key}' [{unit}] for space '{name}'; give it "
+                                 "here or in the top-level 'lighting:'"))
+        # dimming limits given beside a control that does not dim (a space's own
+        # control may differ from the top level's, whose limits then serve other spaces)
+        top = Lighting().over(study.lighting)["control"]
+        for block, where, control in ((study.lighting, ("lighting",), top),
+                                      (own, place, settings["control"])):
+            for key in ("min_power", "min_light"):
+                if (block is not None and getattr(block, key) is not None
+                        and control not in ("dimming", "dimming_off")):
+                    problems.append(((*where, key), f"'{key}' applies to a dimming control, "
+                                     f"but the control here is '{control}'; remove it or "
+                                     "use dimming"))
+        point = settings["control_point"]
+        if point == "median":
+            continue
+        source = place if own is not None and own.control_point is not None else ("lighting",)
+        if width is None or depth is None:
+            problems.append(((*source, "control_point"), "a control point [x, y] needs a "
+                             "parametric room or spaces (a mesh study has no space frame); "
+                             "use control_point: median"))
+        elif not (0.0 <= point[0] <= width and 0.0 <= point[1] <= depth):
+            problems.append(((*source, "control_point"), f"control point {list(point)} lies "
+                             f"outside space '{name}' (x from 0 to {width:g} m, y from 0 to "
+                             f"{depth:g} m in the space's own frame); give a point inside "
+                             "it"))
     return problems
 
 
@@ -1524,6 +1676,9 @@ _SCHEMA_TEXT: dict[str, tuple[str, dict[str, str]]] = {
                        "change recomputes them.",
             "store_series": "Also keep the annual illuminance of every sensor and occupied "
                             "time step in the results store (large).",
+            "lighting": "Electric lighting with daylight-linked control, for every occupied "
+                        "space (a space's own lighting overrides the keys it gives). Needs "
+                        "lighting under metrics.",
             "rank": "Criteria and objectives for ranking the variants.",
             "labels": "Names for the varied axes in tables and charts, by vary key (for "
                       "example room.windows.0.width: window width [m]); presentation only.",
@@ -1579,6 +1734,31 @@ _SCHEMA_TEXT: dict[str, tuple[str, dict[str, str]]] = {
             "occupied": "Whether the space is measured: false for a corridor or store that "
                         "only shades and reflects (no sensors, not in any total).",
             "grid": "The space's own sensor grid settings, instead of the study's grid.",
+            "lighting": "The space's own lighting settings: the keys given here replace "
+                        "those of the top-level lighting for this space and its copies.",
+        },
+    ),
+    "Lighting": (
+        "Electric lighting that tops daylight up to a target illuminance, with a control "
+        "that reads daylight at one point of the space. Annual energy counts the occupied "
+        "time steps only.",
+        {
+            "power_density": "Installed lighting power per floor area, in watts per square "
+                             "metre (typically 2 to 15). No default: give it.",
+            "target": "Illuminance in lux that the lights keep on the working plane "
+                      "together with daylight (typically 300 or 500). No default: give it.",
+            "control": "none (full power whenever occupied), on_off (off while daylight "
+                       "alone reaches the target), dimming (output tops daylight up to the "
+                       "target, never below the minimum power) or dimming_off (dimming, "
+                       "and off when no electric light is needed).",
+            "min_power": "For dimming: the share of full power the lights draw at their "
+                         "lowest output, from 0 to below 1.",
+            "min_light": "For dimming: the lowest share of full light output the lights "
+                         "dim to, from 0 to below 1.",
+            "control_point": "Where the control reads daylight: median (the sensor whose "
+                             "daylight factor is the median of the space's) or [x, y] in "
+                             "metres in the space's own axes, read at the nearest sensor of "
+                             "the space.",
         },
     ),
     "Copies": (

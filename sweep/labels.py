@@ -203,6 +203,8 @@ _SHORT = {
     "view_distance": "view distance",
     "view_layers": "view layers",
     "view_level": "view-out level",
+    "lighting_energy": "lighting energy",
+    "lighting_saving": "lighting saved",
 }
 
 

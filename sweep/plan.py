@@ -388,6 +388,9 @@ def _geometry_inputs(study: Study) -> dict[str, Any]:
     for key in ("spaces", "obstructions", "mesh_spaces"):  # only when given
         if key in data:
             doc[key] = data[key]
+    if "spaces" in doc:  # a space's lighting settings do not change ray tracing
+        doc["spaces"] = [{k: v for k, v in sp.items() if k != "lighting"}
+                         for sp in doc["spaces"]]
     doc["panes"] = {name: g["panes"] for name, g in data["glazings"].items()}
     return doc
 
@@ -651,8 +654,14 @@ def settings_of(study: Study) -> Any:
 
 def _series_params(study: Study) -> dict[str, Any]:
     data = study.canonical()
-    return {k: data[k] for k in ("timestep", "ground_reflectance", "occupancy",
-                                 "metric_options")}
+    params = {k: data[k] for k in ("timestep", "ground_reflectance", "occupancy",
+                                   "metric_options")}
+    # lighting settings (only when given, so tasks of other studies keep their ids):
+    # variants that differ in them need their own series task, which reads its study's
+    lights = [data.get("lighting")] + [sp.get("lighting") for sp in data.get("spaces") or []]
+    if any(x is not None for x in lights):
+        params["lighting"] = lights
+    return params
 
 
 def check_climates(loaded: StudyFile, labels: Iterable[str]) -> dict[str, Any]:

@@ -20,7 +20,8 @@ Unit convention
   except the shares CONTRACT.md fixes as percentages: ``sda``, ``ase`` and the
   daylight factor (``"%"``). Hours are ``"h"``, illuminance ``"lx"``, light
   exposure ``"lx·h"`` (middle dot, the only spelling), angles ``"deg"``,
-  distances ``"m"``; EN 17037 levels and layer counts ``"1"`` (shown ``0–3``).
+  distances ``"m"``, lighting energy per floor area ``"kWh/m²"`` and its saving
+  ``"%"``; EN 17037 levels and layer counts ``"1"`` (shown ``0–3``).
 - Numbers a user compares with ranking criteria (``rank:`` bounds, the rank
   table and its CSV) are in store units; the table header names the unit
   (``[0–1]``, ``[%]``, ``[h]``). The report's room plans show time shares in
@@ -85,8 +86,10 @@ GEOMETRY_FAMILIES: tuple[str, ...] = ("sunlight", "view_out")
 (exposure to sunlight, view out): computed per space by :mod:`sweep.run` from
 :mod:`kernels.sunlight` and :mod:`kernels.view`, never by default."""
 
-FAMILIES: tuple[str, ...] = DEFAULT_FAMILIES + GEOMETRY_FAMILIES
-"""Metric families a study may list under ``metrics:``, in store order."""
+FAMILIES: tuple[str, ...] = (*DEFAULT_FAMILIES, *GEOMETRY_FAMILIES, "lighting")
+"""Metric families a study may list under ``metrics:``, in store order: the default
+ones, then the opt-in ones (``lighting``: electric lighting energy, needs the
+study's ``lighting:`` settings)."""
 
 
 @dataclass(frozen=True)
@@ -250,6 +253,16 @@ _ENTRIES: tuple[Metric, ...] = (
            "EN 17037 view out level: 0 none, 1 minimum, 2 medium, 3 high, met from three "
            "quarters of the view positions (building: the lowest occupied space)",
            source="engine", rank=True, display="0–3"),
+    # electric lighting with daylight-linked control (kernels.lighting)
+    Metric("lighting_energy", "lighting", "variant", "float32", "kWh/m²",
+           "electric lighting energy", "annual electric lighting energy per floor area with "
+           "daylight-linked control, occupied time (building: weighted by grid area)",
+           source="engine", rank=True),
+    Metric("lighting_saving", "lighting", "variant", "float32", "%",
+           "lighting energy saved by the control",
+           "annual electric lighting energy saved by the daylight-linked control against "
+           "the same lights without control (building: of the total energy)",
+           source="engine", rank=True),
 )
 
 LEVEL_METRICS: tuple[str, ...] = ("en17037_level", "sunlight_level", "view_level")

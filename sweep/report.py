@@ -1353,6 +1353,7 @@ def _space_table(ds: xr.Dataset, table: pd.DataFrame, spec: RankSpec, labels: di
     metrics = [m for m in (spec.metrics or ["sda", "ase", "udi_useful_mean"])
                if f"space_{m}" in ds.data_vars]
     metrics += [m for m in GEOMETRY_COLUMNS if f"space_{m}" in ds.data_vars and m not in metrics]
+    metrics += [m for m in LIGHTING_RESULTS if f"space_{m}" in ds.data_vars and m not in metrics]
     axes = axes_of(ds)
     spaced = [r for r in spec.require if r.spaces is not None]
     head = ["Space", "Grid area [m²]"] + [
@@ -1411,6 +1412,36 @@ def _space_table(ds: xr.Dataset, table: pd.DataFrame, spec: RankSpec, labels: di
     return ('<table class="rank spaces"><thead><tr>'
             + "".join(f"<th>{h}</th>" for h in head) + "</tr></thead><tbody>"
             + "".join(rows) + "</tbody></table>" + f'<p class="note">{_esc(note)}</p>')
+
+
+LIGHTING_RESULTS = ("lighting_energy", "lighting_saving")
+"""Electric lighting results (registry family ``lighting``), shown when the store has them."""
+
+
+def _lighting(ds: xr.Dataset, table: pd.DataFrame, study: dict, labels: dict[str, str],
+              top: int = 10) -> str:
+    """Electric lighting energy and saving of the top variants, with how they are counted."""
+    done = table[table["status"] != "incomplete"].head(top)
+    if done.empty:
+        return '<p class="note">No variant has finished yet.</p>'
+    axes = axes_of(ds)
+    head = ["Rank", "Variant", *(metric_heading(m) for m in LIGHTING_RESULTS)]
+    rows = [[format_number(row["rank"]), _name_of(row, axes, labels),
+             *(metric_text(m, np.asarray(ds[m].values)[int(row["variant"])])
+               for m in LIGHTING_RESULTS)] for _, row in done.iterrows()]
+    light = study.get("lighting") if isinstance(study.get("lighting"), dict) else {}
+    units = {"power_density": " W/m²", "target": " lx"}
+    given = ", ".join(f"{k.replace('_', ' ')} {v}{units.get(k, '')}"
+                      for k, v in light.items() if v is not None)
+    note = ("Annual electric lighting energy per m² of floor over the occupied time: the "
+            "lights top daylight up to the target illuminance at each space's control point "
+            "(the sensor of median daylight factor, or the sensor nearest the given point), "
+            "read with the operable shading as the sDA rule sets it. The saving is against "
+            "the same lights at full power whenever the space is occupied. Building values "
+            "weight each space by its grid area."
+            + (f" Settings of the study: {given}." if given else "")
+            + " Spaces may override them (see the study text under Inputs).")
+    return (_table(head, rows, cls="rank") + f'<p class="note">{_esc(note)}</p>')
 
 
 def _space_plans(ds: xr.Dataset, table: pd.DataFrame, study: dict) -> str:
@@ -1512,6 +1543,8 @@ def build_report(ds: xr.Dataset, source: str | None = None, paper: str | None = 
                                                         options=_options(ds))),
         *([("spaces", "Spaces of the top variants",
             _space_table(ds, table, spec, labels, _options(ds)))] if several else []),
+        *([("lighting", "Electric lighting with daylight control",
+            _lighting(ds, table, study, labels))] if "lighting_energy" in ds else []),
         ("inputs", "Inputs", _inputs(ds, study)),
         ("geometry", "Geometry", _geometry_sketch(ds, table, study, source)),
         ("tradeoff", "Trade-off between two objectives", _pareto_chart(ds, table, spec)),

@@ -737,6 +737,94 @@ def _geometry_results(inp: _SeriesInputs, job: CoefficientJob | None) -> dict[st
     return results
 
 
+@dataclass(eq=False)
+class _LightingState:
+    """Lighting of a series task: each space's settings and control sensor per glazing
+    row, and the full-power-equivalent hours summed so far, ``(n_o, n_r, n_spaces)`` [h]."""
+
+    lights: Any
+    control: np.ndarray
+    hours: np.ndarray
+
+
+def _lighting_setup(inp: _SeriesInputs) -> _LightingState | None:
+    """The task's lighting state, or None when the study does not ask for ``lighting``."""
+    from luxsweep.kernels.sky import overcast_sky_vector
+    from luxsweep.kernels.timeseries import daylight_factor
+    from luxsweep.sweep.lighting import control_sensors, space_lights
+
+    study = inp.task.study
+    if "lighting" not in study.metrics:
+        return None
+    lights = space_lights(study, inp.layout)
+    df = daylight_factor(inp.coeffs, overcast_sky_vector(inp.scheme, study.ground_reflectance),
+                         inp.open_rows)  # (n_r, n_sensors): picks the median sensors
+    control = control_sensors(lights, inp.layout, inp.coeffs.sensors, df)
+    n_o, n_r = len(inp.task.orientations), len(inp.task.rows)
+    return _LightingState(lights, control, np.zeros((n_o, n_r, inp.layout.n_spaces)))
+
+
+def _lighting_block(inp: _SeriesInputs, state: _LightingState, a: int, b: int,
+                    lit: np.ndarray, unit: tuple | None) -> None:
+    """Add the lighting hours of the occupied steps of ``[a, b)`` to ``state``.
+
+    Daylight at each space's control sensor with the LM-83 shading state of the
+    space applied (shading closed where more than 2 % of its sensors get direct
+    sun above the threshold, the rule the sDA counts use; open without
+    operable shading); occupied night steps are full power.
+    """
+    from luxsweep.kernels import lighting as kl
+    from luxsweep.kernels.timeseries import combine
+
+    task, params, lights = inp.task, inp.params, state.lights
+    dark = np.count_nonzero(inp.occupied[a:b] & ~inp.sunlit[a:b])
+    state.hours += dark * params.step_hours
+    if unit is None:
+        return
+    sel = np.flatnonzero(inp.occupied[lit])  # occupied daylight steps, positions in `lit`
+    if not sel.size:
+        return
+    used = np.unique(state.control)
+    pos = np.searchsorted(used, state.control)  # (n_r, n_spaces) into `used`
+    part = unit[0][:, :, sel][..., used]  # (n_o, n_sets, n_sel, n_used)
+    e_open = combine(part, inp.open_rows).swapaxes(-1, -2)  # (n_o, n_r, n_used, n_sel)
+    closed = e_shut = None
+    if task.shading:
+        rule = (params.sun_threshold, params.shading_sensor_fraction)
+        if inp.n_sets == 1:  # the rows scale one series: one partial sort serves them all
+            closed = kl.shading_closed_scaled(unit[1][:, 0][:, sel], inp.layout.sensor_space,
+                                              inp.open_rows[:, 0], *rule)
+        else:
+            direct = combine(unit[1][:, :, sel], inp.open_rows).swapaxes(-1, -2)
+            closed = kl.shading_closed(direct, inp.layout.sensor_space, *rule)
+        e_shut = combine(part, inp.closed_rows).swapaxes(-1, -2)
+    daylight = kl.control_daylight(e_open, pos, closed, e_shut)  # (n_o, n_r, n_sp, n_sel)
+    state.hours += kl.lighting_hours(daylight, np.ones(sel.size, bool), params.step_hours,
+                                     lights.target, list(lights.control), lights.min_power,
+                                     lights.min_light)
+
+
+def _lighting_results(inp: _SeriesInputs, state: _LightingState) -> dict[str, np.ndarray]:
+    """Annual lighting energy [kWh/m²] and saving against no control [%], per space
+    (``space_lighting_*``) and for the building (area-weighted energies)."""
+    from luxsweep.kernels import lighting as kl
+    from luxsweep.kernels import metrics as km
+
+    density = state.lights.power_density  # (n_spaces,) [W/m²]
+    area = inp.layout.area
+    energy = kl.annual_energy(state.hours, density)  # (n_o, n_r, n_spaces)
+    occupied_hours = np.count_nonzero(inp.occupied) * inp.params.step_hours
+    full = np.broadcast_to(kl.annual_energy(np.full(density.shape, occupied_hours), density),
+                           energy.shape)  # lights at full power whenever occupied
+    building, building_full = km.area_weighted(energy, area), km.area_weighted(full, area)
+    return {
+        "space_lighting_energy": energy,
+        "space_lighting_saving": kl.saving_percent(energy, full),
+        "lighting_energy": building,
+        "lighting_saving": kl.saving_percent(building, building_full),
+    }
+
+
 def _series(
     task: SeriesTask,
     todo: list[tuple[int, int, int]],
@@ -765,9 +853,14 @@ def _series(
     counts = None
     occ_done = 0
     kept: list[tuple[int, np.ndarray, np.ndarray]] = []
+    with timer("metrics"):
+        light = _lighting_setup(inp)
     for a, b in _blocks(len(inp.climate.time), inp.occupied, task.study.store_series,
                         inp.block_steps()):
         counts, lit, unit = _count_block(inp, counts, a, b, workspace, timer)
+        if light is not None:
+            with timer("metrics"):
+                _lighting_block(inp, light, a, b, lit, unit)
         if task.study.store_series:
             with timer("write"):
                 occ_done += _write_series(inp, members, store_path, a, b, lit, unit, occ_done,
@@ -775,6 +868,8 @@ def _series(
         del unit  # the block's direct-sun array is fresh memory: free it before the next
     with timer("metrics"):
         results = _final_results(inp, counts)
+        if light is not None:
+            results.update(_lighting_results(inp, light))
     with timer("geometry"):
         results.update(_geometry_results(inp, job))
     with timer("write"):

@@ -74,3 +74,103 @@ def test_control_point_is_the_grid_median_or_a_sensor():
     e = np.array([[[100.0, 900.0], [300.0, 100.0], [200.0, 500.0]]])  # (1, 3 sensors, 2 steps)
     np.testing.assert_array_equal(control_illuminance(e), [[200.0, 500.0]])
     np.testing.assert_array_equal(control_illuminance(e, sensor=1), [[300.0, 100.0]])
+
+
+# --------------------------------------------------------------------------- a building
+
+
+def test_median_sensor_is_fixed_per_space():
+    # lower median of each space's values (rank ⌊(n−1)/2⌋), as a grid index
+    from luxsweep.kernels.lighting import median_sensor
+
+    values = np.array([[5.0, 1.0, 3.0, 9.0, 2.0, 4.0, 8.0],
+                       [1.0, 2.0, 3.0, 4.0, 5.0, 6.0, 7.0]])
+    space = np.array([0, 0, 0, 1, 1, 1, 1])
+    # space 0: 1, 3, 5 -> 3 at sensor 2 (row 0); 1, 2, 3 -> 2 at sensor 1 (row 1)
+    # space 1: 2, 4, 8, 9 -> lower median 4 at sensor 5; 4, 5, 6, 7 -> 5 at sensor 4
+    np.testing.assert_array_equal(median_sensor(values, space), [[2, 5], [1, 4]])
+
+
+def test_shading_rule_matches_the_sda_counts():
+    # The lighting control reads the same shading state as the sDA counts (IES LM-83-12:
+    # closed where more than 2 % of a space's sensors get more than 1000 lx direct sun):
+    # the closed analysis steps per space equal kernels.metrics' `ana_shaded`.
+    from luxsweep.kernels.lighting import shading_closed
+    from luxsweep.kernels.metrics import MetricParams, StepMasks, accumulate
+
+    rng = np.random.default_rng(4)
+    n_s, n_t = 120, 300
+    total = np.floor(rng.lognormal(6.0, 1.2, (2, n_s, n_t))).astype(np.float32)
+    direct = np.where(rng.random(total.shape) < 0.03, total, 0).astype(np.float32)
+    space = np.repeat([0, 1, 2], [50, 40, 30])
+    masks = StepMasks(np.ones(n_t, bool), rng.random(n_t) < 0.6, np.ones(n_t, bool))
+    counts = accumulate(None, total, direct, masks, MetricParams(), 0.3 * total, space=space)
+    closed = shading_closed(direct, space)  # (2, 3, n_t)
+    np.testing.assert_array_equal((closed & masks.analysis).sum(-1), counts.ana_shaded)
+    assert 0 < closed.mean() < 1  # the rule both closes and opens here
+    # 2 % of 50 sensors is 1: one sunlit sensor keeps it open, two close it (strictly more)
+    d = np.zeros((50, 2), np.float32)
+    d[:1, 0] = d[:2, 1] = 1500.0
+    np.testing.assert_array_equal(shading_closed(d, np.zeros(50, int)), [[False, True]])
+
+
+def test_control_daylight_takes_the_shaded_value_where_closed():
+    from luxsweep.kernels.lighting import control_daylight
+
+    total = np.arange(12.0).reshape(1, 3, 4)  # (batch, sensors, steps)
+    shaded = -total
+    closed = np.array([[[False, True, False, True], [True, False, False, False]]])
+    got = control_daylight(total, np.array([2, 0]), closed, shaded)
+    np.testing.assert_array_equal(got, [[[8.0, -9.0, 10.0, -11.0], [-0.0, 1.0, 2.0, 3.0]]])
+
+
+def test_lighting_hours_add_over_chunks_and_dark_steps_are_full_power():
+    # Σ F_P Δt is additive (the engine folds the year in blocks); a skipped night step is
+    # E = 0, i.e. full power for every control (the lights top up from nothing)
+    from luxsweep.kernels.lighting import lighting_hours
+
+    rng = np.random.default_rng(7)
+    e = rng.uniform(0, 900, (2, 2, 50))
+    occ = rng.random(50) < 0.7
+    args = (np.array([300.0, 500.0]), ["dimming", "on_off"], np.array([0.2, 0.1]),
+            np.array([0.1, 0.1]))
+    whole = lighting_hours(e, occ, 0.5, *args)
+    parts = lighting_hours(e[..., :20], occ[:20], 0.5, *args) + lighting_hours(
+        e[..., 20:], occ[20:], 0.5, *args)
+    np.testing.assert_allclose(whole, parts, rtol=1e-12)
+    dark = lighting_hours(np.zeros((1, 2, 6)), np.ones(6, bool), 0.5, *args)
+    np.testing.assert_array_equal(dark, [[3.0, 3.0]])  # 6 steps of 0.5 h at full power
+    # unoccupied steps cost nothing
+    np.testing.assert_array_equal(lighting_hours(e, np.zeros(50, bool), 0.5, *args), 0.0)
+
+
+def test_saving_against_no_control():
+    from luxsweep.kernels.lighting import saving_percent
+
+    # 26 kWh/m² without control, 6.5 with: 75 % saved; nothing occupied: no saving defined
+    np.testing.assert_allclose(saving_percent([6.5, 26.0], [26.0, 26.0]), [75.0, 0.0])
+    assert np.isnan(saving_percent(0.0, 0.0))
+
+
+def test_study_file_controls_are_the_kernels():
+    from luxsweep.sweep.config import LIGHTING_CONTROLS
+
+    assert LIGHTING_CONTROLS == CONTROLS
+
+
+def test_scaled_shading_rule_equals_the_rule_on_formed_series():
+    # variants that scale one unit series (DESIGN §2.6): the order-statistic shortcut gives
+    # exactly the LM-83 rule on each variant's formed float32 series, thresholds included
+    from luxsweep.kernels.lighting import shading_closed, shading_closed_scaled
+
+    rng = np.random.default_rng(11)
+    unit = np.where(rng.random((2, 80, 70)) < 0.06,
+                    rng.uniform(0, 4000, (2, 80, 70)), 0).astype(np.float32)  # (o, steps, S)
+    unit[0, :5, :3] = np.float32(1000.0) / np.float32(0.5)  # fl(0.5 · x) = 1000: not above
+    space = np.repeat([0, 1, 2], [50, 11, 9])
+    tau = np.array([0.5, 0.37, 0.81], np.float32)
+    got = shading_closed_scaled(unit, space, tau)
+    formed = unit[:, None] * tau[:, None, None]  # (o, v, steps, S), float32 products
+    want = shading_closed(formed.swapaxes(-1, -2), space)
+    np.testing.assert_array_equal(got, want)
+    assert 0 < got.mean() < 1

@@ -17,11 +17,12 @@ import textwrap
 import pytest
 import test_building
 import test_geometry_results
+import test_lighting
 import test_metrics
 import test_sky
 import test_space_results
 
-from luxsweep.kernels import metrics, raytrace, sky, view
+from luxsweep.kernels import lighting, metrics, raytrace, sky, view
 
 
 def mutate(monkeypatch: pytest.MonkeyPatch, module, name: str, old: str, new: str) -> None:
@@ -125,3 +126,22 @@ def test_a_changed_share_of_view_positions_is_noticed(monkeypatch):
     mutate(monkeypatch, view, "_met_by_share", "- 1e-9)) - 1]", "- 1e-9))]")
     with pytest.raises((AssertionError, IndexError)):
         test_geometry_results.test_space_value_is_met_from_three_quarters_of_its_positions()
+
+
+def test_a_non_strict_shading_rule_for_lighting_is_noticed(monkeypatch):
+    # IES LM-83-12 closes the shading when *more than* 2 % of the sensors are sunlit: closing
+    # at exactly 2 % (one of 50) must fail the hand case of the lighting's shading rule
+    mutate(monkeypatch, lighting, "shading_closed",
+           "return _share_more_than(counts, size, sensor_fraction)",
+           "return counts * 50 >= size")
+    with pytest.raises(AssertionError):
+        test_lighting.test_shading_rule_matches_the_sda_counts()
+
+
+def test_a_dimmer_that_switches_off_is_noticed(monkeypatch):
+    # continuous dimming keeps its minimum power in bright daylight (the ballast stays on,
+    # common practice): dropping to zero must fail the all-bright hand case
+    mutate(monkeypatch, lighting, "power_fraction", "fraction = np.where(needed <= min_light, "
+           "min_power, ramp)", "fraction = np.where(needed <= min_light, 0.0, ramp)")
+    with pytest.raises(AssertionError):
+        test_lighting.test_all_bright_and_all_dark("dimming", 0.1, 1.0)

@@ -43,8 +43,9 @@ def test_every_layer_reads_the_registry():
 
 def test_one_unit_convention():
     units = {m.unit for m in registry.METRICS.values()}
-    # angles in degrees and distances in metres (EN 17037 view out) extend the set
-    assert units <= {"1", "%", "h", "lx", "lx·h", "deg", "m"}
+    # angles in degrees and distances in metres (EN 17037 view out), lighting energy per
+    # floor area extend the set
+    assert units <= {"1", "%", "h", "lx", "lx·h", "deg", "m", "kWh/m²"}
     # CONTRACT.md §3: DA and UDI fractions 0–1, sDA / ASE / daylight factor in %
     for name in ("daylight_autonomy", "udi_low", "udi_supplementary", "udi_autonomous",
                  "udi_high", "udi_useful_mean"):
@@ -55,6 +56,17 @@ def test_one_unit_convention():
     assert registry.display_unit("en17037_level") == "0–3"
     for name in registry.LEVEL_METRICS:  # EN 17037 levels: 0 none … 3 high
         assert registry.METRICS[name].dtype == "int8" and registry.display_unit(name) == "0–3"
+    # lighting energy per floor area and its saving (a share of energy, not of time)
+    assert registry.METRICS["lighting_energy"].unit == "kWh/m²"
+    assert not registry.METRICS["lighting_saving"].share
+
+
+def test_opt_in_families_leave_the_default_metrics_alone():
+    # a study without `metrics:` computes what it always did (CONTRACT.md §1)
+    assert registry.DEFAULT_FAMILIES == ("daylight_factor", "daylight_autonomy", "udi",
+                                         "sda_ase", "en17037")
+    assert set(registry.DEFAULT_FAMILIES) < set(registry.FAMILIES)
+    assert list(config.Study.model_fields["metrics"].default) == list(registry.DEFAULT_FAMILIES)
 
 
 def test_labels_follow_the_study_thresholds():
