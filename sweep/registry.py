@@ -47,6 +47,7 @@ from dataclasses import dataclass
 from typing import Any, Literal
 
 __all__ = [
+    "DEFAULT_FAMILIES",
     "DEFAULT_THRESHOLDS",
     "FAMILIES",
     "METRICS",
@@ -70,10 +71,16 @@ __all__ = [
     "store_variables",
     "thresholds",
     "variant_metrics",
+    "view_metrics",
+    "view_variables",
 ]
 
-FAMILIES: tuple[str, ...] = ("daylight_factor", "daylight_autonomy", "udi", "sda_ase", "en17037")
+FAMILIES: tuple[str, ...] = ("daylight_factor", "daylight_autonomy", "udi", "sda_ase", "en17037",
+                             "glare")
 """Metric families a study lists under ``metrics:`` (CONTRACT.md §1), in store order."""
+
+DEFAULT_FAMILIES: tuple[str, ...] = FAMILIES[:5]
+"""The families of a study without ``metrics:`` (the opt-in ones, e.g. ``glare``, left out)."""
 
 
 @dataclass(frozen=True)
@@ -86,8 +93,9 @@ class Metric:
         Store variable name (CONTRACT.md §3 names are kept).
     family : str
         Metric family (one of :data:`FAMILIES`) whose computation yields it.
-    per : {"sensor", "variant"}
-        Per-sensor ``(variant, sensor)`` or per-variant ``(variant,)`` result.
+    per : {"sensor", "variant", "view"}
+        Per-sensor ``(variant, sensor)``, per-variant ``(variant,)`` or per-view
+        ``(variant, view)`` result (views: the study's ``views:`` positions).
     dtype : str
         Store dtype.
     unit : str
@@ -111,7 +119,7 @@ class Metric:
 
     name: str
     family: str
-    per: Literal["sensor", "variant"]
+    per: Literal["sensor", "variant", "view"]
     dtype: str
     unit: str
     label: str
@@ -124,7 +132,8 @@ class Metric:
     @property
     def dims(self) -> tuple[str, ...]:
         """Store dimensions."""
-        return ("variant", "sensor") if self.per == "sensor" else ("variant",)
+        return {"sensor": ("variant", "sensor"), "view": ("variant", "view")}.get(
+            self.per, ("variant",))
 
     @property
     def stored(self) -> bool:
@@ -205,6 +214,40 @@ _ENTRIES: tuple[Metric, ...] = (
            "EN 17037 daylight provision level",
            "EN 17037 daylight provision level: 0 none, 1 minimum, 2 medium, 3 high",
            rank=True, display="0–3"),
+    # glare at the views (simplified DGP, Wienold 2009; EN 17037 protection from glare)
+    Metric("view_glare_imperceptible", "glare", "view", "float32", "1",
+           "imperceptible glare (DGPs below 0.35)",
+           "fraction of occupied time with simplified DGP below 0.35 (imperceptible)",
+           source="engine", share=True),
+    Metric("view_glare_perceptible", "glare", "view", "float32", "1",
+           "perceptible glare (DGPs 0.35–0.40)",
+           "fraction of occupied time with simplified DGP from 0.35 to below 0.40 "
+           "(perceptible)", source="engine", share=True),
+    Metric("view_glare_disturbing", "glare", "view", "float32", "1",
+           "disturbing glare (DGPs 0.40–0.45)",
+           "fraction of occupied time with simplified DGP from 0.40 to below 0.45 "
+           "(disturbing)", source="engine", share=True),
+    Metric("view_glare_intolerable", "glare", "view", "float32", "1",
+           "intolerable glare (DGPs 0.45 and above)",
+           "fraction of occupied time with simplified DGP of 0.45 or more (intolerable)",
+           source="engine", share=True),
+    Metric("view_dgp_max", "glare", "view", "float32", "1", "highest simplified DGP",
+           "highest simplified daylight glare probability over the occupied time",
+           source="engine"),
+    Metric("view_glare_level", "glare", "view", "int8", "1",
+           "EN 17037 glare protection level",
+           "EN 17037 protection from glare at the view (simplified DGP): 0 none, 1 minimum, "
+           "2 medium, 3 high", source="engine", display="0–3"),
+    Metric("glare_level", "glare", "variant", "int8", "1",
+           "EN 17037 glare protection level, lowest view",
+           "EN 17037 protection from glare (simplified DGP), the lowest level among the "
+           "views: 0 none, 1 minimum, 2 medium, 3 high", source="engine", rank=True,
+           display="0–3"),
+    Metric("glare_disturbing_share", "glare", "variant", "float32", "1",
+           "disturbing or intolerable glare, worst view",
+           "largest fraction, among the views, of occupied time with simplified DGP of "
+           "0.40 or more (disturbing or intolerable glare)", source="engine", rank=True,
+           share=True),
 )
 
 METRICS: dict[str, Metric] = {m.name: m for m in _ENTRIES}
@@ -339,6 +382,16 @@ def space_metrics() -> list[str]:
     """Stored per-variant results that the store also holds per space, as
     ``space_<name>`` with dimensions (variant, space) (CONTRACT.md §3): every one."""
     return variant_metrics()
+
+
+def view_metrics() -> list[str]:
+    """Stored per-view results (dimensions (variant, view))."""
+    return [m.name for m in _ENTRIES if m.per == "view" and m.stored]
+
+
+def view_variables(metrics: list[str]) -> list[str]:
+    """Per-view variables kept for the study's metric families, in registry order."""
+    return [m.name for m in _ENTRIES if m.per == "view" and m.stored and m.family in metrics]
 
 
 def space_variables(metrics: list[str]) -> list[str]:
