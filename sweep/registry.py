@@ -422,7 +422,7 @@ def store_variables(metrics: list[str]) -> tuple[list[str], list[str]]:
         if family not in FAMILIES:
             raise ValueError(f"unknown metric family '{family}'; valid: {', '.join(FAMILIES)}")
         for m in _ENTRIES:
-            if m.family == family and m.stored:
+            if m.family == family and m.stored and m.per != "view":  # views: view_variables
                 (sensor if m.per == "sensor" else variant).append(m.name)
     return sensor, variant
 
