@@ -152,7 +152,8 @@ class CoefficientJob:
     layout: SpaceLayout | None = None
     """Space of every sensor and grid area per space (None only in hand-made jobs)."""
     views: ViewLayout | None = None
-    """The study's views (``views:``): their sensors follow the grid's in ``sensors``."""
+    """The study's views (``views:``): the series task computes (or reads from the
+    cache) their own coefficient set on this geometry (:func:`sweep.run.view_coefficients`)."""
 
     @property
     def n_sensors(self) -> int:
@@ -187,7 +188,7 @@ class SeriesTask:
         The space of every sensor of the set and each space's grid area (the
         coefficient job's); None in hand-made tasks: one space.
     views : ViewLayout or None
-        The views (``views:``), whose sensors follow the grid's in the set; None
+        The views (``views:``; their own coefficient set on the same geometry); None
         without views.
     """
 
@@ -777,10 +778,8 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
         assert doc is not None
         if doc not in built:
             built[doc] = len(geometries)
-            views = view_layout(rep.study, layout)  # eye sensors follow the grid's
-            coeff_pts = pts if views is None else np.vstack([pts, views.sensors])
-            geometries.append((geometry, pts, coefficient_key(geometry, coeff_pts, settings),
-                               settings, layout, views))
+            geometries.append((geometry, pts, coefficient_key(geometry, pts, settings),
+                               settings, layout, view_layout(rep.study, layout)))
         return doc
 
     def group_variants(roles: list[str]) -> np.ndarray | None:
@@ -850,8 +849,6 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
     for geometry, pts, key, settings, layout, views in geometries:
         if key in jobs:
             continue
-        if views is not None:
-            pts = np.vstack([pts, views.sensors])
         members = np.flatnonzero(key_index == key_number[key])
         members.flags.writeable = False
         jobs[key] = CoefficientJob(

@@ -92,7 +92,7 @@ from luxsweep.sweep.preflight import Transport, preflight
 from luxsweep.sweep.progress import PLAIN_EVERY, Progress
 from luxsweep.sweep.registry import space_variables, store_variables, view_variables
 from luxsweep.sweep.spaces import SpaceLayout, single_space
-from luxsweep.sweep.views import ViewLayout, split_sensors
+from luxsweep.sweep.views import ViewLayout
 
 log = logging.getLogger("luxsweep")
 
@@ -259,6 +259,31 @@ def _coefficients(task: SeriesTask, cache_root: str | None, coefficient_result: 
     if cache is not None:  # else the client keeps the cache: nothing to keep here
         cache.save(coeffs)
     return coeffs, 1
+
+
+def view_coefficients(views: ViewLayout, cache_root: str | None,
+                      job: CoefficientJob | None) -> Any:
+    """The coefficient set of the view sensors on the job's geometry and settings.
+
+    A set of its own (key from the view sensors), read from this worker's cache
+    when there, else computed here (and kept in the cache if there is one). It
+    costs one more element solve of the geometry, but the grid's set, key and
+    results stay exactly those of the study without views.
+    """
+    from luxsweep.kernels.coefficients import coefficient_key, compute_coefficients
+
+    if job is None:
+        raise RuntimeError("the views' coefficient set needs the task's coefficient job")
+    key = coefficient_key(job.geometry, views.sensors, job.settings)
+    cache = open_cache(cache_root) if cache_root is not None else None
+    if cache is not None and cache.contains(key):
+        found = cache.load(key)  # a damaged entry is a miss
+        if found is not None:
+            return found
+    coeffs = compute_coefficients(job.geometry, views.sensors, job.settings)
+    if cache is not None:
+        cache.save(coeffs)
+    return coeffs
 
 
 def _metric_params(task: SeriesTask) -> Any:
@@ -493,7 +518,7 @@ class _SeriesInputs:
     recomputed: int = 0
     views: ViewLayout | None = None
     view_coeffs: Any = None
-    """The views' part of the coefficient set (``coeffs`` then holds the grid's only)."""
+    """The views' coefficient set (:func:`view_coefficients`)."""
 
     @property
     def n_sets(self) -> int:
@@ -528,9 +553,8 @@ def _load_series(task: SeriesTask, cache_root: str | None, coefficient_result: A
     climate, altitude, azimuth, daylight = CLIMATE_STEPS.get(task.climate_file, study.timestep,
                                                              task.climate_sha256, climate_data)
     coeffs, recomputed = _coefficients(task, cache_root, coefficient_result, job)
-    view_coeffs = None
-    if task.views is not None:  # eye sensors follow the grid's: the grid alone as before
-        coeffs, view_coeffs = split_sensors(coeffs, coeffs.n_sensors - task.views.n_views)
+    view_coeffs = (None if task.views is None
+                   else view_coefficients(task.views, cache_root, job))
     stamps = climate.time
     scheme = patch_scheme(coeffs.subdivision)
     occ = study.occupancy

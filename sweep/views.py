@@ -2,20 +2,20 @@
 
 Glare at a view position is estimated from the illuminance on a vertical plane
 at the eye facing the view direction (the simplified daylight glare
-probability, :mod:`kernels.glare`). Each view is one extra sensor of the
-coefficient set, appended after the grid's sensors: the grid's results never
-see it (the series stage splits the set, :func:`split_sensors`), and a study
-without views has exactly the sensors, coefficient keys and results it had
-before views existed. :class:`ViewLayout` is what the plan hands to the series
-task: the views' names, the space each is in (an index into the geometry's
+probability, :mod:`kernels.glare`). The views are sensors of a coefficient
+set of their own on the variant's geometry (:func:`sweep.run.view_coefficients`),
+never of the grid's: the grid's sensors, coefficient key and results are
+exactly those of the same study without views (adding a view to a set would
+change the random samples its neighbours share in the reflected-light gather).
+:class:`ViewLayout` is what the plan hands to the series task: the views'
+names, the space each is in (an index into the geometry's
 :class:`~sweep.spaces.SpaceLayout`) and their sensor rows.
 """
 
 from __future__ import annotations
 
-import dataclasses
 from dataclasses import dataclass
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -25,7 +25,7 @@ if TYPE_CHECKING:
     from luxsweep.sweep.config import Study
     from luxsweep.sweep.spaces import SpaceLayout
 
-__all__ = ["ViewLayout", "split_sensors", "view_layout"]
+__all__ = ["ViewLayout", "view_layout"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -85,19 +85,3 @@ def view_layout(study: Study, layout: SpaceLayout) -> ViewLayout | None:
     return ViewLayout(names=tuple(v.name for v in study.views),
                       space=np.asarray(space, dtype=np.int32),
                       sensors=np.asarray(rows, dtype=np.float64))
-
-
-def split_sensors(coeffs: Any, n_grid: int) -> tuple[Any, Any]:
-    """A coefficient set split into its first ``n_grid`` sensors and the rest (the views).
-
-    Each part is the same coefficients, copied contiguous, so the grid part is
-    used exactly as a set of the grid alone would be.
-    """
-    parts = []
-    for sl in (slice(0, n_grid), slice(n_grid, None)):
-        parts.append(dataclasses.replace(coeffs, **{
-            name: np.ascontiguousarray(getattr(coeffs, name)[..., sl, :]) if name != "sensors"
-            else np.ascontiguousarray(coeffs.sensors[sl])
-            for name in ("sensors", "sky_direct", "sky_reflected", "sun_direct",
-                         "sun_reflected", "overcast_error")}))
-    return parts[0], parts[1]
