@@ -748,7 +748,7 @@ def _glare_results(inp: _SeriesInputs, dgp: np.ndarray) -> dict[str, np.ndarray]
     # the hour of the year each occupied step lies in (stamps end their step)
     occ = inp.climate.time[inp.occupied]
     start = occ - np.timedelta64(inp.task.study.timestep * 30, "s")
-    day, hour = np.asarray(start.dayofyear) - 1, np.asarray(start.hour)
+    day, hour = np.asarray(start.day_of_year) - 1, np.asarray(start.hour)
     out = {f"view_glare_{k}": shares[..., i] for i, k in enumerate(
         ("imperceptible", "perceptible", "disturbing", "intolerable"))}
     out["view_dgp_max"] = (dgp.max(axis=-1) if dgp.shape[-1]
