@@ -1527,4 +1527,5 @@ __all__ = [
     "store_variables",
     "submit_split",
     "terminate_as_interrupt",
+    "view_coefficients",
 ]
