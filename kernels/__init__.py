@@ -61,9 +61,9 @@ def source_digest(folder: str | Path, modules: tuple[str, ...] = COEFFICIENT_MOD
 KERNEL_VERSION = "src-" + source_digest(Path(__file__).parent)[:32]
 """Version of the coefficient kernels, derived from their sources (see module docstring)."""
 
-RESULTS_MODULES = (*COEFFICIENT_MODULES, "climate", "timeseries", "metrics")
+RESULTS_MODULES = (*COEFFICIENT_MODULES, "climate", "timeseries", "metrics", "glare")
 """Kernel modules whose code shapes stored results: the coefficient modules plus the
-weather readers, the annual series and the metrics."""
+weather readers, the annual series, the metrics and glare at the views."""
 
 RESULTS_VERSION = "src-" + source_digest(Path(__file__).parent, RESULTS_MODULES)[:32]
 """Version of the kernels that compute results, derived like :data:`KERNEL_VERSION`.
