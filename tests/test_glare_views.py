@@ -289,3 +289,22 @@ def test_glare_results_in_the_store(two_stores):
     # the eye facing the side wall sees the window at grazing angles only: less glare than
     # the eye facing the window (common practice)
     assert (shares[:, 1, 2:].sum(-1) < shares[:, 0, 2:].sum(-1)).all()
+
+
+def test_report_and_ranking_show_glare_only_with_views(two_stores):
+    from luxsweep.sweep.rank import rank_table
+    from luxsweep.sweep.report import CAUTION, build_report
+
+    _, plain = two_stores["plain"]
+    _, views = two_stores["views"]
+    page = build_report(views)
+    assert "Glare at the view positions" in page and "glare class by hour and day" in page
+    assert page.count(CAUTION) == 2 and "ignores contrast" in CAUTION
+    assert "Glare at the view positions" not in build_report(plain)
+    # a criterion on a glare result: met at the stored value, missed just below it
+    share = float(views["glare_disturbing_share"].values[0])
+    assert share > 0.0
+    for bound, status in ((share, "pass"), (share * 0.99, "fail")):
+        table = rank_table(views, {"require": [{"metric": "glare_disturbing_share",
+                                                "at_most": bound}]})
+        assert table["status"].tolist() == [status]
