@@ -814,7 +814,8 @@ def _series(
     with timer("metrics"):
         results = _final_results(inp, counts)
         if inp.views is not None:
-            results.update(_glare_results(inp, np.concatenate(dgp, axis=-1)))
+            results[results_store.VIEW_SERIES] = np.concatenate(dgp, axis=-1)
+            results.update(_glare_results(inp, results[results_store.VIEW_SERIES]))
     with timer("write"):
         _, ois, ris = members
         sensor_vars, variant_vars = store_variables(list(task.study.metrics))
@@ -829,9 +830,10 @@ def _series(
             "spaces": inp.layout.names,
         }
         if inp.views is not None:
-            rows["view_values"] = {name: np.asarray(results[name][ois, ris]) for name in
-                                   [*view_variables(list(task.study.metrics)),
-                                    results_store.VIEW_MAP]}
+            names = [*view_variables(list(task.study.metrics)), results_store.VIEW_MAP]
+            if task.study.store_series:
+                names.append(results_store.VIEW_SERIES)
+            rows["view_values"] = {name: np.asarray(results[name][ois, ris]) for name in names}
         if store_path is not None:  # every variant's data, then their `done` flags
             results_store.write_variants(store_path, **rows)
     out = {"variants": len(todo), "recomputed": inp.recomputed, "timing": timer.seconds}

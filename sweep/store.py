@@ -102,6 +102,7 @@ __all__ = [
     "SPACE_VARIABLES",
     "VARIANT_VARIABLES",
     "VIEW_MAP",
+    "VIEW_SERIES",
     "VIEW_VARIABLES",
     "StoreLayout",
     "check_alignment",
@@ -144,6 +145,8 @@ VIEW_VARIABLES: dict[str, tuple[str, str, str]] = {
 VIEW_MAP = "view_glare_map"
 """Glare class (0 imperceptible … 3 intolerable; −1 no occupied step) of the worst
 step of every hour of the year at each view: (variant, view, day, hour), int8."""
+VIEW_SERIES = "view_dgp"
+"""With ``store_series``: the DGPs series of every view (variant, view, time)."""
 SERIES_VARIABLES: dict[str, tuple[str, str, str]] = {
     "illuminance": ("float32", "lx", "illuminance on the sensors"),
     "direct_sun_illuminance": ("float32", "lx", "illuminance from direct sun only"),
@@ -435,6 +438,15 @@ def _view_template(layout: StoreLayout, coords: dict[str, Any], data: dict[str, 
                        "DGP over its occupied steps: 0 imperceptible, 1 perceptible, "
                        "2 disturbing, 3 intolerable, -1 no occupied step"})
     encoding[VIEW_MAP] = {"chunks": chunks, "chunk_key_encoding": FLAT_KEYS}
+    if layout.times is not None:  # with the series: each view's DGPs over the occupied steps
+        nt = len(layout.times)
+        nc = min(layout.series_chunk, nt)
+        chunks = (_variant_chunk(block, n * nc * 4), n, nc)
+        data[VIEW_SERIES] = (("variant", "view", "time"),
+                             da.full((nv, n, nt), np.nan, dtype="float32", chunks=chunks),
+                             {"units": "1", "long_name": "simplified daylight glare "
+                              "probability at the view (DGPs, Wienold 2009)"})
+        encoding[VIEW_SERIES] = {"chunks": chunks, "chunk_key_encoding": FLAT_KEYS}
 
 
 CREATING = ".creating-"

@@ -229,7 +229,8 @@ def test_closed_shading_lowers_the_eye_illuminance_by_the_transmittance_ratio(tm
 
 @pytest.fixture(scope="module")
 def two_stores(tmp_path_factory):
-    """The tiny study without views and with two views and glare, run in this process."""
+    """The tiny study without views and with two views and glare, run in this process
+    (with the series stored)."""
     from luxsweep.sweep import store as results_store
     from luxsweep.sweep.cache import CoefficientCache
     from luxsweep.sweep.config import load_study
@@ -239,7 +240,8 @@ def two_stores(tmp_path_factory):
     root = tmp_path_factory.mktemp("views")
     cache = CoefficientCache(root / "cache")
     out = {}
-    for name, extra in (("plain", ""), ("views", VIEWS)):
+    for name, extra in (("plain", "store_series: true\n"),
+                        ("views", "store_series: true\n" + VIEWS)):
         study = _study(root / name, extra, shaded=0.2)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
@@ -263,6 +265,7 @@ def test_views_never_touch_the_grid(two_stores):
     for name in plain.data_vars:
         np.testing.assert_array_equal(views[name].values, plain[name].values, err_msg=name)
     glare_names = {n for n in views.data_vars if "glare" in n or n.startswith("view_")}
+    assert "illuminance" in glare_names ^ set(views.data_vars)
     assert set(views.data_vars) - set(plain.data_vars) == glare_names
     assert not {"view", "day", "hour"} & set(plain.dims)
 
@@ -286,6 +289,12 @@ def test_glare_results_in_the_store(two_stores):
     # its classes match the stored shares (hourly steps: one step per cell)
     counts = np.stack([(m == k).sum(axis=(-2, -1)) for k in range(4)], -1)
     np.testing.assert_allclose(counts / 2600, shares, atol=1e-6)
+    # with the series stored, each view's DGPs over the occupied steps: the same shares
+    dgp = ds["view_dgp"].values
+    assert dgp.shape == (*shares.shape[:2], ds.sizes["time"]) and ds.sizes["time"] == 2600
+    np.testing.assert_array_equal(glare_class_shares(dgp, np.ones(2600, bool)).astype(np.float32),
+                                  shares)
+    np.testing.assert_array_equal(dgp.max(axis=-1), ds["view_dgp_max"].values)
     # the eye facing the side wall sees the window at grazing angles only: less glare than
     # the eye facing the window (common practice)
     assert (shares[:, 1, 2:].sum(-1) < shares[:, 0, 2:].sum(-1)).all()
