@@ -726,11 +726,13 @@ def _glare_block(inp: _SeriesInputs, a: int, b: int, lit: np.ndarray, unit: tupl
         steps = pos[hit]
         e = combine(view_unit[0][:, :, steps], inp.open_rows).swapaxes(-1, -2)
         if task.shading:
-            direct = combine(unit[1][:, :, steps], inp.open_rows).swapaxes(-1, -2)
-            closed = lm83_closed(direct, inp.analysis[lit[steps]], inp.params,
-                                 inp.layout.sensor_space)  # (n_o, n_r, n_spaces, n)
             shut = combine(view_unit[0][:, :, steps], inp.closed_rows).swapaxes(-1, -2)
-            e = np.where(closed[:, :, views.space, :], shut, e)
+            sun = unit[1][:, :, steps]
+            for r in range(n_r):  # one glazing row at a time: memory of one grid series
+                direct = combine(sun, inp.open_rows[r:r + 1])[:, 0].swapaxes(-1, -2)
+                closed = lm83_closed(direct, inp.analysis[lit[steps]], inp.params,
+                                     inp.layout.sensor_space)  # (n_o, n_spaces, n)
+                e[:, r] = np.where(closed[:, views.space, :], shut[:, r], e[:, r])
         ev[..., hit] = e
     return dgp_simplified(ev).astype(np.float32)
 
