@@ -317,3 +317,33 @@ def test_report_and_ranking_show_glare_only_with_views(two_stores):
         table = rank_table(views, {"require": [{"metric": "glare_disturbing_share",
                                                 "at_most": bound}]})
         assert table["status"].tolist() == [status]
+
+
+def test_view_sensors_face_their_direction(tmp_path):
+    # building frame (DEVELOPERS.md "Frames"): azimuth clockwise from +y, a direction is
+    # (sin az, cos az, 0); the front façade's outward normal is −y (azimuth 180)
+    from luxsweep.sweep.config import Study
+    from luxsweep.sweep.spaces import SpaceLayout
+    from luxsweep.sweep.views import view_layout
+
+    (tmp_path / "c.csv").write_text("")
+    wall = {"sill": 0.9, "head": 2.1, "glazing": "main"}
+    space = {"width": 4.0, "depth": 3.0, "height": 2.7}
+    study = Study.model_validate({
+        "name": "frames", "climates": {"c": str(tmp_path / "c.csv")},
+        "glazings": {"main": {"transmittance": 0.6}},
+        "spaces": [{"name": "low", **space, "windows": [{"wall": "front", "width": 2.0, **wall}]},
+                   {"name": "high", "origin": [0.0, 0.0, 3.0], **space,
+                    "windows": [{"wall": "front", "width": 1.0, **wall},
+                                {"wall": "right", "width": 2.0, **wall}]}],
+        "metrics": ["sda_ase", "glare"],
+        "views": [{"name": "a", "space": "low", "x": 2.0, "y": 1.0},
+                  {"name": "b", "space": "high", "x": 2.0, "y": 1.0, "direction": 0},
+                  {"name": "c", "space": "high", "x": 2.0, "y": 1.0, "height": 1.5}]})
+    layout = SpaceLayout(("low", "high"), np.zeros(4, np.int32), np.array([12.0, 12.0]))
+    views = view_layout(study, layout)
+    np.testing.assert_allclose(views.sensors, [[2, 1, 1.2, 0, -1, 0],   # out of the front window
+                                               [2, 1, 4.2, 0, 1, 0],    # towards the back wall
+                                               [2, 1, 4.5, 1, 0, 0]],   # the larger, right window
+                               atol=1e-12)
+    assert views.space.tolist() == [0, 1, 1]
