@@ -62,10 +62,10 @@ KERNEL_VERSION = "src-" + source_digest(Path(__file__).parent)[:32]
 """Version of the coefficient kernels, derived from their sources (see module docstring)."""
 
 RESULTS_MODULES = (*COEFFICIENT_MODULES, "climate", "timeseries", "metrics", "sunlight", "view",
-                   "lighting")
+                   "lighting", "glare")
 """Kernel modules whose code shapes stored results: the coefficient modules plus the
 weather readers, the annual series, the metrics, the EN 17037 sunlight and view-out
-results and the electric lighting energy."""
+results, the electric lighting energy and glare at the views."""
 
 RESULTS_VERSION = "src-" + source_digest(Path(__file__).parent, RESULTS_MODULES)[:32]
 """Version of the kernels that compute results, derived like :data:`KERNEL_VERSION`.

@@ -29,8 +29,10 @@ __all__ = [
     "EXCEEDANCE",
     "LEVEL_LIMITS",
     "dgp_simplified",
+    "glare_class",
     "glare_class_shares",
     "glare_level",
+    "year_map",
 ]
 
 DGPS_SLOPE = 6.22e-5
@@ -113,3 +115,59 @@ def glare_level(dgp: np.ndarray, occupied: np.ndarray,
         ok = (d > limit).sum(axis=-1) <= exceedance * n
         level = np.where(ok & (level == k - 1), k, level).astype(np.int8)
     return level
+
+
+def glare_class(dgp: np.ndarray) -> np.ndarray:
+    """Glare class of each DGP value.
+
+    Parameters
+    ----------
+    dgp : ndarray [-]
+
+    Returns
+    -------
+    ndarray int8
+        0 imperceptible, 1 perceptible, 2 disturbing, 3 intolerable
+        (:data:`CLASS_EDGES`, each edge belonging to the class above it, as in
+        :func:`glare_class_shares`).
+    """
+    return np.searchsorted(np.asarray(CLASS_EDGES), np.asarray(dgp), side="right").astype(np.int8)
+
+
+def year_map(dgp: np.ndarray, day: np.ndarray, hour: np.ndarray,
+             n_days: int = 365) -> np.ndarray:
+    """Glare class of the worst step of every hour of the year, for a map.
+
+    Parameters
+    ----------
+    dgp : ndarray (..., n_steps) [-]
+        DGP of the steps to show (e.g. the occupied ones).
+    day : ndarray (n_steps,) int
+        Day of the year of each step, 0-based (0 … ``n_days`` − 1).
+    hour : ndarray (n_steps,) int
+        Hour of the day of each step (0 … 23: the hour that holds the step).
+    n_days : int
+
+    Returns
+    -------
+    ndarray (..., n_days, 24) int8
+        :func:`glare_class` of the highest DGP among the steps of each hour;
+        −1 where no step falls in the hour.
+    """
+    d = np.asarray(dgp, dtype=np.float64)
+    out = np.full((*d.shape[:-1], n_days * 24), -1, dtype=np.int8)
+    if d.shape[-1]:
+        cell = np.asarray(day, dtype=np.intp) * 24 + np.asarray(hour, dtype=np.intp)
+        worst = np.full((*d.shape[:-1], n_days * 24), -np.inf)
+        _max_at(worst, cell, d)
+        seen = np.zeros(n_days * 24, dtype=bool)
+        seen[cell] = True
+        out[..., seen] = glare_class(worst[..., seen])
+    return out.reshape(*d.shape[:-1], n_days, 24)
+
+
+def _max_at(worst: np.ndarray, cell: np.ndarray, d: np.ndarray) -> None:
+    """``worst[..., cell[k]] = max(worst[..., cell[k]], d[..., k])`` over every k."""
+    w = worst.reshape(-1, worst.shape[-1])
+    for row, values in zip(w, d.reshape(-1, d.shape[-1]), strict=True):
+        np.maximum.at(row, cell, values)

@@ -124,6 +124,7 @@ __all__ = [
     "en17037_time_fractions",
     "finalize",
     "lm83_analysis_mask",
+    "lm83_closed",
     "merge_counts",
     "occupancy_mask",
     "space_mean",
@@ -773,6 +774,48 @@ def accumulate_dark(
         day_minimum_ok=np.zeros((*grid, n_levels), np.int64),
     )
     return _plus(counts, chunk)
+
+
+def lm83_closed(direct_sun: np.ndarray, analysis: np.ndarray, params: MetricParams,
+                space: np.ndarray | None = None) -> np.ndarray:
+    """Steps in which the LM-83 rule closes each space's operable shading.
+
+    The same rule, in the same arithmetic, as :func:`accumulate` applies for sDA:
+    in an analysis step, a space's shading is closed when *more than*
+    ``shading_sensor_fraction`` (2 %) of its sensors get *more than*
+    ``sun_threshold`` (1000 lx) of direct sun (IES LM-83-12; one shading group
+    per space, common practice). Results that depend on the shading state
+    (glare at a view position) read it here, so they see exactly the state the
+    grid's sDA used.
+
+    Parameters
+    ----------
+    direct_sun : ndarray (..., n_sensors, n_steps) [lx]
+        Direct-sun illuminance of the grid's sensors, shading open, at the
+        variant's transmittance (not a unit series).
+    analysis : ndarray (n_steps,) bool
+        LM-83 analysis steps (:func:`lm83_analysis_mask`).
+    params : MetricParams
+    space : ndarray (n_sensors,) of int, optional
+        Space of every sensor (every index 0 … n_spaces − 1 present); None: one space.
+
+    Returns
+    -------
+    ndarray (..., n_spaces, n_steps) bool
+    """
+    d = np.asarray(direct_sun)
+    n_sensors = d.shape[-2]
+    own = (np.zeros(n_sensors, np.intp) if space is None
+           else np.asarray(space, dtype=np.intp).reshape(n_sensors))
+    n_sp = int(own.max()) + 1 if own.size else 1
+    dtype = np.result_type(d.dtype, np.float32)
+    # fl(d) > x, as accumulate compares the τ = 1 series (its strict sun comparison)
+    limit = dtype.type(_first_passing(float(params.sun_threshold), 1.0, True, dtype))
+    members = (np.arange(n_sp)[:, None] == own[None, :]).astype(dtype)  # (n_sp, n_sensors)
+    n_sunlit = (members @ (d >= limit).astype(dtype)).astype(np.int64)  # exact below 2**24
+    size = np.bincount(own, minlength=n_sp).astype(np.int64)[:, None]
+    return (_share_more_than(n_sunlit, size, params.shading_sensor_fraction)
+            & np.asarray(analysis, dtype=bool))
 
 
 def merge_counts(*parts: Counts) -> Counts:

@@ -89,6 +89,8 @@ __all__ = [
     "NOT_VARIABLE",
     "RANK_FAMILY",
     "RANK_METRICS",
+    "VIEW_MARGIN",
+    "WALL_AZIMUTH",
     "Compute",
     "Copies",
     "Glazing",
@@ -111,6 +113,7 @@ __all__ = [
     "Study",
     "StudyFile",
     "Sunlight",
+    "View",
     "WeatherFile",
     "Window",
     "canonical_json",
@@ -120,6 +123,8 @@ __all__ = [
     "load_study",
     "parse_study",
     "validation_problems",
+    "view_boxes",
+    "view_direction",
 ]
 
 # ---------------------------------------------------------------------------
@@ -129,7 +134,7 @@ METRIC_FAMILIES = registry.FAMILIES
 # Top-level keys that describe the sweep or the store layout rather than a
 # variant: they cannot be varied, and they stay out of a variant's hash.
 NOT_VARIABLE = ("name", "vary", "vary_together", "exclude", "rank", "metrics", "store_series",
-                "climates", "labels", "project", "sunlight")
+                "climates", "labels", "project", "sunlight", "views")
 
 _NAME = re.compile(r"^[A-Za-z0-9_-]+$")
 _CLOCK = re.compile(r"^(([01]\d|2[0-3]):[0-5]\d|24:00)$")
@@ -823,6 +828,41 @@ class Rank(_Model):
 # the study
 
 
+class View(_Model):
+    """A view position for glare (extension ``views:``) [m, deg], building frame.
+
+    An eye at ``height`` above the floor of ``space`` at building-frame ``x``,
+    ``y``, looking horizontally towards ``direction``: a building-frame
+    azimuth in degrees, clockwise from building +y (0 towards the back wall,
+    90 towards +x, 180 towards the front façade, 270 towards x = 0), or
+    ``window``: square on to the space's largest wall window, looking out.
+    The eye's sensor faces that direction (a vertical plane at the eye).
+    """
+
+    name: str
+    space: str | None = None
+    x: float
+    y: float
+    height: Positive = 1.2
+    direction: float | Literal["window"] = "window"
+
+    @field_validator("name")
+    @classmethod
+    def _name(cls, v: str) -> str:
+        if not _NAME.match(v):
+            raise ValueError(f"view name '{v}' may hold only letters, digits, '-' and '_'")
+        return v
+
+    @field_validator("direction")
+    @classmethod
+    def _direction(cls, v: float | str) -> float | str:
+        if not isinstance(v, str) and not (math.isfinite(v) and 0.0 <= v < 360.0):
+            raise ValueError(f"direction {v} is not a building-frame azimuth; give degrees "
+                             "from 0 to below 360 (0 towards the back wall, 180 towards the "
+                             "front facade) or 'window'")
+        return v
+
+
 class Study(_Model):
     """A study file (CONTRACT.md §1) with the extensions listed in the module docstring.
 
@@ -852,6 +892,7 @@ class Study(_Model):
     exclude: list[dict[str, Any]] = []
     metrics: list[Literal[METRIC_FAMILIES]] = list(  # type: ignore[valid-type]
         registry.DEFAULT_FAMILIES)
+    views: list[View] | None = None
     metric_options: MetricOptions = MetricOptions()
     sunlight: Sunlight | None = None
     compute: Compute = Compute()
@@ -965,6 +1006,13 @@ class Study(_Model):
             raise ValueError(f"list at least one metric of {', '.join(METRIC_FAMILIES)}")
         return v
 
+    @field_validator("views")
+    @classmethod
+    def _views(cls, v: list[View] | None) -> list[View] | None:
+        if v is not None and not v:
+            raise ValueError("list at least one view {name, x, y}, or leave 'views' out")
+        return v
+
     @field_validator("store_series")
     @classmethod
     def _store_series(cls, v: bool) -> bool:
@@ -1022,7 +1070,7 @@ class Study(_Model):
 
 
 _LATER_KEYS: dict[str, Any] = {"spaces": None, "obstructions": [], "mesh_spaces": None,
-                               "sunlight": None, "lighting": None}
+                               "sunlight": None, "lighting": None, "views": None}
 """Study keys left out of the canonical form when at their default (see Study.canonical)."""
 
 _LATER_COMPUTE_KEYS = ("max_elements", "memory_limit", "target_error")
@@ -1085,6 +1133,7 @@ def cross_check(study: Study) -> list[tuple[tuple, str]]:
             problems.append((("grid",), "a mesh room needs 'grid: {floors: [group, ...]}', "
                              "'mesh_spaces:' or 'sensors: points.csv'"))
     problems += _geometry_family_problems(study)
+    problems += _view_problems(study)
     for i, req in enumerate(study.rank.require if study.rank else []):
         if req.at_least is None and req.at_most is None:
             problems.append((("rank", "require", i), "give 'at_least' or 'at_most'"))
@@ -1202,6 +1251,106 @@ def _lighting_problems(study: Study) -> list[tuple[tuple, str]]:
                              f"outside space '{name}' (x from 0 to {width:g} m, y from 0 to "
                              f"{depth:g} m in the space's own frame); give a point inside "
                              "it"))
+    return problems
+
+
+VIEW_MARGIN = 0.01
+"""Least distance [m] from a view position to its space's walls, floor and ceiling."""
+
+
+def view_boxes(study: Study) -> dict[str, tuple[tuple[float, ...], tuple[float, ...],
+                                                list[Window]]]:
+    """Occupied spaces a view may name: ``name -> (low corner, high corner, windows)``
+    in the building frame [m] (``room`` for a ``room:`` study; copies expanded)."""
+    if study.room is not None:
+        r = study.room
+        return {"room": ((0.0, 0.0, 0.0), (r.width, r.depth, r.height), list(r.windows))}
+    boxes = {}
+    for sp in study.spaces or []:
+        if not sp.occupied:
+            continue
+        for name, origin in sp.expanded():
+            lo = tuple(float(o) for o in origin)
+            hi = tuple(a + b for a, b in zip(lo, (sp.width, sp.depth, sp.height), strict=True))
+            boxes[name] = (lo, hi, list(sp.windows))
+    return boxes
+
+
+WALL_AZIMUTH = {"front": 180.0, "back": 0.0, "left": 270.0, "right": 90.0}
+"""Building-frame azimuth [deg] of the outward normal of each wall (front: −y)."""
+
+
+def view_direction(view: View, windows: list[Window]) -> float | None:
+    """Building-frame azimuth [deg] a view looks towards (None: ``window`` with no wall window).
+
+    ``window``: out through the space's largest wall window (area width × (head − sill);
+    the first of equal ones).
+    """
+    if not isinstance(view.direction, str):
+        return float(view.direction)
+    wall = [w for w in windows if w.wall != "roof"]
+    if not wall:
+        return None
+    best = max(wall, key=lambda w: w.width * ((w.head or 0.0) - (w.sill or 0.0)))
+    return WALL_AZIMUTH[best.wall]
+
+
+def _view_problems(study: Study) -> list[tuple[tuple, str]]:
+    """``views:`` and the ``glare`` family go together; each view inside its space."""
+    problems: list[tuple[tuple, str]] = []
+    glare = "glare" in study.metrics
+    if glare and study.views is None:
+        problems.append((("metrics",), "'glare' is computed at view positions, but the study "
+                         "has no 'views:'; add views (e.g. views: [{name: desk, x: 3.0, "
+                         "y: 2.0}]) or remove 'glare' from 'metrics'"))
+    if study.views is None:
+        return problems
+    if not glare:
+        problems.append((("views",), "'views:' are used only by the 'glare' metric family, "
+                         "which is not listed under 'metrics'; add 'glare' to 'metrics' or "
+                         "remove 'views'"))
+    if study.mesh is not None:
+        problems.append((("views",), "'views:' need a parametric 'room:' or 'spaces:' (a "
+                         "mesh study has no space boxes to check them against); remove them"))
+        return problems
+    boxes = view_boxes(study)
+    seen: set[str] = set()
+    for i, v in enumerate(study.views):
+        if v.name in seen:
+            problems.append((("views", i, "name"), f"view name '{v.name}' is used twice; give "
+                             "every view its own name"))
+        seen.add(v.name)
+        if v.space is None:
+            if len(boxes) != 1:
+                problems.append((("views", i), f"view '{v.name}' must name its space ('space:' "
+                                 f"one of {', '.join(boxes)}): the study has several"))
+                continue
+            name = next(iter(boxes))
+        elif v.space not in boxes:
+            close = difflib.get_close_matches(v.space, list(boxes), n=1)
+            hint = f"did you mean '{close[0]}'? " if close else ""
+            problems.append((("views", i, "space"), f"no occupied space is named '{v.space}'; "
+                             f"{hint}the occupied spaces are: {', '.join(boxes)}"))
+            continue
+        else:
+            name = v.space
+        lo, hi, windows = boxes[name]
+        m = VIEW_MARGIN
+        for key, value, a in (("x", v.x, 0), ("y", v.y, 1)):
+            if not lo[a] + m <= value <= hi[a] - m:
+                problems.append((("views", i, key), f"view '{v.name}' at {key} = {value:g} m "
+                                 f"lies outside space '{name}' ({key} from {lo[a]:g} to "
+                                 f"{hi[a]:g} m, building frame); give a position at least "
+                                 f"{m:g} m inside its walls"))
+        if not v.height <= (hi[2] - lo[2]) - m:
+            problems.append((("views", i, "height"), f"view '{v.name}' at height {v.height:g} m "
+                             f"is at or above the ceiling of space '{name}' (height "
+                             f"{hi[2] - lo[2]:g} m); give the eye height above the floor "
+                             "(1.2 m seated)"))
+        if view_direction(v, windows) is None:
+            problems.append((("views", i, "direction"), f"view '{v.name}' looks towards "
+                             f"'window', but space '{name}' has no wall window; give an "
+                             "azimuth in degrees instead"))
     return problems
 
 
@@ -1667,8 +1816,11 @@ _SCHEMA_TEXT: dict[str, tuple[str, dict[str, str]]] = {
                        "matches every entry of one of them is left out.",
             "metrics": f"Metric families to compute: {', '.join(METRIC_FAMILIES)}. "
                        "sunlight and view_out (EN 17037 exposure to sunlight and view out, "
-                       "per space) are computed only when listed; left out, the list is "
+                       "per space), lighting (needs lighting) and glare (needs views) are "
+                       "computed only when listed; left out, the list is "
                        f"{', '.join(registry.DEFAULT_FAMILIES)}.",
+            "views": "View positions for glare: eyes at a given height in a space, each "
+                     "looking horizontally in a direction; used by the glare metric family.",
             "metric_options": "Thresholds of the metrics.",
             "sunlight": "EN 17037 exposure to sunlight: the day and the minimum sun "
                         "altitude. Needed when metrics lists sunlight.",
@@ -1933,6 +2085,22 @@ _SCHEMA_TEXT: dict[str, tuple[str, dict[str, str]]] = {
                             "fraction (0.01 is 1 %); when the estimated error of the 95th "
                             "percentile sensor is larger, the sensor rays are increased to "
                             "meet it. 0 switches this off.",
+        },
+    ),
+    "View": (
+        "A view position: an eye looking horizontally; glare is estimated from the "
+        "illuminance on a vertical plane at the eye facing the view direction.",
+        {
+            "name": "Name of the view: letters, digits, '-' and '_'; unique.",
+            "space": "The occupied space the eye is in (a copy by its numbered name). "
+                     "Default: the only occupied space.",
+            "x": "Position of the eye along the building x axis, in metres.",
+            "y": "Position of the eye along the building y axis, in metres.",
+            "height": "Eye height above the floor of the space, in metres (1.2 seated).",
+            "direction": "Where the eye looks: degrees clockwise from the building's y axis "
+                         "(0 towards the back wall, 90 towards the right wall, 180 towards "
+                         "the front facade, 270 towards the left wall), or window: out "
+                         "through the space's largest wall window.",
         },
     ),
     "Rank": (

@@ -44,6 +44,7 @@ from luxsweep.sweep.expand import (
     study_hash,
 )
 from luxsweep.sweep.spaces import SpaceLayout, check_rank_spaces, single_space
+from luxsweep.sweep.views import ViewLayout, view_layout
 
 __all__ = [
     "BYTES_PER_VALUE",
@@ -150,6 +151,9 @@ class CoefficientJob:
     rays: int
     layout: SpaceLayout | None = None
     """Space of every sensor and grid area per space (None only in hand-made jobs)."""
+    views: ViewLayout | None = None
+    """The study's views (``views:``): the series task computes (or reads from the
+    cache) their own coefficient set on this geometry (:func:`sweep.run.view_coefficients`)."""
 
     @property
     def n_sensors(self) -> int:
@@ -183,6 +187,9 @@ class SeriesTask:
     layout : SpaceLayout or None
         The space of every sensor of the set and each space's grid area (the
         coefficient job's); None in hand-made tasks: one space.
+    views : ViewLayout or None
+        The views (``views:``; their own coefficient set on the same geometry); None
+        without views.
     """
 
     task_id: str
@@ -197,6 +204,7 @@ class SeriesTask:
     variant_ids: Sequence[str]
     climate_sha256: str = ""
     layout: SpaceLayout | None = None
+    views: ViewLayout | None = None
 
     @property
     def shading(self) -> bool:
@@ -745,7 +753,7 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
     variants = expand(loaded)
     n = len(variants)
     built: dict[str, int] = {}  # geometry document -> geometry number
-    geometries: list[tuple[Any, np.ndarray, str, Any, SpaceLayout]] = []
+    geometries: list[tuple[Any, np.ndarray, str, Any, SpaceLayout, ViewLayout | None]] = []
     groups: dict[tuple[str, str, str], int] = {}
     group_info: list[tuple[int, str, str, Study]] = []  # geometry, climate, series, study
 
@@ -789,7 +797,7 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
         if doc not in built:
             built[doc] = len(geometries)
             geometries.append((geometry, pts, coefficient_key(geometry, pts, settings),
-                               settings, layout))
+                               settings, layout, view_layout(rep.study, layout)))
         return doc
 
     def group_variants(roles: list[str]) -> np.ndarray | None:
@@ -845,7 +853,7 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
     geometry_of = np.asarray([info[0] for info in group_info], dtype=np.int64)[group]
     key_names: list[str] = []
     key_number: dict[str, int] = {}
-    for _, _, key, _, _ in geometries:
+    for _, _, key, _, _, _ in geometries:
         key_number.setdefault(key, len(key_names))
         if len(key_names) < len(key_number):
             key_names.append(key)
@@ -856,7 +864,7 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
     keys = PerVariant(key_names, key_index)
 
     jobs: dict[str, CoefficientJob] = {}
-    for geometry, pts, key, settings, layout in geometries:
+    for geometry, pts, key, settings, layout, views in geometries:
         if key in jobs:
             continue
         members = np.flatnonzero(key_index == key_number[key])
@@ -864,7 +872,7 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
         jobs[key] = CoefficientJob(
             key=key, geometry=geometry, sensors=pts, settings=settings, variants=members,
             cached=bool(cache is not None and cache.contains(key)),
-            rays=_estimate_rays(geometry, pts, settings), layout=layout,
+            rays=_estimate_rays(geometry, pts, settings), layout=layout, views=views,
         )
 
     climates: dict[str, Any] = {}
@@ -895,7 +903,7 @@ def make_plan(loaded: StudyFile, cache: CoefficientCache | None = None,
             members=Members(np.column_stack([np.arange(start, stop), o_index, r_index])),
             study=study, variant_ids=ids[start:stop],
             climate_sha256=variants.file_hash(loaded.study.climates[climate]),
-            layout=jobs[key].layout,
+            layout=jobs[key].layout, views=jobs[key].views,
         ))
 
     n_steps = {label: len(c) * c.interval // loaded.study.timestep

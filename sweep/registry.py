@@ -75,6 +75,8 @@ __all__ = [
     "store_variables",
     "thresholds",
     "variant_metrics",
+    "view_metrics",
+    "view_variables",
 ]
 
 DEFAULT_FAMILIES: tuple[str, ...] = ("daylight_factor", "daylight_autonomy", "udi", "sda_ase",
@@ -86,10 +88,10 @@ GEOMETRY_FAMILIES: tuple[str, ...] = ("sunlight", "view_out")
 (exposure to sunlight, view out): computed per space by :mod:`sweep.run` from
 :mod:`kernels.sunlight` and :mod:`kernels.view`, never by default."""
 
-FAMILIES: tuple[str, ...] = (*DEFAULT_FAMILIES, *GEOMETRY_FAMILIES, "lighting")
+FAMILIES: tuple[str, ...] = (*DEFAULT_FAMILIES, *GEOMETRY_FAMILIES, "lighting", "glare")
 """Metric families a study may list under ``metrics:``, in store order: the default
 ones, then the opt-in ones (``lighting``: electric lighting energy, needs the
-study's ``lighting:`` settings)."""
+study's ``lighting:`` settings; ``glare``: glare at the ``views:``)."""
 
 
 @dataclass(frozen=True)
@@ -102,8 +104,9 @@ class Metric:
         Store variable name (CONTRACT.md §3 names are kept).
     family : str
         Metric family (one of :data:`FAMILIES`) whose computation yields it.
-    per : {"sensor", "variant"}
-        Per-sensor ``(variant, sensor)`` or per-variant ``(variant,)`` result.
+    per : {"sensor", "variant", "view"}
+        Per-sensor ``(variant, sensor)``, per-variant ``(variant,)`` or per-view
+        ``(variant, view)`` result (views: the study's ``views:`` positions).
     dtype : str
         Store dtype.
     unit : str
@@ -127,7 +130,7 @@ class Metric:
 
     name: str
     family: str
-    per: Literal["sensor", "variant"]
+    per: Literal["sensor", "variant", "view"]
     dtype: str
     unit: str
     label: str
@@ -140,7 +143,8 @@ class Metric:
     @property
     def dims(self) -> tuple[str, ...]:
         """Store dimensions."""
-        return ("variant", "sensor") if self.per == "sensor" else ("variant",)
+        return {"sensor": ("variant", "sensor"), "view": ("variant", "view")}.get(
+            self.per, ("variant",))
 
     @property
     def stored(self) -> bool:
@@ -263,6 +267,40 @@ _ENTRIES: tuple[Metric, ...] = (
            "annual electric lighting energy saved by the daylight-linked control against "
            "the same lights without control (building: of the total energy)",
            source="engine", rank=True),
+    # glare at the views (simplified DGP, Wienold 2009; EN 17037 protection from glare)
+    Metric("view_glare_imperceptible", "glare", "view", "float32", "1",
+           "imperceptible glare (DGPs below 0.35)",
+           "fraction of occupied time with simplified DGP below 0.35 (imperceptible)",
+           source="engine", share=True),
+    Metric("view_glare_perceptible", "glare", "view", "float32", "1",
+           "perceptible glare (DGPs 0.35–0.40)",
+           "fraction of occupied time with simplified DGP from 0.35 to below 0.40 "
+           "(perceptible)", source="engine", share=True),
+    Metric("view_glare_disturbing", "glare", "view", "float32", "1",
+           "disturbing glare (DGPs 0.40–0.45)",
+           "fraction of occupied time with simplified DGP from 0.40 to below 0.45 "
+           "(disturbing)", source="engine", share=True),
+    Metric("view_glare_intolerable", "glare", "view", "float32", "1",
+           "intolerable glare (DGPs 0.45 and above)",
+           "fraction of occupied time with simplified DGP of 0.45 or more (intolerable)",
+           source="engine", share=True),
+    Metric("view_dgp_max", "glare", "view", "float32", "1", "highest simplified DGP",
+           "highest simplified daylight glare probability over the occupied time",
+           source="engine"),
+    Metric("view_glare_level", "glare", "view", "int8", "1",
+           "EN 17037 glare protection level",
+           "EN 17037 protection from glare at the view (simplified DGP): 0 none, 1 minimum, "
+           "2 medium, 3 high", source="engine", display="0–3"),
+    Metric("glare_level", "glare", "variant", "int8", "1",
+           "EN 17037 glare protection level, lowest view",
+           "EN 17037 protection from glare (simplified DGP), the lowest level among the "
+           "views: 0 none, 1 minimum, 2 medium, 3 high", source="engine", rank=True,
+           display="0–3"),
+    Metric("glare_disturbing_share", "glare", "variant", "float32", "1",
+           "disturbing or intolerable glare, worst view",
+           "largest fraction, among the views, of occupied time with simplified DGP of "
+           "0.40 or more (disturbing or intolerable glare)", source="engine", rank=True,
+           share=True),
 )
 
 LEVEL_METRICS: tuple[str, ...] = ("en17037_level", "sunlight_level", "view_level")
@@ -402,6 +440,16 @@ def space_metrics() -> list[str]:
     return variant_metrics()
 
 
+def view_metrics() -> list[str]:
+    """Stored per-view results (dimensions (variant, view))."""
+    return [m.name for m in _ENTRIES if m.per == "view" and m.stored]
+
+
+def view_variables(metrics: list[str]) -> list[str]:
+    """Per-view variables kept for the study's metric families, in registry order."""
+    return [m.name for m in _ENTRIES if m.per == "view" and m.stored and m.family in metrics]
+
+
 def space_variables(metrics: list[str]) -> list[str]:
     """Per-space variables kept for the study's metric families (``space_<name>``), in
     the order of :func:`store_variables`' per-variant variables."""
@@ -430,7 +478,7 @@ def store_variables(metrics: list[str]) -> tuple[list[str], list[str]]:
         if family not in FAMILIES:
             raise ValueError(f"unknown metric family '{family}'; valid: {', '.join(FAMILIES)}")
         for m in _ENTRIES:
-            if m.family == family and m.stored:
+            if m.family == family and m.stored and m.per != "view":  # views: view_variables
                 (sensor if m.per == "sensor" else variant).append(m.name)
     return sensor, variant
 

@@ -124,7 +124,11 @@ CAUTION = (
     "files, geometry, reflectances, glazing data) and carry their uncertainty. "
     "Compliance with any building code or standard rests on the applicable local "
     "codes and standards and on the judgement of a qualified professional. Glare "
-    "and overheating are not assessed."
+    "is shown only where the study asks for it, at its view positions, and is then "
+    "estimated by a simplified method (the simplified daylight glare probability, "
+    "DGPs) from the vertical illuminance at the eye alone: it ignores contrast and "
+    "the position of bright sources, so it under-reads glare from direct sun in "
+    "view. Overheating is not assessed."
 )
 SCATTER_LIMIT = 2000
 """Above this many finished variants the trade-off chart shows their density."""
@@ -1075,6 +1079,74 @@ def _hourly_map(ds: xr.Dataset, table: pd.DataFrame, study: dict) -> str:
               "the occupied period, which the store does not keep.</p>")
 
 
+GLARE_CLASSES = ("imperceptible", "perceptible", "disturbing", "intolerable")
+"""Glare classes of the simplified DGP (kernels.glare.CLASS_EDGES), lowest first."""
+GLARE_LEVELS = ("none", "minimum", "medium", "high")
+"""Words for the EN 17037 protection-from-glare levels 0–3."""
+
+
+def _glare_section(ds: xr.Dataset, table: pd.DataFrame, study: dict, top: int = 3) -> str:
+    """Per-view glare table of the top variants and the best variant's first view over the
+    year (day × hour, coloured by glare class, from the store's ``view_glare_map``)."""
+    done = table[table["status"] != "incomplete"]
+    if done.empty:
+        return '<p class="note">No finished variants: no glare results.</p>'
+    views = [str(v) for v in ds["view"].values]
+    spaces = ([str(v) for v in ds["view_space"].values] if "view_space" in ds.coords
+              else [""] * len(views))
+    head = ["rank", "variant", "view", "space",
+            *[f"{c} [% of occupied time]" for c in GLARE_CLASSES], "highest DGPs",
+            "EN 17037 glare protection"]
+    rows = []
+    for _, row in done.head(top).iterrows():
+        v = int(row["variant"])
+        values = {n: np.asarray(ds[n].isel(variant=v).values) for n in (
+            *(f"view_glare_{c}" for c in GLARE_CLASSES), "view_dgp_max", "view_glare_level")
+            if n in ds}
+        for k, name in enumerate(views):
+            level = int(values["view_glare_level"][k]) if "view_glare_level" in values else -1
+            rows.append([row["rank"], _variant_caption(row, axes_of(ds), _labels(study)), name,
+                         spaces[k],
+                         *[f"{100 * float(values[f'view_glare_{c}'][k]):.1f}"
+                           for c in GLARE_CLASSES],
+                         f"{float(values['view_dgp_max'][k]):.2f}",
+                         f"{level} ({GLARE_LEVELS[level]})" if 0 <= level <= 3 else "–"])
+    html_table = _table(head, rows)
+    best = done.iloc[0]
+    variant = int(best["variant"])
+    if "view_glare_map" not in ds:
+        return html_table
+    grid = np.asarray(ds["view_glare_map"].isel(variant=variant, view=0).values, float)
+    img = np.where(grid < 0, np.nan, grid).T  # (hour, day)
+    cmap = colors.ListedColormap(matplotlib.colormaps[CMAP](np.linspace(0.0, 1.0, 4)))
+    cmap = cmap.with_extremes(bad="#ececec")
+    fig = Figure(figsize=(10.5, 3.8))
+    ax = fig.add_subplot()
+    mesh = ax.imshow(img, aspect="auto", origin="lower", cmap=cmap,
+                     norm=colors.BoundaryNorm([-0.5, 0.5, 1.5, 2.5, 3.5], 4),
+                     extent=(0, img.shape[1], 0, 24), interpolation="nearest")
+    month_starts = pd.date_range("2023-01-01", periods=12, freq="MS")
+    ax.set_xticks(np.asarray(month_starts.day_of_year) - 1,
+                  [m.strftime("%b") for m in month_starts], fontsize=8)
+    ax.set_yticks(range(0, 25, 3))
+    ax.set_xlabel("day of the year")
+    ax.set_ylabel("hour of the day (local standard time)")
+    bar = fig.colorbar(mesh, ax=ax, ticks=[0, 1, 2, 3], label="glare class (simplified DGP)")
+    bar.ax.set_yticklabels([f"{c}" for c in GLARE_CLASSES], fontsize=8)
+    note = (f'<p class="note">Best variant (#{best["rank"]}: '
+            f"{_esc(_variant_caption(best, axes_of(ds), _labels(study)))}), view "
+            f"{_esc(views[0])}: each cell is the glare class of the hour's highest simplified "
+            "DGP (DGPs = 6.22·10⁻⁵ E<sub>v</sub> + 0.184, Wienold 2009) over its occupied "
+            "steps; classes below 0.35, 0.35–0.40, 0.40–0.45 and from 0.45. Light grey: "
+            "hours outside the occupied period. In a step where the IES LM-83 rule closes "
+            "the space's operable shading, the eye sees the closed glazing. EN 17037 "
+            "protection from glare: the level whose DGP limit (0.45 minimum, 0.40 medium, "
+            "0.35 high) is exceeded in at most 5 % of the occupied time. DGPs reads the "
+            "vertical illuminance at the eye only: it ignores contrast and where bright "
+            "sources are, so it under-reads glare from direct sun in view.</p>")
+    return html_table + _png(fig, f"glare class by hour and day at view {views[0]}") + note
+
+
 NOTES = """
 <dl>
 <dt>Daylight autonomy</dt><dd>Share of the occupied hours in which a point gets at least
@@ -1556,6 +1628,8 @@ def build_report(ds: xr.Dataset, source: str | None = None, paper: str | None = 
          ("maps", "Daylight across the room for the top variants",
           _plan_maps(ds, table, study))),
         ("hourly", "Hour by hour at one point", _hourly_map(ds, table, study)),
+        *([("glare", "Glare at the view positions", _glare_section(ds, table, study))]
+          if "view" in ds.dims else []),
         ("notes", "What the metrics mean",
          NOTES.format(**registry.thresholds(_options(ds))) + _geometry_notes(ds)),
     ]

@@ -91,8 +91,9 @@ from luxsweep.sweep.errors import (
 from luxsweep.sweep.plan import CoefficientJob, Plan, SeriesTask, build_geometry, make_plan
 from luxsweep.sweep.preflight import Transport, preflight
 from luxsweep.sweep.progress import PLAIN_EVERY, Progress
-from luxsweep.sweep.registry import space_variables, store_variables
+from luxsweep.sweep.registry import space_variables, store_variables, view_variables
 from luxsweep.sweep.spaces import SpaceLayout, single_space
+from luxsweep.sweep.views import ViewLayout
 
 log = logging.getLogger("luxsweep")
 
@@ -268,6 +269,31 @@ def _coefficients(task: SeriesTask, cache_root: str | None, coefficient_result: 
     return coeffs, 1
 
 
+def view_coefficients(views: ViewLayout, cache_root: str | None,
+                      job: CoefficientJob | None) -> Any:
+    """The coefficient set of the view sensors on the job's geometry and settings.
+
+    A set of its own (key from the view sensors), read from this worker's cache
+    when there, else computed here (and kept in the cache if there is one). It
+    costs one more element solve of the geometry, but the grid's set, key and
+    results stay exactly those of the study without views.
+    """
+    from luxsweep.kernels.coefficients import coefficient_key, compute_coefficients
+
+    if job is None:
+        raise RuntimeError("the views' coefficient set needs the task's coefficient job")
+    key = coefficient_key(job.geometry, views.sensors, job.settings)
+    cache = open_cache(cache_root) if cache_root is not None else None
+    if cache is not None and cache.contains(key):
+        found = cache.load(key)  # a damaged entry is a miss
+        if found is not None:
+            return found
+    coeffs = compute_coefficients(job.geometry, views.sensors, job.settings)
+    if cache is not None:
+        cache.save(coeffs)
+    return coeffs
+
+
 def _metric_params(task: SeriesTask) -> Any:
     study = task.study
     return registry.metric_params(study.metric_options.model_dump(), study.timestep)
@@ -395,6 +421,8 @@ class Workspace:
 
     def __init__(self) -> None:
         self._buffers: dict[str, np.ndarray] = {}
+        self.view_unit: tuple[np.ndarray, np.ndarray] | None = None
+        """The block's unit-τ series of the view sensors (a study with ``views:``)."""
 
     def array(self, name: str, shape: tuple[int, ...], dtype: Any = np.float32) -> np.ndarray:
         """An uninitialised C-contiguous array of ``shape`` in buffer ``name``."""
@@ -496,6 +524,9 @@ class _SeriesInputs:
     closed_rows: np.ndarray
     layout: SpaceLayout
     recomputed: int = 0
+    views: ViewLayout | None = None
+    view_coeffs: Any = None
+    """The views' coefficient set (:func:`view_coefficients`)."""
 
     @property
     def n_sets(self) -> int:
@@ -530,6 +561,8 @@ def _load_series(task: SeriesTask, cache_root: str | None, coefficient_result: A
     climate, altitude, azimuth, daylight = CLIMATE_STEPS.get(task.climate_file, study.timestep,
                                                              task.climate_sha256, climate_data)
     coeffs, recomputed = _coefficients(task, cache_root, coefficient_result, job)
+    view_coeffs = (None if task.views is None
+                   else view_coefficients(task.views, cache_root, job))
     stamps = climate.time
     scheme = patch_scheme(coeffs.subdivision)
     occ = study.occupancy
@@ -544,6 +577,7 @@ def _load_series(task: SeriesTask, cache_root: str | None, coefficient_result: A
         open_rows=task.open_rows(), closed_rows=task.closed_rows(), recomputed=recomputed,
         layout=(task.layout if task.layout is not None
                 else single_space(coeffs.n_sensors, float("nan"))),
+        views=task.views, view_coeffs=view_coeffs,
     )
 
 
@@ -565,6 +599,8 @@ def _unit_series(inp: _SeriesInputs, lit: np.ndarray, workspace: Workspace,
                           study.timestep, study.ground_reflectance, steps=lit,
                           sun_position=inp.sun_position, out=basis)
     with timer("illuminance"):
+        if inp.view_coeffs is not None:  # the views' eye sensors under the same sky
+            workspace.view_unit = unit_illuminance(inp.view_coeffs, sky)
         total = workspace.array("total", (n_o, inp.n_sets, lit.size, n_s))
         return unit_illuminance(inp.coeffs, sky, out=total)  # (n_o, n_sets, n_lit, n_s) each
 
@@ -825,6 +861,81 @@ def _lighting_results(inp: _SeriesInputs, state: _LightingState) -> dict[str, np
     }
 
 
+def _glare_block(inp: _SeriesInputs, a: int, b: int, lit: np.ndarray, unit: tuple | None,
+                 view_unit: tuple | None) -> np.ndarray:
+    """Simplified DGP at every view in the occupied steps of ``[a, b)``.
+
+    Returns
+    -------
+    ndarray float32 (n_orient, n_rows, n_views, n_occupied)
+        DGPs (:func:`kernels.glare.dgp_simplified`) of each view's vertical
+        illuminance at the eye; in a step where the LM-83 rule closes the
+        shading of the view's space (:func:`kernels.metrics.lm83_closed`, the
+        state the grid's sDA uses) the closed glazing row lights the eye.
+        Steps without daylight have E_v = 0.
+    """
+    from luxsweep.kernels.glare import dgp_simplified
+    from luxsweep.kernels.metrics import lm83_closed
+    from luxsweep.kernels.timeseries import combine
+
+    task, views = inp.task, inp.views
+    assert views is not None
+    n_o, n_r = len(task.orientations), len(task.rows)
+    occ_steps = a + np.flatnonzero(inp.occupied[a:b])
+    ev = np.zeros((n_o, n_r, views.n_views, occ_steps.size), dtype=np.float32)
+    if unit is not None and view_unit is not None and occ_steps.size:
+        pos = np.searchsorted(lit, occ_steps)
+        hit = (pos < lit.size) & (lit[np.minimum(pos, lit.size - 1)] == occ_steps)
+        steps = pos[hit]
+        e = combine(view_unit[0][:, :, steps], inp.open_rows).swapaxes(-1, -2)
+        if task.shading:
+            shut = combine(view_unit[0][:, :, steps], inp.closed_rows).swapaxes(-1, -2)
+            sun = unit[1][:, :, steps]
+            for r in range(n_r):  # one glazing row at a time: memory of one grid series
+                direct = combine(sun, inp.open_rows[r:r + 1])[:, 0].swapaxes(-1, -2)
+                closed = lm83_closed(direct, inp.analysis[lit[steps]], inp.params,
+                                     inp.layout.sensor_space)  # (n_o, n_spaces, n)
+                e[:, r] = np.where(closed[:, views.space, :], shut[:, r], e[:, r])
+        ev[..., hit] = e
+    return dgp_simplified(ev).astype(np.float32)
+
+
+def _glare_results(inp: _SeriesInputs, dgp: np.ndarray) -> dict[str, np.ndarray]:
+    """Per-view, per-space and building glare results from the year's DGPs
+    ``(n_orient, n_rows, n_views, n_occupied)`` (:mod:`kernels.glare`)."""
+    from luxsweep.kernels.glare import glare_class_shares, glare_level, year_map
+
+    views = inp.views
+    assert views is not None
+    every = np.ones(dgp.shape[-1], dtype=bool)
+    shares = glare_class_shares(dgp, every).astype(np.float32)  # (n_o, n_r, n_v, 4)
+    level = glare_level(dgp, every)
+    # the hour of the year each occupied step lies in (stamps end their step)
+    occ = inp.climate.time[inp.occupied]
+    start = occ - np.timedelta64(inp.task.study.timestep * 30, "s")
+    day, hour = np.asarray(start.day_of_year) - 1, np.asarray(start.hour)
+    out = {f"view_glare_{k}": shares[..., i] for i, k in enumerate(
+        ("imperceptible", "perceptible", "disturbing", "intolerable"))}
+    out["view_dgp_max"] = (dgp.max(axis=-1) if dgp.shape[-1]
+                           else np.full(dgp.shape[:-1], np.nan, np.float32))
+    out["view_glare_level"] = level
+    out["view_glare_map"] = year_map(dgp, day, hour)
+    bad = shares[..., 2] + shares[..., 3]  # disturbing or intolerable
+    out["glare_level"] = level.min(axis=-1)
+    out["glare_disturbing_share"] = bad.max(axis=-1)
+    n_sp = inp.layout.n_spaces
+    sp_level = np.full((*level.shape[:-1], n_sp), -1, dtype=np.int8)
+    sp_bad = np.full((*level.shape[:-1], n_sp), np.nan, dtype=np.float32)
+    for k in range(n_sp):
+        mine = views.space == k
+        if mine.any():
+            sp_level[..., k] = level[..., mine].min(axis=-1)
+            sp_bad[..., k] = bad[..., mine].max(axis=-1)
+    out["space_glare_level"] = sp_level
+    out["space_glare_disturbing_share"] = sp_bad
+    return out
+
+
 def _series(
     task: SeriesTask,
     todo: list[tuple[int, int, int]],
@@ -855,12 +966,17 @@ def _series(
     kept: list[tuple[int, np.ndarray, np.ndarray]] = []
     with timer("metrics"):
         light = _lighting_setup(inp)
+    dgp: list[np.ndarray] = []  # with views: each block's DGPs at the views
     for a, b in _blocks(len(inp.climate.time), inp.occupied, task.study.store_series,
                         inp.block_steps()):
+        workspace.view_unit = None
         counts, lit, unit = _count_block(inp, counts, a, b, workspace, timer)
         if light is not None:
             with timer("metrics"):
                 _lighting_block(inp, light, a, b, lit, unit)
+        if inp.views is not None:
+            with timer("metrics"):
+                dgp.append(_glare_block(inp, a, b, lit, unit, workspace.view_unit))
         if task.study.store_series:
             with timer("write"):
                 occ_done += _write_series(inp, members, store_path, a, b, lit, unit, occ_done,
@@ -870,6 +986,9 @@ def _series(
         results = _final_results(inp, counts)
         if light is not None:
             results.update(_lighting_results(inp, light))
+        if inp.views is not None:
+            results[results_store.VIEW_SERIES] = np.concatenate(dgp, axis=-1)
+            results.update(_glare_results(inp, results[results_store.VIEW_SERIES]))
     with timer("geometry"):
         results.update(_geometry_results(inp, job))
     with timer("write"):
@@ -885,6 +1004,11 @@ def _series(
                              for name in space_variables(list(task.study.metrics))},
             "spaces": inp.layout.names,
         }
+        if inp.views is not None:
+            names = [*view_variables(list(task.study.metrics)), results_store.VIEW_MAP]
+            if task.study.store_series:
+                names.append(results_store.VIEW_SERIES)
+            rows["view_values"] = {name: np.asarray(results[name][ois, ris]) for name in names}
         if store_path is not None:  # every variant's data, then their `done` flags
             results_store.write_variants(store_path, **rows)
     out = {"variants": len(todo), "recomputed": inp.recomputed, "timing": timer.seconds}
@@ -971,6 +1095,8 @@ def _layout(plan: Plan) -> results_store.StoreLayout:
         tasks=plan.task_bounds(),
         spaces=plan.layouts,
         space_variables=space_variables(list(study.metrics)),
+        views=next((j.views for j in plan.jobs.values()), None),
+        view_variables=view_variables(list(study.metrics)),
     )
 
 
@@ -1591,4 +1717,5 @@ __all__ = [
     "store_variables",
     "submit_split",
     "terminate_as_interrupt",
+    "view_coefficients",
 ]

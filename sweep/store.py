@@ -89,6 +89,7 @@ from luxsweep.sweep.registry import (
     sensor_metrics,
     space_metrics,
     variant_metrics,
+    view_metrics,
 )
 from luxsweep.sweep.spaces import SpaceLayout, single_space
 
@@ -100,6 +101,9 @@ __all__ = [
     "SPACE_ABSENT_LEVEL",
     "SPACE_VARIABLES",
     "VARIANT_VARIABLES",
+    "VIEW_MAP",
+    "VIEW_SERIES",
+    "VIEW_VARIABLES",
     "StoreLayout",
     "check_alignment",
     "consolidate",
@@ -134,6 +138,15 @@ SPACE_VARIABLES: dict[str, tuple[str, str, str]] = {
 holds NaN, or :data:`SPACE_ABSENT_LEVEL` in integer results."""
 SPACE_ABSENT_LEVEL = -1
 """``space_en17037_level`` of a space that the variant does not have (levels are 0–3)."""
+VIEW_VARIABLES: dict[str, tuple[str, str, str]] = {
+    name: (METRICS[name].dtype, METRICS[name].unit, long_name(name)) for name in view_metrics()
+}
+"""Per-view results (variant, view) of a study with ``views:`` (the ``glare`` family)."""
+VIEW_MAP = "view_glare_map"
+"""Glare class (0 imperceptible … 3 intolerable; −1 no occupied step) of the worst
+step of every hour of the year at each view: (variant, view, day, hour), int8."""
+VIEW_SERIES = "view_dgp"
+"""With ``store_series``: the DGPs series of every view (variant, view, time)."""
 SERIES_VARIABLES: dict[str, tuple[str, str, str]] = {
     "illuminance": ("float32", "lx", "illuminance on the sensors"),
     "direct_sun_illuminance": ("float32", "lx", "illuminance from direct sun only"),
@@ -173,6 +186,12 @@ class StoreLayout:
         ``room`` of unknown area.
     space_variables : sequence of str
         Per-space results the store holds (:data:`SPACE_VARIABLES`).
+    views : ViewLayout, optional
+        The study's views (``views:``; the same in every variant): a ``view``
+        dimension with ``view_space``, ``view_x``, ``view_y``, ``view_z``.
+    view_variables : sequence of str
+        Per-view results the store holds (:data:`VIEW_VARIABLES`), plus
+        :data:`VIEW_MAP` when there are views.
     """
 
     variant_ids: Sequence[str]
@@ -188,6 +207,8 @@ class StoreLayout:
     tasks: Sequence[tuple[int, int]] | None = None
     spaces: Sequence[SpaceLayout] | None = None
     space_variables: Sequence[str] = ()
+    views: Any = None
+    view_variables: Sequence[str] = ()
 
     @property
     def n_variants(self) -> int:
@@ -365,6 +386,8 @@ def _template(layout: StoreLayout) -> tuple[xr.Dataset, dict[str, dict[str, Any]
         data[name] = (("variant",), da.full((nv,), fill, dtype=dtype, chunks=chunks),
                       {"units": units, "long_name": text})
         encoding[name] = {"chunks": chunks, "chunk_key_encoding": FLAT_KEYS}
+    if layout.views is not None:
+        _view_template(layout, coords, data, encoding)
     if layout.times is not None:
         nt = len(layout.times)
         coords["time"] = ("time", np.asarray(layout.times.tz_localize(None)
@@ -380,6 +403,50 @@ def _template(layout: StoreLayout) -> tuple[xr.Dataset, dict[str, dict[str, Any]
     attrs = {**layout.attrs, "store_layout": LAYOUT, "variant_block": block}
     ds = xr.Dataset(data, coords=coords, attrs=attrs)
     return ds, encoding
+
+
+def _view_template(layout: StoreLayout, coords: dict[str, Any], data: dict[str, Any],
+                   encoding: dict[str, dict[str, Any]]) -> None:
+    """Coordinates and arrays of the views (a study with ``views:``)."""
+    views, nv, block = layout.views, layout.n_variants, layout.block
+    n = views.n_views
+    space_names = layout.layouts[0].names
+    coords["view"] = ("view", np.asarray(views.names, dtype=object), {"long_name": "view"})
+    coords["view_space"] = ("view", np.asarray([space_names[k] for k in views.space],
+                                               dtype=object),
+                            {"long_name": "name of the space the view is in"})
+    for i, axis in enumerate("xyz"):
+        coords[f"view_{axis}"] = ("view", views.sensors[:, i].copy(),
+                                  {"units": "m", "long_name": f"{axis} of the eye (building "
+                                   "frame)"})
+    for name in layout.view_variables:
+        dtype, units, _ = VIEW_VARIABLES[name]
+        fill = np.nan if dtype.startswith("float") else -1
+        chunks = (_variant_chunk(block, n * np.dtype(dtype).itemsize), n)
+        data[name] = (("variant", "view"), da.full((nv, n), fill, dtype=dtype, chunks=chunks),
+                      {"units": units, "long_name": long_name(name, layout.metric_options)})
+        encoding[name] = {"chunks": chunks, "chunk_key_encoding": FLAT_KEYS}
+    coords["day"] = ("day", np.arange(1, 366, dtype=np.int16),
+                     {"long_name": "day of the year (non-leap year)"})
+    coords["hour"] = ("hour", np.arange(24, dtype=np.int8),
+                      {"long_name": "hour of the day, local standard time (the hour from "
+                       "h:00 to h+1:00)"})
+    chunks = (_variant_chunk(block, n * 365 * 24), n, 365, 24)
+    data[VIEW_MAP] = (("variant", "view", "day", "hour"),
+                      da.full((nv, n, 365, 24), -1, dtype="int8", chunks=chunks),
+                      {"units": "1", "long_name": "glare class of the hour's highest simplified "
+                       "DGP over its occupied steps: 0 imperceptible, 1 perceptible, "
+                       "2 disturbing, 3 intolerable, -1 no occupied step"})
+    encoding[VIEW_MAP] = {"chunks": chunks, "chunk_key_encoding": FLAT_KEYS}
+    if layout.times is not None:  # with the series: each view's DGPs over the occupied steps
+        nt = len(layout.times)
+        nc = min(layout.series_chunk, nt)
+        chunks = (_variant_chunk(block, n * nc * 4), n, nc)
+        data[VIEW_SERIES] = (("variant", "view", "time"),
+                             da.full((nv, n, nt), np.nan, dtype="float32", chunks=chunks),
+                             {"units": "1", "long_name": "simplified daylight glare "
+                              "probability at the view (DGPs, Wienold 2009)"})
+        encoding[VIEW_SERIES] = {"chunks": chunks, "chunk_key_encoding": FLAT_KEYS}
 
 
 CREATING = ".creating-"
@@ -654,6 +721,7 @@ def write_variants(
     mark_done: bool = True,
     space_values: Mapping[str, np.ndarray] | None = None,
     spaces: Sequence[str] = (),
+    view_values: Mapping[str, np.ndarray] | None = None,
 ) -> None:
     """Write several variants' results into their task's chunks; all ``done`` flags last.
 
@@ -686,9 +754,13 @@ def write_variants(
         :data:`SPACE_ABSENT_LEVEL` in integer results.
     spaces : sequence of str
         The spaces of ``space_values``' columns (names on the store's ``space``).
+    view_values : mapping of name to ndarray (n, n_views, ...), optional
+        Per-view results (:data:`VIEW_VARIABLES`, :data:`VIEW_MAP`), every view.
     """
     space_values = dict(space_values or {})
-    group, arrays = _open_arrays(path, [*sensor_values, *variant_values, *space_values])
+    view_values = dict(view_values or {})
+    group, arrays = _open_arrays(path, [*sensor_values, *variant_values, *space_values,
+                                        *view_values])
     idx = _indices(path, indices, arrays["done"].shape[0])
     blocks: dict[str, np.ndarray] = {}
     for name, values in sensor_values.items():
@@ -716,6 +788,13 @@ def write_variants(
             rows = np.full((idx.size, array.shape[1]), fill, dtype=array.dtype)
             rows[:, cols] = values
             blocks[name] = rows
+    for name, values in view_values.items():
+        array = arrays[name]
+        values = _rows(path, name, values, idx.size)
+        if values.shape[1:] != array.shape[1:]:
+            raise ResultsStoreError(f"{path}: '{name}' holds {values.shape[1:]} per variant, "
+                                    f"the store {array.shape[1:]}; it was made for other views")
+        blocks[name] = values.astype(array.dtype)
     if not idx.size:
         return
     with _block_locks(path, group, idx):

@@ -145,3 +145,24 @@ def test_a_dimmer_that_switches_off_is_noticed(monkeypatch):
            "min_power, ramp)", "fraction = np.where(needed <= min_light, 0.0, ramp)")
     with pytest.raises(AssertionError):
         test_lighting.test_all_bright_and_all_dark("dimming", 0.1, 1.0)
+
+
+def test_a_shading_state_outside_the_analysis_hours_is_noticed(monkeypatch):
+    # IES LM-83-12 closes shading in analysis hours only; the state the views read must
+    # equal the sDA count's, so a rule that also closes outside them must fail
+    import test_glare_views
+
+    mutate(monkeypatch, metrics, "lm83_closed", "& np.asarray(analysis, dtype=bool))", ")")
+    with pytest.raises(AssertionError):
+        test_glare_views.test_lm83_closed_is_the_state_the_sda_count_uses(3)
+
+
+def test_a_shading_group_of_the_whole_grid_at_the_views_is_noticed(monkeypatch):
+    # one shading group per space (as the sDA count): pooling every sensor must fail
+    import test_glare_views
+
+    mutate(monkeypatch, metrics, "lm83_closed",
+           "size = np.bincount(own, minlength=n_sp).astype(np.int64)[:, None]",
+           "size = np.int64(own.size)")
+    with pytest.raises(AssertionError):
+        test_glare_views.test_lm83_closed_is_the_state_the_sda_count_uses(3)

@@ -115,5 +115,5 @@ def test_former_option_spellings_warn_and_map():
 
 
 def test_unknown_family_is_refused():
-    with pytest.raises(ValueError, match="unknown metric family 'glare'"):
-        registry.store_variables(["glare"])
+    with pytest.raises(ValueError, match="unknown metric family 'overheating'"):
+        registry.store_variables(["overheating"])

@@ -29,6 +29,11 @@ def test_readme_carries_the_caution():
     text = " ".join((ROOT / "README.md").read_text().lower().split())
     for phrase in ("not a certificate", "qualified professional", "glare", "overheating"):
         assert phrase in text
+    # glare is a simplified estimate that ignores contrast; overheating is not assessed
+    caution = text[text.index("## caution"):]
+    for phrase in ("simplified method", "ignores contrast", "under-reads glare from direct sun",
+                   "overheating is not assessed"):
+        assert phrase in caution, phrase
 
 
 _BARE_IMPORT = re.compile(r"^\s*(?:from|import)\s+(sweep|kernels|configs)\b", re.M)
