@@ -31,6 +31,22 @@ PVLIB_DATA = Path(pvlib.__file__).parent / "data"
 TMY3_GREENSBORO = PVLIB_DATA / "723170TYA.CSV"  # real TMY3 year bundled with pvlib
 TMY3_SAND_POINT = PVLIB_DATA / "703165TY.csv"  # real TMY3 year bundled with pvlib
 
+CLUSTER_MODULES = frozenset({
+    "test_cache_faults", "test_cli", "test_cluster", "test_cluster_trust", "test_exposure",
+    "test_faults", "test_no_shared_disk", "test_run", "test_split_sets", "test_store_batch",
+})
+"""Test modules that start Dask clusters or whole ``luxsweep`` runs. With ``pytest -n 2
+--dist loadgroup`` (the README's test command) they share one test process, so at most one
+cluster runs at a time beside the single-process tests: two clusters at once on two cores
+would double their wall time and stretch their fault time-outs."""
+
+
+def pytest_collection_modifyitems(config: pytest.Config, items: list[pytest.Item]) -> None:
+    """Put the tests of :data:`CLUSTER_MODULES` in one ``xdist_group``."""
+    for item in items:
+        if item.module is not None and item.module.__name__ in CLUSTER_MODULES:
+            item.add_marker(pytest.mark.xdist_group("cluster"))
+
 
 @dataclass
 class CliResult:
