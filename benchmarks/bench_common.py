@@ -207,7 +207,8 @@ def run_series(plan: Any, task: Any, results: Path, cache_root: Path) -> dict[st
     """Run the engine's own series task (sky → illuminance → metrics → store) in-process."""
     from luxsweep.sweep.run import series_task
 
-    return series_task(task, list(task.members), str(results), str(cache_root))
+    return series_task(task, list(task.members), str(results), str(cache_root), None,
+                       plan.jobs.get(task.key))
 
 
 # ---------------------------------------------------------------------------

@@ -50,17 +50,23 @@ def demo_studies(folder: Path) -> tuple[Path, Path]:
     return plain, full
 
 
-def series_seconds(study: Path, work: Path, repeat: int) -> tuple[float, int]:
-    """Best-of-``repeat`` wall time [s] of every series task of ``study``, and the task count."""
+def series_seconds(study: Path, work: Path, repeat: int) -> tuple[float, dict[str, float], int]:
+    """Best-of-``repeat`` wall time [s] of every series task of ``study``, the stage
+    seconds of the last pass summed over its tasks, and the task count."""
     cache, results = work / "cache", work / f"{study.stem}.zarr"
     plan, _ = bc.plan_and_cache(study, cache, results)
+    stages: dict[str, float] = {}
 
     def one_pass() -> None:
+        stages.clear()
         for task in plan.tasks:
-            bc.run_series(plan, task, results, cache)
+            out = bc.run_series(plan, task, results, cache)
+            for name, seconds in out.get("timing", {}).items():
+                stages[name] = stages.get(name, 0.0) + seconds
 
     one_pass()  # warm-up: one-off set-up, the views' coefficient sets
-    return bc.best_of(one_pass, repeat), len(plan.tasks)
+    best = bc.best_of(one_pass, repeat)
+    return best, {k: round(v, 3) for k, v in stages.items()}, len(plan.tasks)
 
 
 def main() -> None:
@@ -71,14 +77,16 @@ def main() -> None:
     env = bc.environment()
     with bc.scratch("verdict-") as work:
         plain, full = demo_studies(work)
-        t_plain, n_tasks = series_seconds(plain, work, args.repeat)
-        t_full, _ = series_seconds(full, work, args.repeat)
+        t_plain, s_plain, n_tasks = series_seconds(plain, work, args.repeat)
+        t_full, s_full, _ = series_seconds(full, work, args.repeat)
     bc.report({
         "study": "configs/demo.yaml (96 variants), series tasks in one process",
         "series_tasks": n_tasks,
         "daylight_only_s": round(t_plain, 3),
         "full_verdict_s": round(t_full, 3),
         "ratio_full_over_daylight_only": round(t_full / t_plain, 3),
+        "stage_seconds_daylight_only": s_plain,
+        "stage_seconds_full_verdict": s_full,
         "load_average_1min_at_end": bc.load_average(),
         "environment": env,
     }, args.json)

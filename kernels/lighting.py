@@ -46,7 +46,6 @@ __all__ = [
     "nearest_sensor",
     "power_fraction",
     "saving_percent",
-    "shading_closed",
     "shading_closed_scaled",
 ]
 
@@ -203,45 +202,10 @@ def nearest_sensor(point: np.ndarray, sensors: np.ndarray) -> int:
     return int(np.argmin(np.sum((xy - np.asarray(point, dtype=np.float64)) ** 2, axis=1)))
 
 
-def shading_closed(direct_sun: np.ndarray, space: np.ndarray, sun_threshold: float = 1000.0,
-                   sensor_fraction: float = 0.02) -> np.ndarray:
-    """Steps in which a space's operable shading is closed, by the IES LM-83-12 rule.
-
-    The shading of a space closes in a step when more than ``sensor_fraction``
-    of its sensors get more than ``sun_threshold`` of direct sun (IES LM-83-12;
-    one shading group per space, as :func:`kernels.metrics.accumulate` counts
-    it for sDA; blinds are operated space by space, common practice).
-
-    Parameters
-    ----------
-    direct_sun : ndarray (..., n_sensors, n_steps) [lx]
-        Direct-sun illuminance with the shading open.
-    space : ndarray (n_sensors,) of int
-        Index of each sensor's space (0 … n_spaces − 1, every index present).
-    sun_threshold : float [lx]
-        1000 lx (IES LM-83-12), compared strictly.
-    sensor_fraction : float [-]
-        0.02 (IES LM-83-12), compared strictly and exactly as an integer ratio.
-
-    Returns
-    -------
-    ndarray of bool (..., n_spaces, n_steps)
-    """
-    from luxsweep.kernels.metrics import _share_more_than
-
-    own = np.asarray(space)
-    n_spaces = int(own.max()) + 1
-    members = (np.arange(n_spaces)[:, None] == own[None, :]).astype(np.float32)
-    sunlit = (np.asarray(direct_sun) > sun_threshold).astype(np.float32)
-    counts = np.rint(members @ sunlit).astype(np.int64)  # exact: sums of 0/1 below 2**24
-    size = np.bincount(own, minlength=n_spaces).astype(np.int64)[:, None]
-    return _share_more_than(counts, size, sensor_fraction)
-
-
 def shading_closed_scaled(direct_sun: np.ndarray, space: np.ndarray,
                           transmittance: np.ndarray, sun_threshold: float = 1000.0,
                           sensor_fraction: float = 0.02) -> np.ndarray:
-    """:func:`shading_closed` for variants that scale one unit-transmittance series.
+    """:func:`kernels.metrics.shading_closed` for variants that scale one unit-transmittance series.
 
     The variants' direct sun is ``transmittance[v] × direct_sun`` (formed in the
     series' precision, as :func:`kernels.timeseries.combine` forms it). A space's
@@ -259,12 +223,12 @@ def shading_closed_scaled(direct_sun: np.ndarray, space: np.ndarray,
     space : ndarray (n_sensors,) of int
     transmittance : ndarray (n_variants,)
     sun_threshold, sensor_fraction : float
-        As in :func:`shading_closed`.
+        As in :func:`kernels.metrics.shading_closed`.
 
     Returns
     -------
     ndarray of bool (..., n_variants, n_spaces, n_steps)
-        Identical to :func:`shading_closed` of the formed series (tested).
+        Identical to :func:`kernels.metrics.shading_closed` of the formed series (tested).
     """
     from luxsweep.kernels.metrics import _ratio
 
@@ -295,7 +259,7 @@ def control_daylight(total: np.ndarray, control_sensor: np.ndarray,
     control_sensor : ndarray (..., n_spaces) of int
         Control sensor of each space (broadcast against the batch shape ``...``).
     closed : ndarray of bool (..., n_spaces, n_steps), optional
-        Steps with the space's shading closed (:func:`shading_closed`).
+        Steps with the space's shading closed (:func:`kernels.metrics.shading_closed`).
     total_shaded : ndarray (..., n_sensors, n_steps) [lx], optional
         Illuminance with the shading closed; needed with ``closed``.
 

@@ -127,6 +127,7 @@ __all__ = [
     "lm83_closed",
     "merge_counts",
     "occupancy_mask",
+    "shading_closed",
     "space_mean",
 ]
 
@@ -776,32 +777,33 @@ def accumulate_dark(
     return _plus(counts, chunk)
 
 
-def lm83_closed(direct_sun: np.ndarray, analysis: np.ndarray, params: MetricParams,
-                space: np.ndarray | None = None) -> np.ndarray:
-    """Steps in which the LM-83 rule closes each space's operable shading.
+def shading_closed(direct_sun: np.ndarray, space: np.ndarray | None = None,
+                   sun_threshold: float = 1000.0, sensor_fraction: float = 0.02) -> np.ndarray:
+    """Steps in which a space's operable shading is closed, by the IES LM-83-12 rule.
 
-    The same rule, in the same arithmetic, as :func:`accumulate` applies for sDA:
-    in an analysis step, a space's shading is closed when *more than*
-    ``shading_sensor_fraction`` (2 %) of its sensors get *more than*
-    ``sun_threshold`` (1000 lx) of direct sun (IES LM-83-12; one shading group
-    per space, common practice). Results that depend on the shading state
-    (glare at a view position) read it here, so they see exactly the state the
-    grid's sDA used.
+    The shading of a space closes in a step when *more than* ``sensor_fraction``
+    (2 %) of its sensors get *more than* ``sun_threshold`` (1000 lx) of direct
+    sun (IES LM-83-12; one shading group per space, blinds operated space by
+    space, common practice), in the same arithmetic as :func:`accumulate`
+    applies for sDA. The one place the rule is written: the sDA counts (through
+    :func:`accumulate`'s masks), the lighting control (:mod:`kernels.lighting`)
+    and glare at the views all see the state it gives.
 
     Parameters
     ----------
     direct_sun : ndarray (..., n_sensors, n_steps) [lx]
-        Direct-sun illuminance of the grid's sensors, shading open, at the
-        variant's transmittance (not a unit series).
-    analysis : ndarray (n_steps,) bool
-        LM-83 analysis steps (:func:`lm83_analysis_mask`).
-    params : MetricParams
+        Direct-sun illuminance with the shading open, at the variant's
+        transmittance (not a unit series).
     space : ndarray (n_sensors,) of int, optional
         Space of every sensor (every index 0 … n_spaces − 1 present); None: one space.
+    sun_threshold : float [lx]
+        1000 lx (IES LM-83-12), compared strictly.
+    sensor_fraction : float [-]
+        0.02 (IES LM-83-12), compared strictly and exactly as an integer ratio.
 
     Returns
     -------
-    ndarray (..., n_spaces, n_steps) bool
+    ndarray of bool (..., n_spaces, n_steps)
     """
     d = np.asarray(direct_sun)
     n_sensors = d.shape[-2]
@@ -810,11 +812,33 @@ def lm83_closed(direct_sun: np.ndarray, analysis: np.ndarray, params: MetricPara
     n_sp = int(own.max()) + 1 if own.size else 1
     dtype = np.result_type(d.dtype, np.float32)
     # fl(d) > x, as accumulate compares the τ = 1 series (its strict sun comparison)
-    limit = dtype.type(_first_passing(float(params.sun_threshold), 1.0, True, dtype))
+    limit = dtype.type(_first_passing(float(sun_threshold), 1.0, True, dtype))
     members = (np.arange(n_sp)[:, None] == own[None, :]).astype(dtype)  # (n_sp, n_sensors)
     n_sunlit = (members @ (d >= limit).astype(dtype)).astype(np.int64)  # exact below 2**24
     size = np.bincount(own, minlength=n_sp).astype(np.int64)[:, None]
-    return (_share_more_than(n_sunlit, size, params.shading_sensor_fraction)
+    return _share_more_than(n_sunlit, size, sensor_fraction)
+
+
+def lm83_closed(direct_sun: np.ndarray, analysis: np.ndarray, params: MetricParams,
+                space: np.ndarray | None = None) -> np.ndarray:
+    """:func:`shading_closed` in the LM-83 analysis steps only (open outside them).
+
+    Parameters
+    ----------
+    direct_sun : ndarray (..., n_sensors, n_steps) [lx]
+        As in :func:`shading_closed`.
+    analysis : ndarray (n_steps,) bool
+        LM-83 analysis steps (:func:`lm83_analysis_mask`).
+    params : MetricParams
+        Its ``sun_threshold`` and ``shading_sensor_fraction``.
+    space : ndarray (n_sensors,) of int, optional
+
+    Returns
+    -------
+    ndarray (..., n_spaces, n_steps) bool
+    """
+    return (shading_closed(direct_sun, space, params.sun_threshold,
+                           params.shading_sensor_fraction)
             & np.asarray(analysis, dtype=bool))
 
 

@@ -810,6 +810,7 @@ def _lighting_block(inp: _SeriesInputs, state: _LightingState, a: int, b: int,
     operable shading); occupied night steps are full power.
     """
     from luxsweep.kernels import lighting as kl
+    from luxsweep.kernels.metrics import shading_closed
     from luxsweep.kernels.timeseries import combine
 
     task, params, lights = inp.task, inp.params, state.lights
@@ -832,7 +833,7 @@ def _lighting_block(inp: _SeriesInputs, state: _LightingState, a: int, b: int,
                                               inp.open_rows[:, 0], *rule)
         else:
             direct = combine(unit[1][:, :, sel], inp.open_rows).swapaxes(-1, -2)
-            closed = kl.shading_closed(direct, inp.layout.sensor_space, *rule)
+            closed = shading_closed(direct, inp.layout.sensor_space, *rule)
         e_shut = combine(part, inp.closed_rows).swapaxes(-1, -2)
     daylight = kl.control_daylight(e_open, pos, closed, e_shut)  # (n_o, n_r, n_sp, n_sel)
     state.hours += kl.lighting_hours(daylight, np.ones(sel.size, bool), params.step_hours,

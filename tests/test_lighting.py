@@ -95,8 +95,7 @@ def test_shading_rule_matches_the_sda_counts():
     # The lighting control reads the same shading state as the sDA counts (IES LM-83-12:
     # closed where more than 2 % of a space's sensors get more than 1000 lx direct sun):
     # the closed analysis steps per space equal kernels.metrics' `ana_shaded`.
-    from luxsweep.kernels.lighting import shading_closed
-    from luxsweep.kernels.metrics import MetricParams, StepMasks, accumulate
+    from luxsweep.kernels.metrics import MetricParams, StepMasks, accumulate, shading_closed
 
     rng = np.random.default_rng(4)
     n_s, n_t = 120, 300
@@ -161,7 +160,8 @@ def test_study_file_controls_are_the_kernels():
 def test_scaled_shading_rule_equals_the_rule_on_formed_series():
     # variants that scale one unit series (DESIGN §2.6): the order-statistic shortcut gives
     # exactly the LM-83 rule on each variant's formed float32 series, thresholds included
-    from luxsweep.kernels.lighting import shading_closed, shading_closed_scaled
+    from luxsweep.kernels.lighting import shading_closed_scaled
+    from luxsweep.kernels.metrics import shading_closed
 
     rng = np.random.default_rng(11)
     unit = np.where(rng.random((2, 80, 70)) < 0.06,

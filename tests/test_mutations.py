@@ -131,9 +131,9 @@ def test_a_changed_share_of_view_positions_is_noticed(monkeypatch):
 def test_a_non_strict_shading_rule_for_lighting_is_noticed(monkeypatch):
     # IES LM-83-12 closes the shading when *more than* 2 % of the sensors are sunlit: closing
     # at exactly 2 % (one of 50) must fail the hand case of the lighting's shading rule
-    mutate(monkeypatch, lighting, "shading_closed",
-           "return _share_more_than(counts, size, sensor_fraction)",
-           "return counts * 50 >= size")
+    mutate(monkeypatch, metrics, "shading_closed",
+           "return _share_more_than(n_sunlit, size, sensor_fraction)",
+           "return n_sunlit * 50 >= size")
     with pytest.raises(AssertionError):
         test_lighting.test_shading_rule_matches_the_sda_counts()
 
@@ -161,7 +161,7 @@ def test_a_shading_group_of_the_whole_grid_at_the_views_is_noticed(monkeypatch):
     # one shading group per space (as the sDA count): pooling every sensor must fail
     import test_glare_views
 
-    mutate(monkeypatch, metrics, "lm83_closed",
+    mutate(monkeypatch, metrics, "shading_closed",
            "size = np.bincount(own, minlength=n_sp).astype(np.int64)[:, None]",
            "size = np.int64(own.size)")
     with pytest.raises(AssertionError):
