@@ -337,6 +337,20 @@ def tiny_study(tmp_path: Path) -> Path:
 # --------------------------------------------------------------------- results stores
 
 
+def run_plan_in_process(plan: Any, results: Path, cache_root: Path | str,
+                        job: Any = None) -> None:
+    """Create the store of ``plan`` at ``results`` and run every series task in this
+    process (each with its own coefficient job, or ``job`` for all), then consolidate."""
+    from luxsweep.sweep import store as results_store
+    from luxsweep.sweep.run import _layout, series_task
+
+    results_store.create_store(results, _layout(plan))
+    for task in plan.tasks:
+        series_task(task, list(task.members), str(results), str(cache_root), None,
+                    job if job is not None else plan.jobs[task.key])
+    results_store.consolidate(results)
+
+
 def store_arrays(path: Path) -> dict[str, Any]:
     """Every array of a results store, read with zarr-python (name -> ndarray)."""
     import zarr

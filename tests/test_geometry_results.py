@@ -23,7 +23,7 @@ import pvlib
 import pytest
 import xarray as xr
 import yaml
-from conftest import TMY3_GREENSBORO, write_tiny_study
+from conftest import TMY3_GREENSBORO, run_plan_in_process, write_tiny_study
 
 from luxsweep.kernels.climate import read_site
 from luxsweep.kernels.raytrace import Scene
@@ -37,20 +37,14 @@ WALL = 15.0  # m from the façade to the face of the wall in front of the buildi
 
 def _run(study_path, folder):
     """Plan and run every series task of a study in this process; the store, opened."""
-    from luxsweep.sweep import store as results_store
     from luxsweep.sweep.cache import CoefficientCache
     from luxsweep.sweep.config import load_study
     from luxsweep.sweep.plan import make_plan
-    from luxsweep.sweep.run import _layout, series_task
 
     cache = CoefficientCache(folder / "cache")
     plan = make_plan(load_study(study_path), cache)
     results = folder / "results.zarr"
-    results_store.create_store(results, _layout(plan))
-    for task in plan.tasks:
-        series_task(task, list(task.members), str(results), str(cache.root), None,
-                    plan.jobs[task.key])
-    results_store.consolidate(results)
+    run_plan_in_process(plan, results, cache.root)
     return xr.open_zarr(results), plan
 
 

@@ -19,7 +19,7 @@ import numpy as np
 import pvlib
 import pytest
 import xarray as xr
-from conftest import TMY3_GREENSBORO, write_tiny_study
+from conftest import TMY3_GREENSBORO, run_plan_in_process, write_tiny_study
 
 from luxsweep.kernels.climate import read_climate
 from luxsweep.kernels.coefficients import Settings, compute_coefficients
@@ -231,11 +231,9 @@ def test_closed_shading_lowers_the_eye_illuminance_by_the_transmittance_ratio(tm
 def two_stores(tmp_path_factory):
     """The tiny study without views and with two views and glare, run in this process
     (with the series stored)."""
-    from luxsweep.sweep import store as results_store
     from luxsweep.sweep.cache import CoefficientCache
     from luxsweep.sweep.config import load_study
     from luxsweep.sweep.plan import make_plan
-    from luxsweep.sweep.run import _layout, series_task
 
     root = tmp_path_factory.mktemp("views")
     cache = CoefficientCache(root / "cache")
@@ -247,11 +245,7 @@ def two_stores(tmp_path_factory):
             warnings.simplefilter("ignore")
             plan = make_plan(load_study(study), cache)
         path = root / f"{name}.zarr"
-        results_store.create_store(path, _layout(plan))
-        for task in plan.tasks:
-            series_task(task, list(task.members), str(path), str(cache.root), None,
-                        plan.jobs[task.key])
-        results_store.consolidate(path)
+        run_plan_in_process(plan, path, cache.root)
         out[name] = (plan, xr.open_zarr(path))
     return out
 

@@ -21,7 +21,7 @@ import shutil
 import numpy as np
 import pytest
 import xarray as xr
-from conftest import TINY_COMPUTE, TMY3_GREENSBORO
+from conftest import TINY_COMPUTE, TMY3_GREENSBORO, run_plan_in_process
 
 from luxsweep.kernels.lighting import annual_energy, power_fraction
 
@@ -65,11 +65,9 @@ def store(tmp_path_factory):
     """The study run in this process (the series tasks as the workers run them)."""
     import json
 
-    from luxsweep.sweep import store as results_store
     from luxsweep.sweep.cache import CoefficientCache
     from luxsweep.sweep.config import load_study
     from luxsweep.sweep.plan import make_plan
-    from luxsweep.sweep.run import _layout, series_task
 
     folder = tmp_path_factory.mktemp("lighting")
     (folder / "climates").mkdir()
@@ -79,11 +77,7 @@ def store(tmp_path_factory):
     cache = CoefficientCache(folder / "cache")
     plan = make_plan(load_study(study), cache)
     results = folder / "results.zarr"
-    results_store.create_store(results, _layout(plan))
-    for task in plan.tasks:
-        series_task(task, list(task.members), str(results), str(cache.root), None,
-                    plan.jobs[task.key])
-    results_store.consolidate(results)
+    run_plan_in_process(plan, results, cache.root)
     return plan, xr.open_zarr(results)
 
 

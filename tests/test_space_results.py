@@ -19,6 +19,7 @@ import dataclasses
 import numpy as np
 import pytest
 import xarray as xr
+from conftest import run_plan_in_process
 
 from luxsweep.kernels.metrics import (
     MetricParams,
@@ -188,18 +189,6 @@ INNER = {"wall": "back", "width": 1.0, "sill": 0.9, "head": 2.1, "offset": -0.5,
          "glazing": "inner"}
 
 
-def _run_plan(plan, results, cache_root, job=None):
-    """Create the store of ``plan`` and run every series task in this process."""
-    from luxsweep.sweep import store as results_store
-    from luxsweep.sweep.run import _layout, series_task
-
-    results_store.create_store(results, _layout(plan))
-    for task in plan.tasks:
-        series_task(task, list(task.members), str(results), str(cache_root), None,
-                    job if job is not None else plan.jobs[task.key])
-    results_store.consolidate(results)
-
-
 @pytest.fixture(scope="module")
 def stores(tmp_path_factory):
     """The tiny room study run as it is, and the same study on a building of two spaces:
@@ -220,7 +209,7 @@ def stores(tmp_path_factory):
     cache = CoefficientCache(folder / "cache")
     plan = make_plan(load_study(study), cache)
     room = folder / "room.zarr"
-    _run_plan(plan, room, cache.root)
+    run_plan_in_process(plan, room, cache.root)
 
     spaces = [_space("south", (0.0, 0.0, 0.0), 4.0, 3.0, "front", INNER),
               _space("north", (0.0, 3.0, 0.0), 3.0, 2.0, "back")]
@@ -244,7 +233,7 @@ def stores(tmp_path_factory):
         plan, sensors=[sensors] * n, layouts=[layout] * n, keys=[key] * n, jobs={key: job},
         tasks=[dataclasses.replace(t, key=key, layout=layout) for t in plan.tasks])
     building = folder / "building.zarr"
-    _run_plan(building_plan, building, cache.root)
+    run_plan_in_process(building_plan, building, cache.root)
     # the study text the store keeps, as a study of these spaces would read (CONTRACT.md §1b)
     import yaml
 
