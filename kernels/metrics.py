@@ -786,8 +786,9 @@ def shading_closed(direct_sun: np.ndarray, space: np.ndarray | None = None,
     sun (IES LM-83-12; one shading group per space, blinds operated space by
     space, common practice), in the same arithmetic as :func:`accumulate`
     applies for sDA. The one place the rule is written: the sDA counts (through
-    :func:`accumulate`'s masks), the lighting control (:mod:`kernels.lighting`)
-    and glare at the views all see the state it gives.
+    :func:`accumulate`'s masks, in the analysis steps), the lighting control
+    (:mod:`kernels.lighting`) and glare at the views (in every occupied step:
+    blinds are operated whenever the space is occupied) all see the state it gives.
 
     Parameters
     ----------

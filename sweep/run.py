@@ -870,13 +870,14 @@ def _glare_block(inp: _SeriesInputs, a: int, b: int, lit: np.ndarray, unit: tupl
     -------
     ndarray float32 (n_orient, n_rows, n_views, n_occupied)
         DGPs (:func:`kernels.glare.dgp_simplified`) of each view's vertical
-        illuminance at the eye; in a step where the LM-83 rule closes the
-        shading of the view's space (:func:`kernels.metrics.lm83_closed`, the
-        state the grid's sDA uses) the closed glazing row lights the eye.
-        Steps without daylight have E_v = 0.
+        illuminance at the eye; in an occupied step where the LM-83 rule closes
+        the shading of the view's space (:func:`kernels.metrics.shading_closed`,
+        applied whenever the space is occupied, as the lighting control applies
+        it) the closed glazing row lights the eye. Steps without daylight have
+        E_v = 0.
     """
     from luxsweep.kernels.glare import dgp_simplified
-    from luxsweep.kernels.metrics import lm83_closed
+    from luxsweep.kernels.metrics import shading_closed
     from luxsweep.kernels.timeseries import combine
 
     task, views = inp.task, inp.views
@@ -894,8 +895,9 @@ def _glare_block(inp: _SeriesInputs, a: int, b: int, lit: np.ndarray, unit: tupl
             sun = unit[1][:, :, steps]
             for r in range(n_r):  # one glazing row at a time: memory of one grid series
                 direct = combine(sun, inp.open_rows[r:r + 1])[:, 0].swapaxes(-1, -2)
-                closed = lm83_closed(direct, inp.analysis[lit[steps]], inp.params,
-                                     inp.layout.sensor_space)  # (n_o, n_spaces, n)
+                closed = shading_closed(direct, inp.layout.sensor_space,
+                                        inp.params.sun_threshold,
+                                        inp.params.shading_sensor_fraction)  # (n_o, n_sp, n)
                 e[:, r] = np.where(closed[:, views.space, :], shut[:, r], e[:, r])
         ev[..., hit] = e
     return dgp_simplified(ev).astype(np.float32)

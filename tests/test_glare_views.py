@@ -222,9 +222,68 @@ def test_closed_shading_lowers_the_eye_illuminance_by_the_transmittance_ratio(tm
     np.testing.assert_allclose(ev_shut[ok], 0.1 * ev_open[ok], rtol=2e-3, atol=2e-2)
     # the room's blinds close together: both views see the closed state on the same steps
     np.testing.assert_array_equal(closed[..., 0, :], closed[..., 1, :])
-    # and exactly on the steps the grid's sDA counted as closed (IES LM-83-12 rule):
-    # hourly steps, so the count equals the grid's shading hours
+    # and exactly on the steps the grid's sDA counted as closed (IES LM-83-12 rule): the
+    # occupied steps are the analysis steps here, and hourly, so the count equals the
+    # grid's shading hours
     assert closed[..., 0, :].sum() == int(hours.ravel()[0]) > 0
+
+
+def _grid_direct_at_views_steps(study, cache):
+    """The grid's direct sun at the variant's transmittance in every occupied step
+    ``(n_sensors, n_occupied)`` and the occupied steps' stamps, for the one task of
+    ``study`` (the series stage's own blocks)."""
+    from luxsweep.kernels.timeseries import combine
+    from luxsweep.sweep.config import load_study
+    from luxsweep.sweep.plan import make_plan
+    from luxsweep.sweep.run import Workspace, _blocks, _count_block, _load_series, _StageTimer
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        plan = make_plan(load_study(study), cache)
+    (task,) = plan.tasks
+    inp = _load_series(task, str(cache.root), None, plan.jobs[task.key])
+    workspace, timer, counts, parts = Workspace(), _StageTimer(), None, []
+    for a, b in _blocks(len(inp.climate.time), inp.occupied, False, inp.block_steps()):
+        counts, lit, unit = _count_block(inp, counts, a, b, workspace, timer)
+        occ = a + np.flatnonzero(inp.occupied[a:b])
+        d = np.zeros((inp.coeffs.n_sensors, occ.size), np.float32)
+        if unit is not None:
+            pos = np.searchsorted(lit, occ)
+            hit = (pos < lit.size) & (lit[np.minimum(pos, lit.size - 1)] == occ)
+            d[:, hit] = combine(unit[1][:, :, pos[hit]], inp.open_rows)[0, 0].T
+        parts.append(d)
+    return np.concatenate(parts, axis=-1), inp.climate.time[inp.occupied]
+
+
+def test_views_see_the_shading_whenever_the_room_is_occupied(tmp_path):
+    # One meaning of the operable shading for every result that sees it: blinds are
+    # operated whenever the space is occupied (our choice, common practice; the lighting
+    # control applies the rule in the same steps). With occupancy 06:00–20:00 the views
+    # see the closed glazing also in occupied steps outside the LM-83 analysis hours
+    # (08:00–18:00), on exactly the steps the IES LM-83-12 rule closes for the grid.
+    from luxsweep.kernels.metrics import shading_closed
+    from luxsweep.sweep.cache import CoefficientCache
+
+    cache = CoefficientCache(tmp_path / "cache")
+
+    def study(folder, shaded=None):
+        path = _study(folder, VIEWS, shaded=shaded, days="all")
+        path.write_text(path.read_text().replace('start: "08:00", end: "18:00"',
+                                                 'start: "06:00", end: "20:00"'))
+        return path
+
+    shut, _ = _glare_series(study(tmp_path / "s", 0.07), cache)
+    open_, _ = _glare_series(study(tmp_path / "o"), cache)
+    closed = (shut != open_)[0, 0, 0]  # first view; both views share their room's state
+    direct, stamps = _grid_direct_at_views_steps(study(tmp_path / "o"), cache)
+    want = shading_closed(direct, None)[0]  # (n_occupied,)
+    # a step where the rule closes but the eye's open DGPs is 0 (no light at the eye)
+    # would look the same either way: none such in daylight hours
+    np.testing.assert_array_equal(closed, want)
+    # not vacuous: the rule closes the blinds outside 08:00–18:00 too (stamps end their step)
+    hour = np.asarray(stamps.hour)
+    outside = (hour <= 8) | (hour > 18)
+    assert want[outside].sum() > 0 and want[~outside].sum() > 0
 
 
 @pytest.fixture(scope="module")
