@@ -372,6 +372,29 @@ class CoefficientSet:
             crossed_twice=int(metadata.get("crossed_twice", 0)),
         )
 
+    def take_sensors(self, rows: slice | np.ndarray) -> CoefficientSet:
+        """The set of some of its sensors (a fresh in-memory copy of their rows).
+
+        Every per-sensor array is cut on its sensor axis; the key stays the whole
+        set's (the part is addressed by the key and the rows). Each sensor's rows
+        are its own: the coefficients of a part equal the whole set's rows bit for bit.
+
+        Parameters
+        ----------
+        rows : slice or ndarray of int
+            The sensors to keep, in the order given.
+        """
+        def cut(a: np.ndarray, axis: int) -> np.ndarray:
+            index = [slice(None)] * a.ndim
+            index[axis] = rows
+            return np.array(a[tuple(index)], copy=True, order="C")
+
+        return replace(
+            self, sensors=cut(self.sensors, 0), sky_direct=cut(self.sky_direct, 1),
+            sky_reflected=cut(self.sky_reflected, 1), sun_direct=cut(self.sun_direct, 1),
+            sun_reflected=cut(self.sun_reflected, 1),
+            overcast_error=cut(self.overcast_error, 1))
+
     @property
     def nbytes(self) -> int:
         """Total size of the arrays [bytes]."""

@@ -123,6 +123,7 @@ __all__ = [
     "en17037_pass",
     "en17037_time_fractions",
     "finalize",
+    "join_counts",
     "lm83_analysis_mask",
     "lm83_closed",
     "merge_counts",
@@ -849,6 +850,37 @@ def merge_counts(*parts: Counts) -> Counts:
     for part in parts[1:]:
         merged = merged + part
     return merged
+
+
+_STEP_FIELDS = ("n_steps", "n_occupied", "n_analysis", "n_daylight")
+_SPACE_AXIS = {"ana_shaded": -1, "day_target_ok": -2, "day_minimum_ok": -2}
+
+
+def join_counts(*parts: Counts) -> Counts:
+    """The counts of a grid from those of disjoint groups of its spaces, folded apart.
+
+    Each part holds the sensors of whole spaces, folded with ``space`` (its own
+    spaces numbered from 0), over the same steps. The grid-level counts are per
+    space, so no count couples two parts: per-sensor counts are joined along
+    the sensor axis, per-space counts along the space axis, in the order given
+    (the parts in sensor order). The result equals the counts of the whole grid
+    folded at once, bit for bit.
+
+    Raises
+    ------
+    ValueError
+        When the parts were folded over different steps.
+    """
+    joined = {}
+    for f in fields(Counts):
+        values = [getattr(p, f.name) for p in parts]
+        if f.name in _STEP_FIELDS:
+            if any(not np.array_equal(values[0], v) for v in values[1:]):
+                raise ValueError("the parts were folded over different steps")
+            joined[f.name] = values[0]
+        else:
+            joined[f.name] = np.concatenate(values, axis=_SPACE_AXIS.get(f.name, -1))
+    return Counts(**joined)
 
 
 # ---------------------------------------------------------------------------

@@ -81,22 +81,30 @@ def _fsync_dir(path: Path) -> None:
 class _CoefficientSets:
     """Coefficient sets over a cache's ``load_arrays`` / ``save_arrays`` (both caches)."""
 
-    def load_arrays(self, key: str) -> tuple[dict[str, np.ndarray], dict[str, Any]] | None:
+    def load_arrays(self, key: str, mmap: bool = False
+                    ) -> tuple[dict[str, np.ndarray], dict[str, Any]] | None:
         raise NotImplementedError
 
     def save_arrays(self, key: str, arrays: dict[str, np.ndarray],
                     metadata: dict[str, Any]) -> Any:
         raise NotImplementedError
 
-    def load(self, key: str) -> Any | None:
-        """The :class:`kernels.coefficients.CoefficientSet` of ``key``, or ``None`` on a miss."""
+    def load(self, key: str, sensors: tuple[int, int] | None = None) -> Any | None:
+        """The :class:`kernels.coefficients.CoefficientSet` of ``key``, or ``None`` on a miss.
+
+        ``sensors`` ``(first, stop)``: only those sensors' rows
+        (:meth:`~kernels.coefficients.CoefficientSet.take_sensors`); a local
+        cache maps the files and reads just those rows, so a part of a large
+        set costs the part's memory (a URL cache reads the whole files).
+        """
         from luxsweep.kernels.coefficients import CoefficientSet
 
-        found = self.load_arrays(key)
+        found = self.load_arrays(key, mmap=sensors is not None)
         if found is None:
             return None
         arrays, metadata = found
-        return CoefficientSet.from_parts(arrays, metadata)
+        whole = CoefficientSet.from_parts(arrays, metadata)
+        return whole if sensors is None else whole.take_sensors(slice(*sensors))
 
     def save(self, coefficients: Any) -> Any:
         """Publish a :class:`kernels.coefficients.CoefficientSet` under its own key
@@ -187,11 +195,13 @@ class CoefficientCache(_CoefficientSets):
                 raise CacheIntegrityError(f"cache entry {folder}: {path.name} fails its checksum")
         return manifest
 
-    def load_arrays(self, key: str) -> tuple[dict[str, np.ndarray], dict[str, Any]] | None:
+    def load_arrays(self, key: str, mmap: bool = False
+                    ) -> tuple[dict[str, np.ndarray], dict[str, Any]] | None:
         """The arrays and metadata of entry ``key``, or ``None`` on a miss.
 
         A damaged entry is a miss: it is reported with a :class:`UserWarning`
-        and removed, so the caller recomputes and publishes a good one.
+        and removed, so the caller recomputes and publishes a good one. With
+        ``mmap`` the arrays are read-only maps of the checked files.
         """
         folder = self.entry(key)
         # existence first: an entry published between two checks must not look damaged
@@ -202,7 +212,8 @@ class CoefficientCache(_CoefficientSets):
             return None
         try:
             manifest = self.verify(key)
-            arrays = {name: np.load(folder / "arrays" / f"{name}.npy", allow_pickle=False)
+            arrays = {name: np.load(folder / "arrays" / f"{name}.npy", allow_pickle=False,
+                                    mmap_mode="r" if mmap else None)
                       for name in manifest["files"]}
         except (CacheIntegrityError, OSError, ValueError) as exc:
             self._discard(key, str(exc))
@@ -454,9 +465,11 @@ class UrlCache(_CoefficientSets):
         self._read(key, manifest)
         return manifest
 
-    def load_arrays(self, key: str) -> tuple[dict[str, np.ndarray], dict[str, Any]] | None:
+    def load_arrays(self, key: str, mmap: bool = False
+                    ) -> tuple[dict[str, np.ndarray], dict[str, Any]] | None:
         """The arrays and metadata of entry ``key``; ``None`` on a miss (a damaged
-        entry is reported, removed and a miss)."""
+        entry is reported, removed and a miss). ``mmap`` is ignored: the files are
+        read whole."""
         import io
 
         if not self.contains(key):

@@ -233,6 +233,60 @@ def submit_split(client: Any, job: CoefficientJob, cache_root: str,
                   key=f"coefficients-{short}")
 
 
+SERIES_SET_SHARE = 0.25
+"""Share of ``compute.memory_limit`` that the coefficient rows of one series task may
+take: a larger set runs its series stage as several tasks over ranges of whole spaces
+(:func:`series_ranges`)."""
+
+
+def set_bytes_per_sensor(settings: Any, n_sets: int) -> int:
+    """Bytes of one sensor's rows in a coefficient set (four families, float32)."""
+    from luxsweep.kernels.sky import patch_scheme
+    from luxsweep.kernels.sun import SunPoints
+
+    n_basis = patch_scheme(settings.subdivision).n_patches + 1
+    return 4 * n_sets * 2 * (SunPoints(settings.sun_spacing).n + n_basis)
+
+
+def series_ranges(task: SeriesTask, job: CoefficientJob | None) -> list[tuple[int, int]]:
+    """Sensor ranges ``[first, stop)`` of the series parts of ``task`` ([] keeps it whole).
+
+    Each part holds whole spaces: the grid-level counts (the LM-83 shading state,
+    EN 17037) and the lighting control couple the sensors of a space, never of
+    two spaces, so parts folded apart join into exactly the task's counts
+    (:func:`kernels.metrics.join_counts`). Spaces are packed in sensor order
+    while their rows fit :data:`SERIES_SET_SHARE` of the set's
+    ``compute.memory_limit``; a space larger than that is a part of its own
+    (one space is never split: the bound is the largest space's). A set of one
+    space, or whose spaces are not in sensor order, stays one task.
+    """
+    layout = task.layout
+    if job is None or layout is None or layout.n_spaces < 2:
+        return []
+    own = layout.sensor_space
+    if np.any(np.diff(own) < 0):
+        return []
+    per_sensor = set_bytes_per_sensor(job.settings, len(task.glazing_sets))
+    budget = max(1, int(SERIES_SET_SHARE * job.settings.memory_limit * 2**30) // per_sensor)
+    if own.size <= budget:
+        return []
+    cuts = [0, *(np.flatnonzero(np.diff(own)) + 1).tolist(), int(own.size)]
+    ranges, first = [], 0
+    for a, b in itertools.pairwise(cuts):
+        if b - first > budget and a > first:
+            ranges.append((first, a))
+            first = a
+    ranges.append((first, int(own.size)))
+    return ranges if len(ranges) > 1 else []
+
+
+def set_part(result: dict[str, Any], first: int, stop: int) -> dict[str, Any]:
+    """Sensors ``first`` to ``stop`` of a set held in Dask (run where it is held, so a
+    series part receives its rows only)."""
+    return {"coefficients": result["coefficients"].take_sensors(slice(first, stop)),
+            "sensors": (first, stop)}
+
+
 def coefficient_info(result: dict[str, Any]) -> dict[str, Any]:
     """The result of :func:`coefficient_task` without the set (what the client reads).
 
@@ -245,18 +299,30 @@ def coefficient_info(result: dict[str, Any]) -> dict[str, Any]:
 
 
 def _coefficients(task: SeriesTask, cache_root: str | None, coefficient_result: Any,
-                  job: CoefficientJob | None) -> tuple[Any, int]:
-    """The task's coefficient set and how many sets were computed here (0 or 1).
+                  job: CoefficientJob | None, part: tuple[int, int] | None = None
+                  ) -> tuple[Any, int]:
+    """The task's coefficient set (the rows of sensors ``part``, when given) and how
+    many sets were computed here (0 or 1).
 
-    From the coefficient task's result when given (through Dask), else from this
-    worker's cache, else (a worker with a cache of its own that lacks the set, or
+    From the coefficient task's result when given (through Dask; the whole set or
+    the part, :func:`set_part`), else from this worker's cache (only the part's
+    rows are read), else (a worker with a cache of its own that lacks the set, or
     no cache at all: ``cache_root`` None) computed from ``job`` and kept in that
     cache if there is one.
     """
+    def cut(coeffs: Any) -> Any:
+        return coeffs if part is None else coeffs.take_sensors(slice(*part))
+
     if isinstance(coefficient_result, dict) and "coefficients" in coefficient_result:
+        given = coefficient_result.get("sensors")
+        if given is None:
+            return cut(coefficient_result["coefficients"]), 0
+        if part is None or tuple(given) != tuple(part):
+            raise RuntimeError(f"coefficient set {task.key}: got sensors {given}, "
+                               f"the task needs {part}")
         return coefficient_result["coefficients"], 0
     cache = open_cache(cache_root) if cache_root is not None else None
-    coeffs = cache.load(task.key) if cache is not None else None
+    coeffs = cache.load(task.key, part) if cache is not None else None
     if coeffs is not None:
         return coeffs, 0
     if job is None:
@@ -266,7 +332,7 @@ def _coefficients(task: SeriesTask, cache_root: str | None, coefficient_result: 
     coeffs = compute_coefficients(job.geometry, job.sensors, job.settings)
     if cache is not None:  # else the client keeps the cache: nothing to keep here
         cache.save(coeffs)
-    return coeffs, 1
+    return cut(coeffs), 1
 
 
 def view_coefficients(views: ViewLayout, cache_root: str | None,
@@ -527,10 +593,22 @@ class _SeriesInputs:
     views: ViewLayout | None = None
     view_coeffs: Any = None
     """The views' coefficient set (:func:`view_coefficients`)."""
+    part: tuple[int, int] | None = None
+    """A series part: the sensors ``[first, stop)`` of the set (``layout`` and
+    ``views`` are then the part's spaces and their views, numbered from 0)."""
+    view_index: np.ndarray | None = None
+    """A part's views: their positions among the task's views."""
 
     @property
     def n_sets(self) -> int:
         return len(self.coeffs.glazing_sets)
+
+    @property
+    def layout_sensors(self) -> int:
+        """Sensors of the task's whole set (a part's ``layout`` holds only its own)."""
+        task_layout = self.task.layout
+        return int(task_layout.sensor_space.size if task_layout is not None
+                   else self.layout.sensor_space.size)
 
     def block_steps(self) -> int:
         """Time steps per block within :data:`BLOCK_BYTES` (24 to 8,760)."""
@@ -544,12 +622,33 @@ class _SeriesInputs:
         return int(np.clip(BLOCK_BYTES // max(per_step, 1), 24, 8760))
 
 
+def _part_layout(layout: SpaceLayout, views: ViewLayout | None, first: int, stop: int
+                 ) -> tuple[SpaceLayout, ViewLayout | None, np.ndarray | None]:
+    """The spaces of sensors ``[first, stop)`` (whole spaces, in sensor order) and
+    their views, numbered from 0; with the views' positions among the task's."""
+    own = layout.sensor_space[first:stop]
+    k0, k1 = int(own[0]), int(own[-1]) + 1
+    sub = SpaceLayout(names=layout.names[k0:k1], sensor_space=own - k0, area=layout.area[k0:k1])
+    if views is None:
+        return sub, None, None
+    index = np.flatnonzero((views.space >= k0) & (views.space < k1))
+    if not index.size:
+        return sub, None, index
+    mine = ViewLayout(names=tuple(views.names[i] for i in index),
+                      space=views.space[index] - k0, sensors=views.sensors[index])
+    return sub, mine, index
+
+
 def _load_series(task: SeriesTask, cache_root: str | None, coefficient_result: Any = None,
                  job: CoefficientJob | None = None,
-                 climate_data: bytes | None = None) -> _SeriesInputs:
+                 climate_data: bytes | None = None, part: tuple[int, int] | None = None,
+                 coefficients: bool = True) -> _SeriesInputs:
     """The coefficient set, the climate with its sun, and the step masks of a task
     (``recomputed``: coefficient sets computed here, :func:`_coefficients`).
 
+    ``part``: the rows, spaces and views of sensors ``[first, stop)`` only (a
+    series part, :func:`series_ranges`). ``coefficients`` False: no set at all
+    (the join of a task's parts, which needs the steps, spaces and views only).
     The weather file is checked first: a mismatch stops the run before any set is
     computed.
     """
@@ -560,24 +659,32 @@ def _load_series(task: SeriesTask, cache_root: str | None, coefficient_result: A
     study = task.study
     climate, altitude, azimuth, daylight = CLIMATE_STEPS.get(task.climate_file, study.timestep,
                                                              task.climate_sha256, climate_data)
-    coeffs, recomputed = _coefficients(task, cache_root, coefficient_result, job)
-    view_coeffs = (None if task.views is None
-                   else view_coefficients(task.views, cache_root, job))
+    coeffs, recomputed, scheme = None, 0, None
+    if coefficients:
+        coeffs, recomputed = _coefficients(task, cache_root, coefficient_result, job, part)
+        scheme = patch_scheme(coeffs.subdivision)
+    layout = (task.layout if task.layout is not None
+              else single_space(coeffs.n_sensors, float("nan")))
+    views, view_index = task.views, None
+    if part is not None:
+        layout, views, view_index = _part_layout(layout, views, *part)
+    view_coeffs = None
+    if coefficients and views is not None:
+        view_coeffs = view_coefficients(task.views, cache_root, job)
+        if view_index is not None:
+            view_coeffs = view_coeffs.take_sensors(view_index)
     stamps = climate.time
-    scheme = patch_scheme(coeffs.subdivision)
     occ = study.occupancy
     return _SeriesInputs(
         task=task, coeffs=coeffs, climate=climate, sun_position=(altitude, azimuth),
-        scheme=scheme, sun_points=SunPoints(coeffs.settings.sun_spacing),
-        n_classes=orientation_class_count(scheme, task.orientations),
+        scheme=scheme, sun_points=SunPoints(coeffs.settings.sun_spacing) if coeffs else None,
+        n_classes=orientation_class_count(scheme, task.orientations) if coeffs else 0,
         sunlit=altitude > 0.0,  # any sun in the step: its sky and sun are computed
         daylight=daylight,  # EN 17037 daylight hours: sun up at mid-step
         occupied=km.occupancy_mask(stamps, occ.start, occ.end, occ.days, study.timestep),
         analysis=km.lm83_analysis_mask(stamps, study.timestep), params=_metric_params(task),
         open_rows=task.open_rows(), closed_rows=task.closed_rows(), recomputed=recomputed,
-        layout=(task.layout if task.layout is not None
-                else single_space(coeffs.n_sensors, float("nan"))),
-        views=task.views, view_coeffs=view_coeffs,
+        layout=layout, views=views, view_coeffs=view_coeffs, part=part, view_index=view_index,
     )
 
 
@@ -673,31 +780,43 @@ def _write_series(inp: _SeriesInputs, members: tuple, store_path: str | None, a:
         hit = (pos < lit.size) & (lit[np.minimum(pos, lit.size - 1)] == occ_steps)
         for out, u in zip((e, d), unit, strict=True):
             out[..., hit] = combine(u[:, :, pos[hit]], inp.open_rows).swapaxes(-1, -2)
+    first, last = 0, True  # a series part writes its sensors' rows
+    if inp.part is not None:
+        first, last = inp.part[0], inp.part[1] == inp.layout_sensors
     if store_path is None:
         assert kept is not None
-        kept.append((occ_done, e[ois, ris], d[ois, ris]))
+        kept.append((occ_done, first, last, e[ois, ris], d[ois, ris]))
     else:
-        results_store.write_series_block(store_path, vis, occ_done, e[ois, ris], d[ois, ris])
+        results_store.write_series_block(store_path, vis, occ_done, e[ois, ris], d[ois, ris],
+                                         first, last)
     return int(occ_steps.size)
 
 
-def _final_results(inp: _SeriesInputs, counts: Any) -> dict[str, np.ndarray]:
-    """Metrics from the counts of the whole year, plus the daylight factor; per space
-    (``space_<name>``, spaces of ``inp.layout``) and for the building."""
-    from luxsweep.kernels import metrics as km
+def _daylight_factors(inp: _SeriesInputs) -> tuple[np.ndarray, np.ndarray]:
+    """Daylight factor [%] and its sampling error of every sensor, ``(n_rows, n_sensors)``."""
     from luxsweep.kernels.coefficients import daylight_factor_error
     from luxsweep.kernels.sky import overcast_sky_vector
     from luxsweep.kernels.timeseries import daylight_factor
 
-    study = inp.task.study
+    ground = inp.task.study.ground_reflectance
+    df = daylight_factor(inp.coeffs, overcast_sky_vector(inp.scheme, ground), inp.open_rows)
+    return df, daylight_factor_error(inp.coeffs, ground, inp.open_rows)
+
+
+def _final_results(inp: _SeriesInputs, counts: Any, df: np.ndarray | None = None,
+                   error: np.ndarray | None = None) -> dict[str, np.ndarray]:
+    """Metrics from the counts of the whole year, plus the daylight factor (``df`` and
+    ``error`` from :func:`_daylight_factors`, computed here when not given); per space
+    (``space_<name>``, spaces of ``inp.layout``) and for the building."""
+    from luxsweep.kernels import metrics as km
+
+    if df is None or error is None:
+        df, error = _daylight_factors(inp)
     n_o, n_r = len(inp.task.orientations), len(inp.task.rows)
     own, area = inp.layout.sensor_space, inp.layout.area
     results = km.finalize(counts, inp.params, own, area)
-    df = daylight_factor(inp.coeffs, overcast_sky_vector(inp.scheme, study.ground_reflectance),
-                         inp.open_rows)
     df_space = km.space_mean(np.asarray(df, dtype=np.float64), own)  # (n_r, n_spaces)
     results["daylight_factor"] = np.broadcast_to(df[None], (n_o, *df.shape))
-    error = daylight_factor_error(inp.coeffs, study.ground_reflectance, inp.open_rows)
     results["daylight_factor_error"] = np.broadcast_to(error.astype(np.float32)[None],
                                                        (n_o, *error.shape))
     results["daylight_factor_mean"] = np.broadcast_to(km.area_weighted(df_space, area)[None],
@@ -939,6 +1058,98 @@ def _glare_results(inp: _SeriesInputs, dgp: np.ndarray) -> dict[str, np.ndarray]
     return out
 
 
+def _members(todo: list[tuple[int, int, int]]) -> tuple[list[int], np.ndarray, np.ndarray]:
+    """Variant indices, orientation and row positions of the members ``todo``."""
+    return ([vi for vi, _, _ in todo], np.array([oi for _, oi, _ in todo], dtype=np.intp),
+            np.array([ri for _, _, ri in todo], dtype=np.intp))
+
+
+@dataclass(eq=False)
+class _Year:
+    """What the time blocks of a series task (or part) add up: the metric counts,
+    the lighting state, the DGPs at the views and (the client writing the store)
+    the series blocks."""
+
+    counts: Any = None
+    light: _LightingState | None = None
+    dgp: np.ndarray | None = None
+    kept: list = field(default_factory=list)
+
+
+def _fold_year(inp: _SeriesInputs, members: tuple, store_path: str | None,
+               timer: _StageTimer) -> _Year:
+    """Sky, illuminance, counts, lighting, glare and stored series, block by block."""
+    task = inp.task
+    workspace = Workspace()
+    year = _Year()
+    occ_done = 0
+    with timer("metrics"):
+        year.light = _lighting_setup(inp)
+    dgp: list[np.ndarray] = []  # with views: each block's DGPs at the views
+    for a, b in _blocks(len(inp.climate.time), inp.occupied, task.study.store_series,
+                        inp.block_steps()):
+        workspace.view_unit = None
+        year.counts, lit, unit = _count_block(inp, year.counts, a, b, workspace, timer)
+        if year.light is not None:
+            with timer("metrics"):
+                _lighting_block(inp, year.light, a, b, lit, unit)
+        if inp.views is not None:
+            with timer("metrics"):
+                dgp.append(_glare_block(inp, a, b, lit, unit, workspace.view_unit))
+        if task.study.store_series:
+            with timer("write"):
+                occ_done += _write_series(inp, members, store_path, a, b, lit, unit, occ_done,
+                                          year.kept)
+        del unit  # the block's direct-sun array is fresh memory: free it before the next
+    if inp.views is not None:
+        year.dgp = np.concatenate(dgp, axis=-1)
+    return year
+
+
+def _year_results(inp: _SeriesInputs, year: _Year, df: np.ndarray, error: np.ndarray,
+                  job: CoefficientJob | None, timer: _StageTimer) -> dict[str, np.ndarray]:
+    """Every result of the task's variants from its year (:func:`_fold_year`)."""
+    with timer("metrics"):
+        results = _final_results(inp, year.counts, df, error)
+        if year.light is not None:
+            results.update(_lighting_results(inp, year.light))
+        if inp.views is not None:
+            assert year.dgp is not None
+            results[results_store.VIEW_SERIES] = year.dgp
+            results.update(_glare_results(inp, year.dgp))
+    with timer("geometry"):
+        results.update(_geometry_results(inp, job))
+    return results
+
+
+def _write_results(inp: _SeriesInputs, members: tuple, results: dict[str, np.ndarray],
+                   store_path: str | None, timer: _StageTimer) -> dict[str, Any]:
+    """The members' rows of every result, written to the store (``done`` last) when
+    ``store_path`` is given; returns the rows."""
+    task = inp.task
+    with timer("write"):
+        vis, ois, ris = members
+        sensor_vars, variant_vars = store_variables(list(task.study.metrics))
+        rows = {
+            "indices": vis,
+            "sensor_values": {name: np.asarray(results[name][ois, ris], dtype=np.float32)
+                              for name in sensor_vars},
+            "variant_values": {name: np.asarray(results[name][ois, ris])
+                               for name in variant_vars},
+            "space_values": {name: np.asarray(results[name][ois, ris])
+                             for name in space_variables(list(task.study.metrics))},
+            "spaces": inp.layout.names,
+        }
+        if inp.views is not None:
+            names = [*view_variables(list(task.study.metrics)), results_store.VIEW_MAP]
+            if task.study.store_series:
+                names.append(results_store.VIEW_SERIES)
+            rows["view_values"] = {name: np.asarray(results[name][ois, ris]) for name in names}
+        if store_path is not None:  # every variant's data, then their `done` flags
+            results_store.write_variants(store_path, **rows)
+    return rows
+
+
 def _series(
     task: SeriesTask,
     todo: list[tuple[int, int, int]],
@@ -960,63 +1171,104 @@ def _series(
     timer = _StageTimer()
     with timer("load"):
         inp = _load_series(task, cache_root, coefficient_result, job, climate_data)
-    workspace = Workspace()
-    vis = [vi for vi, _, _ in todo]
-    members = (vis, np.array([oi for _, oi, _ in todo], dtype=np.intp),
-               np.array([ri for _, _, ri in todo], dtype=np.intp))
-    counts = None
-    occ_done = 0
-    kept: list[tuple[int, np.ndarray, np.ndarray]] = []
+    members = _members(todo)
+    year = _fold_year(inp, members, store_path, timer)
     with timer("metrics"):
-        light = _lighting_setup(inp)
-    dgp: list[np.ndarray] = []  # with views: each block's DGPs at the views
-    for a, b in _blocks(len(inp.climate.time), inp.occupied, task.study.store_series,
-                        inp.block_steps()):
-        workspace.view_unit = None
-        counts, lit, unit = _count_block(inp, counts, a, b, workspace, timer)
-        if light is not None:
-            with timer("metrics"):
-                _lighting_block(inp, light, a, b, lit, unit)
-        if inp.views is not None:
-            with timer("metrics"):
-                dgp.append(_glare_block(inp, a, b, lit, unit, workspace.view_unit))
-        if task.study.store_series:
-            with timer("write"):
-                occ_done += _write_series(inp, members, store_path, a, b, lit, unit, occ_done,
-                                          kept)
-        del unit  # the block's direct-sun array is fresh memory: free it before the next
-    with timer("metrics"):
-        results = _final_results(inp, counts)
-        if light is not None:
-            results.update(_lighting_results(inp, light))
-        if inp.views is not None:
-            results[results_store.VIEW_SERIES] = np.concatenate(dgp, axis=-1)
-            results.update(_glare_results(inp, results[results_store.VIEW_SERIES]))
-    with timer("geometry"):
-        results.update(_geometry_results(inp, job))
-    with timer("write"):
-        _, ois, ris = members
-        sensor_vars, variant_vars = store_variables(list(task.study.metrics))
-        rows = {
-            "indices": vis,
-            "sensor_values": {name: np.asarray(results[name][ois, ris], dtype=np.float32)
-                              for name in sensor_vars},
-            "variant_values": {name: np.asarray(results[name][ois, ris])
-                               for name in variant_vars},
-            "space_values": {name: np.asarray(results[name][ois, ris])
-                             for name in space_variables(list(task.study.metrics))},
-            "spaces": inp.layout.names,
-        }
-        if inp.views is not None:
-            names = [*view_variables(list(task.study.metrics)), results_store.VIEW_MAP]
-            if task.study.store_series:
-                names.append(results_store.VIEW_SERIES)
-            rows["view_values"] = {name: np.asarray(results[name][ois, ris]) for name in names}
-        if store_path is not None:  # every variant's data, then their `done` flags
-            results_store.write_variants(store_path, **rows)
+        df, error = _daylight_factors(inp)
+    rows = _write_results(inp, members, _year_results(inp, year, df, error, job, timer),
+                          store_path, timer)
     out = {"variants": len(todo), "recomputed": inp.recomputed, "timing": timer.seconds}
     if store_path is None:  # the client writes them (no shared disk)
-        out.update(rows=rows, series=kept)
+        out.update(rows=rows, series=year.kept)
+    return out
+
+
+def series_part_task(
+    task: SeriesTask,
+    todo: list[tuple[int, int, int]],
+    store_path: str | None,
+    cache_root: str | None,
+    coefficient_result: Any,
+    job: CoefficientJob | None,
+    climate_data: bytes | None,
+    first: int,
+    stop: int,
+) -> dict[str, Any]:
+    """The year of sensors ``[first, stop)`` (whole spaces) of a split series task.
+
+    Parameters as :func:`series_task`; the set's rows of the part only are read
+    (``coefficient_result`` the part, :func:`set_part`, or the whole set). The
+    stored series of the part's sensors is written here (or kept for the client).
+
+    Returns
+    -------
+    dict
+        ``counts`` (the part's spaces, :func:`kernels.metrics.join_counts`),
+        ``df`` and ``error`` per sensor, lighting ``hours`` per space (or None),
+        ``dgp`` of the part's views and their ``view_index``, ``series`` blocks
+        for the client, ``recomputed`` and ``timing``.
+    """
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(limits=1, user_api="blas"):
+        timer = _StageTimer()
+        with timer("load"):
+            inp = _load_series(task, cache_root, coefficient_result, job, climate_data,
+                               part=(first, stop))
+        year = _fold_year(inp, _members(todo), store_path, timer)
+        with timer("metrics"):
+            df, error = _daylight_factors(inp)
+    return {"counts": year.counts, "df": df, "error": error,
+            "hours": None if year.light is None else year.light.hours,
+            "dgp": year.dgp, "view_index": inp.view_index, "series": year.kept,
+            "recomputed": inp.recomputed, "timing": timer.seconds}
+
+
+def series_join_task(
+    task: SeriesTask,
+    todo: list[tuple[int, int, int]],
+    store_path: str | None,
+    job: CoefficientJob | None,
+    climate_data: bytes | None,
+    parts: list[dict[str, Any]],
+) -> dict[str, Any]:
+    """Join the parts of a split series task (:func:`series_part_task`, in sensor order)
+    into the task's results and write them: the same result as :func:`series_task`.
+
+    Every count, daylight factor and lighting hour of a part is its own spaces';
+    joined, they are exactly the unsplit task's (:func:`kernels.metrics.join_counts`),
+    and the building totals are formed here from them as the unsplit task forms them.
+    """
+    from luxsweep.kernels import metrics as km
+    from luxsweep.sweep.lighting import space_lights
+
+    timer = _StageTimer()
+    with timer("load"):
+        inp = _load_series(task, None, None, job, climate_data, coefficients=False)
+    year = _Year(counts=km.join_counts(*(p["counts"] for p in parts)))
+    with timer("metrics"):
+        df = np.concatenate([p["df"] for p in parts], axis=-1)
+        error = np.concatenate([p["error"] for p in parts], axis=-1)
+        if parts[0]["hours"] is not None:
+            year.light = _LightingState(space_lights(task.study, inp.layout), np.empty(0),
+                                        np.concatenate([p["hours"] for p in parts], axis=-1))
+        if inp.views is not None:
+            with_views = [p for p in parts if p["dgp"] is not None]
+            shape = with_views[0]["dgp"].shape
+            year.dgp = np.empty((*shape[:2], inp.views.n_views, shape[-1]), dtype=np.float32)
+            for p in with_views:
+                year.dgp[:, :, p["view_index"]] = p["dgp"]
+    members = _members(todo)
+    rows = _write_results(inp, members, _year_results(inp, year, df, error, job, timer),
+                          store_path, timer)
+    seconds = timer.seconds
+    for p in parts:
+        for k, v in p["timing"].items():
+            seconds[k] += v
+    out = {"variants": len(todo), "recomputed": max(p["recomputed"] for p in parts),
+           "timing": seconds}
+    if store_path is None:
+        out.update(rows=rows, series=[b for p in parts for b in p["series"]])
     return out
 
 
@@ -1479,12 +1731,26 @@ class Collector:
         # the set through Dask while this run holds it; else the worker's cache,
         # or computed there from the job when its cache lacks it
         self.users[task.key] = self.users.get(task.key, 0) + 1
-        return self.client.submit(
-            series_task, task, todo, self.store_path, self.cache_root,
-            self._set_for(task.key), self.jobs.get(task.key),
-            self.climate_data.get(task.climate_file), key=key, priority=0,
-            pure=False, retries=0,
-        )
+        job, climate = self.jobs.get(task.key), self.climate_data.get(task.climate_file)
+        ranges = series_ranges(task, job)
+        if not ranges:
+            return self.client.submit(
+                series_task, task, todo, self.store_path, self.cache_root,
+                self._set_for(task.key), job, climate, key=key, priority=0,
+                pure=False, retries=0,
+            )
+        # a set too large for one task: parts of whole spaces, each with its rows only
+        # (cut where the set is held, or read from the worker's cache), then their join
+        submit = functools.partial(self.client.submit, priority=0, pure=False, retries=0)
+        held = self._set_for(task.key)
+        parts = []
+        for a, b in ranges:
+            rows = (None if held is None
+                    else submit(set_part, held, a, b, key=f"{key}-rows-{a}", priority=1))
+            parts.append(submit(series_part_task, task, todo, self.store_path, self.cache_root,
+                                rows, job, climate, a, b, key=f"{key}-part-{a}"))
+        return submit(series_join_task, task, todo, self.store_path, job, climate, parts,
+                      key=key)
 
     def submit_series(self, task: SeriesTask, todo: list[tuple[int, int, int]],
                       key: str | None = None) -> Any:
@@ -1627,9 +1893,9 @@ class Collector:
         if "rows" in result:  # the client writes the store: series first, `done` last
             t0 = time.perf_counter()
             indices = result["rows"]["indices"]
-            for start, illuminance, direct in result["series"]:
+            for start, first, last, illuminance, direct in result["series"]:
                 results_store.write_series_block(self.results, indices, start, illuminance,
-                                                 direct)
+                                                 direct, first, last)
             results_store.write_variants(self.results, **result["rows"])
             self.timing["write"] = (self.timing.get("write", 0.0)
                                     + time.perf_counter() - t0)
@@ -1715,7 +1981,12 @@ __all__ = [
     "read_weather",
     "results_path",
     "run_study",
+    "series_join_task",
+    "series_part_task",
+    "series_ranges",
     "series_task",
+    "set_bytes_per_sensor",
+    "set_part",
     "split_ranges",
     "store_variables",
     "submit_split",

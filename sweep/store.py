@@ -644,16 +644,16 @@ def _open_arrays(path: str | Path, names: Sequence[str]
 
 
 def _write_block(array: zarr.Array, indices: np.ndarray, block: np.ndarray,
-                 start: int = 0) -> None:
+                 start: int = 0, first: int = 0) -> None:
     """Write ``block`` (n, *region) to the rows ``indices`` of ``array`` (zarr's public API).
 
-    The region spans the whole sensor dimension and starts at ``start`` on the
-    time dimension. Each run of consecutive indices is one slice assignment:
-    a task writing all its variants is one run covering whole chunks, which zarr
-    writes without reading; a run covering part of a chunk makes zarr read and
-    merge it.
+    The region starts at sensor ``first`` (by default it spans the whole sensor
+    dimension) and at ``start`` on the time dimension. Each run of consecutive
+    indices is one slice assignment: a task writing all its variants is one run
+    covering whole chunks, which zarr writes without reading; a run covering
+    part of a chunk makes zarr read and merge it.
     """
-    trailing = [slice(0, array.shape[1])] if array.ndim > 1 else []
+    trailing = [slice(first, first + block.shape[1])] if array.ndim > 1 else []
     if array.ndim > 2:
         trailing.append(slice(start, start + block.shape[2]))
     order = np.argsort(indices, kind="stable")
@@ -805,7 +805,8 @@ def write_variants(
 
 
 def write_series_block(path: str | Path, indices: Sequence[int], start: int,
-                       illuminance: np.ndarray, direct_sun: np.ndarray) -> None:
+                       illuminance: np.ndarray, direct_sun: np.ndarray, first: int = 0,
+                       last: bool = True) -> None:
     """Write one time block of several variants' series into their task's chunks.
 
     Parameters
@@ -821,6 +822,13 @@ def write_series_block(path: str | Path, indices: Sequence[int], start: int,
     illuminance, direct_sun : ndarray (n, n_sensors_of_variants, n_t) [lx]
         Total and direct-sun illuminance; sensor slots beyond the variants'
         sensors are NaN.
+    first : int
+        Sensor of the block's first row: a series task split by ranges of
+        sensors writes its range (a write covering part of a chunk is merged
+        under the block's lock, :func:`_block_locks`).
+    last : bool
+        Whether the block ends at the variants' last sensor (the slots beyond
+        it are then written NaN).
     """
     group, arrays = _open_arrays(path, list(SERIES_VARIABLES))
     idx = _indices(path, indices, arrays["done"].shape[0])
@@ -828,8 +836,9 @@ def write_series_block(path: str | Path, indices: Sequence[int], start: int,
     for name, block in (("illuminance", illuminance), ("direct_sun_illuminance", direct_sun)):
         array = arrays[name]
         block = _rows(path, name, block, idx.size)
-        if block.shape[1] < array.shape[1]:
-            full = np.full((idx.size, array.shape[1], block.shape[2]), np.nan, dtype=array.dtype)
+        if last and first + block.shape[1] < array.shape[1]:
+            full = np.full((idx.size, array.shape[1] - first, block.shape[2]), np.nan,
+                           dtype=array.dtype)
             full[:, : block.shape[1]] = block
             block = full
         blocks[name] = block
@@ -837,7 +846,7 @@ def write_series_block(path: str | Path, indices: Sequence[int], start: int,
         return
     with _block_locks(path, group, idx):
         for name, block in blocks.items():
-            _write_block(arrays[name], idx, block, start)
+            _write_block(arrays[name], idx, block, start, first)
 
 
 def write_variant(

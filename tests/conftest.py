@@ -33,7 +33,8 @@ TMY3_SAND_POINT = PVLIB_DATA / "703165TY.csv"  # real TMY3 year bundled with pvl
 
 CLUSTER_MODULES = frozenset({
     "test_cache_faults", "test_cli", "test_cluster", "test_cluster_trust", "test_exposure",
-    "test_faults", "test_no_shared_disk", "test_run", "test_split_sets", "test_store_batch",
+    "test_faults", "test_no_shared_disk", "test_run", "test_series_parts", "test_split_sets",
+    "test_store_batch",
 })
 """Test modules that start Dask clusters or whole ``luxsweep`` runs. With ``pytest -n 2
 --dist loadgroup`` (the README's test command) they share one test process, so at most one
@@ -340,14 +341,30 @@ def tiny_study(tmp_path: Path) -> Path:
 def run_plan_in_process(plan: Any, results: Path, cache_root: Path | str,
                         job: Any = None) -> None:
     """Create the store of ``plan`` at ``results`` and run every series task in this
-    process (each with its own coefficient job, or ``job`` for all), then consolidate."""
+    process (each with its own coefficient job, or ``job`` for all), then consolidate.
+
+    A task that :func:`sweep.run.series_ranges` splits runs as the cluster runs it:
+    its parts (each reading its rows from the cache), then their join."""
     from luxsweep.sweep import store as results_store
-    from luxsweep.sweep.run import _layout, series_task
+    from luxsweep.sweep.run import (
+        _layout,
+        series_join_task,
+        series_part_task,
+        series_ranges,
+        series_task,
+    )
 
     results_store.create_store(results, _layout(plan))
     for task in plan.tasks:
-        series_task(task, list(task.members), str(results), str(cache_root), None,
-                    job if job is not None else plan.jobs[task.key])
+        task_job = job if job is not None else plan.jobs[task.key]
+        todo = list(task.members)
+        ranges = series_ranges(task, task_job)
+        if not ranges:
+            series_task(task, todo, str(results), str(cache_root), None, task_job)
+            continue
+        parts = [series_part_task(task, todo, str(results), str(cache_root), None, task_job,
+                                  None, a, b) for a, b in ranges]
+        series_join_task(task, todo, str(results), task_job, None, parts)
     results_store.consolidate(results)
 
 
