@@ -61,6 +61,7 @@ __all__ = [
     "occupied_times",
     "order_by_task",
     "room_key",
+    "set_bytes_per_sensor",
     "settings_of",
     "space_key",
 ]
@@ -370,6 +371,13 @@ def _estimate_rays(geometry: Any, sensors: np.ndarray, settings: Any) -> int:
     rays += n_s * settings.sensor_rays + n_elements * settings.element_rays
     rays += n_elements * (n_basis + _sun_points(settings.reflected_sun_spacing))
     return int(rays)
+
+
+def set_bytes_per_sensor(settings: Any, n_sets: int) -> int:
+    """Bytes of one sensor's rows in a coefficient set: its four families (sky and sun,
+    direct and reflected) for every glazing set, float32."""
+    return (BYTES_PER_VALUE * n_sets * 2
+            * (_sun_points(settings.sun_spacing) + _n_basis(settings.subdivision)))
 
 
 @functools.lru_cache(maxsize=8)

@@ -239,15 +239,6 @@ take: a larger set runs its series stage as several tasks over ranges of whole s
 (:func:`series_ranges`)."""
 
 
-def set_bytes_per_sensor(settings: Any, n_sets: int) -> int:
-    """Bytes of one sensor's rows in a coefficient set (four families, float32)."""
-    from luxsweep.kernels.sky import patch_scheme
-    from luxsweep.kernels.sun import SunPoints
-
-    n_basis = patch_scheme(settings.subdivision).n_patches + 1
-    return 4 * n_sets * 2 * (SunPoints(settings.sun_spacing).n + n_basis)
-
-
 def series_ranges(task: SeriesTask, job: CoefficientJob | None) -> list[tuple[int, int]]:
     """Sensor ranges ``[first, stop)`` of the series parts of ``task`` ([] keeps it whole).
 
@@ -266,6 +257,8 @@ def series_ranges(task: SeriesTask, job: CoefficientJob | None) -> list[tuple[in
     own = layout.sensor_space
     if np.any(np.diff(own) < 0):
         return []
+    from luxsweep.sweep.plan import set_bytes_per_sensor
+
     per_sensor = set_bytes_per_sensor(job.settings, len(task.glazing_sets))
     budget = max(1, int(SERIES_SET_SHARE * job.settings.memory_limit * 2**30) // per_sensor)
     if own.size <= budget:
@@ -803,15 +796,13 @@ def _daylight_factors(inp: _SeriesInputs) -> tuple[np.ndarray, np.ndarray]:
     return df, daylight_factor_error(inp.coeffs, ground, inp.open_rows)
 
 
-def _final_results(inp: _SeriesInputs, counts: Any, df: np.ndarray | None = None,
-                   error: np.ndarray | None = None) -> dict[str, np.ndarray]:
+def _final_results(inp: _SeriesInputs, counts: Any, df: np.ndarray,
+                   error: np.ndarray) -> dict[str, np.ndarray]:
     """Metrics from the counts of the whole year, plus the daylight factor (``df`` and
-    ``error`` from :func:`_daylight_factors`, computed here when not given); per space
-    (``space_<name>``, spaces of ``inp.layout``) and for the building."""
+    ``error`` from :func:`_daylight_factors`); per space (``space_<name>``, spaces of
+    ``inp.layout``) and for the building."""
     from luxsweep.kernels import metrics as km
 
-    if df is None or error is None:
-        df, error = _daylight_factors(inp)
     n_o, n_r = len(inp.task.orientations), len(inp.task.rows)
     own, area = inp.layout.sensor_space, inp.layout.area
     results = km.finalize(counts, inp.params, own, area)
@@ -1150,6 +1141,20 @@ def _write_results(inp: _SeriesInputs, members: tuple, results: dict[str, np.nda
     return rows
 
 
+def _year_of(task: SeriesTask, members: tuple, store_path: str | None, cache_root: str | None,
+             coefficient_result: Any, job: CoefficientJob | None, climate_data: bytes | None,
+             part: tuple[int, int] | None, timer: _StageTimer
+             ) -> tuple[_SeriesInputs, _Year, np.ndarray, np.ndarray]:
+    """Load a task (or the part ``part`` of it), fold its year and its daylight factors:
+    what the unsplit task and a series part both compute."""
+    with timer("load"):
+        inp = _load_series(task, cache_root, coefficient_result, job, climate_data, part=part)
+    year = _fold_year(inp, members, store_path, timer)
+    with timer("metrics"):
+        df, error = _daylight_factors(inp)
+    return inp, year, df, error
+
+
 def _series(
     task: SeriesTask,
     todo: list[tuple[int, int, int]],
@@ -1169,12 +1174,9 @@ def _series(
     listed (:func:`_geometry_results`, stage ``geometry``) and the variants' results.
     """
     timer = _StageTimer()
-    with timer("load"):
-        inp = _load_series(task, cache_root, coefficient_result, job, climate_data)
     members = _members(todo)
-    year = _fold_year(inp, members, store_path, timer)
-    with timer("metrics"):
-        df, error = _daylight_factors(inp)
+    inp, year, df, error = _year_of(task, members, store_path, cache_root, coefficient_result,
+                                    job, climate_data, None, timer)
     rows = _write_results(inp, members, _year_results(inp, year, df, error, job, timer),
                           store_path, timer)
     out = {"variants": len(todo), "recomputed": inp.recomputed, "timing": timer.seconds}
@@ -1210,14 +1212,11 @@ def series_part_task(
     """
     from threadpoolctl import threadpool_limits
 
+    timer = _StageTimer()
     with threadpool_limits(limits=1, user_api="blas"):
-        timer = _StageTimer()
-        with timer("load"):
-            inp = _load_series(task, cache_root, coefficient_result, job, climate_data,
-                               part=(first, stop))
-        year = _fold_year(inp, _members(todo), store_path, timer)
-        with timer("metrics"):
-            df, error = _daylight_factors(inp)
+        inp, year, df, error = _year_of(task, _members(todo), store_path, cache_root,
+                                        coefficient_result, job, climate_data, (first, stop),
+                                        timer)
     return {"counts": year.counts, "df": df, "error": error,
             "hours": None if year.light is None else year.light.hours,
             "dgp": year.dgp, "view_index": inp.view_index, "series": year.kept,
@@ -1239,6 +1238,16 @@ def series_join_task(
     joined, they are exactly the unsplit task's (:func:`kernels.metrics.join_counts`),
     and the building totals are formed here from them as the unsplit task forms them.
     """
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(limits=1, user_api="blas"):  # as the unsplit task forms them
+        return _join(task, todo, store_path, job, climate_data, parts)
+
+
+def _join(task: SeriesTask, todo: list[tuple[int, int, int]], store_path: str | None,
+          job: CoefficientJob | None, climate_data: bytes | None,
+          parts: list[dict[str, Any]]) -> dict[str, Any]:
+    """Body of :func:`series_join_task` (same parameters and result)."""
     from luxsweep.kernels import metrics as km
     from luxsweep.sweep.lighting import space_lights
 
@@ -1985,7 +1994,6 @@ __all__ = [
     "series_part_task",
     "series_ranges",
     "series_task",
-    "set_bytes_per_sensor",
     "set_part",
     "split_ranges",
     "store_variables",

@@ -181,6 +181,7 @@ def _glare_series(study, cache):
         Workspace,
         _blocks,
         _count_block,
+        _daylight_factors,
         _final_results,
         _glare_block,
         _load_series,
@@ -197,7 +198,8 @@ def _glare_series(study, cache):
         workspace.view_unit = None
         counts, lit, unit = _count_block(inp, counts, a, b, workspace, timer)
         dgp.append(_glare_block(inp, a, b, lit, unit, workspace.view_unit))
-    return np.concatenate(dgp, axis=-1), _final_results(inp, counts)["shading_hours"]
+    return (np.concatenate(dgp, axis=-1),
+            _final_results(inp, counts, *_daylight_factors(inp))["shading_hours"])
 
 
 def test_closed_shading_lowers_the_eye_illuminance_by_the_transmittance_ratio(tmp_path):

@@ -25,6 +25,7 @@ import pytest
 from conftest import TINY_COMPUTE, TMY3_GREENSBORO, run_plan_in_process, store_arrays
 
 from luxsweep.sweep import run as sweep_run
+from luxsweep.sweep.plan import set_bytes_per_sensor
 from luxsweep.sweep.spaces import single_space
 
 STUDY = """\
@@ -129,7 +130,7 @@ def test_parts_hold_whole_spaces_within_the_budget(whole, monkeypatch):
     job = plan.jobs[task.key]
     own = task.layout.sensor_space
     sizes = np.bincount(own).tolist()
-    per_sensor = sweep_run.set_bytes_per_sensor(job.settings, len(task.glazing_sets))
+    per_sensor = set_bytes_per_sensor(job.settings, len(task.glazing_sets))
     limit = job.settings.memory_limit * 2**30
 
     def budget(sensors):  # the share of memory_limit that holds `sensors` rows
@@ -170,7 +171,7 @@ def test_split_task_writes_the_unsplit_store(whole, tmp_path, monkeypatch, budge
     study, cache, plan, reference = whole
     (task,) = plan.tasks
     job = plan.jobs[task.key]
-    per_sensor = sweep_run.set_bytes_per_sensor(job.settings, len(task.glazing_sets))
+    per_sensor = set_bytes_per_sensor(job.settings, len(task.glazing_sets))
     east_and_middle = int(np.count_nonzero(task.layout.sensor_space < 2))
     sensors = 1 if budget == "one space per part" else east_and_middle
     monkeypatch.setattr(sweep_run, "SERIES_SET_SHARE",
@@ -194,7 +195,7 @@ def test_split_task_on_a_cluster(whole, tmp_path, monkeypatch, shared_disk):
     study, _, plan, reference = whole
     (task,) = plan.tasks
     job = plan.jobs[task.key]
-    per_sensor = sweep_run.set_bytes_per_sensor(job.settings, len(task.glazing_sets))
+    per_sensor = set_bytes_per_sensor(job.settings, len(task.glazing_sets))
     monkeypatch.setattr(sweep_run, "SERIES_SET_SHARE",
                         per_sensor / (job.settings.memory_limit * 2**30))
     split = []
